@@ -1,0 +1,51 @@
+"""The `gainbench` command line: one sub-command per module of `bench.commands`."""
+
+from __future__ import annotations
+
+import argparse
+import importlib
+import sys
+from collections.abc import Sequence
+
+from bench import __version__
+from bench.errors import GainbenchError
+
+#: Modules of `bench.commands`, in the order `gainbench --help` lists them.
+COMMAND_MODULES = (
+    "sample",
+    "check",
+)
+
+
+def build_parser() -> argparse.ArgumentParser:
+    parser = argparse.ArgumentParser(
+        prog="gainbench",
+        description="Pump-probe gain and inversion measurements: instruments, live estimates, "
+        "guard, run store, replay. Laser safety: this software is a second layer only; it never "
+        "replaces hardware interlocks, your laser safety officer, ANSI Z136.1 / IEC 60825-1 or "
+        "local rules.",
+    )
+    parser.add_argument("--version", action="version", version=f"gainbench {__version__}")
+    sub = parser.add_subparsers(dest="command", metavar="COMMAND")
+    for name in COMMAND_MODULES:
+        module = importlib.import_module(f"bench.commands.{name}")
+        p = sub.add_parser(module.NAME, help=module.HELP, description=module.HELP)
+        module.configure(p)
+        p.set_defaults(_run=module.run)
+    return parser
+
+
+def main(argv: Sequence[str] | None = None) -> int:
+    parser = build_parser()
+    args = parser.parse_args(argv)
+    if not getattr(args, "_run", None):
+        parser.print_help()
+        return 2
+    try:
+        return int(args._run(args) or 0)
+    except GainbenchError as exc:
+        print(f"gainbench: error: {exc}", file=sys.stderr)
+        return 2
+    except KeyboardInterrupt:
+        print("gainbench: interrupted", file=sys.stderr)
+        return 130

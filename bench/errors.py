@@ -1,0 +1,18 @@
+"""The exceptions gainbench shows to a user.
+
+Every error a user can cause (a bad bench file, a missing run, a refused command) is a
+`GainbenchError` whose message already says which file, key or line is wrong and what was
+expected; the command line prints that message and exits with status 2, never a traceback.
+"""
+
+
+class GainbenchError(Exception):
+    """An error with a message meant for the person at the bench."""
+
+
+class ConfigError(GainbenchError):
+    """A bench file, a command-line quantity or a spectrum file is not what was expected."""
+
+
+class RunStoreError(GainbenchError):
+    """A run file is missing, truncated, foreign or of a newer schema."""

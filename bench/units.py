@@ -1,0 +1,148 @@
+"""Quantities with units at the edge: text such as ``"5 mm"`` becomes an SI float.
+
+pint is used here and only here (bench files, command-line options); everything past this
+module is plain float64 in SI units (m, m², m⁻³, s, W, K, A, J, Hz).
+"""
+
+from __future__ import annotations
+
+from functools import lru_cache
+
+import pint
+
+from bench.errors import ConfigError
+
+#: Name of each kind of quantity -> the SI unit it is converted to.
+SI_UNITS: dict[str, str] = {
+    "length": "m",
+    "area": "m**2",
+    "density": "m**-3",
+    "time": "s",
+    "power": "W",
+    "energy": "J",
+    "fluence": "J/m**2",
+    "intensity": "W/m**2",
+    "temperature": "K",
+    "current": "A",
+    "voltage": "V",
+    "frequency": "Hz",
+    "slope": "W/A",
+    "volts_per_watt": "V/W",
+    "kelvin_per_amp": "K/A",
+    "dimensionless": "dimensionless",
+}
+
+#: How each kind is named in error messages.
+KIND_WORDS = {
+    "length": "a length",
+    "area": "an area (cross-section)",
+    "density": "a number density",
+    "time": "a time",
+    "power": "a power",
+    "energy": "an energy",
+    "fluence": "a fluence",
+    "intensity": "an intensity",
+    "temperature": "a temperature",
+    "current": "a current",
+    "voltage": "a voltage",
+    "frequency": "a frequency",
+    "slope": "a slope efficiency (power per current)",
+    "volts_per_watt": "a responsivity (volts per watt)",
+    "kelvin_per_amp": "a heating coefficient (kelvin per ampere)",
+    "dimensionless": "a plain number",
+}
+
+
+@lru_cache(maxsize=1)
+def registry() -> pint.UnitRegistry:
+    """The one unit registry (temperatures in °C are converted as offsets, not deltas)."""
+    ureg = pint.UnitRegistry(autoconvert_offset_to_baseunit=True)
+    return ureg
+
+
+def parse_quantity(text: object, kind: str, where: str) -> float:
+    """Parse ``text`` (``"5 mm"``, ``"2.1e-20 cm^2"``, ``"25 degC"``) into an SI float.
+
+    Parameters
+    ----------
+    text : str or number
+        The quantity as written. A bare number is accepted only for ``kind="dimensionless"``.
+    kind : str
+        One of `SI_UNITS`.
+    where : str
+        What names the value in an error, e.g. ``"bench.toml: sample.length"``.
+
+    Raises
+    ------
+    ConfigError
+        ``where: "5 kg" is not a length (expected units such as m)``.
+    """
+    if kind not in SI_UNITS:
+        raise ValueError(f"kind: unknown quantity kind {kind!r}")
+    target = SI_UNITS[kind]
+    if isinstance(text, bool):
+        raise ConfigError(f"{where}: {text!r} is not {KIND_WORDS[kind]}")
+    if isinstance(text, (int, float)):
+        if kind == "dimensionless":
+            return float(text)
+        raise ConfigError(
+            f"{where}: {text!r} has no unit; write it with one, e.g. \"{text} {_example_unit(kind)}\""
+        )
+    if not isinstance(text, str) or not text.strip():
+        raise ConfigError(f"{where}: {text!r} is not {KIND_WORDS[kind]}")
+    ureg = registry()
+    cleaned = text.strip().replace("^", "**").replace("µ", "u").replace("μ", "u")
+    try:
+        q = ureg.Quantity(cleaned)
+    except Exception:  # pint raises several unrelated types for unparsable text
+        raise ConfigError(
+            f"{where}: \"{text}\" is not {KIND_WORDS[kind]} (could not read it as a number with a unit)"
+        ) from None
+    if not isinstance(q, pint.Quantity):  # a bare number
+        q = ureg.Quantity(float(q), "dimensionless")
+    try:
+        value = float(q.to(target).magnitude)
+    except pint.DimensionalityError:
+        raise ConfigError(
+            f"{where}: \"{text}\" is not {KIND_WORDS[kind]} (expected units such as {_example_unit(kind)})"
+        ) from None
+    if value != value:  # NaN
+        raise ConfigError(f"{where}: {text!r} is not a number")
+    return value
+
+
+def parse_relative(text: object, where: str) -> float:
+    """A relative uncertainty: ``"5 %"`` or ``0.05`` -> 0.05."""
+    if isinstance(text, (int, float)) and not isinstance(text, bool):
+        value = float(text)
+    elif isinstance(text, str) and text.strip().endswith("%"):
+        try:
+            value = float(text.strip()[:-1]) / 100.0
+        except ValueError:
+            raise ConfigError(f"{where}: {text!r} is not a percentage such as \"5 %\"") from None
+    else:
+        raise ConfigError(f"{where}: {text!r} is not a relative uncertainty (\"5 %\" or 0.05)")
+    if not 0.0 <= value < 1.0:
+        raise ConfigError(f"{where}: {text!r} must be between 0 % and 100 %")
+    return value
+
+
+def _example_unit(kind: str) -> str:
+    return {
+        "length": "mm",
+        "area": "cm^2",
+        "density": "cm^-3",
+        "time": "ms",
+        "power": "W",
+        "energy": "mJ",
+        "fluence": "J/cm^2",
+        "intensity": "W/cm^2",
+        "temperature": "K or degC",
+        "current": "A",
+        "voltage": "V",
+        "frequency": "kHz",
+        "slope": "W/A",
+        "volts_per_watt": "V/W",
+        "kelvin_per_amp": "K/A",
+        "dimensionless": "(none)",
+    }[kind]

@@ -1,0 +1,1 @@
+"""Instrument drivers: sans-I/O protocol code apart from pyvisa / pyserial transports."""
