@@ -4,6 +4,7 @@ from __future__ import annotations
 
 import argparse
 import importlib
+import os
 import sys
 from collections.abc import Sequence
 
@@ -14,6 +15,7 @@ from bench.errors import GainbenchError
 COMMAND_MODULES = (
     "sample",
     "check",
+    "safety",
 )
 
 
@@ -49,3 +51,9 @@ def main(argv: Sequence[str] | None = None) -> int:
     except KeyboardInterrupt:
         print("gainbench: interrupted", file=sys.stderr)
         return 130
+    except BrokenPipeError:  # e.g. `gainbench runs | head`: the reader left, not an error
+        try:
+            sys.stdout = open(os.devnull, "w")  # noqa: SIM115 - silence the flush at exit
+        except OSError:
+            pass
+        return 0
