@@ -16,6 +16,7 @@ COMMAND_MODULES = (
     "sample",
     "check",
     "safety",
+    "instruments",
 )
 
 

@@ -1,0 +1,84 @@
+"""Pump role: a laser-diode current driver with output switch, interlock and mount temperature.
+
+The driver only carries out what it is asked; deciding when the pump may emit is the guard's
+job, and neither replaces the hardware interlock. Laser safety rests with the laser safety
+officer, ANSI Z136.1 / IEC 60825-1 and local rules.
+"""
+
+from __future__ import annotations
+
+from drivers.base import Driver, check_finite
+from drivers.registry import register
+
+
+@register("pump-driver")
+class PumpDriver(Driver):
+    """Laser-diode current driver with output switch, hardware interlock and mount temperature."""
+
+    ROLE = "pump"
+    OPTIONS = frozenset()
+
+    def set_current(self, current_a: float) -> None:
+        """Set the current setpoint (A)."""
+        self.session.write("set_current", value=check_finite("current_a", current_a, minimum=0.0))
+
+    def current_setpoint(self) -> float:
+        """The current setpoint (A)."""
+        return float(self.session.query("current_setpoint"))
+
+    def measured_current(self) -> float:
+        """The diode current the driver measures (A)."""
+        return float(self.session.query("measured_current"))
+
+    def current_limit(self) -> float:
+        """The driver's current limit (A)."""
+        return float(self.session.query("current_limit"))
+
+    def set_current_limit(self, current_a: float) -> None:
+        """Set the driver's current limit (A)."""
+        self.session.write("set_current_limit", value=check_finite("current_a", current_a, minimum=0.0))
+
+    def output(self, on: bool) -> None:
+        """Switch the output on or off."""
+        if not isinstance(on, bool):
+            raise ValueError(f"on: expected True or False, got {on!r}")
+        self.session.write("output_on" if on else "output_off")
+
+    def output_is_on(self) -> bool:
+        """Whether the output is on."""
+        return bool(self.session.query("output_state"))
+
+    def interlock_closed(self) -> bool:
+        """Whether the hardware interlock is closed (the driver may emit)."""
+        return bool(self.session.query("interlock"))
+
+    def mount_temperature(self) -> float:
+        """Mount temperature (K)."""
+        return float(self.session.query("mount_temperature"))
+
+    def mount_temperature_setpoint(self) -> float:
+        """Mount temperature setpoint (K)."""
+        return float(self.session.query("mount_temperature_setpoint"))
+
+    def set_mount_temperature(self, temperature_k: float) -> None:
+        """Set the mount temperature setpoint (K)."""
+        self.session.write(
+            "set_mount_temperature", value=check_finite("temperature_k", temperature_k, positive=True)
+        )
+
+    def set_modulation(self, freq_hz: float | None) -> None:
+        """Square-wave modulate the output at ``freq_hz``, or stop modulating (None)."""
+        if freq_hz is None:
+            self.session.write("modulation_off")
+            return
+        hz = check_finite("freq_hz", freq_hz, positive=True)
+        self.session.write("set_modulation_frequency", value=hz)
+        self.session.write("modulation_on")
+
+    def modulation_frequency(self) -> float:
+        """Modulation frequency (Hz)."""
+        return float(self.session.query("modulation_frequency"))
+
+    def power(self) -> float:
+        """Optical output power from the driver's calibration (W)."""
+        return float(self.session.query("power"))

@@ -1,0 +1,169 @@
+"""Drivers register by name; `open_instrument` builds one from a bench file's instrument entry.
+
+::
+
+    @register("pump-driver")
+    class PumpDriver(Driver):
+        ROLE = "pump"
+
+A driver whose optional dependency is missing registers as unavailable, with a message that
+says what to install; asking for it raises `InterfaceUnavailable` with that message.
+"""
+
+from __future__ import annotations
+
+import importlib
+from collections.abc import Callable, Mapping
+from dataclasses import dataclass
+from typing import Any, TypeVar
+
+from drivers.base import Driver
+from drivers.errors import InstrumentError, InterfaceUnavailable
+from drivers.profile import load_profile
+from drivers.session import Session
+from drivers.transport import TransportSpec, open_transport
+
+#: The built-in driver modules, imported on first use so that they register themselves.
+BUILTIN_DRIVER_MODULES = ("drivers.digitiser", "drivers.pump", "drivers.shutter", "drivers.wavelength")
+
+#: The resource string that stands for "start the simulated bench and use its resources".
+SIMULATED = "simulated"
+
+
+@dataclass(frozen=True)
+class DriverInfo:
+    """One registered driver."""
+
+    name: str
+    role: str
+    cls: type[Driver] | None
+    unavailable: str = ""
+    summary: str = ""
+
+
+_DRIVERS: dict[str, DriverInfo] = {}
+_loaded = False
+
+D = TypeVar("D", bound=type[Driver])
+
+
+def register(name: str) -> Callable[[D], D]:
+    """Class decorator: register a `Driver` subclass under ``name`` (its ``ROLE`` must be set)."""
+
+    def decorate(cls: D) -> D:
+        if not cls.ROLE:
+            raise ValueError(f"name: driver class {cls.__name__} registered as {name!r} has no ROLE")
+        cls.DRIVER_NAME = name
+        summary = (cls.__doc__ or "").strip().splitlines()[0] if cls.__doc__ else ""
+        _DRIVERS[name] = DriverInfo(name, cls.ROLE, cls, summary=summary)
+        return cls
+
+    return decorate
+
+
+def register_unavailable(name: str, role: str, message: str) -> None:
+    """Register ``name`` as unusable; ``message`` says what to install."""
+    _DRIVERS[name] = DriverInfo(name, role, None, unavailable=message)
+
+
+def _load_builtin() -> None:
+    global _loaded
+    if _loaded:
+        return
+    _loaded = True
+    for module in BUILTIN_DRIVER_MODULES:
+        try:
+            importlib.import_module(module)
+        except ImportError as exc:
+            name = module.rsplit(".", 1)[-1]
+            register_unavailable(
+                name, "", f"the {name} driver needs {exc.name or exc}: install it with `pip install {exc.name}`"
+            )
+
+
+def known_drivers() -> dict[str, DriverInfo]:
+    """All registered drivers by name (built-in ones included)."""
+    _load_builtin()
+    return dict(sorted(_DRIVERS.items()))
+
+
+def driver_class(name: str, *, role: str = "", resource: str = "") -> type[Driver]:
+    """The class registered as ``name``; a clear error listing the known names if there is none."""
+    drivers = known_drivers()
+    info = drivers.get(name)
+    if info is None:
+        raise InstrumentError(
+            f"unknown driver {name!r}; known drivers: {', '.join(drivers) or '(none)'}",
+            role=role, resource=resource,
+        )
+    if info.cls is None:
+        raise InterfaceUnavailable(info.unavailable, role=role, resource=resource)
+    return info.cls
+
+
+def open_instrument(
+    role: str,
+    driver: str,
+    resource: str,
+    profile: str,
+    timeout_s: float | None = None,
+    options: Mapping[str, Any] | None = None,
+    *,
+    backend: str | None = None,
+) -> Driver:
+    """Open one instrument and return its driver.
+
+    Parameters
+    ----------
+    role : str
+        The instrument's role in the bench file (``"pump"``); names it in errors.
+    driver : str
+        Registered driver name (``"pump-driver"``).
+    resource : str
+        VISA resource or serial port. ``"simulated"`` must be resolved to a real resource
+        first (the simulated bench gives one per role).
+    profile : str
+        Built-in profile name or path of a profile file.
+    timeout_s : float, optional
+        Deadline of one exchange; the profile's ``[transport] timeout`` if not given.
+    options : mapping, optional
+        Driver options from the bench file; they override the profile's ``[options]``.
+    backend : str, optional
+        VISA library (``"@py"`` by default; ``"file.yaml@sim"`` for pyvisa-sim). Overrides the
+        ``visa_backend`` option.
+    """
+    if not isinstance(resource, str) or not resource.strip():
+        raise InstrumentError(f"no resource given for driver {driver!r}", role=role)
+    if resource.strip().lower() == SIMULATED:
+        raise InstrumentError(
+            "resource 'simulated' stands for the simulated bench: start it first and use the "
+            "resource it gives for this role",
+            role=role, resource=resource,
+        )
+    cls = driver_class(driver, role=role, resource=resource)
+    prof = load_profile(profile, role=cls.ROLE)
+    if timeout_s is not None and not (isinstance(timeout_s, (int, float)) and timeout_s > 0):
+        raise ValueError(f"timeout_s: expected a number of seconds > 0, got {timeout_s!r}")
+    timeout = float(timeout_s) if timeout_s is not None else prof.transport.timeout_s
+    merged: dict[str, Any] = {**prof.options, **(options or {})}
+    visa_backend = backend or merged.get("visa_backend") or "@py"
+    spec = TransportSpec(
+        resource=resource,
+        timeout_s=timeout,
+        read_termination=prof.transport.read_termination,
+        write_termination=prof.transport.write_termination,
+        baudrate=prof.transport.baudrate,
+        chunk_size=prof.transport.chunk_size,
+        visa_backend=str(visa_backend),
+        role=role,
+    )
+    try:
+        transport = open_transport(spec)
+    except ValueError as exc:  # a resource string of no known kind
+        raise InstrumentError(str(exc), role=role, resource=resource) from None
+    session = Session(prof, transport, role=role, resource=resource, timeout_s=timeout)
+    try:
+        return cls(session, merged)
+    except BaseException:
+        session.close()
+        raise
