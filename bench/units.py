@@ -6,6 +6,8 @@ module is plain float64 in SI units (m, m², m⁻³, s, W, K, A, J, Hz).
 
 from __future__ import annotations
 
+import math
+import re
 from functools import lru_cache
 
 import pint
@@ -53,6 +55,10 @@ KIND_WORDS = {
 }
 
 
+#: Text whose every power (``**``) is a small whole number, never a power of a power.
+_SAFE_EXPONENTS = re.compile(r"(?:(?!\*\*)[^*]|\*(?!\*)|\*\*\s*\(?-?\d{1,2}\)?(?!\s*\*\*))*")
+
+
 @lru_cache(maxsize=1)
 def registry() -> pint.UnitRegistry:
     """The one unit registry (temperatures in °C are converted as offsets, not deltas)."""
@@ -92,6 +98,12 @@ def parse_quantity(text: object, kind: str, where: str) -> float:
         raise ConfigError(f"{where}: {text!r} is not {KIND_WORDS[kind]}")
     ureg = registry()
     cleaned = text.strip().replace("^", "**").replace("µ", "u").replace("μ", "u")
+    if len(cleaned) > 60 or not _SAFE_EXPONENTS.fullmatch(cleaned):
+        # pint evaluates powers exactly: "9**9**9 m" would never return
+        raise ConfigError(
+            f"{where}: \"{text}\" is not {KIND_WORDS[kind]} (write a number and a unit, e.g. "
+            f"\"5 {_example_unit(kind)}\"; unit powers may only be small whole numbers)"
+        )
     try:
         q = ureg.Quantity(cleaned)
     except Exception:  # pint raises several unrelated types for unparsable text
@@ -102,12 +114,12 @@ def parse_quantity(text: object, kind: str, where: str) -> float:
         q = ureg.Quantity(float(q), "dimensionless")
     try:
         value = float(q.to(target).magnitude)
-    except pint.DimensionalityError:
+    except (pint.DimensionalityError, ArithmeticError):
         raise ConfigError(
             f"{where}: \"{text}\" is not {KIND_WORDS[kind]} (expected units such as {_example_unit(kind)})"
         ) from None
-    if value != value:  # NaN
-        raise ConfigError(f"{where}: {text!r} is not a number")
+    if not math.isfinite(value):
+        raise ConfigError(f"{where}: \"{text}\" is not a finite number")
     return value
 
 
