@@ -17,6 +17,13 @@ COMMAND_MODULES = (
     "check",
     "safety",
     "instruments",
+    "sim",
+    "record",
+    "runs",
+    "summary",
+    "replay",
+    "export",
+    "import_csv",
 )
 
 

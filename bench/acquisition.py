@@ -1,0 +1,254 @@
+"""Reader threads: one per instrument, each turning reads into `Block`s on a bounded queue.
+
+A reader never waits for the consumer: when the queue is full the block is dropped, counted,
+and the count is reported (the consumer stores it as a ``drop`` event and the snapshot shows
+it). A failed exchange is reported as a `CommStatus` item, so the guard sees a failing
+instrument as soon as the consumer does. Every blocking read has a timeout (the driver's), and
+every loop checks its stop flag, so the threads end promptly when asked.
+"""
+
+from __future__ import annotations
+
+import logging
+import queue
+import threading
+import time
+from collections.abc import Callable
+from dataclasses import dataclass
+
+import numpy as np
+
+from bench.records import (
+    INTERLOCK,
+    MOUNT_TEMP,
+    PUMP_CURRENT,
+    PUMP_ON,
+    PUMP_SETPOINT,
+    Block,
+)
+
+log = logging.getLogger(__name__)
+
+PUMP_CHANNELS = (PUMP_CURRENT, PUMP_SETPOINT, PUMP_ON, MOUNT_TEMP, INTERLOCK)
+
+
+@dataclass(frozen=True)
+class CommStatus:
+    """The outcome of one exchange with an instrument (only failures and recoveries are sent)."""
+
+    source: str
+    ok: bool
+    t: float
+    detail: str = ""
+    lost: bool = False
+
+
+class RunClock:
+    """Seconds since the run started, on the monotonic clock, times ``speed``.
+
+    ``speed`` is 1 on a real bench; on an accelerated simulated bench it is the simulation's
+    speed-up, so that polled readings and digitiser sample times share one time axis.
+    """
+
+    def __init__(self, speed: float = 1.0, start: float | None = None):
+        if not speed > 0:
+            raise ValueError(f"speed: {speed} is not positive")
+        self.speed = float(speed)
+        self.start = time.monotonic() if start is None else start
+
+    def now(self) -> float:
+        return (time.monotonic() - self.start) * self.speed
+
+
+class DropCounter:
+    """Blocks dropped because the queue was full, per source (thread-safe)."""
+
+    def __init__(self) -> None:
+        self._lock = threading.Lock()
+        self._counts: dict[str, int] = {}
+        self._samples: dict[str, int] = {}
+
+    def add(self, source: str, samples: int) -> None:
+        with self._lock:
+            self._counts[source] = self._counts.get(source, 0) + 1
+            self._samples[source] = self._samples.get(source, 0) + samples
+
+    def totals(self) -> tuple[dict[str, int], dict[str, int]]:
+        with self._lock:
+            return dict(self._counts), dict(self._samples)
+
+
+class Reader(threading.Thread):
+    """Base reader: calls `read_once` until stopped, putting what it returns on the queue."""
+
+    source = "instrument"
+
+    def __init__(self, out: queue.Queue, clock: RunClock, drops: DropCounter, stop: threading.Event):
+        super().__init__(name=f"reader-{self.source}", daemon=True)
+        self.out = out
+        self.clock = clock
+        self.drops = drops
+        self.stop_flag = stop
+        self.failures = 0
+        self.seq = 0
+        self.reads = 0
+        self.error: BaseException | None = None
+
+    def read_once(self) -> Block | None:  # pragma: no cover - overridden
+        raise NotImplementedError
+
+    def idle_wait(self) -> float:
+        """Seconds to wait when a read returned nothing."""
+        return 0.002
+
+    def put(self, item: object, samples: int = 0) -> None:
+        try:
+            self.out.put_nowait(item)
+        except queue.Full:
+            if isinstance(item, CommStatus):  # never lose a failure report: wait briefly
+                try:
+                    self.out.put(item, timeout=0.2)
+                    return
+                except queue.Full:
+                    pass
+            self.drops.add(self.source, samples)
+
+    def run(self) -> None:
+        from drivers.errors import InstrumentError
+
+        while not self.stop_flag.is_set():
+            try:
+                block = self.read_once()
+            except InstrumentError as exc:
+                self.failures += 1
+                lost = type(exc).__name__ == "ConnectionLost"
+                self.put(CommStatus(self.source, False, self.clock.now(), str(exc), lost=lost))
+                log.warning("%s: %s", self.source, exc)
+                self.stop_flag.wait(min(0.05 * self.failures, 0.5))
+                self.reconnect()
+                continue
+            except Exception as exc:  # a bug or an unexpected library error: report and stop reading
+                self.error = exc
+                self.put(CommStatus(self.source, False, self.clock.now(), f"reader stopped: {exc!r}", lost=True))
+                log.exception("%s reader stopped", self.source)
+                return
+            if self.failures:
+                self.failures = 0
+                self.put(CommStatus(self.source, True, self.clock.now(), "recovered"))
+            if block is None:
+                self.stop_flag.wait(self.idle_wait())
+                continue
+            self.reads += 1
+            self.put(block, samples=block.n)
+
+    def reconnect(self) -> None:
+        """Try to reopen the connection; the next read tells whether it worked."""
+
+
+class DetectorReader(Reader):
+    """Fetches sample sets from the digitiser; block times come from the sample index."""
+
+    source = "detector"
+
+    def __init__(self, digitiser, out, clock, drops, stop, *, max_sets: int = 65536):
+        super().__init__(out, clock, drops, stop)
+        self.digitiser = digitiser
+        self.max_sets = int(max_sets)
+        self.rate = float(digitiser.rate_hz)
+        self.channels = tuple(digitiser.channel_names)
+        self.t_start = 0.0
+        self.next_index = 0
+        self.lost_reported = 0
+
+    def start_acquisition(self) -> None:
+        """Start the digitiser; its sample 0 is taken now on the run clock."""
+        self.digitiser.start()
+        self.t_start = self.clock.now()
+        self.next_index = 0
+
+    def read_once(self) -> Block | None:
+        result = self.digitiser.fetch(self.max_sets)
+        if result.lost > self.lost_reported:
+            self.put(CommStatus(self.source, True, self.clock.now(),
+                                f"instrument buffer overflow: {result.lost - self.lost_reported} sample sets lost"))
+            self.lost_reported = result.lost
+        if result.data.shape[0] == 0:
+            return None
+        block = Block(
+            source=self.source,
+            seq=self.seq,
+            t0=self.t_start + result.first_index / self.rate,
+            dt=1.0 / self.rate,
+            first_index=int(result.first_index),
+            channels=self.channels,
+            data=result.data,
+        )
+        self.seq += 1
+        self.next_index = result.first_index + result.data.shape[0]
+        return block
+
+    def idle_wait(self) -> float:
+        # Wait for roughly a tenth of a full fetch to accumulate, within 2-20 ms.
+        return min(max(0.1 * self.max_sets / (self.rate * self.clock.speed), 0.002), 0.02)
+
+    def reconnect(self) -> None:
+        try:
+            self.digitiser.session.reconnect()
+        except Exception as exc:  # the next read reports the failure
+            log.info("detector reconnect failed: %s", exc)
+
+
+class PumpReader(Reader):
+    """Polls the pump driver: current, setpoint, output, mount temperature, interlock."""
+
+    source = "pump"
+
+    def __init__(self, pump, out, clock, drops, stop, *, period: float = 0.02,
+                 pump_lock: threading.Lock | None = None):
+        super().__init__(out, clock, drops, stop)
+        self.pump = pump
+        self.period = float(period)
+        self._next = time.monotonic()
+
+    def read_once(self) -> Block | None:
+        now = time.monotonic()
+        if now < self._next:
+            self.stop_flag.wait(self._next - now)
+            if self.stop_flag.is_set():
+                return None
+        self._next = max(self._next + self.period, time.monotonic())
+        t = self.clock.now()
+        row = (
+            self.pump.measured_current(),
+            self.pump.current_setpoint(),
+            1.0 if self.pump.output_is_on() else 0.0,
+            self.pump.mount_temperature(),
+            1.0 if self.pump.interlock_closed() else 0.0,
+        )
+        block = Block(self.source, self.seq, t, 0.0, -1, PUMP_CHANNELS, np.array([row], dtype=np.float64))
+        self.seq += 1
+        return block
+
+    def idle_wait(self) -> float:
+        return 0.0
+
+    def reconnect(self) -> None:
+        try:
+            self.pump.session.reconnect()
+        except Exception as exc:
+            log.info("pump reconnect failed: %s", exc)
+
+
+def start_readers(readers: list[Reader]) -> None:
+    for r in readers:
+        r.start()
+
+
+def stop_readers(readers: list[Reader], stop: threading.Event, timeout: float = 5.0,
+                 on_stuck: Callable[[Reader], None] | None = None) -> None:
+    stop.set()
+    deadline = time.monotonic() + timeout
+    for r in readers:
+        r.join(max(0.0, deadline - time.monotonic()))
+        if r.is_alive() and on_stuck:
+            on_stuck(r)

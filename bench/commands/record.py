@@ -1,0 +1,196 @@
+"""`gainbench record`: acquire, estimate and log one run, headless.
+
+The measurement goes: dark (probe shutter closed), baseline (pump off), the arming checklist,
+then the pump on in the chosen mode for ``--seconds``, then the pump off and the run closed.
+A one-line status is printed every second. The run id is printed at the end.
+"""
+
+from __future__ import annotations
+
+import argparse
+import math
+import sys
+import time
+
+from bench.config import load_bench
+from bench.errors import ConfigError, GainbenchError
+from bench.units import parse_quantity
+
+NAME = "record"
+HELP = "acquire, estimate and log a run (headless; dark, baseline, arming checklist, pump program)"
+
+
+def configure(parser: argparse.ArgumentParser) -> None:
+    parser.add_argument("--config", metavar="FILE", help="bench file; default: the built-in simulated bench")
+    parser.add_argument("--mode", choices=("watch", "chopped", "decay", "sweep"), default="watch",
+                        help="watch: steady pump; chopped: modulated pump; decay: lifetime from pump-off "
+                             "transients; sweep: pump current steps (default watch)")
+    parser.add_argument("--seconds", type=float, default=5.0, metavar="N",
+                        help="how long the pump program runs, in seconds of the run clock (default 5)")
+    parser.add_argument("--current", metavar="I", help='pump current, e.g. "6 A" (default 80%% of the limit)')
+    parser.add_argument("--steps", type=int, default=6, help="pump current steps in sweep mode (default 6)")
+    parser.add_argument("--logs", metavar="DIR", help="run store directory (default: the bench file's run.log_dir)")
+    parser.add_argument("--speed", type=float, default=1.0,
+                        help="simulated bench only: simulated seconds per real second (default 1)")
+    parser.add_argument("--fault", action="append", default=[], metavar="SPEC",
+                        help="simulated bench only: inject a fault, e.g. interlock@3s (repeatable; "
+                             "see `gainbench sim serve --help`)")
+    parser.add_argument("--operator", metavar="NAME", help="who runs the measurement (recorded with every answer)")
+    parser.add_argument("--eyewear-od", action="append", default=[], metavar="WAVELENGTH=OD",
+                        help="OD of the eyewear worn, per laser wavelength, e.g. 940nm=5 (repeatable)")
+    parser.add_argument("--confirm-setup", action="store_true",
+                        help="confirm that the beam path is enclosed, beam dumps are in place and the "
+                             "warning sign or light is on (otherwise asked on the terminal)")
+    parser.add_argument("--no-dark", action="store_true", help="skip the dark capture")
+    parser.add_argument("--seed", type=int, help="simulated bench only: random seed")
+    parser.add_argument("--quiet", action="store_true", help="no status line")
+
+
+def run(args: argparse.Namespace) -> int:
+    from bench.measurement import (
+        Measurement,
+        chop_frequency,
+        default_current,
+        sweep_currents,
+    )
+
+    cfg = load_bench(args.config)
+    if args.seconds <= 0 or not math.isfinite(args.seconds):
+        raise ConfigError(f"--seconds: {args.seconds} is not a positive number of seconds")
+    if args.speed <= 0:
+        raise ConfigError(f"--speed: {args.speed} is not positive")
+    if not cfg.simulated and (args.fault or args.speed != 1.0 or args.seed is not None):
+        raise ConfigError("--fault, --speed and --seed apply to the simulated bench only")
+    current = default_current(cfg) if args.current is None else parse_quantity(args.current, "current", "--current")
+    if current > min(cfg.guard.max_current, cfg.pump.max_current):
+        raise ConfigError(f"--current: {current:g} A is above the guard's limit "
+                          f"({min(cfg.guard.max_current, cfg.pump.max_current):g} A)")
+    settings = {"pump_current": current, "pump_power": cfg.pump.power_at(current)}
+    if args.mode == "sweep":
+        settings = {}
+    answers, operator = _flag_answers(args, cfg)
+    out = sys.stdout
+    meas = Measurement(cfg, mode=args.mode, settings=settings, log_dir=args.logs, speed=args.speed,
+                       faults=tuple(args.fault), operator=operator or "", seed=args.seed)
+    status = _Status(meas, quiet=args.quiet)
+    with meas:
+        print(f"gainbench: run {meas.run_id} on {cfg.name}{'  [SIMULATED]' if cfg.simulated else ''}", file=out)
+        if "shutter" in meas.instruments and not args.no_dark:
+            print("capturing dark (probe shutter closed) ...", file=out)
+            meas.capture_dark()
+        print("capturing baseline (pump off) ...", file=out)
+        meas.capture_baseline()
+        result = _arm(meas, cfg, answers, operator)
+        if result is None or not result.passed:
+            reasons = "; ".join(result.refusals) if result is not None else "no checklist answers"
+            print(f"gainbench: arming refused: {reasons}", file=sys.stderr)
+            print(f"run {meas.run_id} kept (dark and baseline only, pump never on)", file=out)
+            return 3
+        if args.mode in ("chopped", "decay"):
+            meas.set_modulation(chop_frequency(cfg, args.mode))
+        currents = sweep_currents(cfg, args.steps) if args.mode == "sweep" else [current]
+        meas.set_current(currents[0], who=operator)
+        meas.emit(who=operator)
+        per_step = args.seconds / len(currents)
+        for k, i in enumerate(currents):
+            if k:
+                meas.set_current(i, who=operator)
+            meas.hold(per_step, should_stop=lambda: meas.guarded_pump.state == "tripped", on_tick=status.line)
+            if meas.guarded_pump.state == "tripped":
+                break
+        tripped = meas.guarded_pump.state == "tripped"
+        if tripped:
+            snap = meas.snapshot(with_history=False)
+            print(f"\nguard TRIPPED: {snap.trip_reason}", file=out)
+            lat = meas.guarded_pump.trip_latencies
+            if lat:
+                print(f"trip latency {lat[-1] * 1e3:.1f} ms (reading to pump-off command)", file=out)
+            meas.hold(0.2)
+            _acknowledge(meas, operator)
+        else:
+            meas.stop_emission(who=operator)
+            if args.mode in ("chopped", "decay"):
+                meas.set_modulation(None)
+        meas.hold(0.05)
+        status.line(final=True)
+    print(f"\n{meas.run_id}", file=out)
+    return 0
+
+
+def _flag_answers(args, cfg):
+    """Checklist answers from flags, or None to ask on the terminal."""
+    from bench.checklist import answers_from_flags, parse_eyewear_flag
+
+    operator = args.operator or cfg.run.operator or ""
+    if args.eyewear_od or args.confirm_setup:
+        ods = {}
+        for item in args.eyewear_od:
+            try:
+                wl, od = parse_eyewear_flag(item)
+            except (ValueError, GainbenchError) as exc:
+                raise ConfigError(f"--eyewear-od {item!r}: {exc}") from None
+            ods[wl] = od
+        if not operator:
+            raise ConfigError("--operator NAME is needed with --eyewear-od / --confirm-setup")
+        return answers_from_flags(operator, ods, args.confirm_setup), operator
+    return None, operator
+
+
+def _arm(meas, cfg, answers, operator):
+    from bench.checklist import run_interactive
+
+    if answers is None:
+        if not sys.stdin.isatty():
+            print("gainbench: the arming checklist needs answers: run on a terminal, or give --operator NAME, "
+                  "--eyewear-od WAVELENGTH=OD for each laser wavelength and --confirm-setup", file=sys.stderr)
+            return None
+        while not operator:
+            operator = input("operator name: ").strip()
+        answers = run_interactive(meas.checklist_items(), operator=operator, readings=meas.pump_readings(),
+                                  clock=meas.clock.now)
+    return meas.arm(answers, operator)
+
+
+def _acknowledge(meas, operator: str) -> None:
+    """Acknowledge the trip once its condition has cleared (headless: wait up to 10 s)."""
+    deadline = time.monotonic() + 10.0
+    while time.monotonic() < deadline:
+        try:
+            meas.acknowledge(operator or "gainbench")
+            print("trip acknowledged; guard back to safe", file=sys.stdout)
+            return
+        except GainbenchError as exc:
+            last = str(exc)
+            time.sleep(0.2)
+    print(f"trip not acknowledged: {last}", file=sys.stdout)
+
+
+class _Status:
+    """The one-line live status (elapsed, rate, drops, beta +- sigma), at most once a second."""
+
+    def __init__(self, meas, quiet: bool):
+        self.meas = meas
+        self.quiet = quiet
+        self.start = time.monotonic()
+        self.last_samples = 0
+        self.last_time = self.start
+
+    def line(self, final: bool = False) -> None:
+        snap = self.meas.snapshot(with_history=False)
+        now = time.monotonic()
+        rate = (snap.samples - self.last_samples) / max(now - self.last_time, 1e-9)
+        self.last_samples, self.last_time = snap.samples, now
+        est = snap.estimate
+        beta = est.values.get("beta") if est is not None else None
+        b = "beta -" if beta is None else f"beta {beta.value:.4f} ± {beta.sigma:.4f}"
+        gain = est.values.get("gain_db") if est is not None else None
+        g = "" if gain is None else f" | gain {gain.value:+.3f} ± {gain.sigma:.3f} dB"
+        tau = est.values.get("tau_s") if est is not None else None
+        tt = "" if tau is None else f" | tau {tau.value * 1e3:.4g} ± {tau.sigma * 1e3:.2g} ms"
+        flags = f" | flags {','.join(sorted(est.flags))}" if est is not None and est.flags else ""
+        text = (f"t {snap.t:7.2f} s | {rate / 1e3:7.1f} k samples/s | drops {snap.drops} | "
+                f"guard {snap.guard_state} | {b}{g}{tt}{flags}")
+        if self.quiet and not final:
+            return
+        end = "\n" if final or not sys.stdout.isatty() else "\r"
+        print(text, end=end, file=sys.stdout, flush=True)

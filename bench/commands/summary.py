@@ -1,0 +1,75 @@
+"""`gainbench summary RUN`: the final estimates of a run, its truth when simulated, its trips."""
+
+from __future__ import annotations
+
+import argparse
+import json
+import math
+
+from bench.replay import run_config
+from bench.run_summary import summary
+from bench.runstore import RunReader, resolve_run
+
+NAME = "summary"
+HELP = "final estimates of a run with uncertainties (and the simulator's truth), trips, events"
+
+LABELS = {
+    "ln_ratio": ("ln R", 1.0, ""),
+    "gain_db": ("single-pass gain", 1.0, "dB"),
+    "gain_coefficient_per_cm": ("gain coefficient", 1.0, "cm^-1"),
+    "n2_per_m3": ("<N2>", 1e-6, "cm^-3"),
+    "beta": ("excited fraction beta", 1.0, ""),
+    "tau_s": ("lifetime tau", 1e3, "ms"),
+}
+
+
+def configure(parser: argparse.ArgumentParser) -> None:
+    parser.add_argument("run", help="run id (or a unique prefix of one) or run file path")
+    parser.add_argument("--logs", metavar="DIR", default="logs", help="run store directory (default logs)")
+    parser.add_argument("--analysis", type=int, help="analysis id (default: the live one); see --json 'analyses'")
+    parser.add_argument("--json", action="store_true", help="print JSON")
+
+
+def run(args: argparse.Namespace) -> int:
+    path = resolve_run(args.run, args.logs)
+    with RunReader(path) as reader:
+        cfg = run_config(reader)
+        out = summary(reader, cfg, args.analysis)
+        out["analyses"] = reader.analyses()
+        speed = reader.meta.get("speed") or 1.0
+    if args.json:
+        print(json.dumps(out, indent=2, default=_json_default))
+        return 0
+    print(f"run {out['run_id']}  ({out['status']}, mode {out['mode']}{', SIMULATED' if out['simulated'] else ''})")
+    print(f"sample: {out['sample']}")
+    if not out["estimates"]:
+        print("no estimate (the pump never ran long enough, or no baseline was taken)")
+    truth = out.get("truth", {})
+    for key, (label, scale, unit) in LABELS.items():
+        q = out["estimates"].get(key)
+        if q is None:
+            continue
+        line = (f"  {label:<22} {q['value'] * scale:>12.5g} ± {q['sigma'] * scale:<9.3g} {unit:<6}"
+                f" (noise {q['sigma_noise'] * scale:.2g}, systematic {q['sigma_systematic'] * scale:.2g})")
+        if key in truth:
+            line += f"   truth {truth[key]['value'] * scale:.5g}"
+        print(line)
+    if out["flags"]:
+        print(f"  flags: {', '.join(out['flags'])}")
+    for t in out["trips"]:
+        lat = t.get("latency_s")
+        lat_text = "unknown" if lat is None else f"{lat * 1e3:.1f} ms"
+        if lat is not None and speed != 1.0:
+            lat_text += f" of run clock ({lat / speed * 1e3:.2f} ms real, speed x{speed:g})"
+        ack = (f"acknowledged by {t['acknowledged_by']} at t = {t['acknowledged_at']:.3f} s"
+               if t.get("acknowledged_at") is not None else "NOT acknowledged")
+        print(f"  TRIP at t = {t['t']:.3f} s: {t['reason']}; latency {lat_text}; {ack}")
+    counts = ", ".join(f"{k} {v}" for k, v in out["events"].items())
+    print(f"  events: {counts}; drops {out['drops']}")
+    return 0
+
+
+def _json_default(o):
+    if isinstance(o, float) and not math.isfinite(o):
+        return None
+    return str(o)

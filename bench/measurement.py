@@ -1,0 +1,418 @@
+"""A live measurement: instruments, readers, the consumer thread, the guard, and the run.
+
+`Measurement` puts the pieces together for `gainbench record` and the dashboard:
+
+- it starts the simulated bench when the bench file says ``resource = "simulated"``;
+- it opens every configured instrument through the driver registry;
+- it creates the run file and a `GuardedPump` (which commands the pump off at once);
+- it runs one reader thread per instrument and one consumer thread (`bench.pipeline`);
+- it offers the procedures a person runs at the bench: capture dark, capture baseline,
+  arm through the checklist, emit, set the pump current, change mode;
+- `close` commands the pump off first, then stops the threads, then closes the run. It runs on
+  normal exit, on Ctrl-C and on an exception (use the object as a context manager).
+
+Procedures block the calling thread (the command line's main thread, or a dashboard worker),
+never the consumer.
+"""
+
+from __future__ import annotations
+
+import contextlib
+import logging
+import math
+import queue
+import threading
+import time
+from collections.abc import Callable, Mapping
+from typing import Any
+
+from bench import __version__
+from bench.acquisition import (
+    DetectorReader,
+    DropCounter,
+    PumpReader,
+    Reader,
+    RunClock,
+    stop_readers,
+)
+from bench.config import BenchConfig
+from bench.errors import GainbenchError
+from bench.estimator_params import EstimatorParams
+from bench.pipeline import Consumer, Control, Snapshot, TruthItem
+from bench.records import Event
+
+log = logging.getLogger(__name__)
+
+#: Queue length in blocks; at 64k sample sets per block this is several seconds of data.
+QUEUE_BLOCKS = 256
+
+
+class MeasurementError(GainbenchError):
+    """A procedure could not be carried out (e.g. no data arrived)."""
+
+
+class Measurement:
+    """One live session on a bench; see the module docstring."""
+
+    def __init__(
+        self,
+        cfg: BenchConfig,
+        *,
+        mode: str = "watch",
+        settings: Mapping[str, Any] | None = None,
+        log_dir=None,
+        speed: float = 1.0,
+        faults: tuple[str, ...] = (),
+        operator: str = "",
+        record: bool = True,
+        fetch_sets: int | None = None,
+        pump_poll: float = 0.02,
+        seed: int | None = None,
+    ):
+        self.cfg = cfg
+        self.mode = mode
+        self.settings = dict(settings or {})
+        self.log_dir = log_dir if log_dir is not None else cfg.run.log_dir
+        self.speed = float(speed) if cfg.simulated else 1.0
+        self.faults = tuple(faults)
+        self.operator = operator or cfg.run.operator
+        self.record = record
+        self.fetch_sets = fetch_sets
+        self.pump_poll = pump_poll
+        self.seed = seed
+        self.sim = None
+        self.instruments: dict[str, Any] = {}
+        self.identities: dict[str, str] = {}
+        self.store = None
+        self.guarded_pump = None
+        self.monitor = None
+        self.consumer: Consumer | None = None
+        self.clock = RunClock(self.speed)
+        self.drops = DropCounter()
+        self.data_q: queue.Queue = queue.Queue(maxsize=QUEUE_BLOCKS)
+        self.control_q: queue.SimpleQueue = queue.SimpleQueue()
+        self.stop_flag = threading.Event()
+        self.readers: list[Reader] = []
+        self._consumer_thread: threading.Thread | None = None
+        self._truth_thread: threading.Thread | None = None
+        self._consumer_error: BaseException | None = None
+        self._closed = False
+        self._started_wall = None
+
+    # -- life cycle ---------------------------------------------------------------------------
+    def __enter__(self) -> Measurement:
+        try:
+            self.open()
+        except BaseException:
+            self.close(reason="failed to start")
+            raise
+        return self
+
+    def __exit__(self, exc_type, exc, tb) -> None:
+        if exc_type is KeyboardInterrupt:
+            reason = "interrupted (Ctrl-C)"
+        elif exc_type is not None:
+            reason = f"stopped by an error: {exc_type.__name__}: {exc}"
+        else:
+            reason = "stopped"
+        self.close(reason=reason)
+
+    def open(self) -> None:
+        from bench.guarded_pump import GuardedPump
+        from bench.trip_conditions import TripMonitor
+        from drivers.registry import open_instrument
+
+        cfg = self.cfg
+        resources = {role: inst.resource for role, inst in cfg.instruments.items()}
+        if any(r == "simulated" for r in resources.values()):
+            from simulated_instruments.bench import SimulatedBench
+
+            self.sim = SimulatedBench(cfg, speed=self.speed, faults=self.faults, seed=self.seed)
+            self.sim.__enter__()
+            resources = {role: (self.sim.resources[role] if r == "simulated" else r) for role, r in resources.items()}
+        for role, inst in cfg.instruments.items():
+            if role not in resources:
+                continue
+            driver = open_instrument(role, inst.driver, resources[role], inst.profile, inst.timeout, dict(inst.options))
+            self.instruments[role] = driver
+            try:
+                self.identities[role] = str(driver.identify())
+            except GainbenchError as exc:
+                raise MeasurementError(f"{role} at {resources[role]}: no identity ({exc})") from exc
+        pump = self.instruments["pump"]
+        shutter = self.instruments.get("shutter")
+        if self.record:
+            from bench.runstore import RunWriter
+
+            self.store = RunWriter.from_config(cfg, mode=self.mode, instruments=self.identities,
+                                               log_dir=self.log_dir,
+                                               meta={"speed": self.speed, "faults": list(self.faults)})
+            self.store.set_meta(estimator_mode=self.mode, estimator_settings=self.settings)
+            if self.operator:
+                self.store.set_meta(operator=self.operator)
+        self.monitor = TripMonitor(cfg.guard, started_at=0.0)
+        self.guarded_pump = GuardedPump.from_config(
+            pump, cfg, shutter=shutter, clock=self.clock.now, event_sink=self.control_q.put, monitor=self.monitor,
+        )
+        self.guarded_pump.start(who="gainbench (start: pump output off)")
+        detector = self.instruments["detector"]
+        detector.configure()
+        params = EstimatorParams.from_config(cfg)
+        self.params = params
+        self.consumer = Consumer(
+            params, self.mode, self.settings, store=self.store, guarded_pump=self.guarded_pump,
+            monitor=self.monitor, now=self.clock.now, drop_totals=self.drops.totals,
+        )
+        self.consumer.extra["identities"] = dict(self.identities)
+        rate = float(detector.rate_hz)
+        fetch = self.fetch_sets or int(min(65536, max(256, rate * self.speed * 0.02)))
+        det_reader = DetectorReader(detector, self.data_q, self.clock, self.drops, self.stop_flag, max_sets=fetch)
+        pump_reader = PumpReader(pump, self.data_q, self.clock, self.drops, self.stop_flag,
+                                 period=self.pump_poll)
+        self.readers = [det_reader, pump_reader]
+        self._consumer_thread = threading.Thread(target=self._consume, name="consumer", daemon=True)
+        self._consumer_thread.start()
+        det_reader.start_acquisition()
+        self.control_q.put(Event(self.clock.now(), "run", f"run started on {cfg.name}", self.operator or "gainbench",
+                                 data={"mode": self.mode, "speed": self.speed, "simulated": cfg.simulated}))
+        for r in self.readers:
+            r.start()
+        if self.sim is not None:
+            self._truth_thread = threading.Thread(target=self._poll_truth, name="truth", daemon=True)
+            self._truth_thread.start()
+
+    def close(self, reason: str = "stopped") -> None:
+        """Pump off first, then stop the threads, then close the run file. Safe to call twice."""
+        if self._closed:
+            return
+        self._closed = True
+        if self.guarded_pump is not None:
+            try:
+                self.guarded_pump.shutdown(reason=reason)
+            except Exception:  # the guard logs loudly itself; closing must go on
+                log.exception("pump shutdown")
+        stop_readers(self.readers, self.stop_flag, timeout=5.0,
+                     on_stuck=lambda r: log.error("reader %s did not stop", r.name))
+        if self._truth_thread is not None:
+            self._truth_thread.join(2.0)
+        if self._consumer_thread is not None:
+            self._consumer_thread.join(10.0)
+        if self.store is not None:
+            try:
+                if self.consumer is not None:
+                    self.consumer.drain_events(self.control_q)
+                    self.consumer.record_event(Event(self.clock.now(), "run", f"run {reason}"))
+                self.store.close(reason=reason)
+            except Exception:
+                log.exception("closing the run file")
+        for role, inst in list(self.instruments.items()):
+            with contextlib.suppress(Exception):
+                if role == "detector":
+                    inst.stop()
+            with contextlib.suppress(Exception):
+                inst.close()
+        if self.sim is not None:
+            with contextlib.suppress(Exception):
+                self.sim.__exit__(None, None, None)
+
+    # -- threads --------------------------------------------------------------------------
+    def _consume(self) -> None:
+        c = self.consumer
+        assert c is not None
+        last_tick = 0.0
+        try:
+            while True:
+                c.drain_controls(self.control_q)
+                try:
+                    item = self.data_q.get(timeout=0.01)
+                except queue.Empty:
+                    item = None
+                    if self.stop_flag.is_set():
+                        break
+                if item is not None:
+                    c.process(item)
+                now = time.monotonic()
+                if now - last_tick >= 0.05:
+                    last_tick = now
+                    # While catching up on a backlog, judge staleness on the data's own time:
+                    # readings waiting in the queue are not stale, only late.
+                    backlog = self.data_q.qsize() > 2
+                    c.tick(c.data_time if backlog else self.clock.now())
+            c.drain_controls(self.control_q)
+        except BaseException as exc:  # the pump goes off on any failure of the pipeline
+            self._consumer_error = exc
+            log.exception("consumer failed; switching the pump off")
+            if self.guarded_pump is not None:
+                with contextlib.suppress(Exception):
+                    self.guarded_pump.trip("the acquisition pipeline failed: " + repr(exc), "pipeline_failure",
+                                           self.clock.now())
+            self.stop_flag.set()
+
+    def _poll_truth(self) -> None:
+        det = self.readers[0]
+        while not self.stop_flag.wait(0.1):
+            try:
+                truth = self.sim.truth()
+            except Exception:  # the simulator is closing
+                return
+            values = {("sim_t" if k == "t" else k): float(v) for k, v in truth.items()}
+            self.control_q.put(TruthItem(det.t_start + values.get("sim_t", 0.0), values))
+
+    # -- state for displays -------------------------------------------------------------------
+    def snapshot(self, with_history: bool = True) -> Snapshot:
+        assert self.consumer is not None
+        return self.consumer.snapshot(with_history=with_history)
+
+    @property
+    def run_id(self) -> str | None:
+        return getattr(self.store, "run_id", None)
+
+    @property
+    def run_path(self):
+        return getattr(self.store, "path", None)
+
+    def check_alive(self) -> None:
+        if self._consumer_error is not None:
+            raise MeasurementError(f"the acquisition pipeline failed: {self._consumer_error!r}")
+
+    # -- waiting on data time ---------------------------------------------------------------
+    def data_time(self) -> float:
+        assert self.consumer is not None
+        return self.consumer.snapshot(with_history=False).t
+
+    def wait_data_until(self, t: float, timeout: float | None = None) -> None:
+        """Block until the consumer has processed detector data up to run-clock time ``t``."""
+        limit = timeout if timeout is not None else 5.0 + max(0.0, t - self.data_time()) / self.speed * 3 + 5.0
+        deadline = time.monotonic() + limit
+        while self.data_time() < t:
+            self.check_alive()
+            if time.monotonic() > deadline:
+                raise MeasurementError(f"no detector data up to t = {t:.3f} s after {limit:.1f} s of waiting")
+            time.sleep(0.005)
+
+    def hold(self, seconds: float, should_stop: Callable[[], bool] | None = None,
+             on_tick: Callable[[], None] | None = None, tick: float = 1.0) -> None:
+        """Let data flow for ``seconds`` of run-clock time."""
+        end = self.clock.now() + seconds
+        next_tick = time.monotonic() + tick
+        while self.clock.now() < end:
+            self.check_alive()
+            if should_stop is not None and should_stop():
+                return
+            time.sleep(min(0.02, max(0.0, (end - self.clock.now()) / self.speed)))
+            if on_tick is not None and time.monotonic() >= next_tick:
+                next_tick += tick
+                on_tick()
+
+    # -- procedures -----------------------------------------------------------------------------
+    def capture_dark(self, seconds: float = 0.2, settle: float = 0.05, who: str = "gainbench") -> None:
+        """Close the probe shutter, take ``seconds`` of dark, open it again."""
+        shutter = self.instruments.get("shutter")
+        if shutter is None:
+            raise MeasurementError("capture dark: no shutter is configured to block the probe; "
+                                   "block it by hand and use a bench file with a shutter, or skip the dark")
+        shutter.close("probe")
+        try:
+            t0 = self.clock.now() + settle
+            t1 = t0 + seconds
+            self.wait_data_until(t1 + 0.01)
+            self.control_q.put(Control("dark", self.clock.now(), {"t_start": t0, "t_end": t1}, who))
+        finally:
+            shutter.open("probe")
+        self.hold(settle)
+
+    def capture_baseline(self, seconds: float = 0.3, who: str = "gainbench") -> None:
+        """Pump off, wait for the medium to relax (settle time), take ``seconds`` of baseline."""
+        assert self.guarded_pump is not None
+        if self.guarded_pump.state == "emitting":
+            self.guarded_pump.stop_emission(who=f"{who} (baseline needs the pump off)")
+        settle = max(self.params.settle_time, 0.03)
+        t0 = self.clock.now() + settle
+        t1 = t0 + seconds
+        self.wait_data_until(t1 + 0.01)
+        self.control_q.put(Control("baseline", self.clock.now(), {"t_start": t0, "t_end": t1}, who))
+        self.hold(0.02)
+
+    def set_mode(self, mode: str, settings: Mapping[str, Any] | None = None, who: str = "gainbench") -> None:
+        self.mode = mode
+        self.control_q.put(Control("mode", self.clock.now(), {"mode": mode, "settings": dict(settings or {})}, who))
+
+    def set_current(self, current: float, who: str = "gainbench") -> None:
+        """Set the pump current through the guard (which refuses values above its limit)."""
+        assert self.guarded_pump is not None
+        self.guarded_pump.set_current(current, who=who)
+        power = self.cfg.pump.power_at(current)
+        self.control_q.put(Control("setting", self.clock.now(), {"pump_current": float(current),
+                                                                 "pump_power": float(power)}, who))
+
+    def set_modulation(self, hz: float | None, who: str = "gainbench") -> None:
+        pump = self.instruments["pump"]
+        pump.set_modulation(hz)
+        self.control_q.put(Event(self.clock.now(), "setting",
+                                 "pump modulation off" if hz is None else f"pump modulation {hz:g} Hz", who,
+                                 data={"modulation_hz": hz}))
+
+    def note(self, text: str, who: str | None = None) -> None:
+        self.control_q.put(Event(self.clock.now(), "note", text, who or self.operator or "operator"))
+
+    # -- arming ---------------------------------------------------------------------------------
+    def checklist_items(self):
+        from bench.checklist import checklist_items
+
+        return checklist_items(self.cfg)
+
+    def pump_readings(self) -> dict[str, object]:
+        from bench.checklist import read_pump
+
+        return read_pump(self.instruments["pump"])
+
+    def arm(self, answers, operator: str):
+        """Judge the checklist answers; arm the guard if they pass. Returns the result."""
+        from bench.checklist import evaluate
+
+        assert self.guarded_pump is not None
+        result = evaluate(self.checklist_items(), answers, self.pump_readings(), operator, clock=self.clock.now)
+        for ev in result.records:
+            self.control_q.put(ev)
+        if result.passed:
+            self.guarded_pump.arm(result, who=operator)
+        return result
+
+    def emit(self, who: str) -> None:
+        assert self.guarded_pump is not None
+        self.guarded_pump.emit(who)
+
+    def stop_emission(self, who: str = "gainbench") -> None:
+        assert self.guarded_pump is not None
+        self.guarded_pump.stop_emission(who=who)
+
+    def acknowledge(self, who: str) -> None:
+        assert self.guarded_pump is not None
+        self.guarded_pump.acknowledge(who)
+
+
+def default_current(cfg: BenchConfig) -> float:
+    """80 % of the lower of the pump's and the guard's current limits."""
+    return 0.8 * min(cfg.pump.max_current, cfg.guard.max_current)
+
+
+def chop_frequency(cfg: BenchConfig, mode: str) -> float:
+    """Pump modulation for chopped (half period 10 tau) and decay (half period 25 tau) modes."""
+    tau = cfg.sample.upper_state_lifetime
+    half = 10 * tau if mode == "chopped" else 25 * tau
+    return float(min(1e4, max(0.1, 1.0 / (2 * half))))
+
+
+def sweep_currents(cfg: BenchConfig, steps: int) -> list[float]:
+    """Pump currents of a sweep: from just above threshold to the default current."""
+    lo = cfg.pump.threshold_current + 0.1 * (default_current(cfg) - cfg.pump.threshold_current)
+    hi = default_current(cfg)
+    if steps < 2:
+        return [hi]
+    return [lo + (hi - lo) * k / (steps - 1) for k in range(steps)]
+
+
+def fmt_quantity(q, digits: int = 4) -> str:
+    if q is None or not math.isfinite(q.value):
+        return "-"
+    return f"{q.value:.{digits}g} ± {q.sigma:.2g}"
