@@ -188,8 +188,8 @@ class DetectorReader(Reader):
         return block
 
     def idle_wait(self) -> float:
-        # Wait for roughly a tenth of a full fetch to accumulate, within 2-20 ms.
-        return min(max(0.1 * self.max_sets / (self.rate * self.clock.speed), 0.002), 0.02)
+        # Nothing was waiting: ask again soon (short blocks keep trip latency low).
+        return 0.002
 
     def reconnect(self) -> None:
         try:
@@ -198,16 +198,102 @@ class DetectorReader(Reader):
             log.info("detector reconnect failed: %s", exc)
 
 
+class PumpAccess:
+    """Lets the guard's pump commands go before the pump reader's polling.
+
+    The guard talks to the pump through `urgent`: while a guard command is waiting or running,
+    the reader does not start another query, so an off command waits for at most the one
+    exchange already on the wire, not for a whole poll (and not for an unfair lock).
+    """
+
+    def __init__(self) -> None:
+        self._lock = threading.Lock()
+        self._urgent = 0
+        self._idle = threading.Condition(self._lock)
+
+    def urgent(self):
+        access = self
+
+        class _Urgent:
+            def __enter__(self_inner):
+                with access._lock:
+                    access._urgent += 1
+
+            def __exit__(self_inner, *exc):
+                with access._lock:
+                    access._urgent -= 1
+                    if access._urgent == 0:
+                        access._idle.notify_all()
+
+        return _Urgent()
+
+    def wait_for_turn(self, timeout: float = 1.0) -> None:
+        """Called by the reader before each query: wait while a guard command is pending."""
+        with self._lock:
+            if self._urgent:
+                self._idle.wait_for(lambda: self._urgent == 0, timeout)
+
+
+class GuardPumpPort:
+    """The pump driver as the guard sees it: every call marked urgent (see `PumpAccess`)."""
+
+    def __init__(self, pump, access: PumpAccess):
+        self._pump = pump
+        self._access = access
+
+    def __getattr__(self, name):
+        attr = getattr(self._pump, name)
+        if not callable(attr):
+            return attr
+        access = self._access
+
+        def call(*args, **kwargs):
+            with access.urgent():
+                return attr(*args, **kwargs)
+
+        return call
+
+    # the methods the guard's protocol names, so isinstance checks against it pass
+    def output(self, on: bool) -> None:
+        with self._access.urgent():
+            self._pump.output(on)
+
+    def output_is_on(self) -> bool:
+        with self._access.urgent():
+            return self._pump.output_is_on()
+
+    def interlock_closed(self) -> bool:
+        with self._access.urgent():
+            return self._pump.interlock_closed()
+
+    def mount_temperature(self) -> float:
+        with self._access.urgent():
+            return self._pump.mount_temperature()
+
+    def measured_current(self) -> float:
+        with self._access.urgent():
+            return self._pump.measured_current()
+
+    def current_setpoint(self) -> float:
+        with self._access.urgent():
+            return self._pump.current_setpoint()
+
+    def set_current(self, current: float) -> None:
+        with self._access.urgent():
+            self._pump.set_current(current)
+
+
 class PumpReader(Reader):
     """Polls the pump driver: current, setpoint, output, mount temperature, interlock."""
 
     source = "pump"
 
     def __init__(self, pump, out, clock, drops, stop, *, period: float = 0.02,
-                 pump_lock: threading.Lock | None = None):
+                 access: PumpAccess | None = None):
         super().__init__(out, clock, drops, stop)
         self.pump = pump
         self.period = float(period)
+        self.access = access or PumpAccess()
         self._next = time.monotonic()
 
     def read_once(self) -> Block | None:
@@ -217,14 +303,17 @@ class PumpReader(Reader):
             if self.stop_flag.is_set():
                 return None
         self._next = max(self._next + self.period, time.monotonic())
-        t = self.clock.now()
-        row = (
-            self.pump.measured_current(),
-            self.pump.current_setpoint(),
-            1.0 if self.pump.output_is_on() else 0.0,
-            self.pump.mount_temperature(),
-            1.0 if self.pump.interlock_closed() else 0.0,
-        )
+        t = self.clock.now()  # stamped before the first query: latencies count from here
+        values = {}
+        # safety-critical readings first; the guard's commands go between any two queries
+        for channel, read in ((INTERLOCK, self.pump.interlock_closed), (PUMP_ON, self.pump.output_is_on),
+                              (PUMP_CURRENT, self.pump.measured_current),
+                              (PUMP_SETPOINT, self.pump.current_setpoint),
+                              (MOUNT_TEMP, self.pump.mount_temperature)):
+            self.access.wait_for_turn()
+            value = read()
+            values[channel] = (1.0 if value else 0.0) if isinstance(value, bool) else float(value)
+        row = [values[c] for c in PUMP_CHANNELS]
         block = Block(self.source, self.seq, t, 0.0, -1, PUMP_CHANNELS, np.array([row], dtype=np.float64))
         self.seq += 1
         return block

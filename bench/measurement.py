@@ -30,6 +30,8 @@ from bench import __version__
 from bench.acquisition import (
     DetectorReader,
     DropCounter,
+    GuardPumpPort,
+    PumpAccess,
     PumpReader,
     Reader,
     RunClock,
@@ -68,6 +70,7 @@ class Measurement:
         fetch_sets: int | None = None,
         pump_poll: float = 0.02,
         seed: int | None = None,
+        sim_in_process: bool = False,
     ):
         self.cfg = cfg
         self.mode = mode
@@ -80,6 +83,7 @@ class Measurement:
         self.fetch_sets = fetch_sets
         self.pump_poll = pump_poll
         self.seed = seed
+        self.sim_in_process = sim_in_process
         self.sim = None
         self.instruments: dict[str, Any] = {}
         self.identities: dict[str, str] = {}
@@ -90,6 +94,7 @@ class Measurement:
         self.clock = RunClock(self.speed)
         self.drops = DropCounter()
         self.data_q: queue.Queue = queue.Queue(maxsize=QUEUE_BLOCKS)
+        self.pump_q: queue.Queue = queue.Queue(maxsize=QUEUE_BLOCKS)
         self.control_q: queue.SimpleQueue = queue.SimpleQueue()
         self.stop_flag = threading.Event()
         self.readers: list[Reader] = []
@@ -125,9 +130,14 @@ class Measurement:
         cfg = self.cfg
         resources = {role: inst.resource for role, inst in cfg.instruments.items()}
         if any(r == "simulated" for r in resources.values()):
-            from simulated_instruments.bench import SimulatedBench
+            if self.sim_in_process:
+                from simulated_instruments.bench import SimulatedBench
 
-            self.sim = SimulatedBench(cfg, speed=self.speed, faults=self.faults, seed=self.seed)
+                self.sim = SimulatedBench(cfg, speed=self.speed, faults=self.faults, seed=self.seed)
+            else:
+                from bench.sim_process import SimulatorProcess
+
+                self.sim = SimulatorProcess(cfg, speed=self.speed, faults=self.faults, seed=self.seed)
             self.sim.__enter__()
             resources = {role: (self.sim.resources[role] if r == "simulated" else r) for role, r in resources.items()}
         for role, inst in cfg.instruments.items():
@@ -150,9 +160,10 @@ class Measurement:
             self.store.set_meta(estimator_mode=self.mode, estimator_settings=self.settings)
             if self.operator:
                 self.store.set_meta(operator=self.operator)
-        self.monitor = TripMonitor(cfg.guard, started_at=0.0)
+        self.monitor = TripMonitor(cfg.guard, started_at=self.clock.now())
+        self.pump_access = PumpAccess()
         self.guarded_pump = GuardedPump.from_config(
-            pump, cfg, shutter=shutter, clock=self.clock.now, event_sink=self.control_q.put, monitor=self.monitor,
+            GuardPumpPort(pump, self.pump_access), cfg, shutter=shutter, clock=self.clock.now, event_sink=self.control_q.put, monitor=self.monitor,
         )
         self.guarded_pump.start(who="gainbench (start: pump output off)")
         detector = self.instruments["detector"]
@@ -165,13 +176,17 @@ class Measurement:
         )
         self.consumer.extra["identities"] = dict(self.identities)
         rate = float(detector.rate_hz)
-        fetch = self.fetch_sets or int(min(65536, max(256, rate * self.speed * 0.02)))
+        # A fetch returns what is waiting, up to this: enough to catch up on a backlog at once.
+        fetch = self.fetch_sets or int(min(65536, max(1024, rate * self.speed * 0.25)))
         det_reader = DetectorReader(detector, self.data_q, self.clock, self.drops, self.stop_flag, max_sets=fetch)
-        pump_reader = PumpReader(pump, self.data_q, self.clock, self.drops, self.stop_flag,
-                                 period=self.pump_poll)
+        # The pump's readings have a queue of their own, served first: a trip condition must not
+        # wait behind a backlog of detector blocks.
+        pump_reader = PumpReader(pump, self.pump_q, self.clock, self.drops, self.stop_flag,
+                                 period=self.pump_poll, access=self.pump_access)
         self.readers = [det_reader, pump_reader]
         self._consumer_thread = threading.Thread(target=self._consume, name="consumer", daemon=True)
         self._consumer_thread.start()
+        self.monitor.started_at = self.clock.now()  # staleness counts from here
         det_reader.start_acquisition()
         self.control_q.put(Event(self.clock.now(), "run", f"run started on {cfg.name}", self.operator or "gainbench",
                                  data={"mode": self.mode, "speed": self.speed, "simulated": cfg.simulated}))
@@ -223,8 +238,9 @@ class Measurement:
         try:
             while True:
                 c.drain_controls(self.control_q)
+                c.drain_controls(self.pump_q)
                 try:
-                    item = self.data_q.get(timeout=0.01)
+                    item = self.data_q.get(timeout=0.005)
                 except queue.Empty:
                     item = None
                     if self.stop_flag.is_set():
@@ -238,6 +254,7 @@ class Measurement:
                     # readings waiting in the queue are not stale, only late.
                     backlog = self.data_q.qsize() > 2
                     c.tick(c.data_time if backlog else self.clock.now())
+            c.drain_controls(self.pump_q)
             c.drain_controls(self.control_q)
         except BaseException as exc:  # the pump goes off on any failure of the pipeline
             self._consumer_error = exc
@@ -249,10 +266,27 @@ class Measurement:
             self.stop_flag.set()
 
     def _poll_truth(self) -> None:
+        """The simulator's truth every 0.1 s of real time, over a connection of its own."""
+        from drivers.registry import open_instrument
+
         det = self.readers[0]
+        inst = self.cfg.instruments["detector"]
+        try:
+            conn = open_instrument("detector", inst.driver, self.sim.resources["detector"], inst.profile,
+                                   inst.timeout, dict(inst.options))
+        except Exception:  # no truth then; the run goes on
+            log.warning("cannot reach the simulator for its truth", exc_info=True)
+            return
+        try:
+            self._truth_loop(det, conn)
+        finally:
+            with contextlib.suppress(Exception):
+                conn.close()
+
+    def _truth_loop(self, det, conn) -> None:
         while not self.stop_flag.wait(0.1):
             try:
-                truth = self.sim.truth()
+                truth = conn.sim_truth()  # t: simulated s since the digitiser's INIT
             except Exception:  # the simulator is closing
                 return
             values = {("sim_t" if k == "t" else k): float(v) for k, v in truth.items()}

@@ -56,6 +56,10 @@ from bench.records import (
     Block,
 )
 
+#: How long one poll of the pump driver may take (s): readings stamped this long before a
+#: commanded change may already show part of it.
+POLL_SPAN = 0.1
+
 #: Source names the monitor tracks.
 PUMP = "pump"
 DETECTOR = "detector"
@@ -605,6 +609,7 @@ class TripMonitor:
         self._last_target: float | None = None
         self._last_change = -math.inf
         self._pump_changes: deque[float] = deque(maxlen=32)
+        self._commanded_changes: deque[float] = deque(maxlen=8)
         self._reset_windows()
 
     # -- small helpers ---------------------------------------------------------------------
@@ -664,6 +669,13 @@ class TripMonitor:
                     t, target, self.settle_time, self._last_target, self._last_change)
                 if self._last_change > before:
                     self._pump_changes.append(self._last_change)
+                if self._commanded_changes:
+                    # A reading polled across a commanded change (or within the settle time
+                    # after it) may mix the values before and after: do not judge it.
+                    changes = np.fromiter(self._commanded_changes, dtype=np.float64)
+                    near = (t[:, None] >= changes[None, :] - POLL_SPAN) & (
+                        t[:, None] < changes[None, :] + self.settle_time)
+                    mask &= ~near.any(axis=1)
                 if mask.any():
                     self._level(CURRENT_NOT_FOLLOWING, check_following(
                         t, col(PUMP_CURRENT), col(PUMP_SETPOINT), on, cfg.current_tolerance, mask), found)
@@ -813,6 +825,7 @@ class TripMonitor:
         """The pump was changed on purpose at run-clock time ``t`` (S jumps are then expected)."""
         with self._lock:
             self._pump_changes.append(float(t))
+            self._commanded_changes.append(float(t))
 
     def reset_transmission(self) -> None:
         """Forget the last S window (after a dark, a probe-wavelength step, a shutter move)."""
