@@ -93,6 +93,10 @@ class Reader(threading.Thread):
         self.seq = 0
         self.reads = 0
         self.error: BaseException | None = None
+        #: Called in this thread with each block and failure report before it is queued: the
+        #: guard's checks, which must not wait behind storage or a backlog.
+        self.on_block: Callable[[Block], None] | None = None
+        self.on_comm: Callable[[CommStatus], None] | None = None
 
     def read_once(self) -> Block | None:  # pragma: no cover - overridden
         raise NotImplementedError
@@ -101,7 +105,17 @@ class Reader(threading.Thread):
         """Seconds to wait when a read returned nothing."""
         return 0.002
 
+    def _check(self, item: object) -> None:
+        try:
+            if isinstance(item, Block) and self.on_block is not None:
+                self.on_block(item)
+            elif isinstance(item, CommStatus) and self.on_comm is not None:
+                self.on_comm(item)
+        except Exception:  # the guard logs and trips itself; reading goes on
+            log.exception("%s: guard check failed", self.source)
+
     def put(self, item: object, samples: int = 0) -> None:
+        self._check(item)
         try:
             self.out.put_nowait(item)
         except queue.Full:
@@ -303,17 +317,15 @@ class PumpReader(Reader):
             if self.stop_flag.is_set():
                 return None
         self._next = max(self._next + self.period, time.monotonic())
-        t = self.clock.now()  # stamped before the first query: latencies count from here
-        values = {}
-        # safety-critical readings first; the guard's commands go between any two queries
-        for channel, read in ((INTERLOCK, self.pump.interlock_closed), (PUMP_ON, self.pump.output_is_on),
-                              (PUMP_CURRENT, self.pump.measured_current),
-                              (PUMP_SETPOINT, self.pump.current_setpoint),
-                              (MOUNT_TEMP, self.pump.mount_temperature)):
-            self.access.wait_for_turn()
-            value = read()
-            values[channel] = (1.0 if value else 0.0) if isinstance(value, bool) else float(value)
-        row = [values[c] for c in PUMP_CHANNELS]
+        self.access.wait_for_turn()  # the guard's commands go first
+        t = self.clock.now()  # stamped before the query: latencies count from here
+        status = self.pump.read_status()
+        values = {
+            INTERLOCK: status["interlock"], PUMP_ON: status["output_state"],
+            PUMP_CURRENT: status["measured_current"], PUMP_SETPOINT: status["current_setpoint"],
+            MOUNT_TEMP: status["mount_temperature"],
+        }
+        row = [(1.0 if values[c] else 0.0) if isinstance(values[c], bool) else float(values[c]) for c in PUMP_CHANNELS]
         block = Block(self.source, self.seq, t, 0.0, -1, PUMP_CHANNELS, np.array([row], dtype=np.float64))
         self.seq += 1
         return block

@@ -21,6 +21,7 @@ import contextlib
 import logging
 import math
 import queue
+import sys
 import threading
 import time
 from collections.abc import Callable, Mapping
@@ -44,6 +45,9 @@ from bench.pipeline import Consumer, Control, Snapshot, TruthItem
 from bench.records import Event
 
 log = logging.getLogger(__name__)
+
+#: Interpreter thread switch interval during a measurement (s); see `Measurement.open`.
+SWITCH_INTERVAL = 0.0005
 
 #: Queue length in blocks; at 64k sample sets per block this is several seconds of data.
 QUEUE_BLOCKS = 256
@@ -128,6 +132,10 @@ class Measurement:
         from drivers.registry import open_instrument
 
         cfg = self.cfg
+        # Threads waiting on an instrument's reply get the interpreter back within 0.5 ms
+        # instead of the default 5 ms: the guard's exchanges with the pump are several
+        # hand-overs each, and trip latency is what this buys (a little throughput is the cost).
+        sys.setswitchinterval(SWITCH_INTERVAL)
         resources = {role: inst.resource for role, inst in cfg.instruments.items()}
         if any(r == "simulated" for r in resources.values()):
             if self.sim_in_process:
@@ -151,6 +159,7 @@ class Measurement:
                 raise MeasurementError(f"{role} at {resources[role]}: no identity ({exc})") from exc
         pump = self.instruments["pump"]
         shutter = self.instruments.get("shutter")
+        self.clock = RunClock(self.speed)  # the run's time zero: instruments open, nothing read yet
         if self.record:
             from bench.runstore import RunWriter
 
@@ -170,9 +179,10 @@ class Measurement:
         detector.configure()
         params = EstimatorParams.from_config(cfg)
         self.params = params
+        # The guard's checks run in the reader threads (see `_guard_block`), not in the consumer.
         self.consumer = Consumer(
             params, self.mode, self.settings, store=self.store, guarded_pump=self.guarded_pump,
-            monitor=self.monitor, now=self.clock.now, drop_totals=self.drops.totals,
+            monitor=None, now=self.clock.now, drop_totals=self.drops.totals,
         )
         self.consumer.extra["identities"] = dict(self.identities)
         rate = float(detector.rate_hz)
@@ -184,6 +194,9 @@ class Measurement:
         pump_reader = PumpReader(pump, self.pump_q, self.clock, self.drops, self.stop_flag,
                                  period=self.pump_poll, access=self.pump_access)
         self.readers = [det_reader, pump_reader]
+        for r in self.readers:
+            r.on_block = self._guard_block
+            r.on_comm = self._guard_comm
         self._consumer_thread = threading.Thread(target=self._consume, name="consumer", daemon=True)
         self._consumer_thread.start()
         self.monitor.started_at = self.clock.now()  # staleness counts from here
@@ -192,6 +205,8 @@ class Measurement:
                                  data={"mode": self.mode, "speed": self.speed, "simulated": cfg.simulated}))
         for r in self.readers:
             r.start()
+        self._watch_thread = threading.Thread(target=self._watch_stale, name="guard-watch", daemon=True)
+        self._watch_thread.start()
         if self.sim is not None:
             self._truth_thread = threading.Thread(target=self._poll_truth, name="truth", daemon=True)
             self._truth_thread.start()
@@ -210,6 +225,8 @@ class Measurement:
                      on_stuck=lambda r: log.error("reader %s did not stop", r.name))
         if self._truth_thread is not None:
             self._truth_thread.join(2.0)
+        if getattr(self, "_watch_thread", None) is not None:
+            self._watch_thread.join(2.0)
         if self._consumer_thread is not None:
             self._consumer_thread.join(10.0)
         if self.store is not None:
@@ -250,10 +267,7 @@ class Measurement:
                 now = time.monotonic()
                 if now - last_tick >= 0.05:
                     last_tick = now
-                    # While catching up on a backlog, judge staleness on the data's own time:
-                    # readings waiting in the queue are not stale, only late.
-                    backlog = self.data_q.qsize() > 2
-                    c.tick(c.data_time if backlog else self.clock.now())
+                    c.tick(self.clock.now())
             c.drain_controls(self.pump_q)
             c.drain_controls(self.control_q)
         except BaseException as exc:  # the pump goes off on any failure of the pipeline
@@ -264,6 +278,33 @@ class Measurement:
                     self.guarded_pump.trip("the acquisition pipeline failed: " + repr(exc), "pipeline_failure",
                                            self.clock.now())
             self.stop_flag.set()
+
+    # -- the guard's checks, in the threads that read ------------------------------------------
+    def _guard_block(self, block) -> None:
+        gp, mon = self.guarded_pump, self.monitor
+        if block.source == "pump":
+            found = mon.feed_pump(block, output_off_since=gp.output_off_since)
+        elif block.source == "detector" and self.params.detector_range is not None:
+            found = mon.feed_detector(block, self.params.detector_range, pump_steady=self.mode == "watch")
+        else:
+            return
+        if found:
+            gp.trip_on(found)
+
+    def _guard_comm(self, status) -> None:
+        found = self.monitor.comm_result(status.source, status.ok, status.t, status.detail, lost=status.lost)
+        if found:
+            self.guarded_pump.trip_on(found)
+
+    def _watch_stale(self) -> None:
+        """Trips when an instrument has given no fresh reading for too long (20 checks a second)."""
+        while not self.stop_flag.wait(0.05):
+            try:
+                found = self.monitor.check_stale(self.clock.now())
+                if found:
+                    self.guarded_pump.trip_on(found)
+            except Exception:
+                log.exception("stale-reading check failed")
 
     def _poll_truth(self) -> None:
         """The simulator's truth every 0.1 s of real time, over a connection of its own."""
@@ -289,7 +330,8 @@ class Measurement:
                 truth = conn.sim_truth()  # t: simulated s since the digitiser's INIT
             except Exception:  # the simulator is closing
                 return
-            values = {("sim_t" if k == "t" else k): float(v) for k, v in truth.items()}
+            names = {"t": "sim_t", "pump_W": "pump_w"}
+            values = {names.get(k, k): float(v) for k, v in truth.items()}
             self.control_q.put(TruthItem(det.t_start + values.get("sim_t", 0.0), values))
 
     # -- state for displays -------------------------------------------------------------------

@@ -7,6 +7,8 @@ officer, ANSI Z136.1 / IEC 60825-1 and local rules.
 
 from __future__ import annotations
 
+from typing import Any
+
 from drivers.base import Driver, check_finite
 from drivers.registry import register
 
@@ -16,7 +18,19 @@ class PumpDriver(Driver):
     """Laser-diode current driver with output switch, hardware interlock and mount temperature."""
 
     ROLE = "pump"
-    OPTIONS = frozenset()
+    OPTIONS = frozenset({"compound_queries"})
+
+    #: What `read_status` reads, in this order (safety-critical first).
+    STATUS_OPS = ("interlock", "output_state", "measured_current", "current_setpoint", "mount_temperature")
+
+    def read_status(self) -> dict[str, Any]:
+        """Interlock, output, current, setpoint and mount temperature (SI), in one exchange
+        when the profile's option ``compound_queries`` is true, else one query each."""
+        if self.options.get("compound_queries"):
+            values = self.session.query_many(self.STATUS_OPS)
+        else:
+            values = [self.session.query(op) for op in self.STATUS_OPS]
+        return dict(zip(self.STATUS_OPS, values))
 
     def set_current(self, current_a: float) -> None:
         """Set the current setpoint (A)."""

@@ -121,6 +121,28 @@ class Session:
         command = self.profile.command(op)
         self._run(command, params)
 
+    def query_many(self, ops: list[str] | tuple[str, ...]) -> list[Any]:
+        """Several queries in one message, their replies in one line.
+
+        The query texts are joined with ``;`` into one compound program message, as IEEE
+        488.2 (section 7.1) allows, and the reply line is split on ``;``, each part decoded
+        by its own operation's reply format. One exchange instead of one per query.
+        """
+        commands = [self.profile.command(op) for op in ops]
+        for c in commands:
+            if c.reply is None or c.is_block or c.placeholders:
+                raise ValueError(f"ops: {c.op!r} is not a plain one-line query, so it cannot be joined")
+        sends = [codec.encode(c, {}, b"") for c in commands]
+        data = b";".join(sends) + self.profile.transport.write_termination
+        joined = Command(op="+".join(ops), send="", reply="text")
+        line = self._run(joined, {}, data=data)
+        parts = line.split(";")
+        if len(parts) != len(commands):
+            raise ReplyError(f"expected {len(commands)} replies separated by ';', got {len(parts)}",
+                             reply=line.encode("ascii", "replace"), role=self.role, resource=self.resource,
+                             command=data)
+        return [codec.decode_line(c, part.encode("ascii"), self.profile.errors) for c, part in zip(commands, parts)]
+
     def drain_errors(self) -> list[ErrorEntry]:
         """Drain the error queue and return its entries (empty if the profile has no query)."""
         if not self.profile.errors.query:
@@ -147,8 +169,9 @@ class Session:
         self._counts["errors"] += 1
         self._last_error = str(exc)
 
-    def _run(self, command: Command, params: dict[str, Any]) -> Any:
-        data = codec.encode(command, params, self.profile.transport.write_termination)
+    def _run(self, command: Command, params: dict[str, Any], data: bytes | None = None) -> Any:
+        if data is None:
+            data = codec.encode(command, params, self.profile.transport.write_termination)
         with self._lock:
             if self._closed:
                 raise ConnectionLost("the session is closed", role=self.role, resource=self.resource, command=data)

@@ -1,0 +1,220 @@
+"""Curve fits: decay, pump saturation, Voigt lineshape, McCumber consistency.
+
+References used by the checks: scipy.stats.linregress and scipy.optimize.curve_fit (general
+purpose least squares, as independent implementations), scipy.special.voigt_profile, the
+Olivero-Longbothum Voigt width formula (J. Quant. Spectrosc. Radiat. Transfer 17, 233, 1977)
+and the McCumber relation (Phys. Rev. 136, A954, 1964) through bench.physics.
+"""
+
+from __future__ import annotations
+
+import math
+
+import numpy as np
+import pytest
+from scipy import constants, optimize, special, stats
+
+from bench import fitting, physics
+
+# ------------------------------------------------------------------ exponential decay
+
+
+def test_decay_fit_on_an_exact_exponential_matches_a_straight_line_fit_of_its_log():
+    # reference: scipy.stats.linregress of ln y against t (an exact exponential is a line)
+    t = np.linspace(0.0, 3e-3, 40)
+    y = 0.46 * np.exp(-t / 6.1e-4)
+    fit = fitting.fit_exponential_decay(t, y)
+    line = stats.linregress(t, np.log(y))
+    assert fit.value("tau") == pytest.approx(-1.0 / line.slope, rel=1e-9)
+    assert fit.value("amplitude") == pytest.approx(math.exp(line.intercept), rel=1e-9)
+
+
+def test_decay_fit_agrees_with_plain_curve_fit_on_noisy_data():
+    # reference: scipy.optimize.curve_fit on the unscaled model, absolute_sigma=False
+    rng = np.random.default_rng(3)
+    t = np.linspace(0.0, 3e-3, 60)
+    sigma = 2e-3 * (1.0 + t / 3e-3)
+    y = 0.3 * np.exp(-t / 6e-4) + rng.normal(0.0, sigma)
+    fit = fitting.fit_exponential_decay(t, y, sigma)
+    popt, pcov = optimize.curve_fit(lambda x, a, tau: a * np.exp(-x / tau), t, y, p0=[0.3, 6e-4],
+                                    sigma=sigma, absolute_sigma=False)
+    assert fit.values == pytest.approx(popt, rel=1e-6)
+    assert fit.sigmas == pytest.approx(np.sqrt(np.diag(pcov)), rel=1e-4)
+
+
+def test_decay_fit_sigma_is_calibrated_over_many_noisy_decays():
+    # the standard deviation of tau over repeated noisy decays matches the reported sigma
+    rng = np.random.default_rng(11)
+    t = np.linspace(0.0, 3e-3, 50)
+    taus, sigmas = [], []
+    for _ in range(300):
+        y = 0.5 * np.exp(-t / 6e-4) + rng.normal(0.0, 5e-3, t.size)
+        fit = fitting.fit_exponential_decay(t, y)
+        taus.append(fit.value("tau"))
+        sigmas.append(fit.sigma("tau"))
+    ratio = np.std(taus, ddof=1) / np.mean(sigmas)
+    assert 0.85 < ratio < 1.15  # 300 samples: the std of a std is about 4 %
+    assert abs(np.mean(taus) - 6e-4) < 3 * np.std(taus) / math.sqrt(300)
+
+
+def test_decay_fit_of_a_negative_decay_and_bad_inputs():
+    t = np.linspace(0.0, 1.0, 20)
+    fit = fitting.fit_exponential_decay(t, -2.0 * np.exp(-t / 0.3))
+    assert fit.value("amplitude") == pytest.approx(-2.0, rel=1e-9)
+    assert fit.value("tau") == pytest.approx(0.3, rel=1e-9)
+    with pytest.raises(ValueError, match="y"):
+        fitting.fit_exponential_decay(t, np.exp(t / 0.3))  # growing, not decaying
+    with pytest.raises(ValueError, match="t"):
+        fitting.fit_exponential_decay(t[:2], t[:2])
+    with pytest.raises(ValueError, match="sigma"):
+        fitting.fit_exponential_decay(t, np.exp(-t), sigma=np.zeros_like(t))
+    with pytest.raises(ValueError, match="tau_guess"):
+        fitting.fit_exponential_decay(t, np.exp(-t), tau_guess=-1.0)
+
+
+# ------------------------------------------------------------------ pump saturation
+
+
+def test_saturation_fit_recovers_beta_max_and_p_sat_within_sigma():
+    rng = np.random.default_rng(5)
+    p = np.array([0.4, 0.8, 1.5, 2.5, 4.0, 6.0, 8.5])
+    truth = (0.78, 2.2)
+    sigma = np.full(p.size, 0.004)
+    z_b, z_p = [], []
+    for _ in range(200):
+        beta = physics.beta_of_pump(p, *truth) + rng.normal(0.0, sigma)
+        fit = fitting.fit_saturation(p, beta, sigma)
+        z_b.append((fit.value("beta_max") - truth[0]) / fit.sigma("beta_max"))
+        z_p.append((fit.value("p_sat") - truth[1]) / fit.sigma("p_sat"))
+    for z in (np.array(z_b), np.array(z_p)):
+        assert abs(np.mean(z)) < 0.25
+        assert 0.8 < np.std(z) < 1.25
+        assert 0.90 <= np.mean(np.abs(z) < 2) <= 0.99
+
+
+def test_saturation_fit_exact_data_and_pdg_inflation():
+    p = np.array([0.5, 1.0, 2.0, 4.0, 8.0])
+    beta = physics.beta_of_pump(p, 0.6, 1.7)
+    fit = fitting.fit_saturation(p, beta, np.full(p.size, 1e-3))
+    assert fit.value("beta_max") == pytest.approx(0.6, rel=1e-7)
+    assert fit.value("p_sat") == pytest.approx(1.7, rel=1e-7)
+    # scatter ten times the stated sigma: the covariance is inflated by chi2/dof (PDG rule)
+    rng = np.random.default_rng(1)
+    noisy = beta + rng.normal(0.0, 1e-2, p.size)
+    a = fitting.fit_saturation(p, noisy, np.full(p.size, 1e-3))
+    b = fitting.fit_saturation(p, noisy, np.full(p.size, 1e-2))
+    assert a.chi2_reduced > 1
+    # a (sigma too small) is inflated to the scatter; b is left alone when its chi2/dof is below 1
+    assert a.sigmas == pytest.approx(b.sigmas * min(1.0, math.sqrt(b.chi2_reduced)), rel=1e-3)
+
+
+def test_thick_sample_fraction_matches_an_integration_of_the_pump_along_the_sample():
+    # reference: scipy.integrate.solve_ivp of dI/dz = -alpha0 I / (1 + I / I_sat) along the
+    # sample, the local excited fraction beta_max s / (1 + s) averaged over z (trapezoid rule)
+    from scipy import integrate
+
+    bmax, p_sat, absorbance = 0.87, 9.6, 1.0
+    for p in (0.3, 4.0, 25.0):
+        sol = integrate.solve_ivp(lambda z, s: -absorbance * s / (1 + s), (0.0, 1.0), [p / p_sat],
+                                  dense_output=True, rtol=1e-12, atol=1e-14)
+        z = np.linspace(0.0, 1.0, 20001)
+        s = sol.sol(z)[0]
+        local = bmax * s / (1 + s)
+        mean = float(np.sum(0.5 * (local[1:] + local[:-1]) * np.diff(z)))
+        assert fitting.thick_sample_fraction(p, bmax, p_sat, absorbance) == pytest.approx(mean, rel=1e-7)
+    # an optically thin sample: the plain steady-state form (bench.physics.beta_of_pump)
+    p = np.array([0.0, 0.5, 3.0, 30.0])
+    assert fitting.thick_sample_fraction(p, bmax, p_sat, 1e-7) == pytest.approx(
+        physics.beta_of_pump(p, bmax, p_sat), rel=1e-6)
+    # very strong pump: the whole sample bleaches to beta_max (no overflow on the way)
+    assert fitting.thick_sample_fraction(1e7, bmax, p_sat, absorbance) == pytest.approx(bmax, rel=1e-5)
+
+
+def test_saturation_fit_of_a_thick_sample():
+    p = np.array([0.5, 1.0, 2.0, 3.5, 5.5, 8.8])
+    beta = fitting.thick_sample_fraction(p, 0.87, 9.6, 1.0)
+    fit = fitting.fit_saturation(p, beta, np.full(p.size, 1e-4), absorbance=1.0)
+    assert fit.value("beta_max") == pytest.approx(0.87, rel=1e-6)
+    assert fit.value("p_sat") == pytest.approx(9.6, rel=1e-6)
+    # the thin form does not describe these data: a poor chi-square
+    assert fitting.fit_saturation(p, beta, np.full(p.size, 1e-4)).chi2_reduced > 100
+
+
+def test_saturation_fit_rejects_bad_input():
+    with pytest.raises(ValueError, match="p"):
+        fitting.fit_saturation([1.0, 1.0, 1.0], [0.1, 0.1, 0.1], [0.01] * 3)
+    with pytest.raises(ValueError, match="p"):
+        fitting.fit_saturation([-1.0, 1.0, 2.0], [0.1, 0.2, 0.3], [0.01] * 3)
+
+
+# ------------------------------------------------------------------ Voigt
+
+
+def test_voigt_line_is_scipy_voigt_profile_scaled_to_its_peak():
+    x = np.linspace(-5, 5, 101)
+    v = fitting.voigt_line(x, 2.0, 0.3, 0.7, 0.4)
+    ref = special.voigt_profile(x - 0.3, 0.7, 0.4)
+    assert v == pytest.approx(2.0 * ref / special.voigt_profile(0.0, 0.7, 0.4), rel=1e-12)
+
+
+@pytest.mark.parametrize(("sigma", "gamma"), [(1.0, 0.0), (0.0, 1.0), (0.8, 0.5)])
+def test_voigt_fwhm_matches_a_numerical_half_maximum(sigma, gamma):
+    # Olivero-Longbothum is accurate to about 0.02 %; check against the profile itself
+    sigma = max(sigma, 1e-12)
+    gamma = max(gamma, 1e-12)
+    peak = special.voigt_profile(0.0, sigma, gamma)
+    half = optimize.brentq(lambda x: special.voigt_profile(x, sigma, gamma) - peak / 2, 0.0, 50.0)
+    assert fitting.voigt_fwhm(sigma, gamma) == pytest.approx(2 * half, rel=3e-4)
+
+
+def test_voigt_fit_recovers_centre_and_both_widths():
+    # a gain line near 1030 nm on a frequency axis, Gaussian and Lorentzian widths of 1 THz order
+    rng = np.random.default_rng(7)
+    nu = np.linspace(constants.c / 1060e-9, constants.c / 1000e-9, 31)
+    truth = dict(height=60.0, centre=constants.c / 1031e-9, sigma_gauss=1.6e12, gamma_lorentz=1.1e12)
+    sigma = np.full(nu.size, 0.2)
+    zs = {k: [] for k in truth}
+    for _ in range(60):
+        y = fitting.voigt_line(nu, *truth.values()) + rng.normal(0.0, sigma)
+        fit = fitting.fit_voigt(nu, y, sigma)
+        for k, v in truth.items():
+            zs[k].append((fit.value(k) - v) / fit.sigma(k))
+    for k, z in zs.items():
+        z = np.array(z)
+        assert abs(np.mean(z)) < 0.45, k  # 60 fits: the mean of z has sigma 0.13
+        assert 0.7 < np.std(z) < 1.35, k
+    exact = fitting.fit_voigt(nu, fitting.voigt_line(nu, *truth.values()), sigma)
+    for k, v in truth.items():
+        assert exact.value(k) == pytest.approx(v, rel=1e-6)
+
+
+# ------------------------------------------------------------------ McCumber
+
+
+def _mccumber_spectra(lam, epsilon, temperature):
+    """A smooth invented absorption band and its McCumber emission (bench.physics)."""
+    sa = 1.0e-24 * np.exp(-((lam - 1000e-9) / 25e-9) ** 2) + 0.05e-24
+    se = physics.mccumber_emission(lam, sa, epsilon, temperature)
+    return sa, se
+
+
+def test_mccumber_check_accepts_a_consistent_spectrum_and_rejects_a_wrong_one():
+    lam = np.linspace(990e-9, 1040e-9, 12)
+    temperature = 295.0
+    epsilon = physics.photon_energy(1005e-9)
+    sa, se = _mccumber_spectra(lam, epsilon, temperature)
+    rng = np.random.default_rng(2)
+    k_true = 5e-3 * 4e25  # L <N2>, m^-2
+    sigma = np.full(lam.size, 2e-3)
+    ln_r = k_true * (sa + se) + rng.normal(0.0, sigma)
+    good = fitting.mccumber_consistency(lam, ln_r, sigma, sa, se, epsilon, temperature)
+    assert good.consistent
+    assert good.scale_mccumber == pytest.approx(k_true, abs=4 * good.scale_mccumber_sigma)
+    assert good.config_max_log_deviation == pytest.approx(0.0, abs=1e-9)
+    # the same data checked with a zero-line energy 3 kT away: inconsistent
+    shifted = epsilon + 3 * constants.k * temperature
+    bad = fitting.mccumber_consistency(lam, ln_r, sigma, sa, se, shifted, temperature)
+    assert not bad.consistent
+    assert bad.config_max_log_deviation == pytest.approx(3.0, rel=1e-9)
+    with pytest.raises(ValueError, match="sigma_a"):
+        fitting.mccumber_consistency(lam, ln_r, sigma, sa[:-1], se, epsilon, temperature)
