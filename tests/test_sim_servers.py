@@ -169,18 +169,30 @@ def test_unknown_header_over_socket(sim, rm):
 
 
 def test_interlock_fault_switches_the_pump_off(rm):
-    with SimulatedBench(CFG, speed=10.0, faults=["interlock@1s"]) as bench:
+    with SimulatedBench(CFG, speed=10.0) as bench:
         pump = open_scpi(rm, bench.resources["pump"])
         try:
-            pump.write("SOUR:CURR 3;:OUTP ON")
-            assert pump.query("OUTP?") == "1"
+            assert pump.query("SOUR:CURR 3;:OUTP ON;:OUTP?") == "1"
             assert bench.pump_output_on()
-            # nobody talks to the pump: the driver still switches off by itself at 1 s
+            when = bench.now() + 1.0
+            bench.inject(f"interlock@{when}s")
+            # nobody talks to the pump: the driver still switches off by itself on time
             wait_for(lambda: not bench.pump_output_on(), what="the interlock to trip the pump")
-            assert bench.now() >= 1.0
+            assert bench.now() >= when
             assert pump.query("OUTP:INTL?") == "0"
             assert pump.query("OUTP?") == "0"
             assert pump.query("SYST:ERR?") == '201,"Interlock open"'
+            pump.write("OUTP ON")
+            assert pump.query("OUTP?;SYST:ERR?") == '0;201,"Interlock open"'
+        finally:
+            pump.close()
+
+
+def test_interlock_fault_from_the_start(rm):
+    with SimulatedBench(CFG, speed=1.0, faults=["interlock"]) as bench:
+        pump = open_scpi(rm, bench.resources["pump"])
+        try:
+            assert pump.query("OUTP:INTL?") == "0"
             pump.write("OUTP ON")
             assert pump.query("OUTP?;SYST:ERR?") == '0;201,"Interlock open"'
         finally:
@@ -203,15 +215,17 @@ def test_sim_fault_command_and_bad_spec(sim, rm):
 
 
 def test_drop_closes_the_connection_once(rm):
-    with SimulatedBench(CFG, speed=10.0, faults=["drop:pump@0.5s"]) as bench:
+    with SimulatedBench(CFG, speed=10.0) as bench:
         port = int(bench.resources["pump"].split("::")[2])
         conn = socket.create_connection(("127.0.0.1", port), timeout=5)
         try:
             conn.sendall(b"*OPC?\n")
             assert conn.recv(100) == b"1\n"
-            # the server closes it at 0.5 s simulated: the client sees end of stream
+            when = bench.now() + 0.5
+            bench.inject(f"drop:pump@{when}s")
+            # the server closes it at that simulated time: the client sees end of stream
             assert conn.recv(100) == b""
-            assert bench.now() >= 0.5
+            assert bench.now() >= when
         finally:
             conn.close()
         pump = open_scpi(rm, bench.resources["pump"])  # new connections are still accepted

@@ -1,0 +1,261 @@
+"""`gainbench benchmark`: what this machine sustains, measured, each figure beside its reference.
+
+Every figure is measured on the machine it runs on, against the simulated bench in a process of
+its own (so the measurement sees the same loopback transports a real bench would):
+
+- raw sequential write speed of the log disk, and the run store's write speed as a ratio to it;
+- the highest sustained acquisition rate (3 digitiser channels) with zero drops, headless;
+- the estimator's cost per sample, and replay speed as a multiple of real time;
+- guard trip latency, from the reading that shows an opened interlock to the pump-off command;
+- memory after 1 and after 24 simulated hours (a slow sample rate at a high simulation speed,
+  so that a day passes in minutes).
+
+Nothing here asserts: the numbers are for a person to read against their instrument's sample
+rate (see the README).
+"""
+
+from __future__ import annotations
+
+import gc
+import math
+import os
+import tempfile
+import time
+from collections.abc import Callable
+from dataclasses import dataclass, field
+from pathlib import Path
+from typing import Any
+
+import numpy as np
+
+from bench.config import BenchConfig, load_bench, load_bench_text
+from bench.records import Block
+
+ARM_ODS = {940e-9: 7.0, 1030e-9: 7.0}
+
+
+@dataclass
+class Figure:
+    name: str
+    value: float | None
+    unit: str
+    reference: str
+    detail: str = ""
+    extra: dict[str, Any] = field(default_factory=dict)
+
+
+def bench_at(rate_hz: float, *, base: BenchConfig | None = None, extra: dict[str, str] | None = None) -> BenchConfig:
+    """The built-in bench with the digitiser at ``rate_hz``."""
+    cfg = base or load_bench()
+    overrides = {"instruments.detector.options.sample_rate": f"{rate_hz:g} Hz", **(extra or {})}
+    return load_bench_text(cfg.text, cfg.source, overrides=overrides)
+
+
+# -- disk ------------------------------------------------------------------------------------------
+
+def disk_write_speed(directory: Path, megabytes: int = 256) -> float:
+    """Sequential write speed (bytes/s) of ``directory``'s disk: os.write in 4 MiB chunks + fsync."""
+    chunk = os.urandom(4 << 20)
+    n = max(1, megabytes // 4)
+    fd, name = tempfile.mkstemp(dir=directory, prefix="gainbench-disk-")
+    try:
+        t = time.perf_counter()
+        for _ in range(n):
+            os.write(fd, chunk)
+        os.fsync(fd)
+        dt = time.perf_counter() - t
+    finally:
+        os.close(fd)
+        os.unlink(name)
+    return n * len(chunk) / dt
+
+
+def store_write_speed(directory: Path, megabytes: int = 256) -> float:
+    """Bytes of raw block data per second the run store writes (float32-exact ADC-like data)."""
+    from bench.runstore import RunWriter
+
+    cfg = load_bench()
+    rng = np.random.default_rng(1)
+    sets = 65536
+    codes = rng.integers(-30000, 30000, size=(sets, 3))
+    data = codes.astype(np.float64) * (2.0 / 32768)
+    per_block = data.astype(np.float32).nbytes
+    n = max(1, (megabytes << 20) // per_block)
+    with tempfile.TemporaryDirectory(dir=directory) as tmp:
+        writer = RunWriter.create(tmp, bench_text=cfg.text, flush_interval=0.5)
+        t = time.perf_counter()
+        for k in range(n):
+            writer.append_block(Block("detector", k, k * sets * 1e-6, 1e-6, k * sets,
+                                      ("probe", "reference", "pump_monitor"), data))
+            writer.flush_if_due()
+        writer.close()
+        dt = time.perf_counter() - t
+    return n * per_block / dt
+
+
+# -- acquisition ------------------------------------------------------------------------------
+
+def acquisition_run(rate_hz: float, seconds: float, log_dir: Path, *, speed: float = 1.0,
+                    faults: tuple[str, ...] = (), mode: str = "watch") -> dict[str, Any]:
+    """Record ``seconds`` of pumped data at ``rate_hz``; drops, lag and trips as measured."""
+    from bench.checklist import answers_from_flags
+    from bench.measurement import Measurement, default_current
+
+    cfg = bench_at(rate_hz)
+    current = default_current(cfg)
+    settings = {"pump_current": current, "pump_power": cfg.pump.power_at(current)}
+    out: dict[str, Any] = {"rate_hz": rate_hz, "seconds": seconds}
+    with Measurement(cfg, mode=mode, settings=settings, log_dir=log_dir, speed=speed, faults=faults) as m:
+        m.capture_dark(0.1)
+        m.capture_baseline(0.2)
+        result = m.arm(answers_from_flags("benchmark", ARM_ODS, True), "benchmark")
+        if not result.passed:
+            raise RuntimeError("; ".join(result.refusals))
+        m.set_current(current, who="benchmark")
+        m.emit("benchmark")
+        snap0 = m.snapshot(with_history=False)
+        t0 = time.monotonic()
+        m.hold(seconds, should_stop=lambda: m.guarded_pump.state == "tripped")
+        wall = time.monotonic() - t0
+        snap = m.snapshot(with_history=False)
+        out["samples_per_s"] = (snap.samples - snap0.samples) / wall
+        out["drops"] = snap.drops
+        out["lost"] = m.readers[0].lost_reported
+        out["lag_s"] = max(0.0, m.clock.now() - snap.t)
+        out["tripped"] = m.guarded_pump.state == "tripped"
+        out["trip_reason"] = m.guarded_pump.trip_reason
+        out["latencies"] = list(m.guarded_pump.trip_latencies)
+        out["run_path"] = str(m.run_path)
+    out["kept_up"] = (out["drops"] == 0 and out["lost"] == 0 and out["lag_s"] < 0.5 and not out["tripped"]
+                      and out["samples_per_s"] >= 0.9 * rate_hz)
+    return out
+
+
+def highest_rate(log_dir: Path, rates: list[float], seconds: float,
+                 report: Callable[[str], None]) -> tuple[float | None, list[dict[str, Any]]]:
+    best = None
+    runs = []
+    for rate in rates:
+        r = acquisition_run(rate, seconds, log_dir)
+        runs.append(r)
+        report(f"  {rate / 1e3:8.0f} kHz: {r['samples_per_s'] / 1e3:8.1f} k sets/s, drops {r['drops']}, "
+               f"lost {r['lost']}, lag {r['lag_s'] * 1e3:.0f} ms{'  (tripped: ' + str(r['trip_reason']) + ')' if r['tripped'] else ''}")
+        if not r["kept_up"]:
+            break
+        best = rate
+    return best, runs
+
+
+# -- estimator and replay -------------------------------------------------------------------------
+
+def replay_speed(run_path: str) -> dict[str, float]:
+    from bench.replay import replay
+
+    r = replay(run_path)
+    with_real = None
+    from bench.runstore import RunReader
+
+    with RunReader(run_path) as reader:
+        duration = reader.duration() or math.nan
+    with_real = (duration / r.seconds) if r.seconds > 0 else math.inf
+    return {"samples_per_s": r.samples_per_second, "times_real_time": with_real,
+            "identical": r.max_relative_difference == 0.0}
+
+
+def estimator_cost(quick: bool = False) -> dict[str, float]:
+    """CPU seconds per sample set of the estimator, per mode."""
+    from bench.estimate import MODES
+    from bench.estimator_cost import estimator_cost_per_sample
+
+    seconds = 0.5 if quick else 2.0
+    return {mode: estimator_cost_per_sample(mode, seconds=seconds) for mode in MODES}
+
+
+# -- guard ------------------------------------------------------------------------------------------
+
+def trip_latency(log_dir: Path, repeats: int = 3) -> list[float]:
+    lat = []
+    for _ in range(repeats):
+        r = acquisition_run(100e3, 4.0, log_dir, faults=("interlock@3.5s+0.3s",))
+        lat += r["latencies"][:1]
+    return lat
+
+
+# -- memory ------------------------------------------------------------------------------------------
+
+def memory_over_day(log_dir: Path, hours: float = 24.0, speed: float = 2000.0, rate_hz: float = 500.0,
+                    report: Callable[[str], None] = print) -> dict[str, float]:
+    """RSS after 1 simulated hour and after ``hours``, at ``speed`` (chopped pump, recording)."""
+    import psutil
+
+    from bench.checklist import answers_from_flags
+    from bench.measurement import Measurement, default_current
+
+    proc = psutil.Process()
+    cfg = bench_at(rate_hz)
+    current = default_current(cfg)
+    settings = {"pump_current": current, "pump_power": cfg.pump.power_at(current)}
+    out: dict[str, float] = {}
+    with Measurement(cfg, settings=settings, log_dir=log_dir, speed=speed) as m:
+        m.capture_baseline(1.0)
+        m.arm(answers_from_flags("benchmark", ARM_ODS, True), "benchmark")
+        m.set_current(current, who="benchmark")
+        m.emit("benchmark")
+        m.hold(3600.0)
+        gc.collect()
+        out["rss_1h_mb"] = proc.memory_info().rss / 1e6
+        report(f"  after 1 simulated hour: {out['rss_1h_mb']:.1f} MB")
+        m.hold((hours - 1.0) * 3600.0, should_stop=lambda: m.guarded_pump.state == "tripped")
+        gc.collect()
+        out[f"rss_{hours:g}h_mb"] = proc.memory_info().rss / 1e6
+        out["hours"] = hours
+        out["tripped"] = m.guarded_pump.state == "tripped"
+        snap = m.snapshot(with_history=False)
+        out["drops"] = snap.drops
+        report(f"  after {hours:g} simulated hours: {out[f'rss_{hours:g}h_mb']:.1f} MB (drops {snap.drops})")
+    out["growth_mb"] = out[f"rss_{hours:g}h_mb"] - out["rss_1h_mb"]
+    return out
+
+
+# -- all of it --------------------------------------------------------------------------------------
+
+def run_benchmark(log_dir: Path, *, quick: bool = False, report: Callable[[str], None] = print) -> list[Figure]:
+    log_dir.mkdir(parents=True, exist_ok=True)
+    figures: list[Figure] = []
+    mb = 64 if quick else 256
+    report("disk ...")
+    disk = disk_write_speed(log_dir, mb)
+    store = store_write_speed(log_dir, mb)
+    figures.append(Figure("disk sequential write", disk / 1e6, "MB/s", "reference for the run store"))
+    figures.append(Figure("run store write", store / 1e6, "MB/s", f"{store / disk:.2f} x the disk",
+                          extra={"ratio_to_disk": store / disk}))
+    report("acquisition (3 channels, headless) ...")
+    rates = [250e3, 1e6] if quick else [100e3, 250e3, 500e3, 1e6, 1.5e6, 2e6]
+    seconds = 3.0 if quick else 8.0
+    best, runs = highest_rate(log_dir, rates, seconds, report)
+    figures.append(Figure("highest sustained rate, zero drops", None if best is None else best / 1e6,
+                          "M sets/s (x3 channels)", ">= 1 M samples/s per channel wanted",
+                          extra={"runs": runs}))
+    report("estimator ...")
+    cost = estimator_cost(quick)
+    for mode, sec in cost.items():
+        figures.append(Figure(f"estimator cost, {mode}", sec * 1e9, "ns/sample set",
+                              "1000 ns/set = one core at 1 M sets/s"))
+    last = next((r for r in reversed(runs) if r.get("kept_up")), runs[-1] if runs else None)
+    if last is not None:
+        report("replay ...")
+        rs = replay_speed(last["run_path"])
+        figures.append(Figure("replay speed", rs["samples_per_s"] / 1e6, "M sets/s",
+                              f"{rs['times_real_time']:.1f} x real time of a {last['rate_hz'] / 1e6:g} M sets/s run",
+                              extra=rs))
+    report("guard trip latency ...")
+    lat = trip_latency(log_dir, 1 if quick else 3)
+    figures.append(Figure("guard trip latency (worst)", max(lat) * 1e3 if lat else None, "ms",
+                          "<= 100 ms required", detail=", ".join(f"{x * 1e3:.1f}" for x in lat)))
+    report("memory over a simulated day ...")
+    hours = 3.0 if quick else 24.0
+    mem = memory_over_day(log_dir, hours=hours, report=report)
+    figures.append(Figure("memory after 1 simulated hour", mem["rss_1h_mb"], "MB", "baseline"))
+    figures.append(Figure(f"memory after {hours:g} simulated hours", mem[f"rss_{hours:g}h_mb"], "MB",
+                          f"growth {mem['growth_mb']:+.1f} MB (< 20 MB wanted)", extra=mem))
+    return figures
