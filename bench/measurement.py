@@ -381,7 +381,7 @@ class Measurement:
                 on_tick()
 
     # -- procedures -----------------------------------------------------------------------------
-    def capture_dark(self, seconds: float = 0.2, settle: float = 0.05, who: str = "gainbench") -> None:
+    def capture_dark(self, seconds: float = 0.2, settle: float = 0.1, who: str = "gainbench") -> None:
         """Close the probe shutter, take ``seconds`` of dark, open it again."""
         shutter = self.instruments.get("shutter")
         if shutter is None:
@@ -392,10 +392,10 @@ class Measurement:
             t0 = self.clock.now() + settle
             t1 = t0 + seconds
             self.wait_data_until(t1 + 0.01)
-            self.control_q.put(Control("dark", self.clock.now(), {"t_start": t0, "t_end": t1}, who))
+            self._apply_and_wait(Control("dark", self.clock.now(), {"t_start": t0, "t_end": t1}, who))
         finally:
             shutter.open("probe")
-        self.hold(settle)
+            self.hold(settle)
 
     def capture_baseline(self, seconds: float = 0.3, who: str = "gainbench") -> None:
         """Pump off, wait for the medium to relax (settle time), take ``seconds`` of baseline."""
@@ -406,8 +406,23 @@ class Measurement:
         t0 = self.clock.now() + settle
         t1 = t0 + seconds
         self.wait_data_until(t1 + 0.01)
-        self.control_q.put(Control("baseline", self.clock.now(), {"t_start": t0, "t_end": t1}, who))
-        self.hold(0.02)
+        self._apply_and_wait(Control("baseline", self.clock.now(), {"t_start": t0, "t_end": t1}, who))
+
+    def _apply_and_wait(self, control: Control, timeout: float = 10.0) -> str:
+        """Hand a capture to the consumer and wait for its outcome; MeasurementError if it failed."""
+        assert self.consumer is not None
+        before = len(self.consumer.procedure_results)
+        self.control_q.put(control)
+        deadline = time.monotonic() + timeout
+        while len(self.consumer.procedure_results) <= before:
+            self.check_alive()
+            if time.monotonic() > deadline:
+                raise MeasurementError(f"{control.kind}: the pipeline did not apply it within {timeout:.0f} s")
+            time.sleep(0.005)
+        kind, ok, text = self.consumer.procedure_results[before]
+        if not ok:
+            raise MeasurementError(f"{kind} capture failed: {text}")
+        return text
 
     def set_mode(self, mode: str, settings: Mapping[str, Any] | None = None, who: str = "gainbench") -> None:
         self.mode = mode

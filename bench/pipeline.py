@@ -147,6 +147,8 @@ class Consumer:
         self.extra: dict[str, Any] = {}
         self._last_off_retry = 0.0
         self.last_estimates: list[Estimate] = []
+        #: (kind, ok, text) of each dark/baseline/mode/setting control, in order applied.
+        self.procedure_results: list[tuple[str, bool, str]] = []
 
     # -- the stream -----------------------------------------------------------------------
     def process(self, item: object) -> None:
@@ -265,22 +267,22 @@ class Consumer:
             blocks = [_slice(b, t0, t1) for b in self._recent if b.t_end >= t0 and b.t0 <= t1]
             blocks = [b for b in blocks if b is not None and b.n > 0]
             if not blocks:
+                self.procedure_results.append((control.kind, False, "no detector samples in the window"))
                 self.record_event(Event(control.t, "procedure", f"{control.kind} capture failed: no detector "
                                         f"samples between {t0:.3f} s and {t1:.3f} s", control.who,
                                         data={**data, "control": control.kind, "ok": False,
                                               "before_seq": before_seq}))
                 return
-            if control.kind == "dark":
-                dark = est.capture_dark(blocks)
-                self.state = est.with_dark(self.state, dark)
-                text = (f"dark captured: probe {dark.probe * 1e3:.3f} mV, reference "
-                        f"{dark.reference * 1e3:.3f} mV")
-            else:
-                base = est.capture_baseline(blocks, self.state.dark,
-                                            pump_threshold_v=self.params.pump_threshold_v)
-                self.state = est.with_baseline(self.state, base)
-                text = f"baseline captured: S_off = {base.value:.6g} +- {base.sigma:.2g}"
+            try:
+                text = self._capture(control.kind, blocks)
+            except ValueError as exc:  # the data cannot give a dark or baseline: say so, go on
+                self.procedure_results.append((control.kind, False, str(exc)))
+                self.record_event(Event(control.t, "procedure", f"{control.kind} capture failed: {exc}",
+                                        control.who, data={**data, "control": control.kind, "ok": False,
+                                                           "before_seq": before_seq}))
+                return
         elif control.kind == "mode":
+
             mode = str(data["mode"])
             keep_dark, keep_base = self.state.dark, self.state.baseline
             self.state = est.new_state(self.params, mode, data.get("settings"))
@@ -290,9 +292,20 @@ class Consumer:
             self.state = est.with_setting(self.state, **data)
             text = "setting " + ", ".join(f"{k}={v:g}" if isinstance(v, float) else f"{k}={v}"
                                           for k, v in data.items())
+        self.procedure_results.append((control.kind, True, text))
         self.record_event(Event(control.t, "procedure" if control.kind in ("dark", "baseline") else "setting",
                                 text, control.who,
                                 data={**data, "control": control.kind, "ok": True, "before_seq": before_seq}))
+
+    def _capture(self, kind: str, blocks: list[Block]) -> str:
+        """Capture a dark or a baseline from ``blocks``; the event text. ValueError if impossible."""
+        if kind == "dark":
+            dark = est.capture_dark(blocks)
+            self.state = est.with_dark(self.state, dark)
+            return f"dark captured: probe {dark.probe * 1e3:.3f} mV, reference {dark.reference * 1e3:.3f} mV"
+        base = est.capture_baseline(blocks, self.state.dark, pump_threshold_v=self.params.pump_threshold_v)
+        self.state = est.with_baseline(self.state, base)
+        return f"baseline captured: S_off = {base.value:.6g} +- {base.sigma:.2g}"
 
     @property
     def data_time(self) -> float:
