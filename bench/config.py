@@ -151,6 +151,8 @@ class BenchConfig:
     guard: GuardConfig
     run: RunConfig
     simulation: SimulationConfig | None
+    #: Values given apart from the file (``--set``), applied over ``text``.
+    overrides: Mapping[str, str] = field(default_factory=dict)
 
 
 # --------------------------------------------------------------------------------------------
@@ -199,6 +201,10 @@ def load_bench_text(
     reader = _Reader(raw, source, text)
     cfg = _build(reader, text, base_dir or Path.cwd())
     reader.reject_unknown()
+    if overrides:
+        from dataclasses import replace
+
+        cfg = replace(cfg, overrides=dict(overrides))
     return cfg
 
 

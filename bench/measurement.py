@@ -166,7 +166,8 @@ class Measurement:
             self.store = RunWriter.from_config(cfg, mode=self.mode, instruments=self.identities,
                                                log_dir=self.log_dir,
                                                meta={"speed": self.speed, "faults": list(self.faults)})
-            self.store.set_meta(estimator_mode=self.mode, estimator_settings=self.settings)
+            self.store.set_meta(estimator_mode=self.mode, estimator_settings=self.settings,
+                                bench_overrides=dict(cfg.overrides))
             if self.operator:
                 self.store.set_meta(operator=self.operator)
         self.monitor = TripMonitor(cfg.guard, started_at=self.clock.now())

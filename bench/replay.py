@@ -49,7 +49,9 @@ def run_config(reader: RunReader, overrides: Mapping[str, str] | None = None) ->
     text = reader.meta.get("bench_text")
     if not isinstance(text, str) or not text.strip():
         raise RunStoreError(f"{reader.path}: the run holds no bench file snapshot")
-    return load_bench_text(text, f"{reader.path.name} (bench file as recorded)", overrides=overrides)
+    recorded = reader.meta.get("bench_overrides") or {}
+    merged = {**(recorded if isinstance(recorded, dict) else {}), **dict(overrides or {})}
+    return load_bench_text(text, f"{reader.path.name} (bench file as recorded)", overrides=merged or None)
 
 
 def estimator_params(reader: RunReader, cfg: BenchConfig) -> EstimatorParams:

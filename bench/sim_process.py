@@ -63,13 +63,16 @@ class SimulatorProcess:
         self._dir = tempfile.TemporaryDirectory(prefix="gainbench-sim-")
         bench = Path(self._dir.name) / "bench.toml"
         bench.write_text(self.cfg.text, encoding="utf-8")
-        cmd = [sys.executable, "-m", "bench", "sim", "serve", "--config", str(bench), "--speed", repr(self.speed)]
+        cmd = [sys.executable, "-m", "bench", "sim", "serve", "--config", str(bench), "--speed", repr(self.speed),
+               "--until-stdin-closes"]
         if self.seed is not None:
             cmd += ["--seed", str(self.seed)]
         for f in self.faults:
             cmd += ["--fault", f]
         env = dict(os.environ, PYTHONUNBUFFERED="1")
-        self._proc = subprocess.Popen(cmd, stdin=subprocess.DEVNULL, stdout=subprocess.PIPE, stderr=subprocess.PIPE,
+        # The child's standard input is a pipe nobody writes to: it closes when this process
+        # ends, however it ends (even kill -9), and the simulator then stops by itself.
+        self._proc = subprocess.Popen(cmd, stdin=subprocess.PIPE, stdout=subprocess.PIPE, stderr=subprocess.PIPE,
                                       text=True, env=env)
         threading.Thread(target=self._collect_stderr, daemon=True, name="sim-stderr").start()
         wanted = {r for r in ROLES if r in self.cfg.instruments}
@@ -119,7 +122,7 @@ class SimulatorProcess:
         with self._lock:
             if self._truth_conn is None:
                 self._truth_conn = self._driver("detector")
-            from drivers.errors import InstrumentReportedError
+            from drivers.errors import InstrumentError, InstrumentReportedError
 
             try:
                 self._truth_conn.session.write("sim_fault", spec=spec)
@@ -127,6 +130,14 @@ class SimulatorProcess:
                 # the fault was injected; what it caused at once (e.g. "Input over range")
                 # is already in the error queue. Only a refusal of the fault itself is an error.
                 if exc.code != 101:
+                    raise
+            except InstrumentError:
+                # a fault of the digitiser itself (slow, garbled, dropped replies) also hits
+                # this connection's own error-queue check: the command was sent; start afresh
+                with contextlib.suppress(Exception):
+                    self._truth_conn.close()
+                self._truth_conn = None
+                if not spec.split("@")[0].split("+")[0].endswith(":detector"):
                     raise
 
     def close(self) -> None:
@@ -137,6 +148,9 @@ class SimulatorProcess:
                         conn.close()
             self._truth_conn = self._pump_conn = None
         proc = self._proc
+        if proc is not None and proc.stdin is not None:
+            with contextlib.suppress(Exception):
+                proc.stdin.close()
         if proc is not None and proc.poll() is None:
             with contextlib.suppress(Exception):
                 proc.terminate()  # the simulator switches its pump off and closes

@@ -15,7 +15,7 @@ import time
 import pytest
 
 from bench.checklist import answers_from_flags
-from bench.config import load_bench
+from bench.config import load_bench, load_bench_text
 from bench.errors import GainbenchError
 from bench.guard import GuardRefused
 from bench.measurement import Measurement
@@ -34,7 +34,8 @@ def _wait(condition, timeout: float, what: str) -> None:
 
 @pytest.fixture
 def emitting(tmp_path):
-    cfg = load_bench()
+    # stale readings get their own test below; a loaded machine must not trip the others
+    cfg = load_bench_text(load_bench().text, "demo", overrides={"guard.stale_after": "2 s"})
     current = 6.0
     m = Measurement(cfg, log_dir=tmp_path, settings={"pump_current": current, "pump_power": cfg.pump.power_at(current)})
     with m:
@@ -126,3 +127,12 @@ def test_arming_refused_with_low_eyewear_od(tmp_path):
         with pytest.raises(GuardRefused):
             m.emit("tester")
         assert not m.sim.pump_output_on()
+
+
+def test_stale_detector_readings_trip(emitting):
+    # the digitiser's replies held back for 3 s: no fresh detector data for longer than stale_after
+    emitting.sim.inject("slow:detector+4s")
+    _wait(lambda: emitting.guarded_pump.state == "tripped", 15, "a trip on stale detector readings")
+    reason = emitting.guarded_pump.trip_reason or ""
+    assert "detector" in reason, reason
+    _wait(lambda: not emitting.sim.pump_output_on(), 5, "the simulated pump to be off")

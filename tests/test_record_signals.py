@@ -22,7 +22,10 @@ import pytest
 from bench.config import builtin_bench_path
 from bench.runstore import RunReader
 
-ARM = ["--operator", "tester", "--eyewear-od", "940nm=5", "--eyewear-od", "1030nm=2", "--confirm-setup"]
+ARM = ["--operator", "tester", "--eyewear-od", "940nm=5", "--eyewear-od", "1030nm=2", "--confirm-setup",
+       # a loaded test machine may stall a reader for longer than the demo bench's 0.5 s: these
+       # tests are about the run, not about stale-reading trips (tests/test_guard_on_bench.py)
+       "--set", "guard.stale_after=2s"]
 
 
 def _gainbench(*args: str) -> list[str]:
@@ -137,3 +140,27 @@ def test_kill_9_loses_at_most_the_last_flush_interval(tmp_path):
     # The status line was printed after data up to t_seen had been processed and stored; at most
     # one flush interval of it may be lost (plus one status period of slack).
     assert newest >= t_seen - flush - 1.0
+
+
+def test_simulator_stops_when_its_parent_is_killed(tmp_path):
+    """The simulated bench started by `record` must not outlive a killed `record`."""
+    import psutil
+
+    logs = tmp_path / "logs"
+    proc = subprocess.Popen(
+        _gainbench("record", "--seconds", "60", "--logs", str(logs), *ARM),
+        stdout=subprocess.PIPE, stderr=subprocess.PIPE, text=True,
+    )
+    try:
+        _read_until(proc, r"guard emitting", timeout=60)
+        children = psutil.Process(proc.pid).children(recursive=True)
+        assert children, "record started no simulator process"
+        os.kill(proc.pid, signal.SIGKILL)
+        proc.wait(10)
+    finally:
+        if proc.poll() is None:
+            proc.kill()
+    gone, alive = psutil.wait_procs(children, timeout=15)
+    for p in alive:
+        p.kill()
+    assert not alive, f"simulator processes left running: {alive}"

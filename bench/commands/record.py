@@ -12,7 +12,7 @@ import math
 import sys
 import time
 
-from bench.config import load_bench
+from bench.config import load_bench, parse_overrides
 from bench.errors import ConfigError, GainbenchError
 from bench.units import parse_quantity
 
@@ -41,6 +41,9 @@ def configure(parser: argparse.ArgumentParser) -> None:
     parser.add_argument("--confirm-setup", action="store_true",
                         help="confirm that the beam path is enclosed, beam dumps are in place and the "
                              "warning sign or light is on (otherwise asked on the terminal)")
+    parser.add_argument("--set", action="append", default=[], metavar="KEY=VALUE", dest="overrides",
+                        help="change a bench-file value for this run, e.g. guard.stale_after=1s (repeatable; "
+                             "the run stores the bench file as used)")
     parser.add_argument("--no-dark", action="store_true", help="skip the dark capture")
     parser.add_argument("--seed", type=int, help="simulated bench only: random seed")
     parser.add_argument("--quiet", action="store_true", help="no status line")
@@ -54,7 +57,7 @@ def run(args: argparse.Namespace) -> int:
         sweep_currents,
     )
 
-    cfg = load_bench(args.config)
+    cfg = load_bench(args.config, overrides=parse_overrides(args.overrides))
     if args.seconds <= 0 or not math.isfinite(args.seconds):
         raise ConfigError(f"--seconds: {args.seconds} is not a positive number of seconds")
     if args.speed <= 0:

@@ -41,6 +41,9 @@ def configure(parser: argparse.ArgumentParser) -> None:
                        help="simulated seconds per real second (default 1)")
     serve.add_argument("--seed", type=int, default=None, help="random seed (default: the bench file's)")
     serve.add_argument("--fault", action="append", default=[], metavar="SPEC", help=FAULT_HELP)
+    serve.add_argument("--until-stdin-closes", action="store_true",
+                       help="also stop when standard input closes (for a parent process that starts the "
+                            "simulator: it stops with its parent, even a killed one)")
 
 
 def run(args: argparse.Namespace) -> int:
@@ -70,6 +73,8 @@ def run(args: argparse.Namespace) -> int:
             sys.stdout.flush()
             print(f"gainbench sim: serving {cfg.name} at speed {args.speed:g}; Ctrl-C to stop",
                   file=sys.stderr)
+            if args.until_stdin_closes:
+                threading.Thread(target=_stop_at_eof, args=(stop,), daemon=True, name="stdin-watch").start()
             while not stop.wait(0.5):
                 pass
     finally:
@@ -77,3 +82,13 @@ def run(args: argparse.Namespace) -> int:
             signal.signal(sig, handler)
     print("gainbench sim: stopped (simulated pump off)", file=sys.stderr)
     return 0
+
+
+def _stop_at_eof(stop: threading.Event) -> None:
+    """Set ``stop`` once standard input reaches its end (the parent closed it or died)."""
+    try:
+        while sys.stdin.buffer.read(4096):
+            pass
+    except (OSError, ValueError):
+        pass
+    stop.set()
