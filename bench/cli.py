@@ -24,6 +24,7 @@ COMMAND_MODULES = (
     "replay",
     "export",
     "import_csv",
+    "report",
     "benchmark",
 )
 

@@ -35,13 +35,15 @@ def truth_over(reader: RunReader, cfg: BenchConfig, estimate: Estimate | None) -
         sel = (t >= t0) & (t <= t1 + 1e-9)
     else:
         sel = np.ones(t.size, bool)
-    pump = np.array([r.get("pump_w", 0.0) for r in rows])
+    pump = np.array([r.get("pump_w", r.get("pump_W", 0.0)) for r in rows])
     if sel.any() and pump[sel].max() > 0:
         sel &= pump >= 0.5 * pump[sel].max()  # the pumped part (chopped runs alternate)
     if not sel.any():
         sel = pump >= 0.5 * pump.max() if pump.max() > 0 else np.ones(t.size, bool)
     pick = [r for r, s in zip(rows, sel) if s]
-    mean = {k: float(np.mean([r[k] for r in pick])) for k in ("ln_ratio", "beta", "n2_avg", "tau", "n_total", "length")
+    # The median, not the mean: a truth sample caught during a pump edge (chopped and decay
+    # runs sample the truth at random phases) must not pull the figure.
+    mean = {k: float(np.median([r[k] for r in pick])) for k in ("ln_ratio", "beta", "n2_avg", "tau", "n_total", "length")
             if all(k in r for r in pick)}
     if "ln_ratio" not in mean:
         return None

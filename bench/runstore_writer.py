@@ -399,6 +399,9 @@ def open_for_analysis(
     except sqlite3.Error as exc:
         raise run_file_error(path, f"cannot be opened for writing (SQLite: {exc})") from None
     try:
+        # WAL while the analysis is written, so that the replay reading the blocks and this
+        # writer do not lock each other out; closing merges it back (DELETE mode).
+        conn.execute("PRAGMA journal_mode = WAL")
         conn.execute("PRAGMA synchronous = FULL")
         conn.execute("BEGIN IMMEDIATE")
         cur = conn.execute(
