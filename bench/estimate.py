@@ -703,10 +703,11 @@ def _frame(state: EstimatorState, block: Block) -> tuple[_Frame | None, _Clock, 
     vp = block.column(PROBE)
     vr = block.column(REFERENCE)
     vm = block.column(PUMP_MONITOR)
-    if state.dark is not None:
-        s = (vp - state.dark.probe) / (vr - state.dark.reference)
-    else:
-        s = vp / vr
+    with np.errstate(divide="ignore", invalid="ignore"):  # a blocked reference reads ~0 V: S is then inf/nan
+        if state.dark is not None:
+            s = (vp - state.dark.probe) / (vr - state.dark.reference)
+        else:
+            s = vp / vr
     thr = p.pump_threshold(state.settings.get("pump_power"))
     on = vm > thr
 

@@ -128,6 +128,8 @@ class Consumer:
         self._recent: deque[Block] = deque()
         self._recent_span = 0.0
         self._next_detector_seq = 0
+        #: Sample index the next detector block should start at (a digitiser counts from 0).
+        self._next_detector_index = 0
         self.blocks = 0
         self.samples = 0
         self.faults = 0
@@ -171,9 +173,12 @@ class Consumer:
     def _block(self, block: Block) -> None:
         if self.store is not None:
             self.store.append_block(block)  # 1. nothing is lost
+        if block.source == "detector" and block.first_index >= 0:
+            self._index_gap(block)
         self.blocks += 1
-        self.samples += block.n
-        self._t = max(self._t, block.t_end)
+        if block.source == "detector":
+            self.samples += block.n
+            self._t = max(self._t, block.t_end)  # data time: the newest detector sample
         if block.source == "detector":
             self._detector(block)
         elif block.source == "pump":
@@ -200,6 +205,22 @@ class Consumer:
             s = (probe - dp) / (ref - dr)
         with self._lock:  # 4. display history
             self.trace.add(block.times(), np.column_stack([probe, ref, s, mon]))
+
+    def _index_gap(self, block: Block) -> None:
+        """Log a ``gap`` event when a detector block does not start where the previous one ended."""
+        expected = self._next_detector_index
+        self._next_detector_index = block.first_index + block.n
+        missing = block.first_index - expected
+        if missing == 0:
+            return
+        if missing > 0:
+            text = f"detector: {missing} sample sets missing before sample {block.first_index}"
+        else:
+            text = f"detector: sample index went back from {expected} to {block.first_index}"
+        # t: the first missing sample's time; data as a CSV import's gaps (first_index: after the gap)
+        self.record_event(Event(block.t0 - max(missing, 0) * block.dt, "gap", text,
+                                data={"source": block.source, "first_missing": expected, "missing": missing,
+                                      "first_index": block.first_index, "seq": block.seq}))
 
     def _pump_block(self, block: Block) -> None:
         if self.monitor is not None:
