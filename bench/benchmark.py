@@ -192,9 +192,7 @@ def memory_over_day(log_dir: Path, hours: float = 24.0, speed: float = 1000.0, r
     from bench.measurement import Measurement, default_current
 
     proc = psutil.Process()
-    # a simulated day at this speed stalls readers for longer than the demo bench's 0.5 s
-    # allows for real time; the guard's stale limit is scaled with the simulation
-    cfg = bench_at(rate_hz, extra={"guard.stale_after": f"{0.5 * speed:g} s"})
+    cfg = bench_at(rate_hz)
     current = default_current(cfg)
     settings = {"pump_current": current, "pump_power": cfg.pump.power_at(current)}
     out: dict[str, float] = {}

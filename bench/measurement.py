@@ -170,7 +170,14 @@ class Measurement:
                                 bench_overrides=dict(cfg.overrides))
             if self.operator:
                 self.store.set_meta(operator=self.operator)
-        self.monitor = TripMonitor(cfg.guard, started_at=self.clock.now())
+        guard_cfg = cfg.guard
+        if self.speed != 1.0:
+            # Times are run-clock (simulated) seconds: an instrument silent for stale_after of
+            # real time is silent for speed times that on the run clock.
+            from dataclasses import replace
+
+            guard_cfg = replace(guard_cfg, stale_after=guard_cfg.stale_after * self.speed)
+        self.monitor = TripMonitor(guard_cfg, started_at=self.clock.now())
         self.pump_access = PumpAccess()
         self.guarded_pump = GuardedPump.from_config(
             GuardPumpPort(pump, self.pump_access), cfg, shutter=shutter, clock=self.clock.now, event_sink=self.control_q.put, monitor=self.monitor,
@@ -329,8 +336,8 @@ class Measurement:
         while not self.stop_flag.wait(0.1):
             try:
                 truth = conn.sim_truth()  # t: simulated s since the digitiser's INIT
-            except Exception:  # the simulator is closing
-                return
+            except Exception:  # a fault on this connection (it reconnects), or the simulator is closing
+                continue
             names = {"t": "sim_t", "pump_W": "pump_w"}
             values = {names.get(k, k): float(v) for k, v in truth.items()}
             self.control_q.put(TruthItem(det.t_start + values.get("sim_t", 0.0), values))
