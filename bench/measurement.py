@@ -290,10 +290,12 @@ class Measurement:
     # -- the guard's checks, in the threads that read ------------------------------------------
     def _guard_block(self, block) -> None:
         gp, mon = self.guarded_pump, self.monitor
+        now = self.clock.now()
         if block.source == "pump":
-            found = mon.feed_pump(block, output_off_since=gp.output_off_since)
+            found = mon.feed_pump(block, output_off_since=gp.output_off_since, received_at=now)
         elif block.source == "detector" and self.params.detector_range is not None:
-            found = mon.feed_detector(block, self.params.detector_range, pump_steady=self.mode == "watch")
+            found = mon.feed_detector(block, self.params.detector_range, pump_steady=self.mode == "watch",
+                                      received_at=now)
         else:
             return
         if found:

@@ -631,7 +631,8 @@ class TripMonitor:
         self._active.pop(stale_condition(source), None)
 
     # -- feeding ---------------------------------------------------------------------------
-    def feed_pump(self, block: Block, *, output_off_since: float | None = None) -> list[TripCondition]:
+    def feed_pump(self, block: Block, *, output_off_since: float | None = None,
+                  received_at: float | None = None) -> list[TripCondition]:
         """Check one pump block (channels ``pump_current``, ``pump_setpoint``, ``pump_on``,
         ``mount_temp``, ``interlock``; any subset).
 
@@ -648,7 +649,7 @@ class TripMonitor:
         ch = set(block.channels)
         col = block.column
         with self._lock:
-            self._seen(PUMP, block.t_end)
+            self._seen(PUMP, block.t_end if received_at is None else max(block.t_end, received_at))
             for name in block.channels:
                 self._values[name] = (float(t[-1]), float(col(name)[-1]))
             if INTERLOCK in ch:
@@ -690,6 +691,7 @@ class TripMonitor:
         full_scale: float | Mapping[str, float],
         *,
         pump_steady: bool = True,
+        received_at: float | None = None,
     ) -> list[TripCondition]:
         """Check one detector block (``probe``, ``reference``, ``pump_monitor`` in V).
 
@@ -706,7 +708,8 @@ class TripMonitor:
             return found
         t = block.times()
         with self._lock:
-            self._seen(DETECTOR, block.t_end)
+            # fresh = it arrived: a digitiser's data lag behind the clock by its fetch latency
+            self._seen(DETECTOR, block.t_end if received_at is None else max(block.t_end, received_at))
             columns = {c: block.column(c) for c in present}
             for c, v in columns.items():
                 peak = float(np.max(np.abs(v)))  # NaN propagates: a NaN reading never clears
