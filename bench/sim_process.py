@@ -43,7 +43,8 @@ class SimulatorProcess:
         self.resources: dict[str, str] = {}
         self._proc: subprocess.Popen | None = None
         self._dir: tempfile.TemporaryDirectory | None = None
-        self._lock = threading.Lock()
+        self._lock = threading.Lock()  # the truth connection and fault injection
+        self._pump_lock = threading.Lock()  # the pump connection: never waits behind a slow injection
         self._truth_conn = None
         self._pump_conn = None
         self._stderr: list[str] = []
@@ -112,20 +113,24 @@ class SimulatorProcess:
 
     def pump_output_on(self) -> bool:
         """Whether the simulated pump driver's output is on (asked over its own connection)."""
-        with self._lock:
+        with self._pump_lock:
             if self._pump_conn is None:
                 self._pump_conn = self._driver("pump")
             return self._pump_conn.output_is_on()
 
     def inject(self, spec: str) -> None:
-        """Inject a fault now (``SIM:FAULT``), e.g. ``"interlock+1s"``."""
-        with self._lock:
-            if self._truth_conn is None:
-                self._truth_conn = self._driver("detector")
-            from drivers.errors import InstrumentError, InstrumentReportedError
+        """Inject a fault now (``SIM:FAULT``), e.g. ``"interlock+1s"``.
 
+        Each injection goes over a connection of its own, opened for it: a connection kept
+        from before may have been closed by an earlier dropped-connection fault, and the
+        fault command (which is not safe to resend) would then be lost without a word.
+        """
+        from drivers.errors import InstrumentError, InstrumentReportedError
+
+        with self._lock:
+            conn = self._driver("detector")
             try:
-                self._truth_conn.session.write("sim_fault", spec=spec)
+                conn.session.write("sim_fault", spec=spec)
             except InstrumentReportedError as exc:
                 # the fault was injected; what it caused at once (e.g. "Input over range")
                 # is already in the error queue. Only a refusal of the fault itself is an error.
@@ -133,15 +138,15 @@ class SimulatorProcess:
                     raise
             except InstrumentError:
                 # a fault of the digitiser itself (slow, garbled, dropped replies) also hits
-                # this connection's own error-queue check: the command was sent; start afresh
-                with contextlib.suppress(Exception):
-                    self._truth_conn.close()
-                self._truth_conn = None
+                # this connection's own error-queue check: the command was sent
                 if not spec.split("@")[0].split("+")[0].endswith(":detector"):
                     raise
+            finally:
+                with contextlib.suppress(Exception):
+                    conn.close()
 
     def close(self) -> None:
-        with self._lock:
+        with self._lock, self._pump_lock:
             for conn in (self._truth_conn, self._pump_conn):
                 if conn is not None:
                     with contextlib.suppress(Exception):

@@ -237,6 +237,8 @@ def parse_block(data: bytes, *, terminator: bytes = b"\n") -> bytes:
 
 #: An IEEE 488.2 decimal numeric (NR1, NR2 or NR3), optionally surrounded by spaces.
 _NUMBER = re.compile(r"\s*[+-]?(?:\d+\.?\d*|\.\d+)(?:[eE]\s*[+-]?\d+)?\s*")
+#: White space, which a decimal numeric may hold around its exponent (removed before float()).
+_WHITESPACE = re.compile(r"\s+")
 
 
 def _as_text(reply: bytes | str) -> str:
@@ -253,7 +255,10 @@ def parse_float(reply: bytes | str) -> float:
     text = _as_text(reply)
     if not _NUMBER.fullmatch(text):
         raise ReplyError("expected one number", reply=reply)
-    return float(text.replace(" ", ""))
+    value = float(_WHITESPACE.sub("", text))
+    if not math.isfinite(value):
+        raise ReplyError("reply holds a number too large for float64", reply=reply)
+    return value
 
 
 def parse_int(reply: bytes | str) -> int:
@@ -316,7 +321,10 @@ def parse_numbers(
         for i, item in enumerate(items):
             if not _NUMBER.fullmatch(item):
                 raise ReplyError(f"item {i + 1} ({shorten(item)}) is not a number", reply=reply)
-        raise ReplyError("reply holds a number too large for float64", reply=reply)
+        # every item is a decimal numeric; numpy refuses white space inside one ("1e 5")
+        values = np.array([float(_WHITESPACE.sub("", item)) for item in items], dtype=np.float64)
+        if not np.isfinite(values).all():
+            raise ReplyError("reply holds a number too large for float64", reply=reply)
     # numpy accepts some spellings a decimal numeric does not ("1_0", "nan"): check when cheap
     if len(items) <= 64:
         for i, item in enumerate(items):

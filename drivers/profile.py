@@ -37,6 +37,7 @@ or given as a path.
 from __future__ import annotations
 
 import math
+import re
 import string
 import tomllib
 from collections.abc import Mapping
@@ -383,6 +384,8 @@ def _transport(table: dict[str, Any], path: str) -> TransportSettings:
 def _errors(table: dict[str, Any], path: str) -> ErrorPolicy:
     _only_keys(table, {"query", "drain_after_set", "max_entries", "reply_prefix"}, path, "errors")
     query = _string(table, "query", path, "errors")
+    if query is not None and not query.isascii():
+        raise ProfileError(path, "errors.query", f"{query!r} is not ASCII; commands are sent as ASCII text")
     drain = _bool(table, "drain_after_set", path, "errors", default=query is not None)
     if drain and query is None:
         raise ProfileError(path, "errors.drain_after_set", "needs errors.query (the error-queue query)")
@@ -425,9 +428,13 @@ def _check_template(send: str, spec: Operation, path: str, key: str) -> frozense
         parsed = list(string.Formatter().parse(send))
     except ValueError as exc:
         raise ProfileError(path, key, f"bad placeholder in {send!r} ({exc}); write a literal brace as {{{{ or }}}}") from None
-    for _literal, name, _spec, conversion in parsed:
+    for _literal, name, format_spec, conversion in parsed:
         if name is None:
             continue
+        if format_spec and ("{" in format_spec or re.search(r"\d{4,}", format_spec)):
+            # "{value:999999999}" would build a string of a gigabyte at every command
+            raise ProfileError(path, key, f"format spec {format_spec!r} in {send!r}: widths and precisions "
+                                          "are at most 999 and cannot be placeholders")
         if name not in spec.placeholders:
             allowed = ", ".join("{" + p + "}" for p in sorted(spec.placeholders)) or "none"
             raise ProfileError(path, key, f"unknown placeholder {{{name}}} in {send!r}; allowed here: {allowed}")
@@ -454,6 +461,8 @@ def _command(op: str, entry: Any, spec: Operation, errors: ErrorPolicy, path: st
     _only_keys(entry, _COMMAND_KEYS, path, key)
     send = _string(entry, "send", path, key, required=True)
     assert send is not None
+    if not send.isascii():
+        raise ProfileError(path, f"{key}.send", f"{send!r} is not ASCII; commands are sent as ASCII text")
     placeholders = _check_template(send, spec, path, f"{key}.send")
 
     reply_raw = entry.get("reply")

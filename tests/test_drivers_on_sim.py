@@ -89,6 +89,9 @@ def test_pump_driver_round_trip(cfg, sim):
         status = p.read_status()  # one compound query (IEEE 488.2 program message)
         assert status["output_state"] is True and status["interlock"] is True
         p.output(False)
+        # OUTP OFF has no reply: a query on the same connection returns only once the
+        # instrument has handled it, so the simulator's state is read after the command
+        assert not p.output_is_on()
         assert not sim.pump_output_on()
 
 
