@@ -19,6 +19,7 @@ COMMAND_MODULES = (
     "instruments",
     "sim",
     "record",
+    "live",
     "runs",
     "summary",
     "replay",

@@ -1,0 +1,202 @@
+"""What the live and the replay dashboards share: the layout, the repaint timer, the panels.
+
+A `set_interval` timer (``REFRESH_HZ``) asks the subclass for the latest `Snapshot`
+(``read_snapshot``) and hands it to the panels; nothing waits for the pipeline, and the
+pipeline never waits for the screen. ``call_after_refresh`` then notes how old the newest
+sample shown was when the screen was painted (`ScreenLatency`).
+
+Below ``COMPACT_SIZE`` cells the screen gets the class ``compact`` (see ``dashboard.tcss``):
+two plots at a time, and key ``v`` swaps them for the other two.
+"""
+
+from __future__ import annotations
+
+import math
+from collections.abc import Callable
+
+from textual.app import App, ComposeResult
+from textual.containers import Container, Horizontal, Vertical
+from textual.widgets import Footer
+
+from bench.dashboard.banner import ActionLine, BenchBanner
+from bench.dashboard.events_panel import EventsPanel
+from bench.dashboard.figures_panel import FiguresPanel
+from bench.dashboard.guard_panel import GuardPanel
+from bench.dashboard.meters import ScreenLatency
+from bench.dashboard.plots import ResponsePlot, SignalsPlot, TrendPlot, _SnapshotPlot
+from bench.dashboard.pump_panel import PumpPanel
+from bench.dashboard.run_panel import RunPanel
+from bench.pipeline import Snapshot
+
+#: Repaints per second (the snapshot timer).
+REFRESH_HZ = 10.0
+
+#: Below this many columns or rows the layout is compact.
+COMPACT_SIZE = (110, 32)
+
+
+class DashboardBase(App):
+    """The shared dashboard; subclasses implement ``read_snapshot`` and ``side_panels``."""
+
+    CSS_PATH = "dashboard.tcss"
+    TITLE = "gainbench"
+    ENABLE_COMMAND_PALETTE = False
+
+    def __init__(self, *, bench_name: str, simulated: bool, power_at: Callable[[float], float] | None = None,
+                 current_limit: float | None = None, replay_of: str = "", run_clock: Callable[[], float] | None = None,
+                 refresh_hz: float = REFRESH_HZ) -> None:
+        super().__init__()
+        if not (math.isfinite(refresh_hz) and 1.0 <= refresh_hz <= 60.0):
+            raise ValueError(f"refresh_hz: {refresh_hz!r} is not between 1 and 60")
+        self.bench_name = bench_name
+        self.simulated = simulated
+        self.power_at = power_at
+        self.current_limit = current_limit
+        self.replay_of = replay_of
+        self.run_clock = run_clock
+        self.refresh_hz = float(refresh_hz)
+        self.latency = ScreenLatency()
+        self.last_snapshot: Snapshot | None = None
+        self.repaints = 0
+        self._plot_turn = 0
+
+    # -- layout ---------------------------------------------------------------------------
+    def compose(self) -> ComposeResult:
+        yield BenchBanner(id="banner")
+        with Horizontal(id="status-row"):
+            yield GuardPanel(id="guard")
+            yield PumpPanel(self.power_at, id="pump")
+            yield RunPanel(id="run")
+        with Horizontal(id="main-row"):
+            with Container(id="plots"):
+                yield SignalsPlot(id="signals")
+                yield ResponsePlot(id="response")
+                yield TrendPlot("gain_db", id="trend-gain")
+                yield TrendPlot("beta", id="trend-beta")
+            with Vertical(id="side"):
+                yield FiguresPanel(id="figures")
+                yield from self.side_panels()
+        yield EventsPanel(id="events")
+        yield ActionLine(id="action")
+        yield Footer()
+
+    def side_panels(self) -> ComposeResult:
+        """Panels under the figures (the instruments' health, or the replay controls)."""
+        return iter(())
+
+    def on_mount(self) -> None:
+        self.setup()
+        self._fit_layout()
+        self.set_interval(1.0 / self.refresh_hz, self.tick, name="snapshot-timer")
+
+    def setup(self) -> None:
+        """Find the panels and give them what does not change (subclasses extend it).
+
+        (textual calls every class's own ``on_mount``, so subclasses extend this instead.)
+        """
+        main = self.screen_main
+        self.panels = {
+            "guard": main.query_one(GuardPanel), "pump": main.query_one(PumpPanel), "run": main.query_one(RunPanel),
+            "figures": main.query_one(FiguresPanel), "events": main.query_one(EventsPanel),
+            "action": main.query_one(ActionLine),
+        }
+        self.plots = list(main.query(_SnapshotPlot).results(_SnapshotPlot))
+        banner = main.query_one(BenchBanner)
+        banner.bench_name = self.bench_name
+        banner.simulated = self.simulated
+        banner.replay_of = self.replay_of
+        self.panels["pump"].limit = self.current_limit
+
+    def on_resize(self) -> None:
+        self._fit_layout()
+
+    def _fit_layout(self) -> None:
+        w, h = self.size
+        self.screen_main.set_class(w < COMPACT_SIZE[0] or h < COMPACT_SIZE[1], "compact")
+
+    @property
+    def screen_main(self):
+        """The dashboard's own screen (under any modal)."""
+        return self.screen_stack[0]
+
+    @property
+    def compact(self) -> bool:
+        return self.screen_main.has_class("compact")
+
+    def action_swap_plots(self) -> None:
+        self.screen_main.toggle_class("second-view")
+        snap = self.last_snapshot
+        if snap is not None:
+            self.call_after_refresh(self._show_plots, snap, True)
+
+    # -- the timer ------------------------------------------------------------------------
+    def read_snapshot(self) -> Snapshot | None:  # pragma: no cover - abstract
+        raise NotImplementedError
+
+    def tick(self) -> None:
+        if not self.is_running or not self.screen_main.is_mounted:
+            return
+        snap = self.read_snapshot()
+        if snap is None:
+            return
+        self.last_snapshot = snap
+        self.show_snapshot(snap)
+        if self.run_clock is not None:
+            self.call_after_refresh(self._painted, snap.t)
+
+    def _painted(self, newest_t: float) -> None:
+        self.repaints += 1
+        self.latency.add(self.run_clock(), newest_t)
+
+    def show_snapshot(self, snap: Snapshot) -> None:
+        """Hand ``snap`` to every panel (subclasses add theirs)."""
+        p = self.panels
+        p["guard"].reason = snap.trip_reason or ""
+        self.show_guard(snap)
+        p["pump"].show(snap.pump)
+        run = p["run"]
+        run.mode = snap.mode
+        run.store_bytes = snap.store_bytes
+        run.flush_age = snap.last_flush_age
+        run.drops = snap.drops
+        run.dropped_samples = snap.dropped_samples
+        run.faults = snap.faults
+        figures = p["figures"]
+        figures.estimate = snap.estimate
+        figures.has_dark = snap.has_dark
+        figures.has_baseline = snap.has_baseline
+        p["events"].show(self.events_of(snap))
+        self._show_plots(snap)
+
+    def _show_plots(self, snap: Snapshot, force: bool = False) -> None:
+        """Redraw at most one plot per tick, taking turns (plotext drawing costs ~10-40 ms);
+        none while a modal screen covers them."""
+        if self.screen is not self.screen_main:
+            return
+        plots = self.plots
+        if force:
+            for plot in plots:
+                plot.forget()
+        for k in range(len(plots)):
+            plot = plots[(self._plot_turn + k) % len(plots)]
+            if plot.show(snap):
+                self._plot_turn = (self._plot_turn + k + 1) % len(plots)
+                return
+
+    def show_guard(self, snap: Snapshot) -> None:
+        self.panels["guard"].state = snap.guard_state
+
+    def events_of(self, snap: Snapshot):
+        return snap.events
+
+    # -- helpers --------------------------------------------------------------------------
+    def say(self, text: str, level: str = "info") -> None:
+        """The action line (event loop only)."""
+        self.panels["action"].say(text, level)
+
+    def say_from_thread(self, text: str, level: str = "info") -> None:
+        """The action line, from a worker thread."""
+        try:
+            self.call_from_thread(self.say, text, level)
+        except RuntimeError:  # the app is closing
+            pass
