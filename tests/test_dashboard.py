@@ -66,6 +66,12 @@ async def type_text(pilot, text: str) -> None:
     await press(pilot, *("space" if c == " " else c for c in text))
 
 
+def plots_current(app) -> bool:
+    """Every plot on screen shows the latest snapshot (plots take turns, so this can take a while)."""
+    snap = app.last_snapshot
+    return snap is not None and all(p._drawn_key == p.data_key(snap) for p in app.plots if p.display)
+
+
 def save(app, name: str) -> None:
     SNAPSHOTS.mkdir(exist_ok=True)
     app.save_screenshot(name, path=str(SNAPSHOTS))
@@ -163,10 +169,10 @@ async def arm(pilot, od_pump: str = "5", od_probe: str = "2"):
     await type_text(pilot, od_probe)
     await press(pilot, "enter")
     for k in (3, 4, 5):
-        await wait_for(pilot, lambda: screen.step == k, f"question {k + 1}")
+        await wait_for(pilot, lambda k=k: screen.step == k, f"question {k + 1}")
         await press(pilot, "y")
     for k in (6, 7):
-        await wait_for(pilot, lambda: screen.step == k, f"check {k + 1}")
+        await wait_for(pilot, lambda k=k: screen.step == k, f"check {k + 1}")
         await press(pilot, "enter")
     return screen
 
@@ -251,6 +257,10 @@ async def test_arm_emit_change_current_and_stop(meas):
                        "EMITTING and OUTPUT ON on screen")
         await wait_for(pilot, lambda: (e := meas.snapshot(False).estimate) is not None and "beta" in e.values,
                        "an estimate of beta", timeout=30)
+        await wait_for(pilot, lambda: "β  σ" in screen_text(app) and "gain dB  σ" in screen_text(app),
+                       "beta and gain with their uncertainties on screen")
+        await wait_for(pilot, lambda: app.last_snapshot.estimates.t.size > 3, "a few estimates for the trends")
+        save(app, "live_emitting_120x40.svg")
         # one step up from 7.2 A is accepted; two more would pass the guard's 9 A limit
         await press(pilot, "plus")
         await wait_for(pilot, lambda: app.setpoint == pytest.approx(8.2), "8.2 A accepted")
@@ -259,7 +269,7 @@ async def test_arm_emit_change_current_and_stop(meas):
         assert app.setpoint == pytest.approx(8.2) and app.target == pytest.approx(8.2)
         await wait_for(pilot, lambda: meas.snapshot(False).pump.get("pump_setpoint") == pytest.approx(8.2),
                        "the driver's setpoint")
-        save(app, "live_emitting_120x40.svg")
+        await wait_for(pilot, lambda: "set 8.20 A" in screen_text(app), "the new setpoint on the pump panel")
         await press(pilot, "s")
         await wait_for(pilot, lambda: meas.guarded_pump.state == "armed", "emission stopped, still armed")
         await wait_for(pilot, lambda: not meas.sim.pump_output_on(), "the simulated driver's output off")
@@ -273,7 +283,7 @@ async def test_trip_opens_a_screen_that_must_be_acknowledged(meas):
     app = dashboard(meas)
     async with app.run_test(size=SIZE) as pilot:
         await started(pilot)
-        screen = await arm(pilot)
+        await arm(pilot)
         await closed_checklist(pilot)
         await press(pilot, "e")
         await wait_for(pilot, lambda: meas.guarded_pump.state == "emitting", "emission")
@@ -373,7 +383,7 @@ async def test_compact_layout_at_80x24(meas):
         await started(pilot)
         assert app.compact
         for words in ("SIMULATED BENCH", "SAFE", "output off", "mode watch", "interlock closed", "drops 0"):
-            await wait_for(pilot, lambda: words in screen_text(app), words)
+            await wait_for(pilot, lambda words=words: words in screen_text(app), words)
         assert not app.screen_main.query_one("#signals").display
         await press(pilot, "v")
         await wait_for(pilot, lambda: app.screen_main.query_one("#signals").display, "the other two plots")

@@ -87,7 +87,7 @@ def test_screen_latency_statistics_match_numpy():
     meter = ScreenLatency(keep=1000)
     painted = np.cumsum(rng.uniform(0.05, 0.15, 300))
     lat = rng.uniform(0.0, 0.2, 300)
-    for p, d in zip(painted, lat):
+    for p, d in zip(painted, lat, strict=True):
         meter.add(p, p - d)
     f = meter.figures()
     assert f.n == 300
@@ -146,7 +146,7 @@ EVENTS = [
     guard_event(1.2, "armed", "armed", accepted=False),
     guard_event(1.3, "armed", "emitting"),
     Event(1.5, "note", "aligned"),
-    guard_event(1.8, "emitting", "tripped", kind="trip", reason="hardware interlock reads open"),
+    guard_event(1.8, "emitting", "tripped", kind="trip", reason="trip: hardware interlock reads open"),
     guard_event(2.2, "tripped", "tripped"),
     guard_event(2.3, "tripped", "safe"),
 ]
@@ -240,3 +240,83 @@ def test_no_key_is_bound_twice():
     for keys in (LIVE_KEYS, REPLAY_KEYS):
         seen = [k for row in keys for k in row[0].split(",")]
         assert len(seen) == len(set(seen)), seen
+
+
+# -- the plots on synthetic snapshots (no bench) --------------------------------------------------
+
+def snapshot(mode="watch", estimate=None, t=1.0, n=400):
+    from types import MappingProxyType
+
+    from bench.history import EstimateView, TraceView
+    from bench.pipeline import Snapshot
+
+    tt = np.linspace(t - 2.0, t, n)
+    on = (np.floor(tt / 0.2) % 2).astype(float)  # pump on every other 0.2 s
+    s = 1.3333 * np.exp(0.69 * on)
+    cols = np.column_stack([0.8 * np.ones(n), 0.6 * np.ones(n), s, 0.7 * on])
+    trace = TraceView(("probe", "reference", "transmission", "pump_monitor"), tt, cols, cols, cols)
+    et = np.linspace(0.1, t, 10)
+    ests = EstimateView(et, ("beta", "gain_db", "ln_ratio", "tau_s"), np.tile([0.3, 2.5, 0.69, 6e-4], (10, 1)),
+                        np.tile([0.017, 0.03, 1e-5, 1e-5], (10, 1)))
+    return Snapshot(t=t, mode=mode, estimate=estimate, window=None, has_dark=True, has_baseline=True,
+                    pump=MappingProxyType({}), guard_state="safe", trip_reason=None, blocks=10, samples=n,
+                    drops=0, dropped_samples=0, faults=0, last_fault="", trace=trace, pump_trace=None,
+                    estimates=ests, truth=None, events=(), last_flush_age=None, store_bytes=None,
+                    sample_rate=1e5, extra=MappingProxyType({}))
+
+
+def plot_text(plot_cls, snap, **kwargs):
+    """Mount one plot in a bare app, hand it ``snap``, return its title and the screen text."""
+    import asyncio
+
+    from textual.app import App
+
+    class One(App):
+        def compose(self):
+            yield plot_cls(id="p", **kwargs)
+
+    async def run():
+        app = One()
+        async with app.run_test(size=(80, 20)) as pilot:
+            plot = app.query_one("#p")
+            assert plot.show(snap)
+            await pilot.pause(0.05)
+            text = "\n".join(s.text for s in app.screen._compositor.render_strips())
+            return plot.border_title, text, plot.drawings
+
+    return asyncio.run(run())
+
+
+def test_response_plot_marks_the_pump_on_stretches():
+    from bench.dashboard.plots import ResponsePlot
+
+    title, text, drawings = plot_text(ResponsePlot, snapshot())
+    assert "transmission" in title and drawings >= 1
+    assert "pump on" in text and "▀" in text  # the mark is a shape with a legend, not a colour
+
+
+def test_response_plot_shows_the_decay_fit_and_the_sweep_points():
+    from bench.dashboard.plots import ResponsePlot
+    from bench.records import Estimate
+
+    t = np.linspace(0, 3e-3, 12)
+    curve = {"t_s": list(t), "ln_ratio": list(0.7 * np.exp(-t / 6e-4)), "sigma": [1e-3] * 12,
+             "fit": list(0.7 * np.exp(-t / 6e-4))}
+    decay = Estimate(1.0, "decay", "cumulative", {}, extra={"curve": curve})
+    title, text, _ = plot_text(ResponsePlot, snapshot("decay", decay))
+    assert title.startswith("decay") and "fit" in text
+    points = [{"pump_power_w": p, "beta": b} for p, b in ((1.0, 0.05), (3.0, 0.14), (6.0, 0.25))]
+    fits = {"saturation": {"curve": {"pump_power_w": [0.0, 3.0, 6.0], "beta": [0.0, 0.14, 0.25]}}}
+    sweep = Estimate(1.0, "sweep", "cumulative", {}, extra={"points": points, "fits": fits})
+    title, text, _ = plot_text(ResponsePlot, snapshot("sweep", sweep))
+    assert title.startswith("sweep") and "steps" in text and "saturation fit" in text
+    # without curve data the decay plot falls back to the transmission trace
+    title, _, _ = plot_text(ResponsePlot, snapshot("decay", Estimate(1.0, "decay", "cumulative", {})))
+    assert "transmission" in title
+
+
+def test_trend_plot_draws_the_band():
+    from bench.dashboard.plots import TrendPlot
+
+    title, text, _ = plot_text(TrendPlot, snapshot(), key="gain_db")
+    assert "gain" in title and "±2σ" in text

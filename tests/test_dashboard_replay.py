@@ -12,10 +12,10 @@ import io
 from contextlib import redirect_stdout
 
 import pytest
+from test_dashboard import pilot_test, plots_current, press, save, screen_text, wait_for
 
 from bench.cli import main
 from bench.runstore import RunReader
-from test_dashboard import pilot_test, press, screen_text, save, wait_for
 
 ARM = ["--operator", "tester", "--eyewear-od", "940nm=5", "--eyewear-od", "1030nm=2", "--confirm-setup"]
 
@@ -74,13 +74,14 @@ async def test_replay_controls_and_the_guard_as_recorded(recorded):
             pos = feed.position()
             expected = recorded_state(feed.events, pos)
             word = expected.upper()
-            await wait_for(pilot, lambda: word in screen_text(app), f"{word} at {pos:.3f} s")
+            await wait_for(pilot, lambda word=word: word in screen_text(app), f"{word} at {pos:.3f} s")
             seen.append(expected)
             if pos >= trip.t - 1e-9:
                 break
         assert feed.position() == pytest.approx(trip.t)
         assert seen[-1] == "tripped" and {"safe", "armed", "emitting"} <= set(seen), seen
         await wait_for(pilot, lambda: "interlock" in screen_text(app), "the trip's reason on the guard panel")
+        await wait_for(pilot, lambda: plots_current(app), "every plot drawn at the trip")
         save(app, "replay_trip_120x40.svg")
         # seeking back replays from the start up to the target
         passes = feed.passes

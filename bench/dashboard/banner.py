@@ -8,6 +8,7 @@ from __future__ import annotations
 
 from rich.text import Text
 from textual.reactive import reactive
+
 from bench.dashboard.text_panel import TextPanel
 
 

@@ -31,6 +31,11 @@ from bench.pipeline import Snapshot
 #: Repaints per second (the snapshot timer).
 REFRESH_HZ = 10.0
 
+#: The run, figures, events and health panels are handed every this many snapshots (about
+#: 3 a second); the guard and the pump every snapshot. Each repaint of a panel costs the
+#: interpreter a few ms that the acquisition threads wait for.
+SLOW_EVERY = 3
+
 #: Below this many columns or rows the layout is compact.
 COMPACT_SIZE = (110, 32)
 
@@ -58,6 +63,7 @@ class DashboardBase(App):
         self.latency = ScreenLatency()
         self.last_snapshot: Snapshot | None = None
         self.repaints = 0
+        self.ticks = 0
         self._plot_turn = 0
 
     # -- layout ---------------------------------------------------------------------------
@@ -140,7 +146,10 @@ class DashboardBase(App):
         if snap is None:
             return
         self.last_snapshot = snap
+        self.ticks += 1
         self.show_snapshot(snap)
+        if self.ticks % SLOW_EVERY == 1:
+            self.show_slow(snap)
         if self.run_clock is not None:
             self.call_after_refresh(self._painted, snap.t)
 
@@ -149,11 +158,16 @@ class DashboardBase(App):
         self.latency.add(self.run_clock(), newest_t)
 
     def show_snapshot(self, snap: Snapshot) -> None:
-        """Hand ``snap`` to every panel (subclasses add theirs)."""
+        """Every snapshot: the guard, the pump, and a plot if one is due (subclasses add theirs)."""
         p = self.panels
         p["guard"].reason = snap.trip_reason or ""
         self.show_guard(snap)
         p["pump"].show(snap.pump)
+        self._show_plots(snap)
+
+    def show_slow(self, snap: Snapshot) -> None:
+        """Every `SLOW_EVERY` snapshots: the run, the figures, the events (subclasses add theirs)."""
+        p = self.panels
         run = p["run"]
         run.mode = snap.mode
         run.store_bytes = snap.store_bytes
@@ -166,7 +180,6 @@ class DashboardBase(App):
         figures.has_dark = snap.has_dark
         figures.has_baseline = snap.has_baseline
         p["events"].show(self.events_of(snap))
-        self._show_plots(snap)
 
     def _show_plots(self, snap: Snapshot, force: bool = False) -> None:
         """Redraw at most one plot per tick, taking turns (plotext drawing costs ~10-40 ms);

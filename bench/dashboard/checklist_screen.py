@@ -66,6 +66,8 @@ class ChecklistScreen(ModalScreen[ChecklistResult | None]):
 
     BINDINGS = [
         Binding("escape", "cancel", "cancel"),
+        Binding("pagedown", "scroll_text(1)", "more text", show=False),
+        Binding("pageup", "scroll_text(-1)", "back", show=False),
         Binding("y", "confirm(True)", "yes", show=False),
         Binding("n", "confirm(False)", "no", show=False),
         Binding("enter", "next", "continue", show=False),
@@ -137,7 +139,7 @@ class ChecklistScreen(ModalScreen[ChecklistResult | None]):
         self.result = result
         self.query_one("#cl-step", Static).update(Text("Verdict of the arming checklist"))
         summary = Text()
-        for record in result.records if result is not None else ():
+        for record in (result.records[:-1] if result is not None else ()):  # the last is the verdict
             summary.append(record.text + "\n", style="" if record.data.get("ok", True) else "bold reverse")
         self._set_text(summary)
         feedback = self.query_one("#cl-feedback", Static)
@@ -145,8 +147,10 @@ class ChecklistScreen(ModalScreen[ChecklistResult | None]):
             self._feedback("✓ Arming checklist passed: the guard is ARMED (pump output still off). "
                            "Emission needs its own key.", "passed")
         else:
-            why = error or "; ".join(result.refusals if result is not None else ["no verdict"])
-            self._feedback(f"✗ ARMING REFUSED: {why}", "refused")
+            refusals = result.refusals if result is not None else []
+            why = error or (refusals[0] if refusals else "no verdict")
+            more = f" ({len(refusals) - 1} more reasons above)" if len(refusals) > 1 and not error else ""
+            self._feedback(f"✗ ARMING REFUSED: {why}{more}", "refused")
         feedback.scroll_visible()
         self._layout_for("done")
 
@@ -206,10 +210,10 @@ class ChecklistScreen(ModalScreen[ChecklistResult | None]):
             button.display = shown
             button.disabled = not shown
         keys = {
-            "input": "[enter] next   [escape] cancel (nothing is armed)",
+            "input": "[enter] next   [pgdn/pgup] scroll the text   [escape] cancel (nothing is armed)",
             "confirm": "[y] yes   [n] no   [escape] cancel (nothing is armed)",
             "check": "[enter] continue   [escape] cancel (nothing is armed)",
-            "done": "[enter] or [escape] close",
+            "done": "[enter] or [escape] close   [pgdn/pgup] scroll",
             "arming": "judging the answers…",
         }[kind]
         self.query_one("#cl-keys", Static).update(Text(keys))
@@ -307,6 +311,13 @@ class ChecklistScreen(ModalScreen[ChecklistResult | None]):
             return
         if self._judge_current():
             self._advance()
+
+    def action_scroll_text(self, direction: int) -> None:
+        body = self.query_one("#cl-body", VerticalScroll)
+        if direction > 0:
+            body.scroll_page_down(animate=False)
+        else:
+            body.scroll_page_up(animate=False)
 
     def action_cancel(self) -> None:
         if self.stage == "arming":

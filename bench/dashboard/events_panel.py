@@ -9,8 +9,8 @@ from collections.abc import Sequence
 
 from rich.text import Text
 from textual.reactive import reactive
-from bench.dashboard.text_panel import TextPanel
 
+from bench.dashboard.text_panel import TextPanel
 from bench.records import Event
 
 #: Kinds shown, and the style of their tag.

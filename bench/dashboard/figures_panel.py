@@ -28,6 +28,10 @@ SMALL_FIGURES = (
 )
 
 
+#: Figures shown first in a mode (the panel may be too short for all of them).
+MODE_FIRST = {"decay": ("tau_s",), "sweep": ("beta_max", "p_sat_w")}
+
+
 class FiguresPanel(Vertical):
     """The latest estimate (``estimate``) and whether dark and baseline are captured."""
 
@@ -85,12 +89,15 @@ class FiguresPanel(Vertical):
         beta, gain = values.get("beta"), values.get("gain_db")
         self.query_one("#beta", Digits).update(fmt.fixed(beta.value, 4) if beta else "")
         self.query_one("#gain", Digits).update(fmt.fixed(gain.value, 3, sign=True) if gain else "")
-        self._static("#beta-label", Text(f"β excited fraction  σ {fmt.sigma(beta)}" if beta
-                                         else "β excited fraction: no estimate yet"))
-        self._static("#gain-label", Text(f"gain (dB)  σ {fmt.sigma(gain, unit='dB')}" if gain
-                                         else "gain (dB): no estimate yet"))
+        self._static("#beta-label", Text(f"β  σ {fmt.sigma(beta)}  (excited fraction)" if beta
+                                         else "β: no estimate yet"))
+        self._static("#gain-label", Text(f"gain dB  σ {fmt.sigma(gain, unit='dB')}  (single pass)" if gain
+                                         else "gain dB: no estimate yet"))
         lines = Text(no_wrap=True, overflow="ellipsis")
-        for key, label, scale, unit in SMALL_FIGURES:
+        first = MODE_FIRST.get(e.mode if e is not None else "", ())
+        ordered = [row for key in first for row in SMALL_FIGURES if row[0] == key]
+        ordered += [row for row in SMALL_FIGURES if row[0] not in first]
+        for key, label, scale, unit in ordered:
             q = values.get(key)
             if q is None and key in ("beta_max", "p_sat_w"):
                 continue

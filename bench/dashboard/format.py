@@ -117,12 +117,6 @@ def age(seconds: float | None) -> str:
     return f"{seconds:.0f} s" if seconds < 100 else duration(seconds)
 
 
-def milliseconds(seconds: float | None) -> str:
-    if seconds is None or not finite(seconds):
-        return "—"
-    return f"{seconds * 1e3:.1f} ms"
-
-
 def flag_words(flags) -> str:
     """Estimator flags as words: ``"low snr, no dark"``; ``"none"`` when there are none."""
     if not flags:

@@ -10,9 +10,9 @@ from __future__ import annotations
 from rich.text import Text
 from textual.message import Message
 from textual.reactive import reactive
-from bench.dashboard.text_panel import TextPanel
 
 from bench.dashboard.format import GUARD_LOOKS, guard_look
+from bench.dashboard.text_panel import TextPanel
 
 
 class GuardPanel(TextPanel):

@@ -12,10 +12,9 @@ from dataclasses import dataclass
 
 from rich.text import Text
 from textual.reactive import reactive
-from bench.dashboard.text_panel import TextPanel
 
-from bench.dashboard import format as fmt
 from bench.dashboard.meters import LatencyFigures
+from bench.dashboard.text_panel import TextPanel
 
 
 @dataclass(frozen=True)
@@ -89,7 +88,8 @@ class HealthPanel(TextPanel):
         text.append(f"\nsamples {rate} · retries {retries}")
         if self.latency is not None:
             s = self.latency
-            text.append(f"\nscreen {s.repaint_hz:.0f}/s, reading→screen {s.median * 1e3:.0f} ms (p95 {s.p95 * 1e3:.0f})")
+            text.append(f"\nscreen {s.repaint_hz:.0f}/s, reading→screen {s.median * 1e3:.0f} ms "
+                        f"(p95 {s.p95 * 1e3:.0f})")
         last = next((r for r in self.rows if r.last_error), None)
         if last is not None:
             text.append(f"\nlast error, {last.role}: {last.last_error}", style="dim")

@@ -1,37 +1,36 @@
-"""The live dashboard: a `Measurement` on screen, and the procedures a person runs at the bench.
+"""The live dashboard: a `Measurement` on screen, its keys, trips, notes and quitting.
 
-Every procedure that talks to an instrument or waits for data (dark, baseline, arming,
-emission, the pump current, the mode's modulation, quitting) runs in a textual thread worker,
-never on the event loop; workers report back through ``call_from_thread`` and never touch a
-widget. The screen is fed by the base class's timer from ``Measurement.snapshot()``.
+The bench procedures behind the keys (dark, baseline, mode, arming, emission, pump current)
+are in `bench.dashboard.bench_actions`. Everything that talks to an instrument or waits for
+data runs in a textual thread worker, never on the event loop; workers report back through
+``call_from_thread`` and never touch a widget. The screen is fed by the base class's timer
+from ``Measurement.snapshot()``. An unopened measurement is opened in a worker once the
+screen is up.
 
 Quitting switches the pump off first, then asks, then closes the run (pump off, threads
-stopped, run file closed) and leaves. The pump is also off whatever way the program ends,
-since `run_live_dashboard` closes the measurement in a ``finally``.
+stopped, run file closed) and leaves. The pump is also off whatever way the program ends:
+``gainbench live`` (`bench.commands.live`) closes the measurement in a ``finally``.
 """
 
 from __future__ import annotations
 
 import logging
 import threading
-from collections.abc import Callable
 
 from textual import work
 from textual.app import ComposeResult
 from textual.binding import Binding
-from textual.worker import get_current_worker
 
-from bench.checklist import ChecklistResult
 from bench.dashboard.base_app import DashboardBase
-from bench.dashboard.checklist_screen import ChecklistScreen
+from bench.dashboard.bench_actions import BenchActions
 from bench.dashboard.guard_panel import GuardPanel
 from bench.dashboard.health_panel import HealthPanel
-from bench.dashboard.mode_screen import ModeChoice, ModeScreen
+from bench.dashboard.mode_screen import ModeChoice
 from bench.dashboard.small_screens import HelpScreen, NoteScreen, QuitScreen
 from bench.dashboard.stats_poller import StatsPoller
 from bench.dashboard.trip_screen import TripScreen
 from bench.errors import GainbenchError
-from bench.measurement import Measurement, default_current, sweep_currents
+from bench.measurement import Measurement, default_current
 from bench.pipeline import Snapshot
 
 log = logging.getLogger(__name__)
@@ -75,7 +74,7 @@ def help_rows(keys=KEYS) -> list[tuple[str, str]]:
     return rows
 
 
-class LiveDashboard(DashboardBase):
+class LiveDashboard(BenchActions, DashboardBase):
     """The dashboard on an open `Measurement`.
 
     Parameters
@@ -183,6 +182,11 @@ class LiveDashboard(DashboardBase):
 
     def show_snapshot(self, snap: Snapshot) -> None:
         super().show_snapshot(snap)
+        if self.trip_screen is not None and snap.trip_reason:
+            self.trip_screen.show_reason(snap.trip_reason)
+
+    def show_slow(self, snap: Snapshot) -> None:
+        super().show_slow(snap)
         run = self.panels["run"]
         run.run_id = self.meas.run_id
         run.elapsed = self.meas.clock.now()
@@ -191,10 +195,8 @@ class LiveDashboard(DashboardBase):
             stats, rates = self.poller.latest()
             health.show(stats, rates)
         health.sample_rate = snap.sample_rate
-        if self.repaints % 10 == 0:
+        if self.ticks % 10 == 1:
             health.latency = self.latency.figures(self.meas.speed)
-        if self.trip_screen is not None and snap.trip_reason:
-            self.trip_screen.show_reason(snap.trip_reason)
 
     @property
     def guard_state(self) -> str:
@@ -231,220 +233,6 @@ class LiveDashboard(DashboardBase):
             self.say(f"nothing to acknowledge: the guard is {self.guard_state}")
             return
         self.open_trip_screen()
-
-    # -- procedures -----------------------------------------------------------------------
-    def _start(self, name: str, text: str) -> bool:
-        if self.not_ready():
-            return False
-        if self.quitting:
-            self.say("quitting: no new procedures", "refused")
-            return False
-        if self.busy is not None:
-            self.say(f"wait: {self.busy} is still running", "refused")
-            return False
-        self.busy = name
-        self.say(text, "busy")
-        return True
-
-    def _finished(self, name: str, text: str, ok: bool) -> None:
-        if self.busy == name:
-            self.busy = None
-        self.say(text, "done" if ok else "refused")
-
-    def _run_procedure(self, name: str, fn: Callable[[], str]) -> None:
-        """Worker body: ``fn`` returns the success text; a GainbenchError or ValueError is a refusal."""
-        try:
-            text, ok = fn(), True
-        except (GainbenchError, ValueError) as exc:
-            text, ok = f"{name}: {exc}", False
-        try:
-            self.call_from_thread(self._finished, name, text, ok)
-        except RuntimeError:  # the app has gone
-            pass
-
-    def action_dark(self) -> None:
-        if self._start("dark", "capturing the dark (probe shutter closed)…"):
-            self._dark_worker()
-
-    @work(thread=True, group="procedure")
-    def _dark_worker(self) -> None:
-        def dark() -> str:
-            self.meas.capture_dark(who=self.who)
-            return "dark captured (probe shutter open again)"
-        self._run_procedure("dark", dark)
-
-    def action_baseline(self) -> None:
-        if self._start("baseline", "capturing the baseline (pump off)…"):
-            self._baseline_worker()
-
-    @work(thread=True, group="procedure")
-    def _baseline_worker(self) -> None:
-        def baseline() -> str:
-            self.meas.capture_baseline(who=self.who)
-            return "baseline captured (pump off)"
-        self._run_procedure("baseline", baseline)
-
-    def action_mode(self) -> None:
-        if self.not_ready():
-            return
-        if self.busy is not None:
-            self.say(f"wait: {self.busy} is still running", "refused")
-            return
-        self.push_screen(ModeScreen(self.choice), callback=self._mode_chosen)
-
-    def _mode_chosen(self, choice: ModeChoice | None) -> None:
-        if choice is None:
-            self.say("mode unchanged")
-            return
-        if self._start("mode", f"changing to {choice.describe()}…"):
-            self._mode_worker(choice)
-
-    @work(thread=True, group="procedure")
-    def _mode_worker(self, choice: ModeChoice) -> None:
-        def change() -> str:
-            cfg = self.meas.cfg
-            settings = {} if choice.mode == "sweep" else {
-                "pump_current": self.setpoint, "pump_power": cfg.pump.power_at(self.setpoint)}
-            self.meas.set_modulation(choice.modulation_hz, who=self.who)
-            self.meas.set_mode(choice.mode, settings, who=self.who)
-            self.choice = choice
-            return f"mode: {choice.describe()}"
-        self._run_procedure("mode", change)
-
-    # -- arming and emission --------------------------------------------------------------
-    def action_arm(self) -> None:
-        if self.not_ready():
-            return
-        state = self.guard_state
-        if state == "emitting":
-            self.say("already emitting: switch the pump off (s) before arming again", "refused")
-            return
-        if state == "tripped":
-            self.say("the guard is TRIPPED: acknowledge the trip (k) before arming", "refused")
-            self.open_trip_screen()
-            return
-        screen = ChecklistScreen(self.meas.checklist_items(), read_pump=self.meas.pump_readings,
-                                 arm=self.meas.arm, clock=self.meas.clock.now, operator=self.operator)
-        self.push_screen(screen, callback=self._checklist_closed)
-
-    def _checklist_closed(self, result: ChecklistResult | None) -> None:
-        if result is None:
-            self.say("arming checklist cancelled: nothing armed")
-        elif result.passed:
-            self.operator = result.operator
-            self.say(f"armed by {result.operator}; the pump output is still off (e emits)", "done")
-        else:
-            self.say("arming refused: " + "; ".join(result.refusals), "refused")
-
-    def action_emit(self) -> None:
-        if self.not_ready():
-            return
-        if self.quitting:
-            self.say("quitting: emission refused", "refused")
-            return
-        if self.busy is not None:
-            self.say(f"wait: {self.busy} is still running", "refused")
-            return
-        if self.choice.mode == "sweep":
-            if self._start("sweep", "sweep: pump on, stepping the current…"):
-                self._sweep_worker(self.choice)
-            return
-        self.say("switching the pump output on…", "busy")
-        self._emit_worker(self.setpoint)
-
-    @work(thread=True, group="emission")
-    def _emit_worker(self, current: float) -> None:
-        try:
-            with self._current_lock:
-                self.meas.set_current(current, who=self.who)
-            self.meas.emit(self.who)
-        except (GainbenchError, ValueError) as exc:
-            self.say_from_thread(str(exc), "refused")
-        else:
-            self.say_from_thread(f"PUMP ON at {current:.2f} A ({self.meas.cfg.pump.power_at(current):.2f} W)", "done")
-
-    @work(thread=True, group="procedure")
-    def _sweep_worker(self, choice: ModeChoice) -> None:
-        worker = get_current_worker()
-
-        def stop_now() -> bool:
-            return self.stopping.is_set() or worker.is_cancelled or self.guard_state != "emitting"
-
-        def sweep() -> str:
-            currents = sweep_currents(self.meas.cfg, choice.sweep_steps)
-            with self._current_lock:
-                self.meas.set_current(currents[0], who=self.who)
-            self.meas.emit(self.who)
-            done = 0
-            for k, current in enumerate(currents):
-                if stop_now():
-                    break
-                if k:
-                    with self._current_lock:
-                        self.meas.set_current(current, who=self.who)
-                self.say_from_thread(f"sweep step {k + 1}/{len(currents)}: {current:.2f} A", "busy")
-                self.meas.hold(choice.sweep_dwell, should_stop=stop_now)
-                done += 1
-            if self.guard_state == "emitting":
-                self.meas.stop_emission(who=f"{self.who} (sweep finished)")
-            with self._current_lock:
-                self.meas.set_current(self.setpoint, who=self.who)
-            return f"sweep: {done} of {len(currents)} steps done; pump off"
-        self._run_procedure("sweep", sweep)
-
-    def action_stop(self) -> None:
-        if self.meas.guarded_pump is None:
-            self.say("the bench is not open: its pump output was never switched on")
-            return
-        self.say("switching the pump output off…", "busy")
-        self._stop_worker()
-
-    @work(thread=True, group="stop")
-    def _stop_worker(self) -> None:
-        try:
-            self.meas.stop_emission(who=self.who)
-        except Exception as exc:  # the guard logs and trips itself; say what happened
-            self.say_from_thread(f"pump off command: {exc}", "refused")
-        else:
-            self.say_from_thread(f"pump output OFF; guard {self.guard_state}", "done")
-
-    def action_current(self, direction: int) -> None:
-        if self.not_ready():
-            return
-        if self.busy == "sweep":
-            self.say("the sweep sets the current: wait for it or stop it (s)", "refused")
-            return
-        target = max(0.0, round(self.target + direction * self.current_step, 6))
-        self.target = target
-        self._current_worker(target)
-
-    def _preset_current(self, current: float) -> None:
-        self._current_worker(current)
-
-    @work(thread=True, group="current")
-    def _current_worker(self, current: float) -> None:
-        try:
-            with self._current_lock:  # requests reach the guard one at a time
-                self.meas.set_current(current, who=self.who)
-        except (GainbenchError, ValueError) as exc:
-            try:
-                self.call_from_thread(self._current_refused, str(exc))
-            except RuntimeError:
-                pass
-        else:
-            try:
-                self.call_from_thread(self._current_set, current)
-            except RuntimeError:
-                pass
-
-    def _current_set(self, current: float) -> None:
-        self.setpoint = current
-        power = self.meas.cfg.pump.power_at(current)
-        self.say(f"pump current set to {current:.2f} A ({power:.2f} W)", "done")
-
-    def _current_refused(self, text: str) -> None:
-        self.target = self.setpoint
-        self.say(text, "refused")
 
     # -- notes, help, quit ----------------------------------------------------------------
     def action_note(self) -> None:

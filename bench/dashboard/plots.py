@@ -212,23 +212,23 @@ class ResponsePlot(_SnapshotPlot):
         y = np.asarray(curve.get("ln_ratio", []), dtype=float)
         f = np.asarray(curve.get("fit", []), dtype=float)
         plt = self.plt
+        if t.size and f.size == t.size:  # under the points
+            plt.plot(t, f, color=PUMP_COLOUR, marker="braille", label="fit a·exp(−t/τ)")
         if t.size and y.size == t.size:
             plt.scatter(t, y, color=S_COLOUR, marker="•", label="mean ln R")
-        if t.size and f.size == t.size:
-            plt.plot(t, f, color=PUMP_COLOUR, marker="braille", label="fit a·exp(−t/τ)")
 
     def _sweep(self, points: list, fits: dict) -> None:
         self.border_title = "sweep: β vs pump power (W), fit"
         pts = [p for p in points if p.get("pump_power_w") is not None and p.get("beta") is not None]
         plt = self.plt
+        curve = (fits.get("saturation") or {}).get("curve")
+        if isinstance(curve, dict) and curve.get("pump_power_w"):  # under the points
+            plt.plot(curve["pump_power_w"], curve["beta"], color=PUMP_COLOUR, marker="braille",
+                     label="saturation fit")
         if pts:
             x = np.array([p["pump_power_w"] for p in pts], dtype=float)
             y = np.array([p["beta"] for p in pts], dtype=float)
             plt.scatter(x, y, color=S_COLOUR, marker="●", label="steps")
-        curve = (fits.get("saturation") or {}).get("curve")
-        if isinstance(curve, dict) and curve.get("pump_power_w"):
-            plt.plot(curve["pump_power_w"], curve["beta"], color=PUMP_COLOUR, marker="braille",
-                     label="saturation fit")
 
 
 class TrendPlot(_SnapshotPlot):

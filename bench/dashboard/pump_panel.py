@@ -11,9 +11,9 @@ from collections.abc import Callable, Mapping
 
 from rich.text import Text
 from textual.reactive import reactive
-from bench.dashboard.text_panel import TextPanel
 
 from bench.dashboard import format as fmt
+from bench.dashboard.text_panel import TextPanel
 
 
 class PumpPanel(TextPanel):

@@ -85,12 +85,14 @@ class ReplayDashboard(DashboardBase):
             self.panels["replay"].error = self.feed.error
             self.say(f"replay stopped: {self.feed.error}", "refused")
 
-    def show_snapshot(self, snap: Snapshot) -> None:
-        super().show_snapshot(snap)
+    def show_slow(self, snap: Snapshot) -> None:
+        super().show_slow(snap)
         feed = self.feed
         pos = feed.position()
         run = self.panels["run"]
-        run.position = f"{pos:.1f}/{feed.end_t:.1f} s replay"
+        state = ("»" if feed.seeking else "■" if feed.finished else "❚❚" if feed.paused
+                 else f"▶×{feed.speed:g}" if feed.speed else "▶max")
+        run.position = f"{pos:.1f}/{feed.end_t:.1f} s {state}"
         run.store_bytes = self.file_bytes
         run.flush_age = None
         panel = self.panels["replay"]
@@ -137,8 +139,8 @@ class ReplayDashboard(DashboardBase):
         self.say("no earlier event" if ev is None else f"at {ev.t:.2f} s: {ev.kind}: {ev.text}")
 
     def action_help(self) -> None:
-        self.push_screen(HelpScreen("keys (replay)", help_rows(),
-                                    extra="A replay drives no instrument; the guard panel shows the guard as recorded."))
+        note = "A replay drives no instrument; the guard panel shows the guard as recorded."
+        self.push_screen(HelpScreen("keys (replay)", help_rows(), extra=note))
 
 
 def run_replay_dashboard(path: str | Path, speed: float | None = None,

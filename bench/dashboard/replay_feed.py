@@ -57,7 +57,7 @@ def guard_at(events: Sequence[Event], t: float) -> GuardThen:
         if isinstance(to, str):
             state, last = to, ev
             if to == "tripped" and ev.kind == "trip":
-                reason = str(ev.data.get("reason") or ev.text)
+                reason = str(ev.data.get("reason") or ev.text).removeprefix("trip: ")
             elif to != "tripped":
                 reason = ""
     return GuardThen(state, reason, last)
@@ -251,7 +251,7 @@ class ReplayFeed:
     def _on_block(self, consumer: Consumer, block: Block) -> None:
         first = self._consumer is None
         self._consumer = consumer
-        t = block.t_end
+        t = block.t0  # blocks come in order of their first sample: every reading before t is in
         with self._lock:
             if first and self._ff_target is None:
                 self._anchor(block.t0)  # the play clock starts with the run's first reading

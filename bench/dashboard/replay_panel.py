@@ -4,8 +4,8 @@ from __future__ import annotations
 
 from rich.text import Text
 from textual.reactive import reactive
-from bench.dashboard.text_panel import TextPanel
 
+from bench.dashboard.text_panel import TextPanel
 from bench.records import Event
 
 

@@ -7,9 +7,9 @@ from __future__ import annotations
 
 from rich.text import Text
 from textual.reactive import reactive
-from bench.dashboard.text_panel import TextPanel
 
 from bench.dashboard import format as fmt
+from bench.dashboard.text_panel import TextPanel
 
 
 class RunPanel(TextPanel):
