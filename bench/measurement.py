@@ -190,7 +190,7 @@ class Measurement:
         # The guard's checks run in the reader threads (see `_guard_block`), not in the consumer.
         self.consumer = Consumer(
             params, self.mode, self.settings, store=self.store, guarded_pump=self.guarded_pump,
-            monitor=None, now=self.clock.now, drop_totals=self.drops.totals,
+            now=self.clock.now, drop_totals=self.drops.totals,
         )
         self.consumer.extra["identities"] = dict(self.identities)
         rate = float(detector.rate_hz)

@@ -5,9 +5,11 @@ communication reports, and `Control` instructions from whoever runs the measurem
 does, for each block, in this order:
 
 1. append it to the run store (nothing is lost even if what follows fails);
-2. feed the guard's trip monitor, and trip the pump for every condition found;
-3. feed the estimator (a pure function of state and block) and store its estimates;
-4. update the decimated history and the latest readings that `snapshot` hands out.
+2. feed the estimator (a pure function of state and block) and store its estimates;
+3. update the decimated history and the latest readings that `snapshot` hands out.
+
+The guard's trip checks do not wait for this: they run in the reader threads as each reading
+arrives (`bench.measurement.Measurement`), so a trip never waits behind storage or a backlog.
 
 A `Control` (capture dark, capture baseline, change mode or setting) is applied between two
 blocks and stored as an event that names the detector block it was applied before, so a
@@ -111,7 +113,6 @@ class Consumer:
         *,
         store=None,
         guarded_pump=None,
-        monitor=None,
         now: Callable[[], float] | None = None,
         drop_totals: Callable[[], tuple[dict[str, int], dict[str, int]]] | None = None,
         keep_events: int = 200,
@@ -121,7 +122,6 @@ class Consumer:
         self.state = est.new_state(params, mode, settings)
         self.store = store
         self.guarded_pump = guarded_pump
-        self.monitor = monitor
         self.now = now or time.monotonic
         self.drop_totals = drop_totals
         self._lock = threading.Lock()
@@ -188,10 +188,7 @@ class Consumer:
             self._estimates(estimates)
 
     def _detector(self, block: Block) -> None:
-        if self.monitor is not None and self.params.detector_range is not None:  # 2. guard
-            steady = self.state.mode == "watch"
-            self._trip(self.monitor.feed_detector(block, self.params.detector_range, pump_steady=steady))
-        self.state, estimates = est.update(self.state, block)  # 3. estimator
+        self.state, estimates = est.update(self.state, block)  # 2. estimator
         self._estimates(estimates)
         self._next_detector_seq = block.seq + 1
         self._remember(block)
@@ -203,7 +200,7 @@ class Consumer:
         dr = dark.reference if dark is not None else 0.0
         with np.errstate(divide="ignore", invalid="ignore"):
             s = (probe - dp) / (ref - dr)
-        with self._lock:  # 4. display history
+        with self._lock:  # 3. display history
             self.trace.add(block.times(), np.column_stack([probe, ref, s, mon]))
 
     def _index_gap(self, block: Block) -> None:
@@ -223,9 +220,6 @@ class Consumer:
                                       "first_index": block.first_index, "seq": block.seq}))
 
     def _pump_block(self, block: Block) -> None:
-        if self.monitor is not None:
-            off_since = self.guarded_pump.output_off_since if self.guarded_pump is not None else None
-            self._trip(self.monitor.feed_pump(block, output_off_since=off_since))
         row = block.data[-1]
         gp = self.guarded_pump
         if gp is not None and gp.state != "emitting" and "pump_on" in block.channels:
@@ -250,12 +244,6 @@ class Consumer:
         elif status.ok:
             self.record_event(Event(status.t, "fault", f"{status.source}: communication recovered",
                                     data={"source": status.source, "ok": True}))
-        if self.monitor is not None:
-            self._trip(self.monitor.comm_result(status.source, status.ok, status.t, status.detail, lost=status.lost))
-
-    def _trip(self, conditions) -> None:
-        if conditions and self.guarded_pump is not None:
-            self.guarded_pump.trip_on(conditions)
 
     def _estimates(self, estimates: list[Estimate]) -> None:
         if not estimates:
@@ -353,8 +341,6 @@ class Consumer:
 
     def tick(self, now_run: float) -> None:
         """Periodic work while the stream is quiet: flush, stale checks, drop reports."""
-        if self.monitor is not None:
-            self._trip(self.monitor.check_stale(now_run))
         if self.drop_totals is not None:
             counts, samples = self.drop_totals()
             n, s = sum(counts.values()), sum(samples.values())
