@@ -11,6 +11,7 @@ import re
 import sqlite3
 import time
 from collections.abc import Callable, Iterable, Mapping
+from contextlib import closing
 from datetime import datetime
 from pathlib import Path
 from typing import Any
@@ -53,22 +54,115 @@ def _file_part(sample_id: str) -> str:
     return part or "run"
 
 
-def _reserve(log_dir: Path, start: datetime, sample_id: str) -> tuple[str, Path]:
-    """Create the run's file exclusively (so two writers never share a name)."""
+#: Added to a run file's name (after a leading dot) while `RunWriter.create` builds it. Such a
+#: name never ends with `SUFFIX`, so a file left by a killed creation is never taken for a run.
+CREATING_SUFFIX = ".creating"
+
+
+def creating_path(path: Path) -> Path:
+    """The temporary name under which the run file ``path`` is built (same directory)."""
+    return path.with_name(f".{path.name}{CREATING_SUFFIX}")
+
+
+def _taken(path: Path) -> bool:
+    """Whether ``path`` or a side file of it exists (a leftover -wal or hot journal would be
+    applied by SQLite to a new file of the same name)."""
+    return any(os.path.lexists(f"{path}{side}") for side in ("", *SIDE_FILES))
+
+
+def _remove(path: Path) -> None:
+    for side in ("", *SIDE_FILES):
+        Path(f"{path}{side}").unlink(missing_ok=True)
+
+
+def _reserve(log_dir: Path, start: datetime, sample_id: str) -> tuple[str, Path, Path]:
+    """Claim a run id: its final path and its temporary file, the latter created exclusively.
+
+    The temporary file is created first and the final name checked after: a writer keeps its
+    temporary file until it renames it to the final name, so a second writer of the same id
+    either fails to create the temporary file or finds the final name taken; two writers never
+    share a name. A temporary file left by a killed creation keeps its id taken.
+    """
     base = f"{start:%Y%m%d-%H%M%S}-{_file_part(sample_id)}"
     for k in range(1, 1000):
         run_id = base if k == 1 else f"{base}-{k}"
         path = log_dir / f"{run_id}{SUFFIX}"
-        # A leftover -wal of a deleted run would be applied to a new file of the same name.
-        if any(Path(f"{path}{side}").exists() for side in SIDE_FILES):
+        temp = creating_path(path)
+        if _taken(path) or any(os.path.lexists(f"{temp}{side}") for side in SIDE_FILES):
             continue
         try:
-            fd = os.open(path, os.O_CREAT | os.O_EXCL | os.O_WRONLY, 0o644)
+            fd = os.open(temp, os.O_CREAT | os.O_EXCL | os.O_WRONLY, 0o644)
         except FileExistsError:
             continue
         os.close(fd)
-        return run_id, path
+        if _taken(path):  # published by another writer since the first check
+            temp.unlink(missing_ok=True)
+            continue
+        return run_id, path, temp
     raise run_file_error(log_dir / f"{base}{SUFFIX}", "that name and 998 variants are taken")
+
+
+def _build(temp: Path, meta_rows: list[tuple[str, str]], created: str, software_version: str) -> int:
+    """Write the schema, the meta rows and the live analysis into ``temp`` in one transaction,
+    commit and close; return the live analysis' id. The file stays in rollback-journal mode,
+    so when this returns it is complete by itself, with no side file."""
+    with closing(sqlite3.connect(temp, isolation_level=None, timeout=5.0)) as conn:
+        conn.execute(f"PRAGMA page_size = {PAGE_SIZE}")
+        conn.execute("PRAGMA synchronous = FULL")
+        conn.executescript(f"BEGIN; PRAGMA application_id = {APPLICATION_ID}; "
+                           f"PRAGMA user_version = {SCHEMA_VERSION}; {SCHEMA_SQL}")
+        conn.executemany("INSERT INTO meta (key, value) VALUES (?, ?)", meta_rows)
+        cur = conn.execute(
+            "INSERT INTO analyses (created, kind, overrides, software_version, note) VALUES (?, ?, ?, ?, ?)",
+            (created, "live", "{}", software_version, "recorded live"))
+        analysis_id = int(cur.lastrowid)
+        conn.execute("COMMIT")
+    return analysis_id
+
+
+def _publish(temp: Path, path: Path) -> None:
+    """Give the complete file ``temp`` its final name ``path`` (one atomic rename)."""
+    os.replace(temp, path)
+    _sync_directory(path.parent)
+
+
+def _sync_directory(directory: Path) -> None:
+    """Make a rename in ``directory`` survive a power cut: POSIX only (Windows cannot open a
+    directory to sync it; NTFS journals the rename itself)."""
+    if os.name == "nt":
+        return
+    try:
+        fd = os.open(directory, os.O_RDONLY)
+    except OSError:
+        return  # not allowed to open it: the rename is atomic all the same, only less durable
+    try:
+        os.fsync(fd)
+    except OSError:
+        pass  # some file systems cannot sync a directory; the rename is atomic all the same
+    finally:
+        os.close(fd)
+
+
+def _open_recording(path: Path) -> sqlite3.Connection:
+    """Open the published run file for recording: WAL mode, each commit synced.
+
+    WAL mode is set here, on the final name, never before the rename: SQLite names the -wal and
+    -shm files after the name a connection was opened with, so a connection opened before the
+    rename would keep its commits beside the old name, where no reader looks for them (on Linux
+    its next write fails with a disk I/O error instead).
+    """
+    conn = sqlite3.connect(path, isolation_level=None, check_same_thread=False, timeout=5.0)
+    try:
+        if conn.execute("PRAGMA journal_mode = WAL").fetchone()[0] != "wal":
+            raise sqlite3.OperationalError("the file system does not support WAL mode")
+        conn.execute("PRAGMA synchronous = FULL")
+        conn.execute("PRAGMA wal_autocheckpoint = 512")  # pages: about 16 MB
+        conn.execute("PRAGMA journal_size_limit = 67108864")
+        conn.execute("PRAGMA cache_size = -8192")  # KiB
+    except BaseException:
+        conn.close()
+        raise
+    return conn
 
 
 def _check_interval(flush_interval: float) -> float:
@@ -199,6 +293,12 @@ class RunWriter(_Appender):
 
         ``instruments`` maps role to identity (e.g. the ``*IDN?`` reply); ``meta`` adds more
         meta rows (JSON-serialisable); ``clock`` is the monotonic clock of the flush check.
+
+        The file is built under a temporary name in ``log_dir`` (`creating_path`: a leading dot
+        and `CREATING_SUFFIX`); its schema, meta rows and live analysis are committed there, and
+        only then is it renamed to ``<run_id>.gbrun`` and reopened under that name in WAL mode.
+        So a run file never exists without its schema: a process killed during creation leaves
+        at most the temporary file, which no listing takes for a run; a failure here removes it.
         """
         if not isinstance(bench_text, str):
             raise ValueError(f"bench_text: expected the bench file's text, got {type(bench_text).__name__}")
@@ -214,7 +314,7 @@ class RunWriter(_Appender):
         log_dir = Path(log_dir)
         try:
             log_dir.mkdir(parents=True, exist_ok=True)
-            run_id, path = _reserve(log_dir, start, sample_id)
+            run_id, path, temp = _reserve(log_dir, start, sample_id)
         except OSError as exc:
             raise run_file_error(log_dir, f"cannot create a run file there ({exc.strerror or exc})") from None
         rows = {
@@ -235,33 +335,22 @@ class RunWriter(_Appender):
             "platform": _platform(),
             **extra,
         }
-        meta_rows = [(k, to_json(v, f"meta[{k!r}]")) for k, v in rows.items()]
-        conn = None
         try:
-            conn = sqlite3.connect(path, isolation_level=None, check_same_thread=False, timeout=5.0)
-            conn.execute(f"PRAGMA page_size = {PAGE_SIZE}")
-            # Schema, meta and the live analysis in one transaction, before WAL mode starts, so
-            # the main file alone already identifies the run.
-            conn.executescript(f"BEGIN; PRAGMA application_id = {APPLICATION_ID}; "
-                               f"PRAGMA user_version = {SCHEMA_VERSION}; {SCHEMA_SQL}")
-            conn.executemany("INSERT INTO meta (key, value) VALUES (?, ?)", meta_rows)
-            cur = conn.execute(
-                "INSERT INTO analyses (created, kind, overrides, software_version, note) VALUES (?, ?, ?, ?, ?)",
-                (iso(start), "live", "{}", rows["software_version"], "recorded live"))
-            analysis_id = int(cur.lastrowid)
-            conn.execute("COMMIT")
-            if conn.execute("PRAGMA journal_mode = WAL").fetchone()[0] != "wal":
-                raise sqlite3.OperationalError("the file system does not support WAL mode")
-            conn.execute("PRAGMA synchronous = FULL")
-            conn.execute("PRAGMA wal_autocheckpoint = 512")  # pages: about 16 MB
-            conn.execute("PRAGMA journal_size_limit = 67108864")
-            conn.execute("PRAGMA cache_size = -8192")  # KiB
+            meta_rows = [(k, to_json(v, f"meta[{k!r}]")) for k, v in rows.items()]
+            analysis_id = _build(temp, meta_rows, iso(start), rows["software_version"])
+            _publish(temp, path)
+        except BaseException as exc:
+            _remove(temp)
+            if isinstance(exc, sqlite3.Error):
+                raise run_file_error(path, f"cannot create the run file (SQLite: {exc})") from None
+            if isinstance(exc, OSError):
+                raise run_file_error(path, f"cannot create the run file ({exc.strerror or exc})") from None
+            raise
+        try:
+            conn = _open_recording(path)
         except sqlite3.Error as exc:
-            if conn is not None:
-                conn.close()
-            for side in ("", *SIDE_FILES):
-                Path(f"{path}{side}").unlink(missing_ok=True)
-            raise run_file_error(path, f"cannot create the run file (SQLite: {exc})") from None
+            _remove(path)
+            raise run_file_error(path, f"cannot record into the run file (SQLite: {exc})") from None
         return cls(conn, path, run_id, analysis_id, flush_interval, clock)
 
     @classmethod

@@ -8,8 +8,12 @@ IEEE 754 binary32 (exactly representable values) evaluated through numpy.
 
 from __future__ import annotations
 
+import os
 import sqlite3
 import struct
+import subprocess
+import sys
+import textwrap
 from contextlib import closing
 from datetime import datetime, timedelta, timezone
 from pathlib import Path
@@ -17,6 +21,8 @@ from pathlib import Path
 import numpy as np
 import pytest
 
+import bench.runstore_writer as writer_module
+from bench.cli import main
 from bench.config import load_bench
 from bench.errors import RunStoreError
 from bench.records import Block, Estimate, Event, Quantity
@@ -29,7 +35,7 @@ from bench.runstore import (
     open_for_analysis,
     resolve_run,
 )
-from bench.runstore_schema import APPLICATION_ID, decode_samples, encode_samples
+from bench.runstore_schema import APPLICATION_ID, SCHEMA_SQL, decode_samples, encode_samples
 
 START = datetime(2026, 3, 4, 5, 6, 7, tzinfo=timezone(timedelta(hours=1)))
 
@@ -357,3 +363,141 @@ def test_list_runs_shows_broken_files_without_failing(tmp_path):
     assert "is a directory" in rows["zz-dir"]["error"]
     cut.close()
     assert list_runs(tmp_path / "nowhere") == []
+
+
+# -- creating a run file: built under a temporary name, renamed once complete ---------------
+
+
+def _names(directory: Path) -> list[str]:
+    return sorted(p.name for p in directory.iterdir())
+
+
+def test_the_run_file_is_built_aside_and_renamed_only_once_complete(tmp_path, monkeypatch):
+    seen = {}
+    real_publish = writer_module._publish
+
+    def publish(temp: Path, path: Path) -> None:
+        # Just before the rename: nothing has the final name yet, and the temporary file alone
+        # (no journal beside it) is a complete run that SQLite finds intact.
+        seen.update(temp=temp, final_existed=path.exists(), names=_names(temp.parent),
+                    head=temp.read_bytes()[:100])
+        with RunReader(temp) as r:
+            r.integrity_check()
+            seen["run_id"] = r.meta["run_id"]
+        real_publish(temp, path)
+
+    monkeypatch.setattr(writer_module, "_publish", publish)
+    w = _writer(tmp_path)
+    logs = tmp_path / "logs"
+    temp = seen["temp"]
+    assert temp.parent == logs and temp.name == ".20260304-050607-S1.gbrun.creating"
+    assert seen["final_existed"] is False and seen["names"] == [temp.name]
+    assert seen["run_id"] == w.run_id
+    # SQLite file format, section 1.3: bytes 18-19 are 1 for a rollback journal, 2 for WAL.
+    assert seen["head"][18:20] == b"\x01\x01"
+    assert w.path == logs / "20260304-050607-S1.gbrun" and not temp.exists()
+
+    # WAL mode was set on the final name: the header says WAL, and SQLite opens the -wal file
+    # (beside the final name) at the first write.
+    assert w.path.read_bytes()[18:20] == b"\x02\x02"
+    assert _names(logs) == ["20260304-050607-S1.gbrun"]
+    with closing(sqlite3.connect(f"file:{w.path}?mode=ro", uri=True)) as c:
+        assert c.execute("PRAGMA journal_mode").fetchone()[0] == "wal"
+    with RunReader(w.path) as r:  # read-only
+        r.integrity_check()
+        assert r.status == "incomplete" and r.run_id == w.run_id and r.block_count() == 0
+    w.append_block(_block(0))
+    w.flush()
+    assert _names(logs) == ["20260304-050607-S1.gbrun", "20260304-050607-S1.gbrun-shm",
+                            "20260304-050607-S1.gbrun-wal"]
+    assert Path(f"{w.path}-wal").stat().st_size > 0  # the commit went beside the final name
+    w.close()
+    assert _names(logs) == ["20260304-050607-S1.gbrun"]
+
+
+def _fail_in_schema(monkeypatch):
+    # a statement that fails inside the creating transaction, after the tables are made
+    monkeypatch.setattr(writer_module, "SCHEMA_SQL", SCHEMA_SQL + "\nCREATE TABLE meta (key TEXT);")
+
+
+def _fail_at_rename(monkeypatch):
+    def publish(temp: Path, path: Path) -> None:
+        raise PermissionError(13, "Permission denied (simulated)", str(path))
+
+    monkeypatch.setattr(writer_module, "_publish", publish)
+
+
+@pytest.mark.parametrize("fail, kw, error, message", [
+    (_fail_in_schema, {}, RunStoreError, r"20260304-050607-S1\.gbrun: cannot create the run file \(SQLite: table meta"),
+    (_fail_at_rename, {}, RunStoreError, r"20260304-050607-S1\.gbrun: cannot create the run file \(Permission denied"),
+    (None, {"meta": {"thing": object()}}, ValueError, r"meta\['thing'\].*cannot be stored as JSON"),
+], ids=["schema", "rename", "bad-meta"])
+def test_a_failed_creation_leaves_no_file_at_all(tmp_path, monkeypatch, fail, kw, error, message):
+    if fail is not None:
+        fail(monkeypatch)
+    logs = tmp_path / "logs"
+    with pytest.raises(error, match=message):
+        _writer(tmp_path, **kw)
+    assert _names(logs) == []  # neither the final name nor the temporary file or its journal
+    assert list_runs(logs) == []
+    monkeypatch.undo()
+    with _writer(tmp_path) as w:  # the run id is free again
+        assert w.run_id == "20260304-050607-S1"
+
+
+KILLED_CHILD = textwrap.dedent(
+    """
+    import os, sys
+    from datetime import datetime, timezone
+    import numpy as np
+    import bench.runstore_writer as writer
+    from bench.records import Block
+
+    log_dir, when = sys.argv[1], sys.argv[2]
+    if when == "before_rename":
+        writer._publish = lambda temp, path: os._exit(9)
+    w = writer.RunWriter.create(log_dir, bench_text="[bench]\\n", sample_id="S1",
+                                start_time=datetime(2026, 3, 4, 5, 6, 7, tzinfo=timezone.utc))
+    w.append_block(Block("detector", 0, 0.0, 1e-5, 0, ("probe", "reference"), np.ones((10, 2))))
+    w.flush()
+    os._exit(9)
+    """
+)
+
+
+def _killed_creation(logs: Path, when: str) -> None:
+    """Run a child that creates a run and dies at ``when`` by os._exit: like SIGKILL, it runs no
+    cleanup (no finally, no atexit, no SQLite close); the OS closes its files. Portable."""
+    env = dict(os.environ, PYTHONPATH=str(Path(__file__).resolve().parents[1]))
+    proc = subprocess.run([sys.executable, "-c", KILLED_CHILD, str(logs), when], capture_output=True,
+                          text=True, env=env, timeout=120)
+    assert proc.returncode == 9, proc.stderr
+
+
+def test_a_creation_killed_before_the_rename_leaves_no_run(tmp_path, capsys):
+    logs = tmp_path / "logs"
+    _killed_creation(logs, "before_rename")
+    assert _names(logs) == [".20260304-050607-S1.gbrun.creating"]  # complete, but never renamed
+    assert list_runs(logs) == []
+    with pytest.raises(RunStoreError, match="no run matches '2026'"):
+        resolve_run("2026", logs)
+    capsys.readouterr()
+    assert main(["runs", "--logs", str(logs)]) == 0
+    assert capsys.readouterr().out.strip() == f"no runs in {logs}"
+    # The leftover keeps its id taken; the next run of that second gets the next id.
+    with RunWriter.create(logs, bench_text="[bench]\n", sample_id="S1",
+                          start_time=datetime(2026, 3, 4, 5, 6, 7, tzinfo=timezone.utc)) as w:
+        assert w.run_id == "20260304-050607-S1-2"
+    (row,) = list_runs(logs)
+    assert row["id"] == "20260304-050607-S1-2" and row["status"] == "complete"
+
+
+def test_a_run_killed_after_a_commit_keeps_it_beside_the_final_name(tmp_path):
+    # WAL mode survives the rename: the commit made after it is in <run>.gbrun-wal.
+    logs = tmp_path / "logs"
+    _killed_creation(logs, "after_commit")
+    assert _names(logs) == ["20260304-050607-S1.gbrun", "20260304-050607-S1.gbrun-shm",
+                            "20260304-050607-S1.gbrun-wal"]
+    with RunReader(logs / "20260304-050607-S1.gbrun") as r:
+        r.integrity_check()
+        assert r.status == "incomplete" and r.block_count() == 1
