@@ -97,9 +97,9 @@ class PumpOutput(Protocol):
 class Shutter(Protocol):
     """A shutter controller with named shutters (``"pump"``: the shutter in the pump beam)."""
 
-    def close(self, name: str) -> None: ...
+    def close_shutter(self, name: str) -> None: ...
 
-    def open(self, name: str) -> None: ...
+    def open_shutter(self, name: str) -> None: ...
 
 
 @dataclass(frozen=True)
@@ -184,7 +184,7 @@ class GuardedPump:
             raise ValueError("pump: expected a pump driver with output, output_is_on, interlock_closed, "
                              "mount_temperature, measured_current, current_setpoint and set_current")
         if shutter is not None and not isinstance(shutter, Shutter):
-            raise ValueError("shutter: expected an object with open(name) and close(name)")
+            raise ValueError("shutter: expected an object with open_shutter(name) and close_shutter(name)")
         if not callable(clock):
             raise ValueError("clock: expected a callable returning seconds")
         if event_sink is not None and not callable(event_sink):
@@ -476,7 +476,7 @@ class GuardedPump:
                 if self._shutter is None:
                     continue
                 try:
-                    self._shutter.open(action.name)
+                    self._shutter.open_shutter(action.name)
                 except Exception as exc:  # any controller failure: do not switch on
                     detail = f"{type(exc).__name__}: {exc}"
                     done.faults.append(Event(self._clock(), "fault", f"opening the {action.name} shutter failed: {detail}",
@@ -535,7 +535,7 @@ class GuardedPump:
         if self._shutter is None:
             return False
         try:
-            self._shutter.close(name)
+            self._shutter.close_shutter(name)
         except Exception as exc:  # any controller failure: logged loudly, never stops the off path
             detail = f"{type(exc).__name__}: {exc}"
             done.faults.append(Event(self._clock(), "fault", f"CLOSING THE {name.upper()} SHUTTER FAILED ({why}): {detail}",

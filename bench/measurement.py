@@ -397,14 +397,14 @@ class Measurement:
         if shutter is None:
             raise MeasurementError("capture dark: no shutter is configured to block the probe; "
                                    "block it by hand and use a bench file with a shutter, or skip the dark")
-        shutter.close("probe")
+        shutter.close_shutter("probe")
         try:
             t0 = self.clock.now() + settle
             t1 = t0 + seconds
             self.wait_data_until(t1 + 0.01)
             self._apply_and_wait(Control("dark", self.clock.now(), {"t_start": t0, "t_end": t1}, who))
         finally:
-            shutter.open("probe")
+            shutter.open_shutter("probe")
             self.hold(settle)
 
     def capture_baseline(self, seconds: float = 0.3, who: str = "gainbench") -> None:

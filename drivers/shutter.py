@@ -17,7 +17,11 @@ DEFAULT_SHUTTERS = {"probe": 1, "pump": 2}
 
 @register("shutter")
 class ShutterController(Driver):
-    """Controller of named shutters (probe, pump), with optional chopping."""
+    """Controller of named shutters (probe, pump), with optional chopping.
+
+    `open_shutter`, `close_shutter`, `is_open` and `chop` take a shutter's name; `close`
+    releases the connection only, as for every driver.
+    """
 
     ROLE = "shutter"
     OPTIONS = frozenset({"shutters"})
@@ -40,15 +44,13 @@ class ShutterController(Driver):
         except (KeyError, TypeError):
             raise ValueError(f"name: unknown shutter {name!r}; known: {', '.join(self.shutters)}") from None
 
-    def open(self, name: str) -> None:
+    def open_shutter(self, name: str) -> None:
         """Open shutter ``name``."""
         self.session.write("open", n=self._number(name))
 
-    def close(self, name: str | None = None) -> None:
-        """Close shutter ``name``; with no name, release the connection (as every driver)."""
-        if name is None:
-            super().close()
-            return
+    def close_shutter(self, name: str) -> None:
+        """Close shutter ``name``. (`close`, as for every driver, releases the connection and
+        moves no shutter.)"""
         self.session.write("close", n=self._number(name))
 
     def is_open(self, name: str) -> bool:

@@ -23,6 +23,7 @@ import pytest
 from drivers.deadline import Deadline
 from drivers.errors import (
     ConnectionLost,
+    InstrumentError,
     InstrumentReportedError,
     InstrumentTimeout,
     ReplyError,
@@ -595,15 +596,38 @@ def test_shutter_line_protocol(instrument):
     with open_instrument("shutter", "shutter", serial_resource(inst.port), "qs2-shutter", 1.0) as drv:
         ident = drv.identify()
         assert ident.maker == "Loopback Devices" and ident.model == "LS-1 shutter box"
-        drv.close("probe")
+        drv.close_shutter("probe")
         assert not drv.is_open("probe") and drv.is_open("pump")
         assert box.open == {1: False, 2: True}
-        drv.open("probe")
+        drv.open_shutter("probe")
         assert drv.is_open("probe")
         drv.chop("pump", 12.5)
         assert box.chop == {2: 12.5}
         with pytest.raises(ValueError, match="unknown shutter 'laser'"):
-            drv.open("laser")
+            drv.open_shutter("laser")
+
+
+def test_closing_the_shutter_driver_only_releases_the_connection(instrument):
+    # Closing a shutter and releasing the controller are two calls: neither does the other's job.
+    box = FakeShutters()
+    inst = instrument(box, terminator=b"\r")
+    resource = serial_resource(inst.port)
+    drv = open_instrument("shutter", "shutter", resource, "qs2-shutter", 1.0)
+    drv.close_shutter("probe")
+    with pytest.raises(TypeError):
+        drv.close_shutter()  # a shutter must be named
+    with pytest.raises(ValueError, match="name: unknown shutter None"):
+        drv.close_shutter(None)
+    assert drv.is_open("pump")  # still connected after the refused calls
+    with pytest.raises(TypeError):
+        drv.close("pump")  # closing the driver takes no shutter name
+    drv.close()
+    with pytest.raises(InstrumentError):
+        drv.is_open("pump")  # released
+    assert [line for _, line in inst.received] == [b"SHUT 1", b"STATE 2"]
+    with open_instrument("shutter", "shutter", resource, "qs2-shutter", 1.0) as again:
+        assert not again.is_open("probe") and again.is_open("pump")  # close() moved no shutter
+    assert box.open == {1: False, 2: True}
 
 
 def test_shutter_error_reply_is_reported(instrument):
@@ -613,7 +637,7 @@ def test_shutter_error_reply_is_reported(instrument):
                           {"shutters": {"probe": 1, "pump": 7}})
     try:
         with pytest.raises(InstrumentReportedError) as info:
-            drv.close("pump")
+            drv.close_shutter("pump")
         assert info.value.code == 2 and info.value.text == "bad shutter"
         assert "SHUT 7" in str(info.value)
     finally:

@@ -107,9 +107,9 @@ def test_shutter_over_pyserial_socket(cfg, sim):
     assert sim.resources["shutter"].startswith("socket://127.0.0.1:")
     with _open(cfg, sim, "shutter") as s:
         assert s.is_open("probe")
-        s.close("probe")
+        s.close_shutter("probe")
         assert not s.is_open("probe")
-        s.open("probe")
+        s.open_shutter("probe")
         assert s.is_open("probe")
 
 

@@ -103,13 +103,13 @@ class FakeShutter:
         self.calls: list[tuple[str, str]] = []
         self.fail = fail
 
-    def close(self, name: str) -> None:
+    def close_shutter(self, name: str) -> None:
         self.calls.append(("close", name))
         if self.fail:
             raise OSError("simulated: shutter controller not answering")
         self.closed.add(name)
 
-    def open(self, name: str) -> None:
+    def open_shutter(self, name: str) -> None:
         self.calls.append(("open", name))
         self.closed.discard(name)
 
