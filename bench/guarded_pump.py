@@ -272,7 +272,10 @@ class GuardedPump:
     # -- commands --------------------------------------------------------------------------
     def start(self, who: str = "gainbench") -> Outcome:
         """The tool starts: command the output off (and close the pump shutter)."""
-        return self._run(Start(who=_who_ok(who)))
+        with self._lock:
+            outcome = self._run(Start(who=_who_ok(who)))
+            self._note_change()
+            return outcome
 
     def arm(self, checklist_result: ChecklistOutcome, who: str | None = None) -> Outcome:
         """Arm with a passed checklist result; raises `GuardRefused` with the reason otherwise."""
@@ -400,7 +403,9 @@ class GuardedPump:
     def shutdown(self, who: str = "gainbench", reason: str = "exit") -> Outcome:
         """Output off and shutter closed; arming is refused afterwards."""
         with self._lock:
-            return self._run(Shutdown(who=_who_ok(who), reason=reason))
+            outcome = self._run(Shutdown(who=_who_ok(who), reason=reason))
+            self._note_change()  # the probe's transmission changes with the pump: expected
+            return outcome
 
     def __enter__(self) -> Self:
         self.start()

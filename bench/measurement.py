@@ -128,7 +128,7 @@ class Measurement:
 
     def open(self) -> None:
         from bench.guarded_pump import GuardedPump
-        from bench.trip_conditions import TripMonitor
+        from bench.trip_conditions import POLL_SPAN, TripMonitor
         from drivers.registry import open_instrument
 
         cfg = self.cfg
@@ -177,7 +177,8 @@ class Measurement:
             from dataclasses import replace
 
             guard_cfg = replace(guard_cfg, stale_after=guard_cfg.stale_after * self.speed)
-        self.monitor = TripMonitor(guard_cfg, started_at=self.clock.now())
+        # Transport delays are real time too: at speed X they span X times as much run-clock time.
+        self.monitor = TripMonitor(guard_cfg, started_at=self.clock.now(), lag_allowance=POLL_SPAN * self.speed)
         self.pump_access = PumpAccess()
         self.guarded_pump = GuardedPump.from_config(
             GuardPumpPort(pump, self.pump_access), cfg, shutter=shutter, clock=self.clock.now, event_sink=self.control_q.put, monitor=self.monitor,

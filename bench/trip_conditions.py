@@ -565,7 +565,13 @@ class TripMonitor:
         Sources checked for stale readings.
     output_grace : float or None
         s after the output was commanded off before a reading that shows it on trips
-        (``settle_time`` when None).
+        (``settle_time`` plus ``lag_allowance`` when None).
+    lag_allowance : float
+        Run-clock s by which a command may reach the instrument late, or a reading's time stamp
+        may be off from the guard's clock (one pump poll, `POLL_SPAN`, by default). Readings
+        this close to a commanded change are not judged against it. On an accelerated
+        simulated bench the caller scales it by the speed: a few milliseconds of transport
+        delay are then seconds of run-clock time.
     """
 
     def __init__(
@@ -579,10 +585,12 @@ class TripMonitor:
         started_at: float | None = None,
         sources: Sequence[str] = (PUMP, DETECTOR),
         output_grace: float | None = None,
+        lag_allowance: float = POLL_SPAN,
     ) -> None:
         if not isinstance(cfg, GuardConfig):
             raise ValueError(f"cfg: expected a GuardConfig, got {type(cfg).__name__}")
-        for name, value in (("settle_time", settle_time), ("jump_window", jump_window)):
+        for name, value in (("settle_time", settle_time), ("jump_window", jump_window),
+                            ("lag_allowance", lag_allowance)):
             if not (isinstance(value, (int, float)) and math.isfinite(value) and value >= 0):
                 raise ValueError(f"{name}: expected a time >= 0 s, got {value!r}")
         if jump_window <= 0:
@@ -598,7 +606,8 @@ class TripMonitor:
         self.pump_steady_fraction = float(pump_steady_fraction)
         self.started_at = started_at
         self.sources = tuple(sources)
-        self.output_grace = self.settle_time if output_grace is None else float(output_grace)
+        self.lag_allowance = float(lag_allowance)
+        self.output_grace = self.settle_time + self.lag_allowance if output_grace is None else float(output_grace)
         self._lock = threading.Lock()
         self._active: dict[str, TripCondition] = {}
         self._values: dict[str, tuple[float, float]] = {}
@@ -674,8 +683,9 @@ class TripMonitor:
                     # A reading polled across a commanded change (or within the settle time
                     # after it) may mix the values before and after: do not judge it.
                     changes = np.fromiter(self._commanded_changes, dtype=np.float64)
-                    near = (t[:, None] >= changes[None, :] - POLL_SPAN) & (
-                        t[:, None] < changes[None, :] + self.settle_time)
+                    lag = self.lag_allowance
+                    near = (t[:, None] >= changes[None, :] - lag) & (
+                        t[:, None] < changes[None, :] + self.settle_time + lag)
                     mask &= ~near.any(axis=1)
                 if mask.any():
                     self._level(CURRENT_NOT_FOLLOWING, check_following(
@@ -775,8 +785,11 @@ class TripMonitor:
             comparable &= np.abs(b - a) <= allowed
         if self._pump_changes:
             changes = np.fromiter(self._pump_changes, dtype=np.float64)
-            near = ((changes[None, :] > start[before, None] - self.settle_time)
-                    & (changes[None, :] <= end[after, None]))
+            # the change takes effect up to lag_allowance after (or, by the readings' clock,
+            # before) the time it was commanded at
+            lag = self.lag_allowance
+            near = ((changes[None, :] > start[before, None] - self.settle_time - lag)
+                    & (changes[None, :] <= end[after, None] + lag))
             comparable &= ~near.any(axis=1)
         if not pump_steady:
             comparable[:] = False

@@ -500,3 +500,29 @@ def test_random_use_never_leaves_the_pump_on_outside_emitting(ops):
             assert g.PUMP_OFF_FAILED in gp.held and "pump" in shutter.closed
         if gp.state == g.TRIPPED:
             assert gp.trip_reason
+
+
+def test_shutdown_tells_the_monitor_that_the_pump_changed():
+    # Switching the pump off at exit changes the probe's transmission (the gain goes): that is
+    # expected and must not read as a parasitic-lasing trip (common practice, no source).
+    from bench.records import PROBE as P
+    from bench.records import REFERENCE as R
+    from bench.trip_conditions import TRANSMISSION_JUMP
+
+    cfg = load_bench()
+    clock = FakeClock(10.0)
+    monitor = TripMonitor(cfg.guard, settle_time=0.005, lag_allowance=0.01)
+    gp, pump, clock, events = make(clock=clock, monitor=monitor)
+    gp.start()
+    arm_and_emit(gp, clock)
+    clock.advance(1.0)
+    t_off = clock()
+    gp.shutdown(reason="exit")
+    rate, n = 100e3, 4000
+    t = t_off - 0.02 + np.arange(n) / rate
+    probe = np.where(t >= t_off + 0.002, 0.5, 1.6)  # S falls by 69 % 2 ms after the off command
+    data = np.column_stack([probe, np.full(n, 0.6)])
+    found = []
+    for k in range(0, n, 1000):
+        found += monitor.feed_detector(Block("detector", k, float(t[k]), 1 / rate, k, (P, R), data[k:k + 1000]), 2.0)
+    assert [c.condition for c in found if c.condition == TRANSMISSION_JUMP] == []

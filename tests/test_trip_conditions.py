@@ -310,6 +310,26 @@ def test_no_jump_trip_when_the_pump_changed():
     assert feed_all(tc.TripMonitor(CFG), blocks(t, cols, [2000] * 5), pump_steady=False) == []
 
 
+@pytest.mark.parametrize("noted_at", [0.02, 0.08])  # command before the step, and after it by the readings' clock
+def test_commanded_change_excuses_a_jump_within_the_lag_allowance(noted_at):
+    # The step shows in the readings at 0.05 s; the guard noted its command at ``noted_at``:
+    # a command reaches the driver late, and a digitiser's time stamps can be off from the
+    # guard's clock (common practice, no source). Without the allowance the step trips.
+    t, cols = stepped(1.6, 5000)
+    strict = tc.TripMonitor(CFG, settle_time=0.005, lag_allowance=0.0)
+    strict.note_pump_change(noted_at)
+    assert [x.condition for x in feed_all(strict, blocks(t, cols, [2000] * 5, names=(PROBE, REFERENCE)))] == [
+        tc.TRANSMISSION_JUMP]
+    allowing = tc.TripMonitor(CFG, settle_time=0.005, lag_allowance=0.04)
+    allowing.note_pump_change(noted_at)
+    assert feed_all(allowing, blocks(t, cols, [2000] * 5, names=(PROBE, REFERENCE))) == []
+
+
+def test_lag_allowance_must_be_a_time():
+    with pytest.raises(ValueError, match="lag_allowance"):
+        tc.TripMonitor(CFG, lag_allowance=-1.0)
+
+
 def test_no_jump_trip_when_the_probe_is_blocked_for_a_dark():
     n = 10_000
     blocked = np.arange(n) >= 5000
