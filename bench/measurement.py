@@ -49,6 +49,11 @@ log = logging.getLogger(__name__)
 #: Interpreter thread switch interval during a measurement (s); see `Measurement.open`.
 SWITCH_INTERVAL = 0.0005
 
+#: At close, s the consumer may go on analysing what is queued, then s it may take to store the
+#: rest without analysing it.
+CLOSE_ANALYSE_S = 10.0
+CLOSE_STORE_S = 30.0
+
 #: Queue length in blocks; at 64k sample sets per block this is several seconds of data.
 QUEUE_BLOCKS = 256
 
@@ -101,6 +106,7 @@ class Measurement:
         self.pump_q: queue.Queue = queue.Queue(maxsize=QUEUE_BLOCKS)
         self.control_q: queue.SimpleQueue = queue.SimpleQueue()
         self.stop_flag = threading.Event()
+        self._store_only = threading.Event()  # set at a late close: store, do not analyse
         self.readers: list[Reader] = []
         self._consumer_thread: threading.Thread | None = None
         self._truth_thread: threading.Thread | None = None
@@ -237,11 +243,27 @@ class Measurement:
         if getattr(self, "_watch_thread", None) is not None:
             self._watch_thread.join(2.0)
         if self._consumer_thread is not None:
-            self._consumer_thread.join(10.0)
+            # The consumer finishes what the readers queued before the run file closes. If it
+            # is far behind (an accelerated bench producing estimates faster than they can be
+            # made), it stores the rest of the raw blocks without analysing them: replay
+            # analyses them later; nothing read is lost.
+            self._consumer_thread.join(CLOSE_ANALYSE_S)
+            if self._consumer_thread.is_alive():
+                self._store_only.set()
+                self._consumer_thread.join(CLOSE_STORE_S)
+            if self._consumer_thread.is_alive():
+                log.error("the consumer did not finish within %.0f s; the run file is closed without the "
+                          "blocks still queued", CLOSE_ANALYSE_S + CLOSE_STORE_S)
         if self.store is not None:
             try:
                 if self.consumer is not None:
                     self.consumer.drain_events(self.control_q)
+                    if self.consumer.unanalysed_blocks:
+                        self.consumer.record_event(Event(
+                            self.clock.now(), "run",
+                            f"{self.consumer.unanalysed_blocks} detector blocks stored at close without being "
+                            "analysed (the analysis was behind); replay analyses them",
+                            data={"unanalysed_blocks": self.consumer.unanalysed_blocks}))
                     self.consumer.record_event(Event(self.clock.now(), "run", f"run {reason}"))
                 self.store.close(reason=reason)
             except Exception:
@@ -272,7 +294,10 @@ class Measurement:
                     if self.stop_flag.is_set():
                         break
                 if item is not None:
-                    c.process(item)
+                    if self._store_only.is_set():
+                        c.store_only(item)
+                    else:
+                        c.process(item)
                 now = time.monotonic()
                 if now - last_tick >= 0.05:
                     last_tick = now

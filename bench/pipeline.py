@@ -40,6 +40,8 @@ log = logging.getLogger(__name__)
 
 #: How much recent detector data the consumer keeps for dark and baseline captures (s).
 RECENT_SECONDS = 3.0
+#: ... and at least this many blocks (on an accelerated bench one block spans many seconds).
+RECENT_MIN_BLOCKS = 8
 
 CONTROL_KINDS = ("dark", "baseline", "mode", "setting")
 
@@ -116,9 +118,11 @@ class Consumer:
         now: Callable[[], float] | None = None,
         drop_totals: Callable[[], tuple[dict[str, int], dict[str, int]]] | None = None,
         keep_events: int = 200,
+        traces: bool = True,
         trace_bucket: float = 0.005,
     ):
         self.params = params
+        self.traces = traces  # keep the display's decimated traces (not needed headless)
         self.state = est.new_state(params, mode, settings)
         self.store = store
         self.guarded_pump = guarded_pump
@@ -144,6 +148,7 @@ class Consumer:
         self.pump_trace = TraceHistory(("pump_current", "mount_temp"), bucket=0.05, capacity=2000)
         self.estimate_history = EstimateHistory()
         self.all_estimates_count = 0
+        self.unanalysed_blocks = 0
         self._t = 0.0
         self.sample_rate: float | None = None
         self.extra: dict[str, Any] = {}
@@ -170,6 +175,24 @@ class Consumer:
         else:
             raise TypeError(f"item: cannot process {type(item).__name__}")
 
+    def store_only(self, item: object) -> None:
+        """Like `process`, but a block is only stored (and its index checked), not analysed.
+
+        For closing a run whose analysis has fallen behind: the raw data land in the run file
+        and `bench.replay` analyses them later. Count in `unanalysed_blocks`.
+        """
+        if not isinstance(item, Block):
+            self.process(item)
+            return
+        if self.store is not None:
+            self.store.append_block(item)
+        if item.source == "detector":
+            if item.first_index >= 0:
+                self._index_gap(item)
+            self.samples += item.n
+            self.unanalysed_blocks += 1
+        self.blocks += 1
+
     def _block(self, block: Block) -> None:
         if self.store is not None:
             self.store.append_block(block)  # 1. nothing is lost
@@ -194,6 +217,8 @@ class Consumer:
         self._remember(block)
         if block.dt > 0:
             self.sample_rate = 1.0 / block.dt
+        if not self.traces:
+            return
         probe, ref, mon = block.column(PROBE), block.column(REFERENCE), block.column(PUMP_MONITOR)
         dark = self.state.dark
         dp = dark.probe if dark is not None else 0.0
@@ -233,7 +258,8 @@ class Consumer:
                 gp.stop_emission(who="gainbench (output read on while not emitting)")
         with self._lock:
             self._pump = {c: float(v) for c, v in zip(block.channels, row)}
-            self.pump_trace.add_block(block)
+            if self.traces:
+                self.pump_trace.add_block(block)
 
     def _comm(self, status: CommStatus) -> None:
         if not status.ok or status.detail != "recovered":
@@ -262,7 +288,8 @@ class Consumer:
 
     def _remember(self, block: Block) -> None:
         self._recent.append(block)
-        while self._recent and self._recent[-1].t_end - self._recent[0].t_end > RECENT_SECONDS:
+        while (len(self._recent) > RECENT_MIN_BLOCKS
+               and self._recent[-1].t_end - self._recent[0].t_end > RECENT_SECONDS):
             self._recent.popleft()
 
     # -- controls -------------------------------------------------------------------------
