@@ -465,7 +465,8 @@ class _Counts:
     no_reference: int = 0
 
     def plus(self, other: _Counts) -> _Counts:
-        return _Counts(*(a + b for a, b in zip(dataclasses.astuple(self), dataclasses.astuple(other))))
+        return _Counts(self.seen + other.seen, self.unsettled + other.unsettled, self.over + other.over,
+                       self.skipped + other.skipped, self.no_reference + other.no_reference)
 
 
 @dataclass(frozen=True)
@@ -933,7 +934,8 @@ def _watch_ingest(core: _WatchCore, f: _Frame, clock: _Clock) -> tuple[_WatchCor
 
 def _watch_add(core: _WatchCore, item) -> _WatchCore:
     _, n_b, m_b = item
-    return dataclasses.replace(core, win=core.win.add(n_b, m_b), cum=core.cum.add(n_b, m_b))
+    return _WatchCore(core.open_id, core.open_n, core.open_sum, win=core.win.add(n_b, m_b),
+                      cum=core.cum.add(n_b, m_b))
 
 
 def _watch_flush(core: _WatchCore) -> _WatchCore:

@@ -33,8 +33,15 @@ _EXP_SAFE = 700.0
 # --- argument checks ---------------------------------------------------------------------
 
 
+_SCALARS = (float, int, np.float64)
+
+
 def _real(value, name: str) -> np.ndarray:
     """``value`` as a float64 array; finite, else ValueError naming ``name``."""
+    if type(value) in _SCALARS:  # the common case of one number, without numpy's reductions
+        if not math.isfinite(value):
+            raise ValueError(f"{name}: must be finite, got {float(value)!r}")
+        return np.float64(value)
     try:
         arr = np.asarray(value, dtype=np.float64)
     except (TypeError, ValueError):
@@ -50,14 +57,14 @@ def _first(arr: np.ndarray, bad: np.ndarray) -> str:
 
 def _positive(value, name: str, what: str = "") -> np.ndarray:
     arr = _real(value, name)
-    if np.any(arr <= 0):
+    if arr <= 0 if arr.ndim == 0 else np.any(arr <= 0):
         raise ValueError(f"{name}: must be positive{what}, got {_first(arr, arr <= 0)}")
     return arr
 
 
 def _nonnegative(value, name: str, what: str = "") -> np.ndarray:
     arr = _real(value, name)
-    if np.any(arr < 0):
+    if arr < 0 if arr.ndim == 0 else np.any(arr < 0):
         raise ValueError(f"{name}: must be zero or positive{what}, got {_first(arr, arr < 0)}")
     return arr
 
