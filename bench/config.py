@@ -117,6 +117,7 @@ class RunConfig:
     log_dir: Path
     flush_interval: float  # s
     operator: str
+    estimate_every: float = 0.25  # s, length of one window estimate
 
 
 @dataclass(frozen=True)
@@ -425,6 +426,7 @@ def _build(r: _Reader, text: str, base_dir: Path) -> BenchConfig:
         log_dir=Path(r.string("run.log_dir", "logs")) if r.table("run", required=False) is not None else Path("logs"),
         flush_interval=r.positive("run.flush_interval", "time", "1 s"),
         operator=r.string("run.operator", ""),
+        estimate_every=r.positive("run.estimate_every", "time", "0.25 s"),
     )
     if run.flush_interval > 1.0:
         raise r.fail("run.flush_interval", "must be at most 1 s (nothing older than that may be lost)")

@@ -255,6 +255,7 @@ class EstimatorParams:
         else:
             monitor = None
         base: dict[str, Any] = dict(
+            window=cfg.run.estimate_every,
             probe_wavelength=cfg.probe.wavelength,
             sigma_e=s.sigma.probe_emission,
             sigma_a=s.sigma.probe_absorption,

@@ -51,6 +51,8 @@ def test_builtin_bench_loads_in_si_units():
         ('n_total = "3 %"', 'n_total = "130 %"', "sample.uncertainty.n_total (line 34): '130 %' must be between"),
         ('mount_temperature_min = "15 degC"', 'mount_temperature_min = "40 degC"', "guard.mount_temperature_min (line 75): is not below"),
         ('flush_interval = "0.5 s"', 'flush_interval = "5 s"', "run.flush_interval (line 84): must be at most 1 s"),
+        ('estimate_every = "0.25 s"', 'estimate_every = "0.25 V"', 'run.estimate_every (line 85): "0.25 V" is not a time'),
+        ('estimate_every = "0.25 s"', 'estimate_every = "0 s"', "run.estimate_every (line 85)"),
         ('[instruments.shutter]', '[instruments.chopper]', "instruments.chopper (line 66): unknown role"),
         ('resource = "simulated"', 'resource = "TCPIP::127.0.0.1::5025::SOCKET"', 'instruments.detector.resource (line 55): a simulated bench needs resource = "simulated"'),
         ("comm_failures = 3", "comm_failures = 2.5", "guard.comm_failures (line 79): 2.5 is not a whole number"),
@@ -121,3 +123,12 @@ def test_pump_power_calibration():
     cfg = load_bench()
     assert cfg.pump.power_at(0.0) == 0.0
     assert math.isclose(cfg.pump.power_at(5.0), 1.05 * 4.4)
+
+
+def test_estimate_every_sets_the_estimator_window():
+    from bench.estimator_params import EstimatorParams
+
+    cfg = load_bench()
+    assert cfg.run.estimate_every == 0.25
+    longer = load_bench_text(cfg.text, cfg.source, overrides={"run.estimate_every": "5 s"})
+    assert EstimatorParams.from_config(longer).window == 5.0
