@@ -10,6 +10,7 @@ every loop checks its stop flag, so the threads end promptly when asked.
 from __future__ import annotations
 
 import logging
+import math
 import queue
 import threading
 import time
@@ -105,6 +106,10 @@ class Reader(threading.Thread):
         """Seconds to wait when a read returned nothing."""
         return 0.002
 
+    def pause_after(self, block: Block) -> float:
+        """Seconds to wait after a read that returned ``block`` (none by default)."""
+        return 0.0
+
     def _check(self, item: object) -> None:
         try:
             if isinstance(item, Block) and self.on_block is not None:
@@ -154,6 +159,9 @@ class Reader(threading.Thread):
                 continue
             self.reads += 1
             self.put(block, samples=block.n)
+            pause = self.pause_after(block)
+            if pause > 0:
+                self.stop_flag.wait(pause)
 
     def reconnect(self) -> None:
         """Try to reopen the connection; the next read tells whether it worked."""
@@ -164,10 +172,15 @@ class DetectorReader(Reader):
 
     source = "detector"
 
-    def __init__(self, digitiser, out, clock, drops, stop, *, max_sets: int = 65536):
+    def __init__(self, digitiser, out, clock, drops, stop, *, max_sets: int = 65536, min_block: float = 0.0):
         super().__init__(out, clock, drops, stop)
         self.digitiser = digitiser
         self.max_sets = int(max_sets)
+        if not (math.isfinite(min_block) and min_block >= 0):
+            raise ValueError(f"min_block: {min_block!r} is not a time >= 0 s")
+        #: Run-clock s of data a block should span at least: after a shorter block the reader
+        #: waits for the rest to accumulate (fewer, larger blocks cost less per sample).
+        self.min_block = float(min_block)
         self.rate = float(digitiser.rate_hz)
         self.channels = tuple(digitiser.channel_names)
         self.t_start = 0.0
@@ -217,6 +230,11 @@ class DetectorReader(Reader):
     def idle_wait(self) -> float:
         # Nothing was waiting: ask again soon (short blocks keep trip latency low).
         return 0.002
+
+    def pause_after(self, block: Block) -> float:
+        if block.n >= self.max_sets:  # a full fetch: more is waiting
+            return 0.0
+        return max(0.0, self.min_block - block.n / self.rate) / self.clock.speed
 
     def reconnect(self) -> None:
         try:

@@ -54,6 +54,11 @@ SWITCH_INTERVAL = 0.0005
 CLOSE_ANALYSE_S = 10.0
 CLOSE_STORE_S = 30.0
 
+#: Run-clock s of data one detector block spans at least (the reader waits for that much):
+#: fewer, larger blocks cost the interpreter less per sample; a detector-based trip waits at
+#: most this long for its reading.
+MIN_BLOCK = 0.02
+
 #: Queue length in blocks; at 64k sample sets per block this is several seconds of data.
 QUEUE_BLOCKS = 256
 
@@ -78,6 +83,7 @@ class Measurement:
         record: bool = True,
         fetch_sets: int | None = None,
         pump_poll: float = 0.02,
+        min_block: float = MIN_BLOCK,
         seed: int | None = None,
         sim_in_process: bool = False,
     ):
@@ -91,6 +97,7 @@ class Measurement:
         self.record = record
         self.fetch_sets = fetch_sets
         self.pump_poll = pump_poll
+        self.min_block = min_block
         self.seed = seed
         self.sim_in_process = sim_in_process
         self.sim = None
@@ -203,7 +210,8 @@ class Measurement:
         rate = float(detector.rate_hz)
         # A fetch returns what is waiting, up to this: enough to catch up on a backlog at once.
         fetch = self.fetch_sets or int(min(65536, max(1024, rate * self.speed * 0.25)))
-        det_reader = DetectorReader(detector, self.data_q, self.clock, self.drops, self.stop_flag, max_sets=fetch)
+        det_reader = DetectorReader(detector, self.data_q, self.clock, self.drops, self.stop_flag, max_sets=fetch,
+                                    min_block=self.min_block)
         # The pump's readings have a queue of their own, served first: a trip condition must not
         # wait behind a backlog of detector blocks.
         pump_reader = PumpReader(pump, self.pump_q, self.clock, self.drops, self.stop_flag,
