@@ -40,6 +40,9 @@ log = logging.getLogger(__name__)
 
 #: How much recent detector data the consumer keeps for dark and baseline captures (s).
 RECENT_SECONDS = 3.0
+#: Span (s) of the newest data averaged for the live levels shown on screen.
+LEVELS_SPAN = 1e-3
+
 #: ... and at least this many blocks (on an accelerated bench one block spans many seconds).
 RECENT_MIN_BLOCKS = 8
 
@@ -102,6 +105,8 @@ class Snapshot:
     store_bytes: int | None
     sample_rate: float | None
     extra: Mapping[str, Any]
+    #: The newest detector levels (V, and S): means over the last `LEVELS_SPAN` of data.
+    levels: Mapping[str, float] = field(default_factory=lambda: MappingProxyType({}))
 
 
 class Consumer:
@@ -142,6 +147,7 @@ class Consumer:
         self._latest: Estimate | None = None
         self._window: Estimate | None = None
         self._pump: dict[str, float] = {}
+        self._levels: dict[str, float] = {}
         self._truth: dict[str, float] | None = None
         self._events: deque[Event] = deque(maxlen=keep_events)
         self.trace = TraceHistory(("probe", "reference", "transmission", "pump_monitor"), bucket=trace_bucket)
@@ -225,8 +231,13 @@ class Consumer:
         dr = dark.reference if dark is not None else 0.0
         with np.errstate(divide="ignore", invalid="ignore"):
             s = (probe - dp) / (ref - dr)
+        k = max(1, min(block.n, int(round(LEVELS_SPAN / block.dt)) if block.dt > 0 else 1))
+        with np.errstate(invalid="ignore"):
+            levels = {PROBE: float(np.mean(probe[-k:])), REFERENCE: float(np.mean(ref[-k:])),
+                      "transmission": float(np.mean(s[-k:]))}
         with self._lock:  # 3. display history
             self.trace.add(block.times(), np.column_stack([probe, ref, s, mon]))
+            self._levels = levels
 
     def _index_gap(self, block: Block) -> None:
         """Log a ``gap`` event when a detector block does not start where the previous one ended."""
@@ -416,6 +427,7 @@ class Consumer:
                 store_bytes=size,
                 sample_rate=self.sample_rate,
                 extra=MappingProxyType(dict(self.extra)),
+                levels=MappingProxyType(dict(self._levels)),
             )
 
 

@@ -377,6 +377,48 @@ async def test_quit_switches_the_pump_off_then_asks_then_closes_the_run(own_meas
 
 
 @pilot_test
+async def test_dashboard_on_a_bench_process_arms_emits_and_quits(tmp_path):
+    # As `gainbench live` runs it: the bench (instruments, guard, run file) in a process of its own.
+    from bench.bench_process import RemoteMeasurement
+    from bench.dashboard.small_screens import QuitScreen
+
+    cfg = load_bench(overrides=BENCH_OVERRIDES)
+    current = default_current(cfg)
+    meas = RemoteMeasurement(cfg, settings={"pump_current": current, "pump_power": cfg.pump.power_at(current)},
+                             log_dir=tmp_path, seed=SEED, operator="tester")
+    meas.start()
+    try:
+        app = dashboard(meas)
+        async with app.run_test(size=SIZE) as pilot:
+            await started(pilot)  # the dashboard opened the bench (the process was started above)
+
+            def pump_on() -> bool:
+                return meas.snapshot(with_history=False).pump.get("pump_on", 0.0) > 0.5
+
+            screen = await arm(pilot)
+            await wait_for(pilot, lambda: screen.stage == "done", "the verdict")
+            await closed_checklist(pilot)
+            assert meas.guarded_pump.state == "armed"
+            await press(pilot, "e")
+            await wait_for(pilot, pump_on, "the pump on")
+            await wait_for(pilot, lambda: "EMITTING" in screen_text(app), "the guard panel to say so")
+            await press(pilot, "q")
+            await wait_for(pilot, lambda: isinstance(app.screen, QuitScreen), "the quit question")
+            # off before the question is asked (commanded and read back by the guard; the
+            # dashboard's next pump reading shows it a poll later)
+            assert meas.snapshot(with_history=False).guard_state == "armed"
+            await wait_for(pilot, lambda: not pump_on(), "the pump to read off", timeout=2.0)
+            await press(pilot, "y")
+            await wait_for(pilot, lambda: not app.is_running, "the app to leave")
+        assert app.closed_cleanly
+    finally:
+        meas.close()
+    with RunReader(meas.run_path) as r:
+        assert r.status == "complete"
+        assert "dashboard" in r.meta.get("stop_reason", "")
+
+
+@pilot_test
 async def test_compact_layout_at_80x24(meas):
     app = dashboard(meas)
     async with app.run_test(size=(80, 24)) as pilot:

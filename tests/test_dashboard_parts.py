@@ -86,25 +86,44 @@ def test_screen_latency_statistics_match_numpy():
     rng = np.random.default_rng(3)
     meter = ScreenLatency(keep=1000)
     painted = np.cumsum(rng.uniform(0.05, 0.15, 300))
-    lat = rng.uniform(0.0, 0.2, 300)
-    for p, d in zip(painted, lat, strict=True):
-        meter.add(p, p - d)
+    age = rng.uniform(0.0, 0.2, 300)  # of the newest reading on each repaint
+    newest = np.maximum.accumulate(painted - age)
+    for p, t in zip(painted, newest, strict=True):
+        meter.add(p, t)
+    new = np.concatenate(([True], np.diff(newest) > 0))  # repaints that showed new readings
+    # the oldest new reading of repaint k is the first one after the newest of repaint k-1
+    since = np.concatenate(([newest[0]], newest[:-1]))
+    lat = (painted - since)[new]
     f = meter.figures()
-    assert f.n == 300
+    assert f.n == new.sum()
     assert f.mean == pytest.approx(lat.mean())
     assert f.median == pytest.approx(np.median(lat))
     assert f.p95 == pytest.approx(np.percentile(lat, 95))
     assert f.worst == pytest.approx(lat.max())
+    assert f.fresh_median == pytest.approx(np.median((painted - newest)[new]))
     assert f.repaint_hz == pytest.approx(299 / (painted[-1] - painted[0]))
     # at 4x speed the run clock runs 4 times faster than the wall clock
     assert meter.figures(speed=4.0).repaint_hz == pytest.approx(4 * f.repaint_hz)
 
 
+def test_screen_latency_counts_the_wait_for_the_next_repaint():
+    # Readings up to t=1.0 shown at 1.05; the next repaint at 1.15 shows readings up to 1.12:
+    # the reading at 1.0001 waited from 1.0 to 1.15 (common practice, no source).
+    meter = ScreenLatency()
+    meter.add(1.05, 1.0)
+    meter.add(1.15, 1.12)
+    meter.add(1.20, 1.12)  # a repaint with nothing new is not a latency
+    f = meter.figures()
+    assert f.n == 2
+    assert f.worst == pytest.approx(0.15)
+    assert f.fresh_median == pytest.approx(0.04)
+
+
 def test_screen_latency_keeps_only_the_latest():
     meter = ScreenLatency(keep=10)
-    for k in range(100):
-        meter.add(float(k), float(k) - (1.0 if k < 90 else 0.5))
-    assert meter.figures().worst == 0.5
+    for k in range(100):  # a repaint a second; the newest reading 3 s old, then 0.5 s old
+        meter.add(float(k), float(k) - (3.0 if k < 80 else 0.5))
+    assert meter.figures().worst == pytest.approx(1.5)  # 1 s for the next repaint + 0.5 s
     assert meter.figures() is not None and ScreenLatency().figures() is None
     with pytest.raises(ValueError, match="keep"):
         ScreenLatency(keep=1)

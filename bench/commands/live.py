@@ -1,8 +1,10 @@
 """`gainbench live`: the terminal dashboard on a bench, recording a run.
 
-With no ``--config`` it opens the built-in simulated bench (served in-process over loopback),
-and the dashboard says so on its top line. The pump output is off at start and off at exit,
-whatever way the program ends: the measurement is closed in a ``finally``.
+With no ``--config`` it opens the built-in simulated bench (served over loopback), and the
+dashboard says so on its top line. The bench (instruments, guard, run file) runs in a process
+of its own (`bench.bench_process`). The pump output is off at start and off at exit, whatever
+way the program ends: the measurement is closed in a ``finally``, and the bench process
+switches the pump off by itself when the dashboard's process goes away.
 """
 
 from __future__ import annotations
@@ -31,9 +33,13 @@ def configure(parser: argparse.ArgumentParser) -> None:
                         help="pump current change per key press, A (default 0.25)")
     parser.add_argument("--no-record", action="store_true", help="show the bench without recording a run")
     parser.add_argument("--seed", type=int, help="simulated bench only: random seed")
+    parser.add_argument("--single-process", action="store_true",
+                        help="run the bench in the dashboard's own process (by default it has a process of "
+                             "its own, so that drawing the screen never slows acquisition)")
 
 
 def run(args: argparse.Namespace) -> int:
+    from bench.bench_process import RemoteMeasurement
     from bench.dashboard.live_app import LiveDashboard
     from bench.measurement import Measurement, default_current
 
@@ -46,10 +52,12 @@ def run(args: argparse.Namespace) -> int:
         raise ConfigError(f"--current-step: {args.current_step} is not a positive current")
     current = default_current(cfg)
     settings = {} if args.mode == "sweep" else {"pump_current": current, "pump_power": cfg.pump.power_at(current)}
-    meas = Measurement(cfg, mode=args.mode, settings=settings, log_dir=args.logs, speed=args.speed,
-                       faults=tuple(args.fault), operator=args.operator or "", record=not args.no_record,
-                       seed=args.seed)
+    kind = Measurement if args.single_process else RemoteMeasurement
+    meas = kind(cfg, mode=args.mode, settings=settings, log_dir=args.logs, speed=args.speed,
+                faults=tuple(args.fault), operator=args.operator or "", record=not args.no_record, seed=args.seed)
     app = LiveDashboard(meas, operator=args.operator or "", current_step=args.current_step)
+    if not args.single_process:
+        meas.start()  # before the screen takes over the terminal; the dashboard waits for it
     try:
         app.run()  # the dashboard opens the measurement once its screen is up
     finally:

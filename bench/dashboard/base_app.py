@@ -2,8 +2,10 @@
 
 A `set_interval` timer (``REFRESH_HZ``) asks the subclass for the latest `Snapshot`
 (``read_snapshot``) and hands it to the panels; nothing waits for the pipeline, and the
-pipeline never waits for the screen. ``call_after_refresh`` then notes how old the newest
-sample shown was when the screen was painted (`ScreenLatency`).
+pipeline never waits for the screen. Every tick repaints the cheap text (guard, pump, the
+newest detector levels); a plot is redrawn every `PLOT_EVERY` ticks, taking turns, and the
+other panels every `SLOW_EVERY`. ``call_after_refresh`` then notes when the newest readings
+reached the screen (`ScreenLatency`).
 
 Below ``COMPACT_SIZE`` cells the screen gets the class ``compact`` (see ``dashboard.tcss``):
 two plots at a time, and key ``v`` swaps them for the other two.
@@ -13,6 +15,7 @@ from __future__ import annotations
 
 import math
 from collections.abc import Callable
+from dataclasses import replace
 
 from textual.app import App, ComposeResult
 from textual.containers import Container, Horizontal, Vertical
@@ -29,12 +32,16 @@ from bench.dashboard.run_panel import RunPanel
 from bench.pipeline import Snapshot
 
 #: Repaints per second (the snapshot timer).
-REFRESH_HZ = 10.0
+REFRESH_HZ = 20.0
+
+#: One plot is redrawn every this many snapshots (10 plot drawings a second in all, each of
+#: the four plots 2.5 times a second): drawing a plot costs the interpreter 10-40 ms that the
+#: acquisition threads wait for.
+PLOT_EVERY = 3
 
 #: The run, figures, events and health panels are handed every this many snapshots (about
-#: 3 a second); the guard and the pump every snapshot. Each repaint of a panel costs the
-#: interpreter a few ms that the acquisition threads wait for.
-SLOW_EVERY = 3
+#: 3 a second); the guard, the pump and the levels every snapshot.
+SLOW_EVERY = 6
 
 #: Below this many columns or rows the layout is compact.
 COMPACT_SIZE = (110, 32)
@@ -136,18 +143,22 @@ class DashboardBase(App):
             self.call_after_refresh(self._show_plots, snap, True)
 
     # -- the timer ------------------------------------------------------------------------
-    def read_snapshot(self) -> Snapshot | None:  # pragma: no cover - abstract
+    def read_snapshot(self, with_history: bool = True) -> Snapshot | None:  # pragma: no cover - abstract
         raise NotImplementedError
 
     def tick(self) -> None:
         if not self.is_running or not self.screen_main.is_mounted:
             return
-        snap = self.read_snapshot()
+        plot_due = self.ticks % PLOT_EVERY == 0
+        snap = self.read_snapshot(with_history=plot_due)  # the history is copied for the plots only
         if snap is None:
             return
+        if snap.trace is None and self.last_snapshot is not None:
+            snap = replace(snap, trace=self.last_snapshot.trace, pump_trace=self.last_snapshot.pump_trace,
+                           estimates=self.last_snapshot.estimates)  # for a key that redraws the plots
         self.last_snapshot = snap
         self.ticks += 1
-        self.show_snapshot(snap)
+        self.show_snapshot(snap, plot_due)
         if self.ticks % SLOW_EVERY == 1:
             self.show_slow(snap)
         if self.run_clock is not None:
@@ -157,13 +168,19 @@ class DashboardBase(App):
         self.repaints += 1
         self.latency.add(self.run_clock(), newest_t)
 
-    def show_snapshot(self, snap: Snapshot) -> None:
-        """Every snapshot: the guard, the pump, and a plot if one is due (subclasses add theirs)."""
+    def show_snapshot(self, snap: Snapshot, plot_due: bool = True) -> None:
+        """Every snapshot: the guard, the pump, the levels, and a plot if one is due (subclasses
+        add theirs)."""
         p = self.panels
         p["guard"].reason = snap.trip_reason or ""
         self.show_guard(snap)
         p["pump"].show(snap.pump)
-        self._show_plots(snap)
+        lv = snap.levels
+        if lv:
+            p["run"].levels = (lv.get("probe", math.nan), lv.get("reference", math.nan),
+                               lv.get("transmission", math.nan))
+        if plot_due:
+            self._show_plots(snap)
 
     def show_slow(self, snap: Snapshot) -> None:
         """Every `SLOW_EVERY` snapshots: the run, the figures, the events (subclasses add theirs)."""

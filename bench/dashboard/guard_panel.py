@@ -21,7 +21,7 @@ class GuardPanel(TextPanel):
     DEFAULT_CSS = """
     GuardPanel {
         text-wrap: wrap;
-        height: 6;
+        height: 7;
         min-width: 22;
         padding: 0 1;
         border: heavy $panel-lighten-2;

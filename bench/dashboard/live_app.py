@@ -79,8 +79,10 @@ class LiveDashboard(BenchActions, DashboardBase):
 
     Parameters
     ----------
-    measurement : Measurement
-        Opened by the caller, who also closes it (closing twice is harmless).
+    measurement : Measurement or RemoteMeasurement
+        Closed by the caller (closing twice is harmless); opened here if it is not open yet.
+        `gainbench live` passes a `bench.bench_process.RemoteMeasurement`: the bench in a
+        process of its own.
     operator : str
         Who is at the bench (asked in the checklist when empty).
     current_step : float
@@ -116,6 +118,7 @@ class LiveDashboard(BenchActions, DashboardBase):
         self.closed_cleanly = False
         self.ready = False  # the measurement is open
         self.open_error: str | None = None
+        self.bench_lost: str | None = None  # why the bench (process) stopped answering
 
     def side_panels(self) -> ComposeResult:
         yield HealthPanel(id="health")
@@ -175,13 +178,19 @@ class LiveDashboard(BenchActions, DashboardBase):
             self.poller.stop()
 
     # -- the timer ------------------------------------------------------------------------
-    def read_snapshot(self) -> Snapshot | None:
-        if self.meas.consumer is None:
+    def read_snapshot(self, with_history: bool = True) -> Snapshot | None:
+        if self.meas.consumer is None or self.bench_lost is not None:
             return None
-        return self.meas.snapshot()
+        try:
+            return self.meas.snapshot(with_history=with_history)
+        except GainbenchError as exc:  # the bench process has gone (RemoteMeasurement)
+            self.bench_lost = str(exc)
+            self.panels["guard"].reason = f"BENCH LOST: {exc}"
+            self.say(f"THE BENCH HAS STOPPED ANSWERING: {exc}", "refused")
+            return None
 
-    def show_snapshot(self, snap: Snapshot) -> None:
-        super().show_snapshot(snap)
+    def show_snapshot(self, snap: Snapshot, plot_due: bool = True) -> None:
+        super().show_snapshot(snap, plot_due)
         if self.trip_screen is not None and snap.trip_reason:
             self.trip_screen.show_reason(snap.trip_reason)
 
@@ -195,8 +204,7 @@ class LiveDashboard(BenchActions, DashboardBase):
             stats, rates = self.poller.latest()
             health.show(stats, rates)
         health.sample_rate = snap.sample_rate
-        if self.ticks % 10 == 1:
-            health.latency = self.latency.figures(self.meas.speed)
+        health.latency = self.latency.figures(self.meas.speed)
 
     @property
     def guard_state(self) -> str:

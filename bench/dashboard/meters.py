@@ -1,8 +1,8 @@
 """Small meters for the dashboard's own health: repaint rate, reading-to-screen latency, read rates.
 
-`ScreenLatency` collects, for each repaint, the run-clock age of the newest sample it showed
-(the time from the reading to the screen: acquisition, queue, consumer, timer wait and
-render). `RateMeter` turns a growing counter into a rate. Both are plain objects fed by the
+`ScreenLatency` collects, for each repaint that shows new readings, how long the oldest of
+them took to reach the screen (from the sample's time: acquisition, queue, consumer, the wait
+for the timer, and render), and how old the newest one was. `RateMeter` turns a growing counter into a rate. Both are plain objects fed by the
 app's timer on the event loop; nothing here touches a widget or a thread.
 """
 
@@ -17,7 +17,13 @@ import numpy as np
 
 @dataclass(frozen=True)
 class LatencyFigures:
-    """Statistics of recent reading-to-screen latencies (s) and of the repaint rate (Hz)."""
+    """Reading-to-screen latencies (s) over recent repaints, and the repaint rate (Hz).
+
+    ``mean``, ``median``, ``p95``, ``worst``: for each repaint that showed new readings, the
+    time from the oldest of them (the first sample after those of the repaint before) to the
+    screen: the latency of every reading is at most that of its repaint. ``fresh_median``,
+    ``fresh_p95``: the age of the newest reading at each repaint.
+    """
 
     n: int
     mean: float
@@ -25,33 +31,44 @@ class LatencyFigures:
     p95: float
     worst: float
     repaint_hz: float
+    fresh_median: float
+    fresh_p95: float
 
 
 class ScreenLatency:
-    """Recent (repaint time, latency) pairs; ``keep`` of them."""
+    """Recent repaints (time, reading-to-screen latency, age of the newest reading); ``keep``."""
 
     def __init__(self, keep: int = 600) -> None:
         if keep < 2:
             raise ValueError(f"keep: {keep} is below 2")
         self._latency: deque[float] = deque(maxlen=keep)
+        self._fresh: deque[float] = deque(maxlen=keep)
         self._painted: deque[float] = deque(maxlen=keep)
+        self._shown_until: float | None = None
 
     def add(self, painted_at: float, newest_sample_t: float) -> None:
         """A repaint at run-clock ``painted_at`` showed data up to ``newest_sample_t``."""
         if not (math.isfinite(painted_at) and math.isfinite(newest_sample_t)):
             return
         self._painted.append(painted_at)
-        self._latency.append(max(0.0, painted_at - newest_sample_t))
+        before = self._shown_until
+        if before is not None and newest_sample_t <= before:
+            return  # nothing new on this repaint
+        oldest_new = newest_sample_t if before is None else before
+        self._latency.append(max(0.0, painted_at - oldest_new))
+        self._fresh.append(max(0.0, painted_at - newest_sample_t))
+        self._shown_until = newest_sample_t
 
     def figures(self, speed: float = 1.0) -> LatencyFigures | None:
         """Latencies in run-clock s (divide by ``speed`` for real s) and repaints per real s."""
         if len(self._latency) < 2:
             return None
         lat = np.asarray(self._latency)
+        fresh = np.asarray(self._fresh)
         span = (self._painted[-1] - self._painted[0]) / speed
         hz = (len(self._painted) - 1) / span if span > 0 else math.nan
-        return LatencyFigures(len(lat), float(lat.mean()), float(np.median(lat)),
-                              float(np.percentile(lat, 95)), float(lat.max()), hz)
+        return LatencyFigures(len(lat), float(lat.mean()), float(np.median(lat)), float(np.percentile(lat, 95)),
+                              float(lat.max()), hz, float(np.median(fresh)), float(np.percentile(fresh, 95)))
 
 
 class RateMeter:

@@ -21,7 +21,7 @@ class PumpPanel(TextPanel):
 
     DEFAULT_CSS = """
     PumpPanel {
-        height: 6;
+        height: 7;
         min-width: 26;
         padding: 0 1;
         border: round $panel-lighten-2;

@@ -76,8 +76,8 @@ class ReplayDashboard(DashboardBase):
     def on_unmount(self) -> None:
         self.feed.stop()
 
-    def read_snapshot(self) -> Snapshot | None:
-        return self.feed.snapshot()
+    def read_snapshot(self, with_history: bool = True) -> Snapshot | None:
+        return self.feed.snapshot(with_history=with_history)
 
     def tick(self) -> None:
         super().tick()

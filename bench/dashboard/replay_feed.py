@@ -189,9 +189,9 @@ class ReplayFeed:
         return earlier[-1]
 
     # -- what the display reads -----------------------------------------------------------
-    def snapshot(self) -> Snapshot | None:
+    def snapshot(self, with_history: bool = True) -> Snapshot | None:
         c = self._consumer
-        return None if c is None else c.snapshot()
+        return None if c is None else c.snapshot(with_history=with_history)
 
     def guard(self) -> GuardThen:
         return guard_at(self.events, self.position())

@@ -1,4 +1,5 @@
-"""The run panel: which run, how long, how big, how fresh on disk, what was lost, which mode.
+"""The run panel: which run, how long, how big, how fresh on disk, what was lost, which mode,
+and the newest detector levels (updated on every repaint: the reading on screen soonest).
 
 In a replay ``position`` replaces the elapsed time ("12.3 / 40.0 s, x2, paused").
 """
@@ -13,11 +14,11 @@ from bench.dashboard.text_panel import TextPanel
 
 
 class RunPanel(TextPanel):
-    """Run id, elapsed time, file size, age of the last flush, drops and faults, mode."""
+    """Run id, elapsed time, file size, age of the last flush, drops and faults, mode, levels."""
 
     DEFAULT_CSS = """
     RunPanel {
-        height: 6;
+        height: 7;
         min-width: 26;
         padding: 0 1;
         border: round $panel-lighten-2;
@@ -35,6 +36,8 @@ class RunPanel(TextPanel):
     faults: reactive[int] = reactive(0)
     mode: reactive[str] = reactive("")
     recording: reactive[bool] = reactive(True)
+    #: (probe V, reference V, S) of the newest data, or None
+    levels: reactive[tuple[float, float, float] | None] = reactive(None)
 
     def on_mount(self) -> None:
         self.border_title = "run"
@@ -46,7 +49,7 @@ class RunPanel(TextPanel):
 
     watch_run_id = watch_elapsed = watch_position = watch_store_bytes = _watch_any
     watch_flush_age = watch_drops = watch_dropped_samples = watch_faults = _watch_any
-    watch_mode = watch_recording = _watch_any
+    watch_mode = watch_recording = watch_levels = _watch_any
 
     def _paint(self) -> None:
         text = Text(no_wrap=True, overflow="ellipsis")
@@ -69,4 +72,10 @@ class RunPanel(TextPanel):
             text.append(f" ({self.dropped_samples} samples)")
         text.append("  faults ")
         text.append(str(self.faults), style="bold reverse" if self.faults else "")
+        text.append("\nnow ")
+        if self.levels is None:
+            text.append("—", style="dim")
+        else:
+            probe, ref, s = self.levels
+            text.append(f"probe {fmt.fixed(probe, 3)} V · ref {fmt.fixed(ref, 3)} V · S {fmt.fixed(s, 4)}")
         self.show_text(text)
