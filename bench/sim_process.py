@@ -70,6 +70,8 @@ class SimulatorProcess:
             cmd += ["--seed", str(self.seed)]
         for f in self.faults:
             cmd += ["--fault", f]
+        for key, value in self.cfg.overrides.items():  # e.g. --set simulation.drift_per_hour=0
+            cmd += ["--set", f"{key}={value}"]
         env = dict(os.environ, PYTHONUNBUFFERED="1")
         # The child's standard input is a pipe nobody writes to: it closes when this process
         # ends, however it ends (even kill -9), and the simulator then stops by itself.

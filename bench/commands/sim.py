@@ -8,7 +8,7 @@ import signal
 import sys
 import threading
 
-from bench.config import load_bench
+from bench.config import load_bench, parse_overrides
 from bench.errors import ConfigError
 
 NAME = "sim"
@@ -41,6 +41,9 @@ def configure(parser: argparse.ArgumentParser) -> None:
                        help="simulated seconds per real second (default 1)")
     serve.add_argument("--seed", type=int, default=None, help="random seed (default: the bench file's)")
     serve.add_argument("--fault", action="append", default=[], metavar="SPEC", help=FAULT_HELP)
+    serve.add_argument("--set", action="append", default=[], metavar="KEY=VALUE", dest="overrides",
+                       help="change a key of the bench file for this run, e.g. simulation.drift_per_hour=0 "
+                            "(repeatable)")
     serve.add_argument("--until-stdin-closes", action="store_true",
                        help="also stop when standard input closes (for a parent process that starts the "
                             "simulator: it stops with its parent, even a killed one)")
@@ -55,7 +58,7 @@ def run(args: argparse.Namespace) -> int:
 
     if not (math.isfinite(args.speed) and args.speed > 0):
         raise ConfigError(f"--speed {args.speed!r}: expected a positive number of simulated seconds per second")
-    cfg = load_bench(args.config)
+    cfg = load_bench(args.config, overrides=parse_overrides(args.overrides) or None)
     if cfg.simulation is None:
         raise ConfigError(f"{cfg.source}: no [simulation] table; `gainbench sim serve` needs a simulated bench file")
     faults = [parse_fault(spec) for spec in args.fault]
