@@ -434,6 +434,9 @@ class GuardedPump:
         with self._lock:
             now = self._clock()
             outcome = self._guard.handle(event, now)  # type: ignore[arg-type]
+            if any(isinstance(a, (PumpOff, PumpOn)) for a in outcome.actions):
+                # before the command: readings that show its effect may arrive while it runs
+                self._note_change(now)
             done = self._perform(outcome.actions)
             record = outcome.event
             extra: dict[str, object] = {}
