@@ -18,6 +18,7 @@ never the consumer.
 from __future__ import annotations
 
 import contextlib
+import gc
 import logging
 import math
 import queue
@@ -230,6 +231,10 @@ class Measurement:
             r.start()
         self._watch_thread = threading.Thread(target=self._watch_stale, name="guard-watch", daemon=True)
         self._watch_thread.start()
+        # What exists now (imports, drivers, the run file) lives as long as the run: out of the
+        # collector's reach, a full collection scans only what the run makes, and no longer
+        # holds the readers up for 100 ms or more.
+        gc.freeze()
         if self.sim is not None:
             self._truth_thread = threading.Thread(target=self._poll_truth, name="truth", daemon=True)
             self._truth_thread.start()
