@@ -110,14 +110,15 @@ def acquisition_run(rate_hz: float, seconds: float, log_dir: Path, *, speed: flo
 
 
 @contextlib.contextmanager
-def _pumped(cfg: BenchConfig, **options: Any) -> Iterator[Any]:
-    """An open `Measurement` on ``cfg`` with dark and baseline taken, armed and emitting."""
+def _pumped(cfg: BenchConfig, kind: type | None = None, **options: Any) -> Iterator[Any]:
+    """An open `Measurement` (or ``kind``, e.g. `RemoteMeasurement`) on ``cfg`` with dark and
+    baseline taken, armed and emitting."""
     from bench.checklist import answers_from_flags
     from bench.measurement import Measurement, default_current
 
     current = default_current(cfg)
     settings = {"pump_current": current, "pump_power": cfg.pump.power_at(current)}
-    with Measurement(cfg, settings=settings, **options) as m:
+    with (kind or Measurement)(cfg, settings=settings, **options) as m:
         m.capture_dark(0.1)
         m.capture_baseline(0.2)
         result = m.arm(answers_from_flags("benchmark", ARM_ODS, True), "benchmark")
@@ -157,22 +158,10 @@ def dashboard_run(rate_hz: float, seconds: float, log_dir: Path, *, size: tuple[
     import asyncio
 
     from bench.bench_process import RemoteMeasurement
-    from bench.checklist import answers_from_flags
     from bench.dashboard.live_app import LiveDashboard
-    from bench.measurement import default_current
 
-    cfg = bench_at(rate_hz)
-    current = default_current(cfg)
     out: dict[str, Any] = {"rate_hz": rate_hz, "seconds": seconds, "size": list(size)}
-    with RemoteMeasurement(cfg, settings={"pump_current": current, "pump_power": cfg.pump.power_at(current)},
-                           log_dir=log_dir) as m:
-        m.capture_dark(0.1)
-        m.capture_baseline(0.2)
-        result = m.arm(answers_from_flags("benchmark", ARM_ODS, True), "benchmark")
-        if not result.passed:
-            raise RuntimeError("; ".join(result.refusals))
-        m.set_current(current, who="benchmark")
-        m.emit("benchmark")
+    with _pumped(bench_at(rate_hz), kind=RemoteMeasurement, log_dir=log_dir) as m:
         app = LiveDashboard(m, operator="benchmark", close_on_quit=False)
 
         async def watch() -> None:
@@ -339,14 +328,14 @@ def run_benchmark(log_dir: Path, *, quick: bool = False, report: Callable[[str],
     figures.append(Figure("run store write", store / 1e6, "MB/s", f"{store / disk:.2f} x the disk",
                           extra={"ratio_to_disk": store / disk}))
     report("acquisition (3 channels, headless) ...")
-    rates = [250e3, 1e6] if quick else [100e3, 250e3, 500e3, 1e6, 1.5e6, 2e6, 3e6, 4e6]
+    rates = [250e3, 1e6] if quick else [100e3, 250e3, 500e3, 1e6, 1.5e6, 2e6]  # 2 MHz: the simulated digitiser's top
     seconds = 3.0 if quick else 8.0
     best, runs = highest_rate(log_dir, rates, seconds, report)
     figures.append(Figure("highest rate, zero drops, headless", None if best is None else best / 1e6,
                           "M samples/s per channel", ">= 1 wanted (3 channels: probe, reference, pump monitor)",
                           extra={"runs": runs}))
     report("acquisition with the dashboard open (bench in its own process) ...")
-    dash_rates = [250e3, 1e6] if quick else [250e3, 1e6, 2e6, 3e6]
+    dash_rates = [250e3, 1e6] if quick else [250e3, 1e6, 2e6]
     dash_best, dash_runs = highest_rate(log_dir, dash_rates, seconds, report, run=dashboard_run)
     figures.append(Figure("highest rate, zero drops, dashboard open", None if dash_best is None else dash_best / 1e6,
                           "M samples/s per channel", ">= 1 wanted", extra={"runs": dash_runs}))

@@ -27,9 +27,9 @@ def test_highest_rate_stops_at_the_first_rate_that_does_not_keep_up(tmp_path):
 def test_replay_speed_counts_samples_of_every_channel(tmp_path):
     from bench.cli import main
 
-    args = ["record", "--seconds", "0.5", "--quiet", "--logs", str(tmp_path), "--operator", "tester",
-            "--eyewear-od", "940nm=5", "--eyewear-od", "1030nm=2", "--confirm-setup", "--set", "guard.stale_after=3s"]
-    assert main(args) == 0
+    from cli_flags import ARM
+
+    assert main(["record", "--seconds", "0.5", "--quiet", "--logs", str(tmp_path), *ARM]) == 0
     (path,) = tmp_path.glob("*.gbrun")
     r = replay_speed(str(path))
     assert r["channels"] == 3  # probe, reference, pump monitor on the demo bench

@@ -10,11 +10,8 @@ import pandas as pd
 import pytest
 
 from bench.cli import main
+from cli_flags import ARM
 
-ARM = ["--operator", "tester", "--eyewear-od", "940nm=5", "--eyewear-od", "1030nm=2", "--confirm-setup",
-       # a loaded test machine may stall a reader for longer than the demo bench's 0.5 s: these
-       # tests are about the run, not about stale-reading trips (tests/test_guard_on_bench.py)
-       "--set", "guard.stale_after=2s"]
 
 
 def _record(logs, *extra):
