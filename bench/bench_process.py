@@ -15,7 +15,8 @@ dark capture or a sweep step. Only the methods in `METHODS` can be called.
 Safety. The guard, and everything that commands the pump, live in the bench process. When the
 dashboard process goes away for any reason (quit, crash, ``kill -9``), the pipe closes and the
 bench process switches the pump off and closes the run file. The bench process ignores
-Ctrl-C: the dashboard's quit flow (pump off, confirm, close) ends it. If the bench process
+Ctrl-C and a closed terminal (they reach the dashboard too, whose end then ends the bench
+process); SIGTERM closes it as a quit does (pump off, run closed). If the bench process
 itself dies, every call raises `BenchProcessError` and the dashboard says so; the pump is then
 in whatever state the bench process left it (as after a crash of any control program: the
 hardware interlock is what protects people).
@@ -73,10 +74,23 @@ copyreg.pickle(MappingProxyType, lambda m: (read_only, (dict(m),)))
 # the bench process
 # ==============================================================================================
 
+class _Terminated(Exception):
+    """SIGTERM reached the bench process: close as on a quit (pump off, run closed)."""
+
+
+def _on_sigterm(signum, frame) -> None:
+    raise _Terminated("terminated (SIGTERM)")
+
+
 def _serve(conn, bench_text: str, bench_source: str, overrides: dict[str, str] | None,
            options: dict[str, Any], log_path: str | None) -> None:
     """Main function of the bench process."""
-    signal.signal(signal.SIGINT, signal.SIG_IGN)  # the dashboard ends it, never a stray Ctrl-C
+    # Ctrl-C and a closed terminal (SIGHUP) reach the whole process group: the dashboard
+    # handles them, and its end (the pipe closing) ends this process, pump off first.
+    signal.signal(signal.SIGINT, signal.SIG_IGN)
+    if hasattr(signal, "SIGHUP"):
+        signal.signal(signal.SIGHUP, signal.SIG_IGN)
+    signal.signal(signal.SIGTERM, _on_sigterm)
     if log_path is not None:  # the dashboard owns the terminal: messages go to a file
         with contextlib.suppress(OSError):
             fd = os.open(log_path, os.O_WRONLY | os.O_CREAT | os.O_APPEND, 0o644)
@@ -104,7 +118,7 @@ def _serve(conn, bench_text: str, bench_source: str, overrides: dict[str, str] |
         cfg = load_bench_text(bench_text, bench_source, overrides=overrides or None)
         m = Measurement(cfg, **options)
         m.open()
-    except BaseException as exc:  # tell the dashboard why; close what was opened
+    except BaseException as exc:  # tell the dashboard why (SIGTERM too); close what was opened
         send((0, False, _portable(exc)))
         if m is not None:
             m.close(reason="failed to start")
@@ -117,6 +131,9 @@ def _serve(conn, bench_text: str, bench_source: str, overrides: dict[str, str] |
                 request = conn.recv()
             except (EOFError, OSError):
                 break  # the dashboard is gone: pump off, run closed (below)
+            except _Terminated as exc:
+                reason = str(exc)
+                break
             rid, name, args, kwargs = request
             if name == "close":
                 reason = str(args[0]) if args else "stopped"
@@ -127,6 +144,7 @@ def _serve(conn, bench_text: str, bench_source: str, overrides: dict[str, str] |
             threading.Thread(target=_call, args=(m, send, rid, name, args, kwargs), daemon=True,
                              name=f"request-{name}").start()
     finally:
+        signal.signal(signal.SIGTERM, signal.SIG_IGN)  # the pump goes off and the run closes first
         m.close(reason=reason)
         send((-1, True, _info(m)))  # closed: the run file is complete
 

@@ -58,7 +58,7 @@ CLOSE_STORE_S = 30.0
 #: Run-clock s of data one detector block spans at least (the reader waits for that much):
 #: fewer, larger blocks cost the interpreter less per sample; a detector-based trip waits at
 #: most this long for its reading.
-MIN_BLOCK = 0.02
+MIN_BLOCK = 0.01
 
 #: Queue length in blocks; at 64k sample sets per block this is several seconds of data.
 QUEUE_BLOCKS = 256

@@ -147,3 +147,32 @@ def test_a_dead_bench_process_is_reported_on_every_call(tmp_path):
             m.stop_emission()
     finally:
         m.close()  # harmless on a dead bench process
+
+
+@pytest.mark.parametrize("sig", ["SIGHUP", "SIGTERM"])
+def test_the_bench_process_survives_a_hangup_and_closes_cleanly_on_sigterm(tmp_path, sig):
+    # A closed terminal sends SIGHUP to the whole process group: the bench process must not die
+    # with the pump on (the dashboard's end closes it). SIGTERM closes it as a quit does.
+    m = remote(tmp_path)
+    m.open()
+    try:
+        result = m.arm(answers_from_flags("tester", ODS, True), "tester")
+        assert result.passed
+        m.emit("tester")
+        os.kill(m._process.pid, getattr(signal, sig))
+        if sig == "SIGHUP":
+            m._process.join(0.5)  # a default SIGHUP would have ended it by now: it must not
+            assert m.alive
+            assert m.snapshot(with_history=False).guard_state == "emitting"
+            m.close()
+        else:
+            m._process.join(60)
+            assert m._process.exitcode == 0
+        with RunReader(m.run_path) as r:
+            assert r.status == "complete"
+            (down,) = [e for e in r.events() if e.kind == "guard" and "shutdown" in e.text]
+            assert down.data["pump_off_ok"] is True
+            if sig == "SIGTERM":
+                assert "SIGTERM" in r.meta.get("stop_reason", "")
+    finally:
+        m.close()

@@ -38,7 +38,7 @@ REFRESH_HZ = 20.0
 #: One plot is redrawn every this many snapshots (10 plot drawings a second in all, each of
 #: the four plots 2.5 times a second): drawing a plot costs the interpreter 10-40 ms that the
 #: acquisition threads wait for.
-PLOT_EVERY = 3
+PLOT_EVERY = 4
 
 #: The run, figures, events and health panels are handed every this many snapshots (about
 #: 3 a second); the guard, the pump and the levels every snapshot.
