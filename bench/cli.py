@@ -5,11 +5,13 @@ from __future__ import annotations
 import argparse
 import importlib
 import os
+import signal
 import sys
+import threading
 from collections.abc import Sequence
 
 from bench import __version__
-from bench.errors import GainbenchError
+from bench.errors import GainbenchError, Terminated
 
 #: Modules of `bench.commands`, in the order `gainbench --help` lists them.
 COMMAND_MODULES = (
@@ -48,14 +50,34 @@ def build_parser() -> argparse.ArgumentParser:
     return parser
 
 
+def _terminate(signum, frame) -> None:
+    raise Terminated(signal.Signals(signum).name)
+
+
+def _end_cleanly_on_signals() -> list[tuple[int, object]]:
+    """SIGTERM and SIGHUP end the command as Ctrl-C does (pump off, run closed), not at once."""
+    previous = []
+    if threading.current_thread() is not threading.main_thread():
+        return previous
+    for name in ("SIGTERM", "SIGHUP"):
+        sig = getattr(signal, name, None)
+        if sig is not None:
+            previous.append((sig, signal.signal(sig, _terminate)))
+    return previous
+
+
 def main(argv: Sequence[str] | None = None) -> int:
     parser = build_parser()
     args = parser.parse_args(argv)
     if not getattr(args, "_run", None):
         parser.print_help()
         return 2
+    previous = _end_cleanly_on_signals()
     try:
         return int(args._run(args) or 0)
+    except Terminated as exc:
+        print(f"gainbench: terminated ({exc.signal_name})", file=sys.stderr)
+        return 128 + int(getattr(signal, exc.signal_name))
     except GainbenchError as exc:
         print(f"gainbench: error: {exc}", file=sys.stderr)
         return 2
@@ -68,3 +90,6 @@ def main(argv: Sequence[str] | None = None) -> int:
         except OSError:
             pass
         return 0
+    finally:
+        for sig, handler in previous:
+            signal.signal(sig, handler)

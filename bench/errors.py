@@ -16,3 +16,16 @@ class ConfigError(GainbenchError):
 
 class RunStoreError(GainbenchError):
     """A run file is missing, truncated, foreign or of a newer schema."""
+
+
+class Terminated(BaseException):
+    """The process was asked to end (SIGTERM, or SIGHUP when its terminal closed).
+
+    Raised from the signal handler `bench.cli` installs, so that every ``finally`` and context
+    manager runs: the pump output is commanded off and the run file closed, as on Ctrl-C. A
+    `BaseException`, like `KeyboardInterrupt`, so that no ``except Exception`` swallows it.
+    """
+
+    def __init__(self, signal_name: str) -> None:
+        super().__init__(signal_name)
+        self.signal_name = signal_name

@@ -40,7 +40,7 @@ from bench.acquisition import (
     stop_readers,
 )
 from bench.config import BenchConfig
-from bench.errors import GainbenchError
+from bench.errors import GainbenchError, Terminated
 from bench.estimator_params import EstimatorParams
 from bench.pipeline import Consumer, Control, Snapshot, TruthItem
 from bench.records import Event
@@ -134,6 +134,8 @@ class Measurement:
     def __exit__(self, exc_type, exc, tb) -> None:
         if exc_type is KeyboardInterrupt:
             reason = "interrupted (Ctrl-C)"
+        elif exc_type is not None and issubclass(exc_type, Terminated):
+            reason = f"terminated ({exc.signal_name})"
         elif exc_type is not None:
             reason = f"stopped by an error: {exc_type.__name__}: {exc}"
         else:

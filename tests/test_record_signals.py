@@ -89,7 +89,9 @@ def _pump_output(resource: str) -> str:
         rm.close()
 
 
-def test_ctrl_c_leaves_the_pump_off(external_sim, tmp_path):
+@pytest.mark.parametrize(("sig", "status"), [(signal.SIGINT, 130), (signal.SIGTERM, 143), (signal.SIGHUP, 129)])
+def test_ctrl_c_or_termination_leaves_the_pump_off(external_sim, tmp_path, sig, status):
+    # Ctrl-C, `kill PID` (SIGTERM) and a closed terminal (SIGHUP) all end the run as a quit does
     bench, resources = external_sim
     logs = tmp_path / "logs"
     proc = subprocess.Popen(
@@ -99,18 +101,19 @@ def test_ctrl_c_leaves_the_pump_off(external_sim, tmp_path):
     try:
         _read_until(proc, r"guard emitting", timeout=60)
         assert _pump_output(resources["pump"]) == "1"  # the pump really is on
-        proc.send_signal(signal.SIGINT)
+        proc.send_signal(sig)
         proc.wait(30)
     finally:
         if proc.poll() is None:
             proc.kill()
-    assert proc.returncode == 130
+    assert proc.returncode == status
     assert _pump_output(resources["pump"]) == "0"  # and now really off
     (run_file,) = logs.glob("*.gbrun")
     with RunReader(run_file) as r:
         assert r.status == "complete"
         texts = [e.text for e in r.events() if e.kind == "guard"]
-        assert any("-> safe" in t and "interrupted" in t for t in texts), texts
+        said = "interrupted" if sig == signal.SIGINT else f"terminated ({signal.Signals(sig).name})"
+        assert any("-> safe" in t and said in t for t in texts), texts
 
 
 def test_kill_9_loses_at_most_the_last_flush_interval(tmp_path):
