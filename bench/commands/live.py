@@ -12,7 +12,7 @@ from __future__ import annotations
 import argparse
 import sys
 
-from bench.config import load_bench
+from bench.config import load_bench, parse_overrides
 from bench.errors import ConfigError, GainbenchError
 
 NAME = "live"
@@ -33,6 +33,9 @@ def configure(parser: argparse.ArgumentParser) -> None:
                         help="pump current change per key press, A (default 0.25)")
     parser.add_argument("--no-record", action="store_true", help="show the bench without recording a run")
     parser.add_argument("--seed", type=int, help="simulated bench only: random seed")
+    parser.add_argument("--set", action="append", default=[], metavar="KEY=VALUE", dest="overrides",
+                        help="change a key of the bench file for this run, with units, e.g. "
+                             "guard.stale_after=1s (repeatable)")
     parser.add_argument("--single-process", action="store_true",
                         help="run the bench in the dashboard's own process (by default it has a process of "
                              "its own, so that drawing the screen never slows acquisition)")
@@ -43,7 +46,7 @@ def run(args: argparse.Namespace) -> int:
     from bench.dashboard.live_app import LiveDashboard
     from bench.measurement import Measurement, default_current
 
-    cfg = load_bench(args.config)
+    cfg = load_bench(args.config, overrides=parse_overrides(args.overrides))
     if not args.speed > 0:
         raise ConfigError(f"--speed: {args.speed} is not positive")
     if not cfg.simulated and (args.fault or args.speed != 1.0 or args.seed is not None):
