@@ -148,7 +148,8 @@ def _kept_up(r: dict[str, Any]) -> bool:
             and r["samples_per_s"] >= 0.9 * r["rate_hz"])
 
 
-def dashboard_run(rate_hz: float, seconds: float, log_dir: Path, *, size: tuple[int, int] = (160, 50)) -> dict[str, Any]:
+def dashboard_run(rate_hz: float, seconds: float, log_dir: Path, *, size: tuple[int, int] = (160, 50),
+                  report: Callable[[str], None] | None = None) -> dict[str, Any]:
     """As `acquisition_run`, with the live dashboard open on the bench as `gainbench live` runs
     it (the bench in a process of its own), plus the reading-to-screen latency and repaint rate.
 
@@ -190,6 +191,10 @@ def dashboard_run(rate_hz: float, seconds: float, log_dir: Path, *, size: tuple[
 
         asyncio.run(watch())
     out["kept_up"] = _kept_up(out)
+    if report is not None and "latency_p95_s" in out:
+        report(f"    reading to screen median {out['latency_median_s'] * 1e3:.0f} ms, p95 "
+               f"{out['latency_p95_s'] * 1e3:.0f} ms, worst {out['latency_worst_s'] * 1e3:.0f} ms; "
+               f"dashboard {out['dashboard_cpu'] * 100:.0f} % of a core")
     return out
 
 
@@ -290,28 +295,35 @@ def memory_over_day(log_dir: Path, hours: float = 24.0, speed: float = 1000.0, r
     return out
 
 
-def memory_in_fresh_process(log_dir: Path, hours: float = 24.0, report: Callable[[str], None] = print) -> dict[str, float]:
-    """`memory_over_day` in a process of its own, so that the figures are those of a recording
-    process and not of this one (which has made the other measurements before)."""
+def in_fresh_process(function: str, *args: Any, report: Callable[[str], None] = print, **kwargs: Any) -> Any:
+    """Call ``bench.benchmark.<function>(*args, **kwargs)`` in a new interpreter and return
+    what it returns (JSON-able): the figures are then those of a process that has done only
+    that (as a user's ``gainbench record`` or ``gainbench live``), not of this one, which has
+    made the other measurements before. Its report lines (indented) are passed on."""
     import json
     import subprocess
     import sys
 
-    code = ("import json, sys; from pathlib import Path; from bench.benchmark import memory_over_day; "
-            "out = memory_over_day(Path(sys.argv[1]), hours=float(sys.argv[2]), "
-            "report=lambda t: print(t, file=sys.stderr, flush=True)); print(json.dumps(out))")
-    proc = subprocess.Popen([sys.executable, "-c", code, str(log_dir), repr(hours)], stdout=subprocess.PIPE,
-                            stderr=subprocess.PIPE, text=True)
+    code = ("import json, sys; from pathlib import Path; import bench.benchmark as b\n"
+            "if __name__ == '__main__':\n"
+            "    call = json.loads(sys.argv[1])\n"
+            "    out = getattr(b, call['f'])(*call['args'], **call['kwargs'],"
+            " report=lambda t: print(t, file=sys.stderr, flush=True))\n"
+            "    print(json.dumps(out, default=str))\n")
+    call = json.dumps({"f": function, "args": [str(a) if isinstance(a, Path) else a for a in args],
+                       "kwargs": kwargs})
+    proc = subprocess.Popen([sys.executable, "-c", code, call], stdout=subprocess.PIPE, stderr=subprocess.PIPE,
+                            text=True)
     lines = []
     assert proc.stderr is not None
     for line in proc.stderr:
         line = line.rstrip("\n")
         lines.append(line)
-        if line.startswith("  after"):
+        if line.startswith("  "):
             report(line)
     out, _ = proc.communicate()
     if proc.returncode != 0:
-        raise RuntimeError("the memory measurement failed: " + "\n".join(lines[-20:]))
+        raise RuntimeError(f"{function} failed: " + "\n".join(lines[-20:]))
     return json.loads(out.strip().splitlines()[-1])
 
 
@@ -336,7 +348,11 @@ def run_benchmark(log_dir: Path, *, quick: bool = False, report: Callable[[str],
                           extra={"runs": runs}))
     report("acquisition with the dashboard open (bench in its own process) ...")
     dash_rates = [250e3, 1e6] if quick else [250e3, 1e6, 2e6]
-    dash_best, dash_runs = highest_rate(log_dir, dash_rates, seconds, report, run=dashboard_run)
+    def fresh_dashboard(rate: float, seconds: float, log_dir: Path) -> dict[str, Any]:
+        # as a user runs `gainbench live`: in a process that has done nothing else
+        return in_fresh_process("dashboard_run", rate, seconds, log_dir, report=report)
+
+    dash_best, dash_runs = highest_rate(log_dir, dash_rates, seconds, report, run=fresh_dashboard)
     figures.append(Figure("highest rate, zero drops, dashboard open", None if dash_best is None else dash_best / 1e6,
                           "M samples/s per channel", ">= 1 wanted", extra={"runs": dash_runs}))
     at = next((r for r in dash_runs if r["rate_hz"] == 1e6), dash_runs[-1] if dash_runs else None)
@@ -368,7 +384,7 @@ def run_benchmark(log_dir: Path, *, quick: bool = False, report: Callable[[str],
                           "<= 100 ms required", detail=", ".join(f"{x * 1e3:.1f}" for x in lat)))
     report("memory over a simulated day ...")
     hours = 3.0 if quick else 24.0
-    mem = memory_in_fresh_process(log_dir, hours=hours, report=report)
+    mem = in_fresh_process("memory_over_day", log_dir, hours=hours, report=report)
     figures.append(Figure("memory after 1 simulated hour", mem["rss_1h_mb"], "MB",
                           "baseline (a recording process, 50 Hz at 1000 x real time)"))
     figures.append(Figure(f"memory after {hours:g} simulated hours", mem[f"rss_{hours:g}h_mb"], "MB",
