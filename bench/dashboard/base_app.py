@@ -33,16 +33,17 @@ from bench.dashboard.run_panel import RunPanel
 from bench.pipeline import Snapshot
 
 #: Repaints per second (the snapshot timer).
-REFRESH_HZ = 20.0
+REFRESH_HZ = 30.0
 
-#: One plot is redrawn every this many snapshots (10 plot drawings a second in all, each of
-#: the four plots 2.5 times a second): drawing a plot costs the interpreter 10-40 ms that the
-#: acquisition threads wait for.
-PLOT_EVERY = 4
+#: One plot is redrawn every this many snapshots (5 plot drawings a second in all, each of the
+#: four plots 1.25 times a second): drawing a plot costs 10-40 ms of the dashboard's process,
+#: which would otherwise delay the next repaint of the figures.
+PLOT_EVERY = 6
 
-#: The run, figures, events and health panels are handed every this many snapshots (about
-#: 3 a second); the guard, the pump and the levels every snapshot.
-SLOW_EVERY = 6
+#: The run, figures, events and health panels are handed a snapshot after at least this many
+#: (about 3 a second), never on a tick that draws a plot; the guard, the pump and the levels
+#: every snapshot.
+SLOW_EVERY = 10
 
 #: Below this many columns or rows the layout is compact.
 COMPACT_SIZE = (110, 32)
@@ -73,6 +74,7 @@ class DashboardBase(App):
         self.repaints = 0
         self.ticks = 0
         self._plot_turn = 0
+        self._since_slow = SLOW_EVERY  # the slow panels on the first tick that draws no plot
 
     # -- layout ---------------------------------------------------------------------------
     def compose(self) -> ComposeResult:
@@ -164,7 +166,9 @@ class DashboardBase(App):
         self.last_snapshot = snap
         self.ticks += 1
         self.show_snapshot(snap, plot_due)
-        if self.ticks % SLOW_EVERY == SLOW_EVERY // 2:  # never on a plot tick: no long frame
+        self._since_slow += 1
+        if not plot_due and self._since_slow >= SLOW_EVERY:  # never on a plot tick: no long frame
+            self._since_slow = 0
             self.show_slow(snap)
         if self.run_clock is not None:
             self.call_after_refresh(self._painted, snap.t)

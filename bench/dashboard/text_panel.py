@@ -1,6 +1,6 @@
 """`TextPanel`: a fixed-size panel of text that repaints only when what it shows changes.
 
-The panels are handed every snapshot (10 a second) but most of what they show changes far
+The panels are handed every snapshot (30 a second) but most of what they show changes far
 less often; comparing the text before updating keeps the terminal's work, and the
 interpreter time taken from the acquisition threads, small. Their heights are fixed in CSS,
 so an update never needs a layout pass.
