@@ -27,7 +27,9 @@ def slow_analysis(monkeypatch):
 
     def slow(state, block):
         if block.source == "detector":
-            time.sleep(0.005)  # slower than the blocks arrive, not so slow that the queue fills
+            # twice as long as the block's own data: the analysis falls behind by half the
+            # stream, whatever the block size, and the queue (256 blocks) does not fill
+            time.sleep(2.0 * block.n * block.dt)
         return real(state, block)
 
     monkeypatch.setattr(pipeline.est, "update", slow)
