@@ -165,13 +165,15 @@ class DashboardBase(App):
                            estimates=self.last_snapshot.estimates)  # for a key that redraws the plots
         self.last_snapshot = snap
         self.ticks += 1
-        self.show_snapshot(snap, plot_due)
+        self.show_snapshot(snap, plot_due=False)  # the text first: it is painted without waiting for a plot
         self._since_slow += 1
         if not plot_due and self._since_slow >= SLOW_EVERY:  # never on a plot tick: no long frame
             self._since_slow = 0
             self.show_slow(snap)
         if self.run_clock is not None:
             self.call_after_refresh(self._painted, snap.t)
+        if plot_due:  # then the plot, drawn in the refresh after
+            self.call_after_refresh(self._show_plots, snap)
 
     def _painted(self, newest_t: float) -> None:
         self.repaints += 1
