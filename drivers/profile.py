@@ -370,7 +370,13 @@ def _transport(table: dict[str, Any], path: str) -> TransportSettings:
             continue
         if not isinstance(value, str):
             raise ProfileError(path, f"transport.{key}", f"expected a string such as \"\\n\", got {value!r}")
-        terms[key] = decode_escapes(value, path, f"transport.{key}")
+        term = decode_escapes(value, path, f"transport.{key}")
+        if not term or not term.isascii():
+            # IEEE 488.2 and line protocols end messages with ASCII (LF, CR LF): a byte above
+            # 0x7f would go out with every command and never match a reply
+            raise ProfileError(path, f"transport.{key}", f"expected one or more ASCII characters such as \"\\n\", "
+                               f"got {value!r}")
+        terms[key] = term
     timeout = _seconds(table["timeout"], path, "transport.timeout") if "timeout" in table else defaults.timeout_s
     baudrate = table.get("baudrate")
     if baudrate is not None and (not isinstance(baudrate, int) or isinstance(baudrate, bool) or baudrate <= 0):

@@ -132,6 +132,12 @@ def test_timeout_with_unit_and_number(tmp_path):
         (MINIMAL_PUMP.replace("name = \"t\"\n", ""), "profile.name", "missing"),
         (MINIMAL_PUMP + "\n[extras]\nx = 1\n", "extras", "unknown section"),
         (MINIMAL_PUMP.replace("[errors]", "[transport]\nread_termination = '\\q'\n\n[errors]"), "transport.read_termination", "bad escape"),
+        # IEEE 488.2 message terminators are ASCII (LF, CR LF): a byte above 0x7f, or none at
+        # all, is refused (found by the profile fuzzing in tests/test_reliability_fuzz.py)
+        (MINIMAL_PUMP.replace("[errors]", "[transport]\nwrite_termination = '\\x80'\n\n[errors]"),
+         "transport.write_termination", "ASCII"),
+        (MINIMAL_PUMP.replace("[errors]", "[transport]\nread_termination = ''\n\n[errors]"),
+         "transport.read_termination", "ASCII"),
         (MINIMAL_PUMP.replace("[errors]", "[transport]\ntimeout = \"5 kg\"\n\n[errors]"), "transport.timeout", "expected a time"),
         (MINIMAL_PUMP.replace("[errors]", "[transport]\nbaudrate = -1\n\n[errors]"), "transport.baudrate", "positive integer"),
         (MINIMAL_PUMP.replace('query = "SYST:ERR?"', "drain_after_set = true"), "errors.drain_after_set", "needs errors.query"),
