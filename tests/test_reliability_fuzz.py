@@ -895,7 +895,10 @@ def _csv_files(draw):
                                                                        "1.2.3", "0x1", "ja"]))
         if kind == "short":
             cells = cells[: draw(st.integers(1, max(used)))]
-        lines.append(delimiter.join(cells))
+        line = delimiter.join(cells)
+        lines.append(line)
+        if kind == "short" and not line.replace(delimiter, "").strip():
+            continue  # cut down to empty cells only: a blank line, which a CSV reader skips
         if kind in ("bad", "short"):
             expected.append(None)
         else:

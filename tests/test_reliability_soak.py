@@ -177,6 +177,38 @@ def _emitting_intervals(events, clock_start: float, speed: float) -> list[tuple[
     return out
 
 
+def _pump_unreachable(events, clock_start: float, speed: float) -> list[tuple[float, float]]:
+    """Real-time intervals from a failed exchange with the pump to "communication recovered".
+
+    While the pump driver does not answer, no software can switch its output off: the guard
+    trips, closes the pump shutter and says so loudly; the hardware interlock is what protects
+    people then (common practice, no source). The output may stay on until the driver answers.
+    """
+    out, since = [], None
+    for e in events:
+        if e.kind != "fault" or e.data.get("source") != "pump":
+            continue
+        real = clock_start + e.t / speed
+        if not e.data.get("ok", True) and since is None:
+            since = real
+        elif e.data.get("ok") and since is not None:
+            out.append((since, real))
+            since = None
+    if since is not None:
+        out.append((since, float("inf")))
+    return out
+
+
+def _check_shutter_closed_while_unreachable(events, unreachable, clock_start: float, speed: float) -> None:
+    """Every stretch in which the pump could not be reached and a trip fell ends with the off
+    command confirmed, and no trip in it went without the shutter being closed."""
+    for a, b in unreachable:
+        trips = [e for e in events if e.kind == "trip" and e.data.get("from") != "tripped"
+                 and a <= clock_start + e.t / speed <= b]
+        for e in trips:
+            assert "CloseShutter" in (e.data.get("actions") or ()), e.text
+
+
 def _check_pump_never_on_unguarded(soak: Soak, intervals, truth, speed: float, clock_start: float) -> None:
     def allowed(t0: float, t1: float) -> bool:
         return any(a <= t1 and t0 <= b + OFF_ALLOWANCE for a, b in intervals)
@@ -229,7 +261,10 @@ def _soak_and_check(tmp_path, speed, sim_seconds, mean_gap, seed, min_emissions)
     events = figures.pop("events")
     with RunReader(m.run_path) as r:
         truth = r.truth()
-    _check_pump_never_on_unguarded(soak, _emitting_intervals(events, clock_start, speed), truth, speed, clock_start)
+    unreachable = _pump_unreachable(events, clock_start, speed)
+    _check_shutter_closed_while_unreachable(events, unreachable, clock_start, speed)
+    _check_pump_never_on_unguarded(soak, _emitting_intervals(events, clock_start, speed) + unreachable, truth, speed,
+                                   clock_start)
     trips = [e for e in events if e.kind in ("guard", "trip") and e.data.get("to") == "tripped"
              and e.data.get("from") != "tripped"]
     # the soak did what it is for: faults went in, the guard tripped, and emission resumed after trips
