@@ -190,24 +190,23 @@ class Consumer:
         if not isinstance(item, Block):
             self.process(item)
             return
-        if self.store is not None:
-            self.store.append_block(item)
+        self._take(item)
         if item.source == "detector":
-            if item.first_index >= 0:
-                self._index_gap(item)
-            self.samples += item.n
             self.unanalysed_blocks += 1
-        self.blocks += 1
 
-    def _block(self, block: Block) -> None:
+    def _take(self, block: Block) -> None:
+        """Store ``block`` (first: nothing is lost), check its sample index, count it."""
         if self.store is not None:
-            self.store.append_block(block)  # 1. nothing is lost
-        if block.source == "detector" and block.first_index >= 0:
-            self._index_gap(block)
+            self.store.append_block(block)
         self.blocks += 1
         if block.source == "detector":
+            if block.first_index >= 0:
+                self._index_gap(block)
             self.samples += block.n
             self._t = max(self._t, block.t_end)  # data time: the newest detector sample
+
+    def _block(self, block: Block) -> None:
+        self._take(block)
         if block.source == "detector":
             self._detector(block)
         elif block.source == "pump":
