@@ -167,7 +167,7 @@ def _info(m) -> dict[str, Any]:
             stats[role] = inst.stats
     gp = m.guarded_pump
     return {"run_id": m.run_id, "run_path": None if m.run_path is None else str(m.run_path),
-            "clock_start": m.clock.start, "speed": m.speed, "open": m.consumer is not None,
+            "clock_start": m.clock.start, "speed": m.speed, "open": m.is_open,
             "guard_state": None if gp is None else gp.state, "trip_reason": None if gp is None else gp.trip_reason,
             "stats": stats, "identities": dict(m.identities), "mode": m.mode}
 
@@ -240,9 +240,9 @@ class RemoteMeasurement:
 
     # -- life -------------------------------------------------------------------------------
     @property
-    def consumer(self):
-        """Not None once the bench is open (as `Measurement.consumer`)."""
-        return True if self._info.get("open") and not self._closed else None
+    def is_open(self) -> bool:
+        """The bench process has opened the bench and is not closed (as `Measurement.is_open`)."""
+        return bool(self._info.get("open")) and not self._closed
 
     @property
     def run_id(self) -> str | None:

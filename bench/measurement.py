@@ -391,6 +391,11 @@ class Measurement:
         return self.consumer.snapshot(with_history=with_history)
 
     @property
+    def is_open(self) -> bool:
+        """`open` has set up the pipeline (it stays so after `close`, for the last snapshot)."""
+        return self.consumer is not None
+
+    @property
     def run_id(self) -> str | None:
         return getattr(self.store, "run_id", None)
 

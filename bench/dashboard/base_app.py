@@ -165,7 +165,7 @@ class DashboardBase(App):
                            estimates=self.last_snapshot.estimates)  # for a key that redraws the plots
         self.last_snapshot = snap
         self.ticks += 1
-        self.show_snapshot(snap, plot_due=False)  # the text first: it is painted without waiting for a plot
+        self.show_snapshot(snap)  # the text first: it is painted without waiting for a plot
         self._since_slow += 1
         if not plot_due and self._since_slow >= SLOW_EVERY:  # never on a plot tick: no long frame
             self._since_slow = 0
@@ -179,9 +179,9 @@ class DashboardBase(App):
         self.repaints += 1
         self.latency.add(self.run_clock(), newest_t)
 
-    def show_snapshot(self, snap: Snapshot, plot_due: bool = True) -> None:
-        """Every snapshot: the guard, the pump, the levels, and a plot if one is due (subclasses
-        add theirs)."""
+    def show_snapshot(self, snap: Snapshot) -> None:
+        """Every snapshot: the guard, the pump, the levels (subclasses add theirs). The plots are
+        drawn by `tick` after the refresh that shows these."""
         p = self.panels
         p["guard"].reason = snap.trip_reason or ""
         self.show_guard(snap)
@@ -190,8 +190,6 @@ class DashboardBase(App):
         if lv:
             p["run"].levels = (lv.get("probe", math.nan), lv.get("reference", math.nan),
                                lv.get("transmission", math.nan))
-        if plot_due:
-            self._show_plots(snap)
 
     def show_slow(self, snap: Snapshot) -> None:
         """Every `SLOW_EVERY` snapshots: the run, the figures, the events (subclasses add theirs)."""

@@ -127,7 +127,7 @@ class LiveDashboard(BenchActions, DashboardBase):
         super().setup()
         self.panels["health"] = self.screen_main.query_one(HealthPanel)
         self.panels["run"].recording = self.meas.record
-        if self.meas.consumer is None:
+        if not self.meas.is_open:
             # Opened here, after the screen is up: the first layout and paint then do not
             # compete with the readers for the interpreter in the first second of the run.
             self.say("opening the bench: instruments, run file, pump output off…", "busy")
@@ -179,7 +179,7 @@ class LiveDashboard(BenchActions, DashboardBase):
 
     # -- the timer ------------------------------------------------------------------------
     def read_snapshot(self, with_history: bool = True) -> Snapshot | None:
-        if self.meas.consumer is None or self.bench_lost is not None:
+        if not self.meas.is_open or self.bench_lost is not None:
             return None
         try:
             return self.meas.snapshot(with_history=with_history)
@@ -189,8 +189,8 @@ class LiveDashboard(BenchActions, DashboardBase):
             self.say(f"THE BENCH HAS STOPPED ANSWERING: {exc}", "refused")
             return None
 
-    def show_snapshot(self, snap: Snapshot, plot_due: bool = True) -> None:
-        super().show_snapshot(snap, plot_due)
+    def show_snapshot(self, snap: Snapshot) -> None:
+        super().show_snapshot(snap)
         if self.trip_screen is not None and snap.trip_reason:
             self.trip_screen.show_reason(snap.trip_reason)
 
