@@ -105,22 +105,26 @@ def acquisition_run(rate_hz: float, seconds: float, log_dir: Path, *, speed: flo
         t0 = time.monotonic()
         m.hold(seconds, should_stop=lambda: m.guarded_pump.state == "tripped")
         out.update(_outcome(m, snap0, time.monotonic() - t0))
+        out["lost"] = m.readers[0].lost_reported
+        out["latencies"] = list(m.guarded_pump.trip_latencies)
     out["kept_up"] = _kept_up(out)
     return out
 
 
 @contextlib.contextmanager
-def _pumped(cfg: BenchConfig, kind: type | None = None, **options: Any) -> Iterator[Any]:
-    """An open `Measurement` (or ``kind``, e.g. `RemoteMeasurement`) on ``cfg`` with dark and
-    baseline taken, armed and emitting."""
+def _pumped(cfg: BenchConfig, kind: type | None = None, *, dark: float | None = 0.1, baseline: float = 0.2,
+            **options: Any) -> Iterator[Any]:
+    """An open `Measurement` (or ``kind``, e.g. `RemoteMeasurement`) on ``cfg`` with a dark of
+    ``dark`` s (none if None) and a baseline of ``baseline`` s taken, armed and emitting."""
     from bench.checklist import answers_from_flags
     from bench.measurement import Measurement, default_current
 
     current = default_current(cfg)
     settings = {"pump_current": current, "pump_power": cfg.pump.power_at(current)}
     with (kind or Measurement)(cfg, settings=settings, **options) as m:
-        m.capture_dark(0.1)
-        m.capture_baseline(0.2)
+        if dark is not None:
+            m.capture_dark(dark)
+        m.capture_baseline(baseline)
         result = m.arm(answers_from_flags("benchmark", ARM_ODS, True), "benchmark")
         if not result.passed:
             raise RuntimeError("; ".join(result.refusals))
@@ -130,16 +134,16 @@ def _pumped(cfg: BenchConfig, kind: type | None = None, **options: Any) -> Itera
 
 
 def _outcome(m, snap0, wall: float) -> dict[str, Any]:
+    """Rate, drops, lag and trip of the ``wall`` s since ``snap0``, from a snapshot taken now."""
     snap = m.snapshot(with_history=False)
     return {
         "samples_per_s": (snap.samples - snap0.samples) / wall,
         "drops": snap.drops,
-        "lost": m.readers[0].lost_reported,
         "lag_s": max(0.0, m.clock.now() - snap.t),
-        "tripped": m.guarded_pump.state == "tripped",
-        "trip_reason": m.guarded_pump.trip_reason,
-        "latencies": list(m.guarded_pump.trip_latencies),
+        "tripped": snap.guard_state == "tripped",
+        "trip_reason": snap.trip_reason,
         "run_path": str(m.run_path),
+        "faults": snap.faults,
     }
 
 
@@ -177,12 +181,9 @@ def dashboard_run(rate_hz: float, seconds: float, log_dir: Path, *, size: tuple[
                 while time.monotonic() - t0 < seconds and m.guarded_pump.state != "tripped":
                     await asyncio.sleep(0.1)
                 wall = time.monotonic() - t0
-                snap = m.snapshot(with_history=False)
                 out["dashboard_cpu"] = (time.process_time() - cpu0) / wall  # cores, this process
-                out.update(samples_per_s=(snap.samples - snap0.samples) / wall, drops=snap.drops,
-                           lost=snap.faults, lag_s=max(0.0, m.clock.now() - snap.t),
-                           tripped=snap.guard_state == "tripped", trip_reason=snap.trip_reason,
-                           run_path=str(m.run_path))
+                out.update(_outcome(m, snap0, wall))
+                out["lost"] = out["faults"]  # the readers are in the bench process: its fault count
                 lat = app.latency.figures(m.speed)
                 if lat is not None:
                     out.update(latency_median_s=lat.median, latency_p95_s=lat.p95, latency_worst_s=lat.worst,
@@ -264,21 +265,12 @@ def memory_over_day(log_dir: Path, hours: float = 24.0, speed: float = 1000.0, r
     """
     import psutil
 
-    from bench.checklist import answers_from_flags
-    from bench.measurement import Measurement, default_current
-
     proc = psutil.Process()
     # No source drift: the demo's 2 %/h would carry the probe past 95 % of the detector range
     # (a guard trip, as it should be) after about 8 hours; the day is meant to be pumped.
     cfg = bench_at(rate_hz, extra={"run.estimate_every": "5 s", "simulation.drift_per_hour": "0"})
-    current = default_current(cfg)
-    settings = {"pump_current": current, "pump_power": cfg.pump.power_at(current)}
     out: dict[str, float] = {}
-    with Measurement(cfg, settings=settings, log_dir=log_dir, speed=speed) as m:
-        m.capture_baseline(1.0)
-        m.arm(answers_from_flags("benchmark", ARM_ODS, True), "benchmark")
-        m.set_current(current, who="benchmark")
-        m.emit("benchmark")
+    with _pumped(cfg, dark=None, baseline=1.0, log_dir=log_dir, speed=speed) as m:
         m.hold(3600.0)
         gc.collect()
         out["rss_1h_mb"] = proc.memory_info().rss / 1e6
