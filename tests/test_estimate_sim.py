@@ -81,11 +81,13 @@ def test_watch_and_chopped_find_the_true_ln_ratio(cfg, params, mode):
         model.set_modulation(None)
         model.advance_to(model.t + 0.02)
     truth = model.truth()
+    # The bench file is the medium's own (no parameter error): only the noise part of sigma
+    # may separate the estimate from the truth.
     q = est.values["ln_ratio"]
-    assert abs(q.value - truth["ln_ratio"]) < 4 * q.sigma, (q, truth["ln_ratio"])
+    assert abs(q.value - truth["ln_ratio"]) < 4 * q.sigma_noise, (q, truth["ln_ratio"])
     assert est.flags == frozenset()
     b = est.values["beta"]
-    assert abs(b.value - truth["beta"]) < 2 * b.sigma
+    assert abs(b.value - truth["beta"]) < 4 * b.sigma_noise, (b, truth["beta"])
 
 
 def test_pump_sweep_finds_the_rate_equation_saturation(cfg, params):
@@ -100,7 +102,7 @@ def test_pump_sweep_finds_the_rate_equation_saturation(cfg, params):
         point_truth = model.truth()["beta"]
         state_points = report(state)[0].extra["points"]
         last = state_points[-1]
-        assert abs(last["beta"] - point_truth) < 2 * last["beta_sigma"]
+        assert abs(last["beta"] - point_truth) < 4 * last["beta_sigma_noise"], (last, point_truth)
     (est,) = report(state)
     s = cfg.sample.sigma
     beta_max = s.pump_absorption / (s.pump_absorption + s.pump_emission)
@@ -111,5 +113,6 @@ def test_pump_sweep_finds_the_rate_equation_saturation(cfg, params):
     # the bench file is nominal here, so the estimate is held to 1 % (a 24-slice model)
     assert bm.value == pytest.approx(beta_max, rel=0.01)
     assert ps.value == pytest.approx(p_sat, rel=0.01)
-    assert abs(bm.value - beta_max) < 2 * bm.sigma and abs(ps.value - p_sat) < 2 * ps.sigma
+    assert abs(bm.value - beta_max) < 4 * bm.sigma_noise, (bm, beta_max)
+    assert abs(ps.value - p_sat) < 4 * ps.sigma_noise, (ps, p_sat)
     assert est.extra["fits"]["saturation"]["model"] == "thick"

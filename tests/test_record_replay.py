@@ -53,12 +53,10 @@ def test_summary_json_matches_truth(recorded, capsys):
     assert out["run_id"] == run_id
     for key in ("ln_ratio", "gain_db", "gain_coefficient_per_cm", "n2_per_m3", "beta"):
         est, truth = out["estimates"][key], out["truth"][key]
-        assert set(est) >= {"value", "sigma"}
-        # the simulator's truth lies within 4 combined standard uncertainties
-        assert abs(est["value"] - truth["value"]) <= 4 * est["sigma"], key
-    # the noise part alone must also be honest: ln R from the raw data within 5 noise sigmas
-    ln = out["estimates"]["ln_ratio"]
-    assert abs(ln["value"] - out["truth"]["ln_ratio"]["value"]) <= 5 * ln["sigma_noise"] + 1e-4
+        assert set(est) >= {"value", "sigma", "sigma_noise", "sigma_systematic"}
+        # the bench file is the simulated medium's own (no parameter error): the truth lies
+        # within 4 sigma_noise, the systematic part (stated uncertainties) plays no role
+        assert abs(est["value"] - truth["value"]) <= 4 * est["sigma_noise"], (key, est, truth)
 
 
 def test_replay_reproduces_the_stored_estimates(recorded, capsys):
