@@ -138,8 +138,8 @@ IRRADIANCE = "irradiance"
 #: Which edition of the limits this module uses, stated with every result.
 EDITION = (
     "older edition, used on purpose: the same limits as ICNIRP (2000), ANSI Z136.1-2007 and "
-    "IEC 60825-1:2007; the newer ICNIRP (2013) / IEC 60825-1:2014 limits differ, notably "
-    "above 1250 nm"
+    "IEC 60825-1:2007 (limiting aperture as in 2006/25/EC, break point 0.3 s rather than their "
+    "0.35 s); the newer ICNIRP (2013) / IEC 60825-1:2014 limits differ, notably above 1250 nm"
 )
 
 _CAUTION = (
@@ -427,6 +427,18 @@ def _band(nm: float) -> _Band:
     raise AssertionError(f"{nm} nm passed validation but lies in no row")  # pragma: no cover
 
 
+#: Edges where the rows on either side differ strongly (retina to cornea at 1400 nm; the
+#: t^0.25 rows against the constant 1e4 J/m^2 at 1500 nm and 1800 nm).
+_STEP_EDGES = (1400.0, 1500.0, 1800.0)
+
+
+def _edge_note(nm: float, band: _Band) -> str:
+    if nm != band.high_nm or nm not in _STEP_EDGES:
+        return ""
+    return (f" ({nm:g} nm is this row's upper edge; the row above it gives a different limit, "
+            "so check a laser whose wavelength may lie on either side)")
+
+
 # --------------------------------------------------------------------------- public functions
 
 
@@ -499,7 +511,7 @@ def mpe(wavelength: float, exposure_time: float) -> ExposureLimit:
         irradiance=irradiance,
         radiant_exposure=irradiance * t,
         defined_as=defined_as,
-        formula=f"{text}; {band.label}",
+        formula=f"{text}; {band.label}{_edge_note(nm, band)}",
         table=f"EU Directive 2006/25/EC Annex II {table}, correction factors Table 2.5",
     )
 

@@ -273,6 +273,14 @@ def test_edge_wavelengths_belong_to_the_row_below(wavelength_nm, t, expected_j_p
     assert f"Table 2.2 (exposure < 10 s), row {row} nm" in limit.table
 
 
+def test_a_strong_step_edge_is_pointed_out():
+    # at 1400, 1500 and 1800 nm the neighbouring rows differ strongly; the result says so
+    for nm in (1400.0, 1500.0, 1800.0):
+        assert "upper edge; the row above it gives a different limit" in ls.mpe(nm * NM, 1.0).formula
+    for nm in (1064.0, 1050.0, 1399.0, 2600.0):
+        assert "upper edge" not in ls.mpe(nm * NM, 1.0).formula
+
+
 def test_shortest_duration_follows_the_row_of_an_edge_wavelength():
     # 1050 nm is in the 700-1050 nm row, which Table 2.2 starts at 18 us (from memory);
     # 1400 nm is in the 1050-1400 nm row (50 us), 1500 nm in the 1400-1500 nm row (1 ms).
