@@ -18,8 +18,9 @@ Limits implemented (t in s, lambda in nm; 1 mJ/cm^2 = 10 J/m^2, 1 mW/cm^2 = 10 W
 Table numbers are those of 2006/25/EC Annex II [1]_: Table 2.2 (eye, exposure < 10 s), Table
 2.3 (eye, exposure >= 10 s), Table 2.5 (correction factors and other parameters), Table 2.6
 (repetitive exposure, with its T_min column). The text of Tables 2.2, 2.3 and 2.6 could not be
-consulted for this module: their rows below are from memory. Table 2.5 was checked against its published text, as
-reproduced in the Norwegian regulation [8]_ (C_A, C_B, C_C and the cone angle gamma rows).
+consulted for this module: their rows below are from memory. Table 2.5 was checked against its
+published text, as reproduced in the Norwegian regulation [8]_ (C_A, C_B, C_C and the cone
+angle gamma rows).
 
 =================  =============================  =====================================
 row of the tables  t < 10 s (Table 2.2)           t >= 10 s (Table 2.3)

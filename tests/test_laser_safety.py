@@ -282,7 +282,8 @@ def test_edge_wavelengths_belong_to_the_row_below(wavelength_nm, t, expected_j_p
 def test_a_strong_step_edge_is_pointed_out():
     # at 1400, 1500 and 1800 nm the neighbouring rows differ strongly; the result says so
     for nm in (1400.0, 1500.0, 1800.0):
-        assert "upper edge; the row above it gives a different limit" in ls.mpe(nm * NM, 1.0).formula
+        formula = ls.mpe(nm * NM, 1.0).formula
+        assert "upper edge; the row above it gives a different limit" in formula
     for nm in (1064.0, 1050.0, 1399.0, 2600.0):
         assert "upper edge" not in ls.mpe(nm * NM, 1.0).formula
 
@@ -585,7 +586,8 @@ def test_command_worked_case_532_nm(cli, capsys):
     [
         # Edges belong to the row below (intervals a < lambda <= b); by hand from 2006/25/EC:
         # 1050 nm, Table 2.3 row 700-1050 nm: 10 C_A, C_A = 10^0.7 -> 50.12 W/m^2, 7 mm.
-        ("1050 nm", "10 s", 10 * 10**0.7, 7.0, "Table 2.3 (exposure >= 10 s), row 700 < lambda <= 1050"),
+        ("1050 nm", "10 s", 10 * 10**0.7, 7.0,
+         "Table 2.3 (exposure >= 10 s), row 700 < lambda <= 1050"),
         # 1400 nm, Table 2.3 row 1050-1400 nm: 10 C_A C_C = 10 * 5 * 8 = 400 W/m^2, 7 mm.
         ("1400 nm", "10 s", 400.0, 7.0, "Table 2.3 (exposure >= 10 s), row 1050 < lambda <= 1400"),
         # 1500 nm, 1 s, Table 2.2 row 1400-1500 nm: H = 5600 t^0.25 = 5600 J/m^2 -> 5600 W/m^2;

@@ -126,7 +126,8 @@ def _voigt_by_convolution(x, sigma, gamma):
     out = []
     for xx in np.atleast_1d(x):
         lim = 40 * sigma
-        value, _ = integrate.quad(integrand, -lim, lim, args=(xx,), points=[xx] if abs(xx) < lim else None,
+        value, _ = integrate.quad(integrand, -lim, lim, args=(xx,),
+                                  points=[xx] if abs(xx) < lim else None,
                                   epsabs=0.0, epsrel=1e-11, limit=400)
         out.append(value)
     return np.array(out)
@@ -151,7 +152,8 @@ def test_voigt_line_width_conventions():
     assert fitting.voigt_line(3.0, 1.0, 0.0, 0.8, 0.0) == pytest.approx(
         math.exp(-0.5 * (3.0 / 0.8) ** 2), rel=1e-10)
     assert fitting.voigt_line(0.6, 1.0, 0.0, 0.0, 0.6) == pytest.approx(0.5, rel=1e-12)
-    assert fitting.voigt_line(2.0, 1.0, 0.0, 0.0, 0.6) == pytest.approx(0.36 / (4.0 + 0.36), rel=1e-12)
+    lorentz = 0.36 / (4.0 + 0.36)  # gamma^2 / (x^2 + gamma^2) at x = 2, gamma = 0.6
+    assert fitting.voigt_line(2.0, 1.0, 0.0, 0.0, 0.6) == pytest.approx(lorentz, rel=1e-12)
 
 
 def test_interpolation_is_linear_between_rows_and_exact_on_them():
