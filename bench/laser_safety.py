@@ -67,12 +67,12 @@ continuous (700 nm, 1150 nm, 450 nm) the reading makes no difference; at 1050 nm
 is within the standard's rounding (5.01 against 5, 7.94 against 8); at 1400, 1500 and 1800 nm the
 rows differ strongly, and a laser specified on such an edge may lie on either side of it.
 
-Shortest durations. The module starts every row where Table 2.2's t^0.75 or t^0.25 form (or
-the constant 1e4 J/m^2) starts and no earlier than 18 us: 18 us for 400-1050 nm, 50 us for
-1050-1400 nm, 1 ms above 1400 nm. These agree with the T_min column of Table 2.6 (from memory)
-except for 1500-1800 nm, where T_min is 10 s (the 1e4 J/m^2 holds from 1 ns to 10 s, so pulses
-shorter than 10 s add up there); this module stops at 1 ms in that row for consistency with its
-neighbours, a choice of this module and not of the table.
+Shortest durations. Each row starts where Table 2.2's t^0.75 or t^0.25 form starts: 18 us for
+400-1050 nm, 50 us for 1050-1400 nm, 1 ms for 1400-1500 nm and 1800-2600 nm. In 1500-1800 nm the
+constant 1e4 J/m^2 holds from 1 ns to 10 s; this module starts that row at 1 ms too, a choice of
+this module (consistency with its neighbours), not of the table. The T_min column of Table 2.6
+(from memory) agrees with 18 us, 50 us and 1 ms, but not for 1500-1800 nm, where T_min is 10 s:
+there, pulses shorter than 10 s add up.
 
 At 10 s the short and long forms meet within the standard's rounding (18 * 10^0.75 = 101 J/m^2
 against 10 W/m^2 * 10 s; 5600 * 10^0.25 = 9958 J/m^2 against 1000 W/m^2 * 10 s; 1e4 J/m^2
@@ -83,7 +83,7 @@ and 2.3 of [1]_, from memory): 7 mm for 400 < lambda <= 1400 nm; above 1400 nm, 
 t < 0.3 s, 1.5 t^0.375 mm for 0.3 s <= t < 10 s, 3.5 mm from 10 s. The break point 0.3 s is the
 Directive's; IEC 60825-1:2007 [5]_ (and ANSI Z136.1) put it at 0.35 s (from memory), where
 1.5 t^0.375 meets 1 mm; with 0.3 s the aperture steps down from 1 mm to 0.955 mm, which makes
-the result stricter, not laxer.
+the result stricter (or equal), never laxer.
 
 Exposure of a Gaussian beam of 1/e^2 diameter d through an aperture of diameter D: the power
 fraction 1 - exp(-2 (D/d)^2) passes, averaged over the aperture area pi D^2 / 4. The optical
