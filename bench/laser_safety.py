@@ -1,60 +1,89 @@
 """Ocular maximum permissible exposure (MPE) and the optical density laser eyewear needs.
 
 Pure computation, no I/O. For one CW (or long-pulse) beam viewed directly (intrabeam viewing
-of a point source, apparent source angle below 1.5 mrad so that C_E = 1), 400 nm to 2600 nm,
-exposures from the shortest duration listed below up to 3e4 s (one working day).
+of a point source, apparent source angle below 1.5 mrad so that C_E = 1), above 400 nm up to
+2600 nm, exposures from the shortest duration listed below up to 3e4 s (one working day).
 
 Edition used: the *older* limits, those of EU Directive 2006/25/EC, Annex II [1]_, which
-follows ICNIRP (1996) [2]_ and its revision ICNIRP (2000) [3]_; the point-source tables of
-ANSI Z136.1-2007 [4]_ (Table 5a) and IEC 60825-1:2007 [5]_ (Annex A, Table A.1) give the same
-values within rounding (the table numbers of [4]_ and [5]_ are from memory). The newer editions,
-ICNIRP (2013) [6]_ and IEC 60825-1:2014, differ: above 1250 nm they raise C_C
-(C_C = 8 + 10^(0.04 (lambda - 1250)), from memory) and they change the short-pulse retinal
-limits. Those newer values are NOT implemented; every result says which edition it used.
+follows ICNIRP (1996) [2]_ and its revision ICNIRP (2000) [3]_. Every value below (limits,
+correction factors, apertures, band edges) follows the Directive; ANSI Z136.1-2007 [4]_
+(Table 5a) and IEC 60825-1:2007 [5]_ (Annex A, Table A.1) give the same limits within rounding
+(the table numbers of [4]_ and [5]_ are from memory), but differ in the aperture break point
+(0.35 s, see below). The newer editions, ICNIRP (2013) [6]_ and IEC 60825-1:2014, differ more:
+above 1250 nm they raise C_C (C_C = 8 + 10^(0.04 (lambda - 1250)), from memory) and they change
+the short-pulse retinal limits. Those newer values are NOT implemented; every result says which
+edition it used.
 
 Limits implemented (t in s, lambda in nm; 1 mJ/cm^2 = 10 J/m^2, 1 mW/cm^2 = 10 W/m^2).
-Table numbers are those of 2006/25/EC Annex II: Table 2.2 (exposure < 10 s), Table 2.3
-(exposure >= 10 s), Table 2.5 (correction factors). The limits and the table numbering are
-from memory; the correction factors and the shortest durations were checked against published
-text (see below).
+Table numbers are those of 2006/25/EC Annex II [1]_: Table 2.2 (eye, exposure < 10 s), Table
+2.3 (eye, exposure >= 10 s), Table 2.5 (correction factors and other parameters), Table 2.6
+(repetitive exposure, with its T_min column). The text of Tables 2.2, 2.3 and 2.6 could not be
+consulted for this module: their rows below are from memory. Table 2.5 was checked against its
+published text, as reproduced in the Norwegian regulation [8]_ (C_A, C_B, C_C and the cone
+angle gamma rows).
 
-=================  ==========================  =====================================
-band               t < 10 s (Table 2.2)        t >= 10 s (Table 2.3)
-=================  ==========================  =====================================
-400-700 nm         H = 18 t^0.75 J/m^2,        thermal E = 10 W/m^2; 400-600 nm also
-                   from 18 us                  photochemical H = 100 C_B J/m^2 up to
-                                               1e4 s, then E = 0.01 C_B W/m^2;
-                                               the lower one applies
-700-1050 nm        H = 18 C_A t^0.75 J/m^2,    E = 10 C_A W/m^2 (C_C = 1 here)
-                   from 18 us
-1050-1400 nm       H = 90 C_C t^0.75 J/m^2,    E = 50 C_C W/m^2 (10 C_A C_C, C_A = 5)
-                   from 50 us
-1400-1500 nm       H = 5600 t^0.25 J/m^2,      E = 1000 W/m^2
-                   from 1 ms
-1500-1800 nm       H = 1e4 J/m^2, implemented  E = 1000 W/m^2
-                   from 1 ms (the standard
-                   goes to shorter pulses)
-1800-2600 nm       H = 5600 t^0.25 J/m^2,      E = 1000 W/m^2
-                   from 1 ms
-=================  ==========================  =====================================
+=================  =============================  =====================================
+row of the tables  t < 10 s (Table 2.2)           t >= 10 s (Table 2.3)
+=================  =============================  =====================================
+400 < l <= 700     H = 18 t^0.75 J/m^2,           retinal thermal E = 10 W/m^2;
+                   18 us - 10 s                   400 < l <= 600 also retinal
+                                                  photochemical: H = 100 C_B J/m^2 for
+                                                  10 s - 100 s, E = 1 C_B W/m^2 for
+                                                  100 s - 3e4 s; the lower one governs
+700 < l <= 1050    H = 18 C_A t^0.75 J/m^2,       E = 10 C_A C_C W/m^2 (C_C = 1 here)
+                   18 us - 10 s
+1050 < l <= 1400   H = 90 C_C t^0.75 J/m^2,       E = 10 C_A C_C W/m^2 (C_A = 5)
+                   50 us - 10 s
+1400 < l <= 1500   H = 5600 t^0.25 J/m^2,         E = 1000 W/m^2
+                   1 ms - 10 s
+1500 < l <= 1800   H = 1e4 J/m^2, 1 ns - 10 s     E = 1000 W/m^2
+                   in the table; implemented
+                   from 1 ms only
+1800 < l <= 2600   H = 5600 t^0.25 J/m^2,         E = 1000 W/m^2
+                   1 ms - 10 s
+=================  =============================  =====================================
 
-Correction factors (Table 2.5 of [1]_, as reproduced in the Norwegian regulation [8]_): C_A = 1 below 700 nm, 10^(0.002 (lambda - 700)) for 700-1050 nm,
-5 for 1050-1400 nm; C_B = 1 for 400-450 nm, 10^(0.02 (lambda - 450)) for 450-700 nm;
-C_C = 1 for 700-1150 nm, 10^(0.018 (lambda - 1150)) for 1150-1200 nm, 8 for 1200-1400 nm.
-The shortest durations (18 us, 50 us, 1 ms) agree with the T_min column of Table 2.6 of [1]_.
+The photochemical row of Table 2.3 is the ICNIRP (2000) form [3]_: from 100 s on the limit is an
+irradiance, 1 C_B W/m^2, averaged over a field of view gamma that grows with t (Table 2.5:
+gamma = 11 mrad up to 100 s, 1.1 t^0.5 mrad from 100 s to 1e4 s, 110 mrad beyond, checked);
+for a point source the whole beam lies inside gamma. The older small-source form (100 C_B J/m^2
+up to 1e4 s, then 0.01 C_B W/m^2; ICNIRP 1996 [2]_) is up to 100 times (2 OD) lower beyond
+100 s and is not used.
 
-Where the standard is continuous, so is this module: at 700 nm (C_A = 1 on both sides), at
-1150 nm (C_C = 1), and at 10 s in every band within the standard's rounding
-(18 * 10^0.75 = 101 J/m^2 against 10 W/m^2 * 10 s; 5600 * 10^0.25 = 9958 J/m^2 against
-1000 W/m^2 * 10 s; 1e4 J/m^2 exactly). The standard itself steps by 0.2 % at 1050 nm
-(10^0.7 = 5.01 against 5), by 0.7 % at 1200 nm (10^0.9 = 7.94 against 8), and strongly at
-1400 nm (retina to cornea), 1500 nm and 1800 nm; those steps are kept. A wavelength exactly on
-a band edge belongs to the band above it (1400 nm uses the corneal limits and apertures).
+Correction factors (Table 2.5, checked): C_A = 1 below 700 nm, 10^(0.002 (lambda - 700)) for
+700-1050 nm, 5 for 1050-1400 nm; C_B = 1 for 400-450 nm, 10^(0.02 (lambda - 450)) for
+450-700 nm; C_C = 1 for 700-1150 nm, 10^(0.018 (lambda - 1150)) for 1150-1200 nm, 8 for
+1200-1400 nm. C_E = 1 (point source, alpha < alpha_min = 1.5 mrad). T_1 and T_2 of Table 2.5
+only matter for extended sources and are not used.
 
-Limiting apertures (the circle the exposure is averaged over; Tables 2.2/2.3 of [1]_, with the
-0.35 s break point of IEC 60825-1 [5]_; some editions write 0.3 s; from memory): 7 mm for
-400-1400 nm; for 1400 nm and longer, 1 mm below 0.35 s, 1.5 t^(3/8) mm from 0.35 s to 10 s,
-3.5 mm from 10 s.
+Band edges. Table 2.6 writes its wavelength intervals as "400 < lambda <= 1050" (from memory);
+this module reads every interval of Tables 2.2, 2.3 and 2.5 the same way, so a wavelength on an
+edge belongs to the interval *below* it: 1050 nm uses the 700-1050 nm row and C_A = 10^0.7 =
+5.01; 1200 nm uses C_C = 10^0.9 = 7.94; 1400 nm uses the retinal 1050-1400 nm row (E = 400 W/m^2
+over 7 mm from 10 s, not the corneal 1000 W/m^2 over 3.5 mm); 1500 nm the 1400-1500 nm row and
+1800 nm the 1500-1800 nm row. 400 nm itself is the upper edge of the 315-400 nm (UV) rows, which
+are not implemented: the implemented range is 400 nm < lambda <= 2600 nm. Where the standard is
+continuous (700 nm, 1150 nm, 450 nm) the reading makes no difference; at 1050 nm and 1200 nm it
+is within the standard's rounding (5.01 against 5, 7.94 against 8); at 1400, 1500 and 1800 nm the
+rows differ strongly, and a laser specified on such an edge may lie on either side of it.
+
+Shortest durations. Each row starts where Table 2.2's t^0.75 or t^0.25 form starts: 18 us for
+400-1050 nm, 50 us for 1050-1400 nm, 1 ms for 1400-1500 nm and 1800-2600 nm. In 1500-1800 nm the
+constant 1e4 J/m^2 holds from 1 ns to 10 s; this module starts that row at 1 ms too, a choice of
+this module (consistency with its neighbours), not of the table. The T_min column of Table 2.6
+(from memory) agrees with 18 us, 50 us and 1 ms, but not for 1500-1800 nm, where T_min is 10 s:
+there, pulses shorter than 10 s add up.
+
+At 10 s the short and long forms meet within the standard's rounding (18 * 10^0.75 = 101 J/m^2
+against 10 W/m^2 * 10 s; 5600 * 10^0.25 = 9958 J/m^2 against 1000 W/m^2 * 10 s; 1e4 J/m^2
+exactly).
+
+Limiting apertures (the circle the exposure is averaged over; aperture column of Tables 2.2
+and 2.3 of [1]_, from memory): 7 mm for 400 < lambda <= 1400 nm; above 1400 nm, 1 mm for
+t < 0.3 s, 1.5 t^0.375 mm for 0.3 s <= t < 10 s, 3.5 mm from 10 s. The break point 0.3 s is the
+Directive's; IEC 60825-1:2007 [5]_ (and ANSI Z136.1) put it at 0.35 s (from memory), where
+1.5 t^0.375 meets 1 mm; with 0.3 s the aperture steps down from 1 mm to 0.955 mm, which makes
+the result stricter (or equal), never laxer.
 
 Exposure of a Gaussian beam of 1/e^2 diameter d through an aperture of diameter D: the power
 fraction 1 - exp(-2 (D/d)^2) passes, averaged over the aperture area pi D^2 / 4. The optical
@@ -89,11 +118,14 @@ import math
 from collections.abc import Callable
 from dataclasses import dataclass
 
-#: Implemented wavelength range, m.
+#: Implemented wavelength range, m: WAVELENGTH_MIN < wavelength <= WAVELENGTH_MAX (400 nm itself
+#: belongs to the 315-400 nm rows of the tables, which are not implemented).
 WAVELENGTH_MIN = 400e-9
 WAVELENGTH_MAX = 2600e-9
 #: Exposures from this duration on use the long-exposure limits (Table 2.3 of 2006/25/EC), s.
 LONG_EXPOSURE_FROM = 10.0
+#: Above 1400 nm, the 1 mm limiting aperture holds below this exposure (2006/25/EC Table 2.2), s.
+APERTURE_BREAK = 0.3
 #: Longest exposure the limits cover (one working day, 2006/25/EC Table 2.3), s.
 LONGEST_EXPOSURE = 3.0e4
 #: Default exposure in the visible: the aversion response (blink), s (IEC 60825-1, ANSI Z136.1).
@@ -107,8 +139,8 @@ IRRADIANCE = "irradiance"
 #: Which edition of the limits this module uses, stated with every result.
 EDITION = (
     "older edition, used on purpose: the same limits as ICNIRP (2000), ANSI Z136.1-2007 and "
-    "IEC 60825-1:2007; the newer ICNIRP (2013) / IEC 60825-1:2014 limits differ, notably "
-    "above 1250 nm"
+    "IEC 60825-1:2007 (limiting aperture as in 2006/25/EC, break point 0.3 s rather than their "
+    "0.35 s); the newer ICNIRP (2013) / IEC 60825-1:2014 limits differ, notably above 1250 nm"
 )
 
 _CAUTION = (
@@ -214,13 +246,21 @@ def _wavelength_nm(wavelength: object) -> float:
     """The wavelength in nm, rounded so that 976e-9 m gives exactly 976 nm."""
     x = _real("wavelength", wavelength)
     nm = round(x * 1e9, 6)
-    if not 400.0 <= nm <= 2600.0:
+    if nm == 400.0:
+        raise OutOfRangeError(
+            "wavelength",
+            "400 nm is the upper edge of the 315-400 nm (UV) rows of 2006/25/EC Annex II Tables "
+            "2.2 and 2.3 (intervals 315 < lambda <= 400 nm), which are not implemented; the "
+            "implemented range is above 400 nm up to 2600 nm",
+        )
+    if not 400.0 < nm <= 2600.0:
         hint = ""
         if 400.0 <= x <= 2600.0:
             hint = f" (the wavelength is in metres: {x:g} nm is {x * 1e-9:g} m)"
         raise OutOfRangeError(
             "wavelength",
-            f"{x:g} m ({nm:g} nm) is outside the implemented range 400 nm to 2600 nm{hint}",
+            f"{x:g} m ({nm:g} nm) is outside the implemented range, above 400 nm up to "
+            f"2600 nm{hint}",
         )
     return nm
 
@@ -235,7 +275,9 @@ def _time(argument: str, value: object) -> float:
 def correction_c_a(wavelength: float) -> float:
     """C_A of 2006/25/EC Table 2.5 (400-1400 nm): 1, 10^(0.002 (lambda - 700)), then 5.
 
-    The formula holds up to and including 1050 nm (10^0.7 = 5.01 there); above, C_A = 5.
+    Rows "lambda < 700: 1.0", "700 - 1050: 10^(0.002 (lambda - 700))", "1050 - 1400: 5.0"
+    (checked). Intervals read as a < lambda <= b (see the module notes): the formula holds up
+    to and including 1050 nm (10^0.7 = 5.01 there); above, C_A = 5.
     """
     nm = _wavelength_nm(wavelength)
     if nm > 1400.0:
@@ -248,7 +290,11 @@ def correction_c_a(wavelength: float) -> float:
 
 
 def correction_c_b(wavelength: float) -> float:
-    """C_B of 2006/25/EC Table 2.5 (400-700 nm): 1 up to 450 nm, then 10^(0.02 (lambda - 450))."""
+    """C_B of 2006/25/EC Table 2.5 (400-700 nm): 1 up to 450 nm, then 10^(0.02 (lambda - 450)).
+
+    Rows "400 - 450: 1.0" and "450 - 700: 10^(0.02 (lambda - 450))" (checked); continuous at
+    450 nm.
+    """
     nm = _wavelength_nm(wavelength)
     if nm > 700.0:
         raise OutOfRangeError("wavelength", f"C_B is defined for 400 nm to 700 nm, not {nm:g} nm")
@@ -260,7 +306,10 @@ def correction_c_b(wavelength: float) -> float:
 def correction_c_c(wavelength: float) -> float:
     """C_C of 2006/25/EC Table 2.5 (700-1400 nm): 1, 10^(0.018 (lambda - 1150)), then 8.
 
-    Older edition (ICNIRP 2000); ICNIRP 2013 raises C_C above 1250 nm (not implemented).
+    Rows "700 - 1150: 1.0", "1150 - 1200: 10^(0.018 (lambda - 1150))", "1200 - 1400: 8.0"
+    (checked). Intervals read as a < lambda <= b: the formula holds up to and including
+    1200 nm (10^0.9 = 7.94 there); above, C_C = 8. Older edition (ICNIRP 2000); ICNIRP 2013
+    raises C_C above 1250 nm (not implemented).
     """
     nm = _wavelength_nm(wavelength)
     if not 700.0 <= nm <= 1400.0:
@@ -308,17 +357,20 @@ def _ir_1500_short(wl: float, nm: float, t: float) -> tuple[float, str, str]:
 
 
 def _visible_long(wl: float, nm: float, t: float) -> tuple[float, str, str]:
+    # Table 2.3, row 400-700 nm, retinal thermal, t >= 10 s: E = 10 W/m^2 (from memory).
     thermal = 10.0
     thermal_text = "E = 10 W/m^2 (1 mW/cm^2), retinal thermal"
     if nm > 600.0:
         return thermal, IRRADIANCE, thermal_text
+    # Table 2.3, row 400-600 nm, retinal photochemical (from memory), ICNIRP (2000) form:
+    # H = 100 C_B J/m^2 for 10 s - 100 s, then E = 1 C_B W/m^2 for 100 s - 3e4 s.
     cb = correction_c_b(wl)
-    if t <= 1.0e4:
+    if t <= 100.0:
         photo = 100.0 * cb / t
         photo_defined, photo_text = RADIANT_EXPOSURE, f"H = 100 C_B J/m^2, C_B = {cb:.4g}"
     else:
-        photo = 0.01 * cb
-        photo_defined, photo_text = IRRADIANCE, f"E = 0.01 C_B W/m^2, C_B = {cb:.4g}"
+        photo = cb
+        photo_defined, photo_text = IRRADIANCE, f"E = 1 C_B W/m^2, C_B = {cb:.4g}"
     if photo < thermal:
         return photo, photo_defined, (
             f"{photo_text}, retinal photochemical (lower than the thermal limit {thermal_text})")
@@ -344,6 +396,8 @@ def _ir_long(wl: float, nm: float, t: float) -> tuple[float, str, str]:
 
 @dataclass(frozen=True)
 class _Band:
+    """One row of Tables 2.2/2.3: low_nm < lambda <= high_nm."""
+
     low_nm: float
     high_nm: float
     shortest: float  # s, shortest exposure implemented
@@ -352,10 +406,11 @@ class _Band:
 
     @property
     def label(self) -> str:
-        return f"{self.low_nm:g}-{self.high_nm:g} nm"
+        return f"{self.low_nm:g} < lambda <= {self.high_nm:g} nm"
 
 
-#: Bands in order; a wavelength on an edge belongs to the band above (the last includes 2600).
+#: Rows of 2006/25/EC Annex II Tables 2.2/2.3 in order; a wavelength on an edge belongs to the
+#: row below it (intervals a < lambda <= b, as Table 2.6 writes them).
 _BANDS = (
     _Band(400.0, 700.0, 18e-6, _visible_short, _visible_long),
     _Band(700.0, 1050.0, 18e-6, _nir_short, _nir_long),
@@ -368,16 +423,31 @@ _BANDS = (
 
 def _band(nm: float) -> _Band:
     for band in _BANDS:
-        if band.low_nm <= nm < band.high_nm:
+        if band.low_nm < nm <= band.high_nm:
             return band
-    return _BANDS[-1]  # nm == 2600, already validated
+    raise AssertionError(f"{nm} nm passed validation but lies in no row")  # pragma: no cover
+
+
+#: Edges where the rows on either side differ strongly (retina to cornea at 1400 nm; the
+#: t^0.25 rows against the constant 1e4 J/m^2 at 1500 nm and 1800 nm).
+_STEP_EDGES = (1400.0, 1500.0, 1800.0)
+
+
+def _edge_note(nm: float, band: _Band) -> str:
+    if nm != band.high_nm or nm not in _STEP_EDGES:
+        return ""
+    return (f" ({nm:g} nm is this row's upper edge; the row above it gives a different limit, "
+            "so check a laser whose wavelength may lie on either side)")
 
 
 # --------------------------------------------------------------------------- public functions
 
 
 def default_exposure(wavelength: float) -> float:
-    """Default exposure duration, s: 0.25 s for 400-700 nm (aversion response), else 10 s.
+    """Default exposure duration, s: 0.25 s below 700 nm (aversion response), else 10 s.
+
+    700 nm itself gets 10 s: its limit is the same in both neighbouring rows, and the 10 s
+    exposure gives the lower MPE (10 W/m^2 against 25.5 W/m^2 at 0.25 s), the stricter choice.
 
     The 0.25 s assumes an accidental glimpse of a visible beam; deliberate viewing (for
     example during alignment) needs a longer exposure. Common practice of IEC 60825-1 and
@@ -393,7 +463,7 @@ def mpe(wavelength: float, exposure_time: float) -> ExposureLimit:
     Parameters
     ----------
     wavelength : float
-        Wavelength in m, 400e-9 to 2600e-9.
+        Wavelength in m, above 400e-9 up to 2600e-9.
     exposure_time : float
         Exposure duration in s, from the band's shortest implemented duration (18 us in
         400-1050 nm, 50 us in 1050-1400 nm, 1 ms above) up to 3e4 s.
@@ -432,17 +502,17 @@ def mpe(wavelength: float, exposure_time: float) -> ExposureLimit:
         )
     if t < LONG_EXPOSURE_FROM:
         irradiance, defined_as, text = band.short(float(wavelength), nm, t)
-        table = "Table 2.2 (exposure < 10 s)"
+        table = f"Table 2.2 (exposure < 10 s), row {band.label}"
     else:
         irradiance, defined_as, text = band.long(float(wavelength), nm, t)
-        table = "Table 2.3 (exposure >= 10 s)"
+        table = f"Table 2.3 (exposure >= 10 s), row {band.label}"
     return ExposureLimit(
         wavelength=float(wavelength),
         exposure_time=t,
         irradiance=irradiance,
         radiant_exposure=irradiance * t,
         defined_as=defined_as,
-        formula=f"{text}; {band.label}",
+        formula=f"{text}; {band.label}{_edge_note(nm, band)}",
         table=f"EU Directive 2006/25/EC Annex II {table}, correction factors Table 2.5",
     )
 
@@ -450,16 +520,17 @@ def mpe(wavelength: float, exposure_time: float) -> ExposureLimit:
 def limiting_aperture(wavelength: float, exposure_time: float) -> float:
     """Diameter of the limiting aperture, m, for ocular exposure.
 
-    7 mm for 400-1400 nm; from 1400 nm on: 1 mm below 0.35 s, 1.5 t^(3/8) mm from 0.35 s to
-    10 s, 3.5 mm from 10 s (2006/25/EC Annex II Tables 2.2/2.3; break point 0.35 s as in
-    IEC 60825-1; from memory). The 1.5 t^(3/8) rule meets 1 mm and 3.5 mm within 1.6 % at the
-    break points.
+    Aperture column of 2006/25/EC Annex II Tables 2.2 and 2.3 (from memory): 7 mm for
+    400 < lambda <= 1400 nm; above 1400 nm, 1 mm for t < 0.3 s, 1.5 t^0.375 mm for
+    0.3 s <= t < 10 s, 3.5 mm from 10 s. The break point 0.3 s is the Directive's (IEC 60825-1
+    and ANSI Z136.1 use 0.35 s, from memory); at 0.3 s the rule steps from 1 mm down to
+    0.955 mm, at 10 s from 3.557 mm down to 3.5 mm.
     """
     nm = _wavelength_nm(wavelength)
     t = _time("exposure_time", exposure_time)
-    if nm < 1400.0:
+    if nm <= 1400.0:
         return 7e-3
-    if t < 0.35:
+    if t < APERTURE_BREAK:
         return 1e-3
     if t < LONG_EXPOSURE_FROM:
         return 1.5e-3 * t**0.375
@@ -493,7 +564,7 @@ def required_od(
     Parameters
     ----------
     wavelength : float
-        m, 400e-9 to 2600e-9.
+        m, above 400e-9 up to 2600e-9.
     power : float
         Beam power, W (> 0).
     beam_diameter : float

@@ -8,8 +8,10 @@ import numpy as np
 import pytest
 from hypothesis import given, settings
 from hypothesis import strategies as st
-from scipy import constants
+import stark_model
+from scipy import constants, integrate
 
+from bench import fitting
 from bench.errors import ConfigError
 from bench.spectra import CrossSectionSpectrum, load_spectrum, parse_spectrum_text
 
@@ -20,11 +22,6 @@ NM = 1e-9
 EPSILON = constants.h * constants.c / (975 * NM)
 T_ROOM = 295.0
 HEADER = "wavelength [nm],sigma_a [cm^2],sigma_e [cm^2]"
-
-
-def _mccumber_factor(lam, epsilon=EPSILON, temp=T_ROOM):
-    """exp((epsilon - h nu) / kT), McCumber, Phys. Rev. 136, A954 (1964), via scipy.constants."""
-    return np.exp((epsilon - constants.h * constants.c / lam) / (constants.k * temp))
 
 
 # --- valid files ---------------------------------------------------------------------------
@@ -44,25 +41,119 @@ def test_both_columns_are_read_in_si_units():
 
 
 def test_absorption_only_gets_emission_from_mccumber():
-    # McCumber (1964): sigma_e = sigma_a exp((epsilon - h nu) / kT); file in µm and 1e-24 m²
+    # file in µm and 1e-24 m² (BIPM SI Brochure prefixes); the derived values themselves are
+    # checked against an independent two-manifold model below
     spec = load_spectrum(DATA / "absorption_only.csv", epsilon=EPSILON, temperature=T_ROOM)
     assert spec.derived == "sigma_e"
     lam = np.array([0.940, 0.970, 0.980, 1.000, 1.030]) * 1e-6
     sigma_a = np.array([0.80, 1.00, 0.60, 0.08, 0.012]) * 1e-24
     np.testing.assert_allclose(spec.wavelength, lam, rtol=1e-15)
     np.testing.assert_allclose(spec.sigma_a, sigma_a, rtol=1e-12)
-    np.testing.assert_allclose(spec.sigma_e, sigma_a * _mccumber_factor(lam), rtol=1e-12)
+    # McCumber (1964): emission exceeds absorption on the long side of the zero line (975 nm)
+    # and falls short of it on the short side
+    assert np.all((spec.sigma_e > spec.sigma_a) == (lam > 975 * NM))
 
 
 def test_decreasing_emission_only_file_is_reversed_and_absorption_derived():
-    # McCumber (1964) inverse form: sigma_a = sigma_e exp((h nu - epsilon) / kT)
+    # rows in decreasing wavelength are put in increasing order; the derived values are
+    # checked against an independent two-manifold model below
     spec = load_spectrum(DATA / "emission_decreasing.csv", epsilon=EPSILON, temperature=T_ROOM)
     assert spec.derived == "sigma_a"
     lam = np.array([1000, 1020, 1030, 1050]) * NM
     sigma_e = np.array([0.40, 0.60, 2.00, 0.25]) * 1e-20 * CM2
     np.testing.assert_allclose(spec.wavelength, lam, rtol=1e-15)
     np.testing.assert_allclose(spec.sigma_e, sigma_e, rtol=1e-12)
-    np.testing.assert_allclose(spec.sigma_a, sigma_e / _mccumber_factor(lam), rtol=1e-12)
+    # McCumber (1964): all rows lie on the long side of the 975 nm zero line
+    assert np.all(spec.sigma_a < spec.sigma_e)
+
+
+# --- McCumber derivation against an independent model -------------------------------------
+
+
+def _stark_csv(model, column):
+    rows = [f"{float(lam) * 1e9!r},{float(value) / CM2!r}"
+            for lam, value in zip(model.wavelength, getattr(model, column))]
+    return f"wavelength [nm],{column} [cm^2]\n" + "\n".join(rows) + "\n"
+
+
+@pytest.mark.parametrize("temperature", [77.0, 295.0, 450.0])
+def test_mccumber_derivation_matches_a_two_manifold_boltzmann_model(temperature):
+    # Reference: two Stark-split manifolds with Boltzmann populations summed level by level
+    # (tests/stark_model.py); detailed balance gives sigma_e / sigma_a = (Z_l / Z_u)
+    # exp((E_zl - h nu) / kT) line by line, McCumber, Phys. Rev. 136, A954 (1964), with
+    # epsilon = E_zl + kT ln(Z_l / Z_u).
+    model = stark_model.spectra(temperature)
+    assert model.min_separation > 40  # neighbouring Gaussian lines add < exp(-800) at a centre
+    from_a = parse_spectrum_text(_stark_csv(model, "sigma_a"), "stark_a.csv",
+                                 epsilon=model.epsilon, temperature=temperature)
+    assert from_a.derived == "sigma_e"
+    np.testing.assert_allclose(from_a.sigma_e, model.sigma_e, rtol=1e-9)
+    from_e = parse_spectrum_text(_stark_csv(model, "sigma_e"), "stark_e.csv",
+                                 epsilon=model.epsilon, temperature=temperature)
+    assert from_e.derived == "sigma_a"
+    np.testing.assert_allclose(from_e.sigma_a, model.sigma_a, rtol=1e-9)
+
+
+def test_mccumber_worked_number_for_the_two_manifold_model():
+    # By hand, 295 K (kT = 205.04 cm^-1, scipy.constants): Z_l = 1 + e^(-560/205.04)
+    # + e^(-615/205.04) + e^(-790/205.04) = 1 + 0.0651 + 0.0498 + 0.0212 = 1.1362,
+    # Z_u = 1 + e^(-290/205.04) + e^(-355/205.04) = 1 + 0.2431 + 0.1770 = 1.4201.
+    # Line 0 -> 0 (the zero line, 10320 cm^-1): sigma_e / sigma_a = Z_l / Z_u = 0.8001.
+    # Line 560 -> 0 (9760 cm^-1): (Z_l / Z_u) e^(560/205.04) = 0.8001 * 15.35 = 12.28.
+    kt_cm = constants.k * 295.0 / (constants.h * constants.c * 100)
+    assert kt_cm == pytest.approx(205.04, abs=0.01)
+    model = stark_model.spectra(295.0)
+    ratio = dict(zip(np.round(1e-2 / model.wavelength), model.sigma_e / model.sigma_a))
+    assert ratio[10320.0] == pytest.approx(0.8001, abs=1e-4)
+    assert ratio[9760.0] == pytest.approx(12.28, abs=0.01)
+    text = _stark_csv(model, "sigma_a")
+    spec = parse_spectrum_text(text, "stark.csv", epsilon=model.epsilon, temperature=295.0)
+    derived = dict(zip(np.round(1e-2 / spec.wavelength), spec.sigma_e / spec.sigma_a))
+    assert derived[10320.0] == pytest.approx(0.8001, abs=1e-4)
+    assert derived[9760.0] == pytest.approx(12.28, abs=0.01)
+
+
+# --- Voigt lineshape against an independent convolution -----------------------------------
+
+
+def _voigt_by_convolution(x, sigma, gamma):
+    """Gaussian (standard deviation sigma) convolved with a Lorentzian (half width at half
+    maximum gamma), both unit-area, by scipy.integrate.quad (Siegman, Lasers, sec. 3.3)."""
+    def integrand(u, xx):
+        gauss = math.exp(-0.5 * (u / sigma) ** 2) / (sigma * math.sqrt(2 * math.pi))
+        lorentz = (gamma / math.pi) / ((xx - u) ** 2 + gamma**2)
+        return gauss * lorentz
+    out = []
+    for xx in np.atleast_1d(x):
+        lim = 40 * sigma
+        value, _ = integrate.quad(integrand, -lim, lim, args=(xx,),
+                                  points=[xx] if abs(xx) < lim else None,
+                                  epsabs=0.0, epsrel=1e-11, limit=400)
+        out.append(value)
+    return np.array(out)
+
+
+@pytest.mark.parametrize(("sigma", "gamma"), [(0.7, 0.4), (1.0, 0.05), (0.2, 1.5)])
+def test_voigt_line_matches_a_numerical_convolution(sigma, gamma):
+    # reference: the convolution integral itself (scipy.integrate.quad), not voigt_profile;
+    # voigt_line is scaled to its peak, so compare shapes normalised at the centre
+    x = np.linspace(-4.0, 4.0, 17)
+    ref = _voigt_by_convolution(x, sigma, gamma)
+    peak = _voigt_by_convolution(0.0, sigma, gamma)[0]
+    line = fitting.voigt_line(x + 0.3, 2.0, 0.3, sigma, gamma)
+    np.testing.assert_allclose(line, 2.0 * ref / peak, rtol=1e-8)
+
+
+def test_voigt_line_width_conventions():
+    # Gaussian limit: sigma is the standard deviation, half maximum at sigma sqrt(2 ln 2);
+    # Lorentzian limit: gamma is the half width at half maximum (Siegman, Lasers, sec. 3.3)
+    half_g = 0.8 * math.sqrt(2 * math.log(2))
+    assert fitting.voigt_line(half_g, 1.0, 0.0, 0.8, 0.0) == pytest.approx(0.5, rel=1e-12)
+    assert fitting.voigt_line(3.0, 1.0, 0.0, 0.8, 0.0) == pytest.approx(
+        math.exp(-0.5 * (3.0 / 0.8) ** 2), rel=1e-10)
+    assert fitting.voigt_line(0.6, 1.0, 0.0, 0.0, 0.6) == pytest.approx(0.5, rel=1e-12)
+    lorentz = 0.36 / (4.0 + 0.36)  # gamma^2 / (x^2 + gamma^2) at x = 2, gamma = 0.6
+    assert fitting.voigt_line(2.0, 1.0, 0.0, 0.0, 0.6) == pytest.approx(lorentz, rel=1e-12)
 
 
 def test_interpolation_is_linear_between_rows_and_exact_on_them():

@@ -30,7 +30,7 @@ _OPTION_OF = {
 
 def configure(parser: argparse.ArgumentParser) -> None:
     parser.add_argument("--wavelength", required=True, metavar="QUANTITY",
-                        help='laser wavelength, 400 nm to 2600 nm, e.g. "976nm"')
+                        help='laser wavelength, above 400 nm up to 2600 nm, e.g. "976nm"')
     parser.add_argument("--power", required=True, metavar="QUANTITY",
                         help='CW beam power, e.g. "10W" or "250 mW"')
     parser.add_argument("--beam-diameter", required=True, metavar="QUANTITY",
