@@ -55,6 +55,11 @@ DT_INTERVALS = 1000
 #: Lines searched for the header.
 MAX_PREAMBLE = 200
 
+#: Longest line read (characters, line end included). A data row of a few numbers is well
+#: under a kilobyte and an instrument's header line a few; a longer "line" is not CSV text
+#: (``/dev/zero``, a binary file), and reading it whole would take unbounded memory.
+MAX_LINE_CHARS = 65536
+
 MODES = ("watch", "chopped", "decay", "sweep")
 
 _ON_WORDS = {"on": 1.0, "true": 1.0, "yes": 1.0, "off": 0.0, "false": 0.0, "no": 0.0}
@@ -132,15 +137,16 @@ class _Rows:
         self.path = path
         self.roles = roles
         self.threshold = threshold
-        self.header_line, delimiter, cells = self._find_header(f)
+        self._lines = _bounded_lines(f, path)
+        self.header_line, delimiter, cells = self._find_header()
         self.index = {role: cells.index(name) for role, name in roles.items()}
-        self._reader = csv.reader(f, delimiter=delimiter)
+        self._reader = csv.reader(self._lines, delimiter=delimiter)
 
-    def _find_header(self, f: Any) -> tuple[int, str, list[str]]:
+    def _find_header(self) -> tuple[int, str, list[str]]:
         names = list(self.roles.values())
         first: tuple[int, list[str]] | None = None
         for number in range(1, MAX_PREAMBLE + 1):
-            line = f.readline()
+            line = next(self._lines, "")
             if not line:
                 break
             if not line.strip() or line.lstrip().startswith("#"):
@@ -160,7 +166,14 @@ class _Rows:
             f"(looked at the first {MAX_PREAMBLE} lines; line {number} has: {', '.join(map(repr, cells[:12]))})")
 
     def __iter__(self) -> Iterator[tuple[int, list[float]]]:
-        for row in self._reader:
+        while True:
+            try:
+                row = next(self._reader)
+            except StopIteration:
+                return
+            except csv.Error as exc:
+                line = self.header_line + self._reader.line_num
+                raise ConfigError(f"{self.path}: line {line}: is not a CSV record ({exc})") from None
             line = self.header_line + self._reader.line_num
             if not row or all(not c.strip() for c in row) or row[0].lstrip().startswith("#"):
                 continue
@@ -187,6 +200,23 @@ class _Rows:
         if role == "pump_on":
             return 1.0 if x > self.threshold else 0.0
         return x
+
+
+def _bounded_lines(f: Any, path: Path) -> Iterator[str]:
+    """The lines of ``f``, each read with a bound (`MAX_LINE_CHARS`); a `ConfigError` naming the
+    line for one that is longer or holds NUL characters (not text)."""
+    number = 0
+    while True:
+        line = f.readline(MAX_LINE_CHARS)
+        if not line:
+            return
+        number += 1
+        if "\x00" in line:
+            raise ConfigError(f"{path}: line {number} holds NUL characters: a binary file, not CSV text")
+        if len(line) >= MAX_LINE_CHARS and not line.endswith("\n"):
+            raise ConfigError(f"{path}: line {number} is longer than {MAX_LINE_CHARS} characters: not a CSV "
+                              "file of numbers (is it a binary file?)")
+        yield line
 
 
 class _Blocks:

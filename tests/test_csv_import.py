@@ -8,6 +8,11 @@ source); pandas.read_csv as the independent reader of the same file.
 
 from __future__ import annotations
 
+import os
+import subprocess
+import sys
+from pathlib import Path
+
 import numpy as np
 import pandas as pd
 import pytest
@@ -158,3 +163,32 @@ def test_not_utf8(tmp_path, cfg):
     csv.write_bytes(HEADER.encode() + b"0,0.8,0.6,0\n" + "1e-6,0.8,0.6,\u00e9\n".encode("latin-1"))
     with pytest.raises(ConfigError, match="is not UTF-8 text"):
         import_csv(csv, COLUMNS, cfg, tmp_path / "logs")
+
+
+@pytest.mark.skipif(not Path("/dev/zero").exists(), reason="needs /dev/zero")
+def test_import_of_dev_zero_is_refused_quickly_with_bounded_memory(tmp_path):
+    """``/dev/zero`` is an endless line of NUL bytes: the import must stop at the first bounded
+    read with an error, not read on until memory runs out. The child runs with its address
+    space limited (RLIMIT_AS, 2 GB): reading the endless line whole would end in a
+    MemoryError traceback there instead of the error and exit status 2."""
+    resource = pytest.importorskip("resource")
+
+    def limit() -> None:
+        resource.setrlimit(resource.RLIMIT_AS, (2 << 30, 2 << 30))
+
+    env = dict(os.environ, PYTHONPATH=str(Path(__file__).resolve().parents[1]))
+    proc = subprocess.run(
+        [sys.executable, "-m", "bench", "import", "/dev/zero", "--logs", str(tmp_path / "logs"),
+         "--columns", "time=t,probe=p,reference=r,pump_on=m"],
+        capture_output=True, text=True, env=env, timeout=120, preexec_fn=limit)
+    assert proc.returncode == 2, proc.stderr[-2000:]
+    assert "/dev/zero: line 1 holds NUL characters: a binary file, not CSV text" in proc.stderr
+    assert "Traceback" not in proc.stderr
+    assert not (tmp_path / "logs").exists()
+
+
+def test_an_overlong_line_is_refused_with_its_number(tmp_path, cfg):
+    from bench.csv_import import MAX_LINE_CHARS
+
+    message = _error(tmp_path, cfg, HEADER + _rows(3) + "1" * (MAX_LINE_CHARS + 10) + "\n")
+    assert f"line 5 is longer than {MAX_LINE_CHARS} characters" in message
