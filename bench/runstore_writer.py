@@ -165,6 +165,20 @@ def _open_recording(path: Path) -> sqlite3.Connection:
     return conn
 
 
+def config_meta(cfg: Any) -> dict[str, Any]:
+    """Meta rows a run keeps of its bench beyond the file's text: the cross-section spectrum
+    the bench file names (``spectrum``, `bench.spectra.stored_form`), so that the run does not
+    depend on that file later."""
+    path = cfg.sample.spectrum_file
+    if path is None:
+        return {}
+    from bench import physics, spectra
+
+    zero_line = cfg.sample.zero_line
+    epsilon = float(physics.photon_energy(zero_line)) if zero_line is not None else None
+    return {"spectrum": spectra.stored_form(path, epsilon=epsilon, temperature=cfg.sample.temperature)}
+
+
 def _check_interval(flush_interval: float) -> float:
     if not isinstance(flush_interval, (int, float)) or not 0 < flush_interval <= 1.0:
         raise ValueError(f"flush_interval: {flush_interval!r} s is not in (0, 1] s")
@@ -359,7 +373,7 @@ class RunWriter(_Appender):
                     clock: Callable[[], float] = time.monotonic) -> RunWriter:
         """`create` with the settings of a `bench.config.BenchConfig` (log dir, flush interval,
         operator, sample id and label, simulated, the bench file's text)."""
-        extra = {"bench_name": cfg.name, "sample_label": cfg.sample.label, **dict(meta or {})}
+        extra = {"bench_name": cfg.name, "sample_label": cfg.sample.label, **config_meta(cfg), **dict(meta or {})}
         return cls.create(
             cfg.run.log_dir if log_dir is None else log_dir,
             bench_text=cfg.text,
