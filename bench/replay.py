@@ -17,9 +17,11 @@ from dataclasses import dataclass, field
 from pathlib import Path
 from typing import Any
 
+from bench import estimate as est
 from bench.config import BenchConfig, load_bench_text
 from bench.errors import RunStoreError
 from bench.estimator_params import EstimatorParams
+from bench.import_analysis import FINAL_REPORT
 from bench.pipeline import Consumer, Control
 from bench.records import Block, Estimate, Event
 from bench.runstore import RunReader, open_for_analysis
@@ -162,6 +164,12 @@ def replay(
             for seq in sorted(controls):  # controls after the last detector block
                 for c in controls[seq]:
                     consumer.apply(c)
+            if reader.meta.get(FINAL_REPORT) and done == total:
+                # the analysis ended with the estimator's report of everything (an import)
+                tail = est.report(consumer.state)
+                results.extend(tail)
+                if writer is not None and tail:
+                    writer.append_estimates(tail)
         finally:
             if writer is not None:
                 writer.close()

@@ -317,11 +317,12 @@ class RunReader:
             raise run_file_error(self.path, "fails SQLite's integrity check: " + "; ".join(map(str, problems[:5])))
 
     def duration(self) -> float | None:
-        """Seconds from start to stop (wall clock), or, for an incomplete run, the run-clock
-        time of the last record."""
+        """Seconds from start to stop (wall clock), or, for an incomplete run and for a run
+        imported from a file (whose start and stop are those of the import), the run-clock time
+        of the last record."""
         try:
             start = datetime.fromisoformat(self.meta["start_time"])
-            if self.meta.get("stop_time"):
+            if self.meta.get("stop_time") and self.meta.get("imported_from") is None:
                 return (datetime.fromisoformat(self.meta["stop_time"]) - start).total_seconds()
         except (TypeError, ValueError):
             pass

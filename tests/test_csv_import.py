@@ -60,9 +60,10 @@ def test_import_holds_the_file_samples(tmp_path, cfg):
         assert r.meta["bench_text"] == cfg.text and r.meta["simulated"] is False
         assert r.meta["mode"] == "chopped" and r.meta["import"]["samples"] == 25_000
         blocks = list(r.iter_blocks())
-    assert [b.n for b in blocks] == [10_000, 10_000, 5_000]
+    # a block also starts at the first pump-on sample (row 5000), so the baseline is taken before it
+    assert [b.n for b in blocks] == [5_000, 10_000, 10_000]
     assert all(b.channels == ("probe", "reference", "pump_monitor") and b.source == "detector" for b in blocks)
-    assert [b.first_index for b in blocks] == [0, 10_000, 20_000]
+    assert [b.first_index for b in blocks] == [0, 5_000, 15_000]
     data = np.vstack([b.data for b in blocks])
     # The same file read by pandas (independent reader) gives the same numbers.
     ref_frame = pd.read_csv(csv, skiprows=3)
@@ -83,7 +84,7 @@ def test_gaps_split_blocks_and_are_logged(tmp_path, cfg):
         blocks = list(r.iter_blocks())
         gaps = [e for e in r.events() if e.kind == "gap"]
         assert r.meta["import"]["missing_samples"] == 3
-    assert [(b.first_index, b.n) for b in blocks] == [(0, 10_000), (10_000, 2_345), (12_348, 2_655)]
+    assert [(b.first_index, b.n) for b in blocks] == [(0, 5_000), (5_000, 7_345), (12_348, 2_655)]
     assert len(gaps) == 1 and gaps[0].data["missing"] == 3
     # Header on line 4 after a 3-line preamble: data row k (from 0) is on line 5 + k.
     assert gaps[0].data["line"] == 5 + 12_345
