@@ -14,6 +14,11 @@ Layout, schema version 1
                identity, e.g. the ``*IDN?`` reply), ``operator``, ``sample_id``, ``mode`` (at the
                start), ``simulated``, ``platform``, plus anything a caller adds.
                The writer also keeps ``block_layouts`` and ``max_block_span_s`` (below).
+               A run whose bench file names a cross-section spectrum keeps it in ``spectrum``
+               (`bench.spectra.stored_form`: the file's text, name and SHA-256, the SI
+               table); runs written before that have none and read the file. An imported run
+               has ``imported_from``, ``import`` and ``final_report``
+               (`bench.import_analysis`).
 ``analyses``   one row per analysis: ``live`` (made while recording), ``replay`` or
                ``reanalysis``, with the overrides it used, the software version, a note, its
                creation and finishing times.
