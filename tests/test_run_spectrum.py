@@ -153,3 +153,17 @@ def test_a_derived_column_is_derived_again_only_for_a_corrected_temperature(tmp_
     again = stored.spectrum(eps, 300.0)  # a re-analysis with sample.temperature corrected
     np.testing.assert_array_equal(again.sigma_e, direct.sigma_e)
     assert not np.array_equal(again.sigma_e, stored.table.sigma_e)
+
+
+def test_the_text_and_overrides_alone_find_the_spectrum_from_another_folder(recorded, tmp_path, monkeypatch):
+    """What the bench process and the simulated bench do: read the bench file's text (written
+    elsewhere or passed on) with the overrides, in a working directory of their own."""
+    from bench.config import load_bench_text
+
+    root, _ = recorded
+    cfg = load_bench(root / "bench" / "bench.toml")
+    monkeypatch.chdir(tmp_path)
+    (tmp_path / "copy.toml").write_text(cfg.text, encoding="utf-8")
+    again = load_bench_text(cfg.text, str(tmp_path / "copy.toml"), overrides=dict(cfg.overrides),
+                            base_dir=tmp_path)
+    assert again.sample.sigma == cfg.sample.sigma
