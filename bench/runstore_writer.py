@@ -17,6 +17,7 @@ from pathlib import Path
 from typing import Any
 
 from bench import __version__
+from bench.errors import ConfigError
 from bench.records import Block, Estimate, Event
 from bench.runstore_reader import RunReader
 from bench.runstore_schema import (
@@ -176,7 +177,13 @@ def config_meta(cfg: Any) -> dict[str, Any]:
 
     zero_line = cfg.sample.zero_line
     epsilon = float(physics.photon_energy(zero_line)) if zero_line is not None else None
-    return {"spectrum": spectra.stored_form(path, epsilon=epsilon, temperature=cfg.sample.temperature)}
+    record = spectra.stored_form(path, epsilon=epsilon, temperature=cfg.sample.temperature)
+    table = spectra.StoredSpectrum.from_stored(record, path.name).table
+    sigma = cfg.sample.sigma
+    if (table.at(cfg.probe.wavelength) != (sigma.probe_absorption, sigma.probe_emission)
+            or table.at(cfg.pump.wavelength) != (sigma.pump_absorption, sigma.pump_emission)):
+        raise ConfigError(f"{path}: the spectrum file changed after {cfg.source} was read; start again")
+    return {"spectrum": record}
 
 
 def _check_interval(flush_interval: float) -> float:

@@ -167,3 +167,18 @@ def test_the_text_and_overrides_alone_find_the_spectrum_from_another_folder(reco
     again = load_bench_text(cfg.text, str(tmp_path / "copy.toml"), overrides=dict(cfg.overrides),
                             base_dir=tmp_path)
     assert again.sample.sigma == cfg.sample.sigma
+
+
+def test_a_spectrum_changed_between_reading_the_bench_and_recording_is_refused(recorded, tmp_path):
+    from bench.errors import ConfigError
+
+    root, _ = recorded
+    csv = root / "bench" / "spectra" / "xs.csv"
+    cfg = load_bench(root / "bench" / "bench.toml")
+    csv.write_text(SPECTRUM.replace("2.60e-20", "2.90e-20"), encoding="utf-8")
+    try:
+        with pytest.raises(ConfigError, match="the spectrum file changed after"):
+            RunWriter.from_config(cfg, log_dir=tmp_path)
+    finally:
+        csv.write_text(SPECTRUM, encoding="utf-8")
+    assert not any(tmp_path.iterdir())
