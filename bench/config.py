@@ -183,7 +183,16 @@ def load_bench(path: str | Path | None = None, overrides: Mapping[str, str] | No
         raise ConfigError(f"{source}: no such bench file") from None
     except (OSError, UnicodeDecodeError) as exc:
         raise ConfigError(f"{source}: cannot read the bench file ({exc})") from None
-    return load_bench_text(text, source, overrides=overrides, base_dir=p.parent)
+    cfg = load_bench_text(text, source, overrides=overrides, base_dir=p.parent)
+    spectrum = cfg.sample.spectrum_file
+    if spectrum is not None and "sample.spectrum" not in cfg.overrides:
+        # A relative spectrum path is relative to the bench file's folder. Processes given
+        # only the text and the overrides (the simulated bench, the bench process) read the
+        # text elsewhere, so the resolved path goes with the overrides.
+        from dataclasses import replace
+
+        cfg = replace(cfg, overrides={**cfg.overrides, "sample.spectrum": str(spectrum.resolve())})
+    return cfg
 
 
 def load_bench_text(
@@ -518,9 +527,10 @@ def _sample_from_spectrum(r: _Reader, sample: SampleConfig, probe: ProbeConfig, 
     epsilon = photon_energy(sample.zero_line) if sample.zero_line is not None else None
     path = sample.spectrum_file
     assert path is not None
-    if not path.exists():
-        raise r.fail("sample.spectrum", f"no such file {path.name!r} (looked in {path.parent.name or '.'})")
-    spec = spectra.load_spectrum(path, epsilon=epsilon, temperature=sample.temperature)
+    # a run's own copy of the spectrum when its bench file is read back (bench.replay)
+    spec = spectra.spectrum_for_bench(path, epsilon=epsilon, temperature=sample.temperature)
+    if spec is None:
+        raise r.fail("sample.spectrum", f"no such file {path.name!r} (looked in {path.parent})")
     sa_probe, se_probe = spec.at(probe.wavelength)
     sa_pump, se_pump = spec.at(pump.wavelength)
     sigma = CrossSections(

@@ -20,8 +20,14 @@ first 1000 intervals and stores the samples as they are, with these rules:
 The time column is shifted so that the first sample is at run-clock time 0 (the offset is kept
 in meta ``import.time_offset_s``). The pump column becomes a ``pump_monitor`` channel of 0/1
 volts: numbers above ``pump_on_threshold`` and the words on/true/yes are 1, the rest 0. The
-samples are stored in blocks of ``block_size`` from source ``detector``, with the bench file's
-text as the run's snapshot. Every problem is a `ConfigError` naming the file, the line and the
+samples are stored in blocks of ``block_size`` from source ``detector`` (a block also starts at
+the first pump-on sample), with the bench file's text and its spectrum as the run's snapshot.
+
+Analysis. With a pump column the stored run is then analysed as a recorded run is live
+(`bench.import_analysis`: the dark given or taken from a window of the file, the baseline from
+the pump-off samples before the pump first switches on); its live analysis holds the estimates.
+
+Every problem is a `ConfigError` naming the file, the line and the
 column; a run file is made only once the header and the first rows are good, and removed again
 if a later line is bad, so a failed import leaves nothing behind.
 """
@@ -38,9 +44,12 @@ import numpy as np
 
 from bench.config import BenchConfig
 from bench.errors import ConfigError
+from bench.estimator_params import EstimatorParams
+from bench.import_analysis import FINAL_REPORT, PUMP_THRESHOLD_V, DarkGiven, analyse
 from bench.records import PROBE, PUMP_MONITOR, REFERENCE, Block, Event
-from bench.runstore import RunWriter
+from bench.runstore import RunReader, RunWriter
 from bench.runstore_schema import SIDE_FILES
+from bench.runstore_writer import config_meta
 
 #: Names of the columns a caller maps to header names; the first three are required.
 COLUMN_ROLES = ("time", "probe", "reference", "pump_on")
@@ -54,6 +63,11 @@ DT_INTERVALS = 1000
 
 #: Lines searched for the header.
 MAX_PREAMBLE = 200
+
+#: Longest line read (characters, line end included). A data row of a few numbers is well
+#: under a kilobyte and an instrument's header line a few; a longer "line" is not CSV text
+#: (``/dev/zero``, a binary file), and reading it whole would take unbounded memory.
+MAX_LINE_CHARS = 65536
 
 MODES = ("watch", "chopped", "decay", "sweep")
 
@@ -70,6 +84,7 @@ def import_csv(
     mode: str | None = None,
     pump_on_threshold: float = 0.5,
     sample_id: str | None = None,
+    dark: DarkGiven | None = None,
 ) -> Path:
     """Store the CSV file ``csv_path`` as a new run; returns the run file's path.
 
@@ -81,16 +96,20 @@ def import_csv(
     cfg : the bench the data was recorded on (its text is stored as the run's snapshot)
     log_dir : where the run goes; default ``cfg.run.log_dir``
     block_size : samples per stored block
-    mode : the run's mode; default ``chopped`` with a pump column, else ``watch``
+    mode : the run's mode; default (`default_mode`) ``chopped`` when the pump column switches
+        on more than once, else ``watch``
     pump_on_threshold : pump column values above this are "on"
     sample_id : default ``cfg.sample.sample_id``
+    dark : the dark levels or a dark window (`bench.import_analysis.DarkGiven`); None: none
+        (the probe and reference are taken as reading 0 V with the probe blocked)
+
+    With a pump column the stored data are analysed as a recorded run is live
+    (`bench.import_analysis`): the run's live analysis holds the estimates.
     """
     roles = _check_columns(columns)
     if not isinstance(block_size, int) or block_size < 1:
         raise ValueError(f"block_size: {block_size!r} is not a positive whole number")
-    if mode is None:
-        mode = "chopped" if "pump_on" in roles else "watch"
-    if mode not in MODES:
+    if mode is not None and mode not in MODES:
         raise ValueError(f"mode: {mode!r} is not one of: {', '.join(MODES)}")
     if not isinstance(pump_on_threshold, (int, float)) or not math.isfinite(pump_on_threshold):
         raise ValueError(f"pump_on_threshold: {pump_on_threshold!r} is not a number")
@@ -102,7 +121,7 @@ def import_csv(
     try:
         with open(path, encoding="utf-8-sig", newline="") as f:
             return _import(f, path, roles, cfg, log_dir, block_size, mode, float(pump_on_threshold),
-                           sample_id)
+                           sample_id, dark)
     except UnicodeDecodeError as exc:
         raise ConfigError(f"{path}: is not UTF-8 text ({exc.reason} at byte {exc.start} of a line)") from None
     except OSError as exc:
@@ -132,15 +151,16 @@ class _Rows:
         self.path = path
         self.roles = roles
         self.threshold = threshold
-        self.header_line, delimiter, cells = self._find_header(f)
+        self._lines = _bounded_lines(f, path)
+        self.header_line, delimiter, cells = self._find_header()
         self.index = {role: cells.index(name) for role, name in roles.items()}
-        self._reader = csv.reader(f, delimiter=delimiter)
+        self._reader = csv.reader(self._lines, delimiter=delimiter)
 
-    def _find_header(self, f: Any) -> tuple[int, str, list[str]]:
+    def _find_header(self) -> tuple[int, str, list[str]]:
         names = list(self.roles.values())
         first: tuple[int, list[str]] | None = None
         for number in range(1, MAX_PREAMBLE + 1):
-            line = f.readline()
+            line = next(self._lines, "")
             if not line:
                 break
             if not line.strip() or line.lstrip().startswith("#"):
@@ -160,7 +180,14 @@ class _Rows:
             f"(looked at the first {MAX_PREAMBLE} lines; line {number} has: {', '.join(map(repr, cells[:12]))})")
 
     def __iter__(self) -> Iterator[tuple[int, list[float]]]:
-        for row in self._reader:
+        while True:
+            try:
+                row = next(self._reader)
+            except StopIteration:
+                return
+            except csv.Error as exc:
+                line = self.header_line + self._reader.line_num
+                raise ConfigError(f"{self.path}: line {line}: is not a CSV record ({exc})") from None
             line = self.header_line + self._reader.line_num
             if not row or all(not c.strip() for c in row) or row[0].lstrip().startswith("#"):
                 continue
@@ -189,6 +216,23 @@ class _Rows:
         return x
 
 
+def _bounded_lines(f: Any, path: Path) -> Iterator[str]:
+    """The lines of ``f``, each read with a bound (`MAX_LINE_CHARS`); a `ConfigError` naming the
+    line for one that is longer or holds NUL characters (not text)."""
+    number = 0
+    while True:
+        line = f.readline(MAX_LINE_CHARS)
+        if not line:
+            return
+        number += 1
+        if "\x00" in line:
+            raise ConfigError(f"{path}: line {number} holds NUL characters: a binary file, not CSV text")
+        if len(line) >= MAX_LINE_CHARS and not line.endswith("\n"):
+            raise ConfigError(f"{path}: line {number} is longer than {MAX_LINE_CHARS} characters: not a CSV "
+                              "file of numbers (is it a binary file?)")
+        yield line
+
+
 class _Blocks:
     """Cuts timed samples into uniformly sampled blocks and hands them to the writer."""
 
@@ -206,9 +250,22 @@ class _Blocks:
         self.gaps = 0
         self.missing = 0
         self.max_deviation = 0.0
+        self.pump = channels.index(PUMP_MONITOR) if PUMP_MONITOR in channels else None
+        self.first_on: float | None = None  # run-clock time of the first pump-on sample
+        self.switch_ons = 0  # off -> on changes of the pump column
+        self._on = False
 
     def add(self, line: int, t_raw: float, values: list[float]) -> None:
         t = t_raw - self.t_offset
+        if self.pump is not None:
+            on = values[self.pump] > 0.5
+            if on and self.prev_t is not None and not self._on:
+                self.switch_ons += 1
+            self._on = on
+            if on and self.first_on is None:
+                # a block starts at the first pump-on sample: the baseline is taken before it
+                self.first_on = t
+                self.flush()
         if self.prev_t is not None:
             deviation = abs(t - (self.t0 + self.dt * len(self.rows)))
             if self.rows and deviation <= GRID_TOLERANCE * self.dt:
@@ -249,8 +306,15 @@ class _Blocks:
         self.rows = []
 
 
+def default_mode(switch_ons: int | None) -> str:
+    """The mode of an import without ``--mode``: ``chopped`` when the pump switches on more than
+    once (``switch_ons``, off -> on changes; None: no pump column), else ``watch``."""
+    return "chopped" if switch_ons is not None and switch_ons > 1 else "watch"
+
+
 def _import(f: Any, path: Path, roles: dict[str, str], cfg: BenchConfig, log_dir: str | Path | None,
-            block_size: int, mode: str, threshold: float, sample_id: str | None) -> Path:
+            block_size: int, mode: str | None, threshold: float, sample_id: str | None,
+            dark: DarkGiven | None) -> Path:
     rows = _Rows(f, path, roles, threshold)
     it = iter(rows)
     head: list[tuple[int, list[float]]] = []
@@ -273,11 +337,12 @@ def _import(f: Any, path: Path, roles: dict[str, str], cfg: BenchConfig, log_dir
         bench_source=cfg.source,
         sample_id=cfg.sample.sample_id if sample_id is None else sample_id,
         operator=cfg.run.operator,
-        mode=mode,
+        mode=mode or "watch",  # set from the data below when not given
         simulated=False,
         instruments={"detector": f"CSV file {path.name}"},
         flush_interval=cfg.run.flush_interval,
-        meta={"bench_name": cfg.name, "sample_label": cfg.sample.label, "imported_from": str(path)},
+        meta={"bench_name": cfg.name, "sample_label": cfg.sample.label, "imported_from": str(path),
+              "bench_overrides": dict(cfg.overrides), **config_meta(cfg)},
     )
     try:
         blocks = _Blocks(writer, path, roles["time"], dt, t_offset, channels, block_size)
@@ -288,19 +353,38 @@ def _import(f: Any, path: Path, roles: dict[str, str], cfg: BenchConfig, log_dir
             prev = values[0]
             blocks.add(line, values[0], values[1:])
         blocks.flush()
+        if mode is None:
+            mode = default_mode(blocks.switch_ons if blocks.pump is not None else None)
         info = {
             "file": str(path), "columns": roles, "samples": blocks.samples, "blocks": blocks.seq,
             "dt_s": dt, "time_offset_s": t_offset, "gaps": blocks.gaps, "missing_samples": blocks.missing,
             "max_timing_deviation_dt": blocks.max_deviation, "grid_tolerance_dt": GRID_TOLERANCE,
             "pump_on_threshold": threshold if "pump_on" in roles else None,
+            "pump_switch_ons": blocks.switch_ons if blocks.pump is not None else None,
+            "first_pump_on_s": blocks.first_on,
+            "dark": _dark_info(dark),
         }
-        writer.set_meta({"import": info})
+        analysed = blocks.pump is not None
+        writer.set_meta({"import": info, "mode": mode})
+        if analysed:
+            overrides = {"pump_threshold_v": PUMP_THRESHOLD_V}
+            writer.set_meta({"estimator_mode": mode, "estimator_settings": {}, "estimator_overrides": overrides,
+                             FINAL_REPORT: True})
         writer.append_event(Event(
             t=0.0, kind="note", who="csv import",
             text=(f"imported {blocks.samples} samples from {path.name}: sample interval {dt:.6g} s (median of the "
                   f"first intervals), {blocks.gaps} gap(s), largest timing deviation "
                   f"{100 * blocks.max_deviation:.3g} % of the interval"),
             data=info))
+        if analysed:
+            writer.flush()
+            params = EstimatorParams.from_config(cfg, **overrides)
+            with RunReader(writer.path) as reader:
+                analyse(writer, reader, params, mode, dark=dark, first_on=blocks.first_on, t_offset=t_offset,
+                        csv_name=path.name)
+        else:
+            writer.append_event(Event(t=0.0, kind="note", who="csv import",
+                                      text="not analysed: the file has no pump column"))
         writer.close(reason="imported")
     except BaseException:
         if not writer.closed:
@@ -309,6 +393,14 @@ def _import(f: Any, path: Path, roles: dict[str, str], cfg: BenchConfig, log_dir
             Path(f"{writer.path}{side}").unlink(missing_ok=True)
         raise
     return writer.path
+
+
+def _dark_info(dark: DarkGiven | None) -> dict[str, Any] | None:
+    if dark is None:
+        return None
+    if dark.window is not None:
+        return {"window_file_s": list(dark.window)}
+    return {"probe_v": dark.probe_v, "reference_v": dark.reference_v}
 
 
 def _chain(head: list, rest: Iterator) -> Iterator:

@@ -54,7 +54,8 @@ class Control:
     """An instruction applied between blocks.
 
     ``dark`` and ``baseline`` carry ``t_start``/``t_end`` (run clock): the detector samples in
-    that window become the dark or the baseline. ``mode`` carries ``mode`` and ``settings``;
+    that window become the dark or the baseline; a ``dark`` may instead carry the levels
+    measured apart, ``probe_v`` and ``reference_v`` (V). ``mode`` carries ``mode`` and ``settings``;
     ``setting`` carries the settings that changed (``pump_power``, ``pump_current``,
     ``probe_wavelength``).
     """
@@ -308,7 +309,12 @@ class Consumer:
         before_seq = self._next_detector_seq
         data = dict(control.data)
         text = control.kind
-        if control.kind in ("dark", "baseline"):
+        if control.kind == "dark" and "probe_v" in data:  # levels measured apart and given
+            dark = est.Dark(float(data["probe_v"]), float(data.get("probe_sigma_v", 0.0)), float(data["reference_v"]),
+                            float(data.get("reference_sigma_v", 0.0)), int(data.get("n_samples", 0)), control.t)
+            self.state = est.with_dark(self.state, dark)
+            text = f"dark given: probe {dark.probe * 1e3:.4g} mV, reference {dark.reference * 1e3:.4g} mV"
+        elif control.kind in ("dark", "baseline"):
             t0, t1 = float(data["t_start"]), float(data["t_end"])
             blocks = [_slice(b, t0, t1) for b in self._recent if b.t_end >= t0 and b.t0 <= t1]
             blocks = [b for b in blocks if b is not None and b.n > 0]

@@ -17,12 +17,15 @@ from dataclasses import dataclass, field
 from pathlib import Path
 from typing import Any
 
+from bench import estimate as est
 from bench.config import BenchConfig, load_bench_text
 from bench.errors import RunStoreError
 from bench.estimator_params import EstimatorParams
+from bench.import_analysis import FINAL_REPORT
 from bench.pipeline import Consumer, Control
 from bench.records import Block, Estimate, Event
 from bench.runstore import RunReader, open_for_analysis
+from bench.spectra import StoredSpectrum, using_stored
 
 
 @dataclass
@@ -45,13 +48,25 @@ class ReplayResult:
 
 
 def run_config(reader: RunReader, overrides: Mapping[str, str] | None = None) -> BenchConfig:
-    """The bench file recorded with the run, with ``overrides`` applied."""
+    """The bench file recorded with the run, with ``overrides`` applied.
+
+    A run that stored its cross-section spectrum (meta ``spectrum``) uses that copy, whatever
+    became of the file since; only an override of ``sample.spectrum`` reads a file again. A
+    run without one (older runs) reads the file the bench file names, as before.
+    """
     text = reader.meta.get("bench_text")
     if not isinstance(text, str) or not text.strip():
         raise RunStoreError(f"{reader.path}: the run holds no bench file snapshot")
     recorded = reader.meta.get("bench_overrides") or {}
     merged = {**(recorded if isinstance(recorded, dict) else {}), **dict(overrides or {})}
-    return load_bench_text(text, f"{reader.path.name} (bench file as recorded)", overrides=merged or None)
+    stored = None
+    if reader.meta.get("spectrum") is not None and "sample.spectrum" not in (overrides or {}):
+        try:
+            stored = StoredSpectrum.from_stored(reader.meta["spectrum"], reader.path.name)
+        except ValueError as exc:
+            raise RunStoreError(f"{reader.path}: is damaged: {exc}") from None
+    with using_stored(stored):
+        return load_bench_text(text, f"{reader.path.name} (bench file as recorded)", overrides=merged or None)
 
 
 def estimator_params(reader: RunReader, cfg: BenchConfig) -> EstimatorParams:
@@ -149,6 +164,12 @@ def replay(
             for seq in sorted(controls):  # controls after the last detector block
                 for c in controls[seq]:
                     consumer.apply(c)
+            if reader.meta.get(FINAL_REPORT) and done == total:
+                # the analysis ended with the estimator's report of everything (an import)
+                tail = est.report(consumer.state)
+                results.extend(tail)
+                if writer is not None and tail:
+                    writer.append_estimates(tail)
         finally:
             if writer is not None:
                 writer.close()

@@ -22,6 +22,12 @@ set back to DELETE, so a finished run is one self-contained file. A run that was
 (killed, power cut) keeps its last commits in ``<run>.gbrun-wal`` until something opens the
 file for writing (`open_for_analysis` does); copy the ``-wal`` file with it.
 
+A checkpoint cut off by a full disk leaves the main file shorter than its header says (or not
+a whole number of pages) beside a ``-wal`` file that still holds every page. SQLite reads such
+a file, and so does `RunReader`: it lets SQLite check that the missing pages are in the
+``-wal`` file (``PRAGMA quick_check``) instead of refusing the file by its size. The next
+write (`open_for_analysis`) checkpoints it into one complete file again.
+
 Reading never writes the run file
 ---------------------------------
 `RunReader` opens the file read-only (SQLite URI ``mode=ro``) after checking its first bytes

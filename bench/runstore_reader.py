@@ -35,6 +35,7 @@ from bench.runstore_schema import (
     run_file_error,
     sqlite_reason,
     truth_from_row,
+    wal_frames,
 )
 
 #: Keys of every `RunReader.summary` / `list_runs` row.
@@ -61,11 +62,19 @@ class RunReader:
         self.path = Path(path)
         self._conn: sqlite3.Connection | None = None
         reason = self._precheck()
+        short_main = None
+        if reason and reason.startswith("is truncated:") and _has_header(self.path) and wal_frames(self.path):
+            # The main file is shorter than its pages (a checkpoint cut off by a full disk, or
+            # a copy taken mid-write), but a -wal file is there: SQLite reads the newest pages
+            # from it. Whether it holds every missing page is checked once open.
+            short_main, reason = reason, None
         if reason:
             raise run_file_error(self.path, reason)
         try:
             uri = self.path.resolve().as_uri() + "?mode=ro"
             self._conn = sqlite3.connect(uri, uri=True, timeout=5.0, check_same_thread=False)
+            if short_main is not None:
+                self._check_pages(short_main)
             self._validate()
         except READ_ERRORS as exc:
             self.close()
@@ -89,6 +98,16 @@ class RunReader:
             return "no such run file"
         except OSError as exc:
             return f"cannot be read ({exc.strerror or exc})"
+
+    def _check_pages(self, short_main: str) -> None:
+        """SQLite's quick check over a run whose main file is short but has a -wal file."""
+        try:
+            problems = [r[0] for r in self._connection().execute("PRAGMA quick_check(5)")]
+        except READ_ERRORS as exc:
+            problems = [str(exc)]
+        if problems != ["ok"]:
+            raise run_file_error(self.path, f"{short_main}, and its -wal file does not hold the missing pages "
+                                            f"(SQLite: {'; '.join(map(str, problems[:3]))})")
 
     def _validate(self) -> None:
         conn = self._connection()
@@ -298,11 +317,12 @@ class RunReader:
             raise run_file_error(self.path, "fails SQLite's integrity check: " + "; ".join(map(str, problems[:5])))
 
     def duration(self) -> float | None:
-        """Seconds from start to stop (wall clock), or, for an incomplete run, the run-clock
-        time of the last record."""
+        """Seconds from start to stop (wall clock), or, for an incomplete run and for a run
+        imported from a file (whose start and stop are those of the import), the run-clock time
+        of the last record."""
         try:
             start = datetime.fromisoformat(self.meta["start_time"])
-            if self.meta.get("stop_time"):
+            if self.meta.get("stop_time") and self.meta.get("imported_from") is None:
                 return (datetime.fromisoformat(self.meta["stop_time"]) - start).total_seconds()
         except (TypeError, ValueError):
             pass
@@ -353,6 +373,14 @@ def _layouts(text: Any) -> list[tuple[str, tuple[str, ...]]]:
             raise Damaged("block layouts are not [source, [channel, ...]] pairs")
         out.append((item[0], tuple(item[1])))
     return out
+
+
+def _has_header(path: Path) -> bool:
+    """Whether ``path`` holds at least the 100-byte SQLite header (its page size is needed)."""
+    try:
+        return path.stat().st_size >= 100
+    except OSError:
+        return False
 
 
 def _size(path: Path) -> int | None:

@@ -14,6 +14,11 @@ Layout, schema version 1
                identity, e.g. the ``*IDN?`` reply), ``operator``, ``sample_id``, ``mode`` (at the
                start), ``simulated``, ``platform``, plus anything a caller adds.
                The writer also keeps ``block_layouts`` and ``max_block_span_s`` (below).
+               A run whose bench file names a cross-section spectrum keeps it in ``spectrum``
+               (`bench.spectra.stored_form`: the file's text, name and SHA-256, the SI
+               table); runs written before that have none and read the file. An imported run
+               has ``imported_from``, ``import`` and ``final_report``
+               (`bench.import_analysis`).
 ``analyses``   one row per analysis: ``live`` (made while recording), ``replay`` or
                ``reanalysis``, with the overrides it used, the software version, a note, its
                creation and finishing times.
@@ -234,6 +239,35 @@ def check_header(path: Path) -> str | None:
     if pages and change_counter == valid_for and size < pages * page_size:
         return f"is truncated: {size} bytes, but its header counts {pages} pages of {page_size} bytes"
     return None
+
+
+#: First four bytes of a WAL file (big-endian checksums or little-endian ones).
+_WAL_MAGIC = (0x377F0682, 0x377F0683)
+_WAL_HEADER_SIZE = 32
+_WAL_FRAME_HEADER_SIZE = 24
+
+
+def wal_frames(path: Path) -> int:
+    """Whole frames in the ``-wal`` file beside ``path`` (0 if there is none or it is not a WAL).
+
+    A frame holds one page; the WAL file starts with a 32-byte header (magic number, format
+    version, page size, ...) and each frame with a 24-byte header (SQLite file format,
+    https://www.sqlite.org/fileformat2.html, section 4). Only the header is checked here;
+    SQLite checks the frames' checksums itself when it opens the file.
+    """
+    wal = Path(f"{path}-wal")
+    try:
+        size = wal.stat().st_size
+        with open(wal, "rb") as f:
+            head = f.read(_WAL_HEADER_SIZE)
+    except OSError:
+        return 0
+    if len(head) < _WAL_HEADER_SIZE:
+        return 0
+    magic, _version, page_size = struct.unpack(">III", head[:12])
+    if magic not in _WAL_MAGIC or page_size < 512 or page_size & (page_size - 1) or page_size > 65536:
+        return 0
+    return (size - _WAL_HEADER_SIZE) // (page_size + _WAL_FRAME_HEADER_SIZE)
 
 
 # --------------------------------------------------------------------------------------------

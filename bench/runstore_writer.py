@@ -17,6 +17,7 @@ from pathlib import Path
 from typing import Any
 
 from bench import __version__
+from bench.errors import ConfigError
 from bench.records import Block, Estimate, Event
 from bench.runstore_reader import RunReader
 from bench.runstore_schema import (
@@ -163,6 +164,26 @@ def _open_recording(path: Path) -> sqlite3.Connection:
         conn.close()
         raise
     return conn
+
+
+def config_meta(cfg: Any) -> dict[str, Any]:
+    """Meta rows a run keeps of its bench beyond the file's text: the cross-section spectrum
+    the bench file names (``spectrum``, `bench.spectra.stored_form`), so that the run does not
+    depend on that file later."""
+    path = cfg.sample.spectrum_file
+    if path is None:
+        return {}
+    from bench import physics, spectra
+
+    zero_line = cfg.sample.zero_line
+    epsilon = float(physics.photon_energy(zero_line)) if zero_line is not None else None
+    record = spectra.stored_form(path, epsilon=epsilon, temperature=cfg.sample.temperature)
+    table = spectra.StoredSpectrum.from_stored(record, path.name).table
+    sigma = cfg.sample.sigma
+    if (table.at(cfg.probe.wavelength) != (sigma.probe_absorption, sigma.probe_emission)
+            or table.at(cfg.pump.wavelength) != (sigma.pump_absorption, sigma.pump_emission)):
+        raise ConfigError(f"{path}: the spectrum file changed after {cfg.source} was read; start again")
+    return {"spectrum": record}
 
 
 def _check_interval(flush_interval: float) -> float:
@@ -359,7 +380,7 @@ class RunWriter(_Appender):
                     clock: Callable[[], float] = time.monotonic) -> RunWriter:
         """`create` with the settings of a `bench.config.BenchConfig` (log dir, flush interval,
         operator, sample id and label, simulated, the bench file's text)."""
-        extra = {"bench_name": cfg.name, "sample_label": cfg.sample.label, **dict(meta or {})}
+        extra = {"bench_name": cfg.name, "sample_label": cfg.sample.label, **config_meta(cfg), **dict(meta or {})}
         return cls.create(
             cfg.run.log_dir if log_dir is None else log_dir,
             bench_text=cfg.text,

@@ -16,13 +16,28 @@ The wavelength column must be strictly increasing or strictly decreasing (a decr
 is reversed) and stay within 200 nm to 20 µm.
 
 Every problem is a `ConfigError` naming the file, the line and what was expected.
+
+A run keeps its spectrum
+------------------------
+A recorded run must not depend on a file that may be edited, moved or deleted later, so the
+run file holds the spectrum itself (`stored_form`, in the run's meta row ``spectrum``): the
+file's text, its name and SHA-256 checksum, the table read from it in SI units (wavelength,
+sigma_a, sigma_e), which column was derived with the McCumber relation and the zero-line
+energy and temperature it was derived with. Reading the run's bench file back inside
+`using_stored` takes the spectrum from there instead of from the file (`spectrum_for_bench`).
 """
 
 from __future__ import annotations
 
+import contextvars
+import hashlib
+import math
 import re
+from collections.abc import Iterator, Mapping
+from contextlib import contextmanager
 from dataclasses import dataclass
 from pathlib import Path
+from typing import Any
 
 import numpy as np
 
@@ -341,3 +356,119 @@ def _derive_missing(data: dict[str, np.ndarray], line_numbers: np.ndarray, sourc
         )
     data[missing] = values
     return missing
+
+
+# --------------------------------------------------------------------------------------------
+# The spectrum stored in a run
+
+#: Version of the `stored_form` layout.
+STORED_FORMAT = 1
+#: Largest spectrum file kept in a run (bytes): a dense grid of a few thousand rows is far less.
+MAX_STORED_BYTES = 4_000_000
+
+
+def stored_form(path, *, epsilon: float | None = None, temperature: float | None = None) -> dict[str, Any]:
+    """The spectrum file ``path`` as a JSON-ready mapping to store in a run (see the module
+    docstring); the same errors as `load_spectrum`."""
+    source = str(path)
+    try:
+        raw = Path(path).read_bytes()
+    except OSError as exc:
+        raise ConfigError(f"{source}: cannot read the spectrum file ({exc.strerror or exc})") from None
+    if len(raw) > MAX_STORED_BYTES:
+        raise ConfigError(f"{source}: {len(raw)} bytes is more than a spectrum file may hold "
+                          f"({MAX_STORED_BYTES} bytes)")
+    try:
+        text = raw.decode("utf-8-sig")
+    except UnicodeDecodeError as exc:
+        raise ConfigError(f"{source}: not a UTF-8 text file (byte {exc.start} cannot be decoded); "
+                          "save the spectrum as UTF-8 CSV") from None
+    spec = parse_spectrum_text(text, source, epsilon=epsilon, temperature=temperature)
+    return {
+        "format": STORED_FORMAT,
+        "source_name": Path(path).name,
+        "sha256": hashlib.sha256(raw).hexdigest(),
+        "text": text,
+        "wavelength_m": spec.wavelength.tolist(),
+        "sigma_a_m2": spec.sigma_a.tolist(),
+        "sigma_e_m2": spec.sigma_e.tolist(),
+        "derived": spec.derived,
+        "derived_with": ("McCumber relation" if spec.derived else None),
+        "zero_line_energy_j": epsilon if spec.derived else None,
+        "temperature_k": temperature if spec.derived else None,
+    }
+
+
+@dataclass(frozen=True, eq=False)
+class StoredSpectrum:
+    """A spectrum as a run stores it; `spectrum` gives the `CrossSectionSpectrum`."""
+
+    table: CrossSectionSpectrum
+    text: str
+    source_name: str
+    sha256: str
+    epsilon: float | None
+    temperature: float | None
+
+    @classmethod
+    def from_stored(cls, record: Any, where: str) -> StoredSpectrum:
+        """Read `stored_form` back; ValueError naming ``where`` if it is not one."""
+        if not isinstance(record, Mapping) or record.get("format") != STORED_FORMAT:
+            raise ValueError(f"{where}: the stored spectrum is not in format {STORED_FORMAT}")
+        text, name, digest = record.get("text"), record.get("source_name"), record.get("sha256")
+        if not all(isinstance(v, str) for v in (text, name, digest)):
+            raise ValueError(f"{where}: the stored spectrum lacks its text, file name or checksum")
+        if hashlib.sha256(text.encode("utf-8")).hexdigest() != digest and not _bom_digest(text, digest):
+            raise ValueError(f"{where}: the stored spectrum's text does not match its checksum")
+        extra = {}
+        for key in ("zero_line_energy_j", "temperature_k"):
+            v = record.get(key)
+            if v is not None and (isinstance(v, bool) or not isinstance(v, (int, float)) or not math.isfinite(v)):
+                raise ValueError(f"{where}: the stored spectrum's {key} is not a number")
+            extra[key] = None if v is None else float(v)
+        try:
+            table = CrossSectionSpectrum(
+                wavelength=record.get("wavelength_m"), sigma_a=record.get("sigma_a_m2"),
+                sigma_e=record.get("sigma_e_m2"), source=f"{name} (stored in {where})",
+                derived=record.get("derived"))
+        except (TypeError, ValueError) as exc:
+            raise ValueError(f"{where}: the stored spectrum's table is damaged ({exc})") from None
+        return cls(table, text, name, digest, extra["zero_line_energy_j"], extra["temperature_k"])
+
+    def spectrum(self, epsilon: float | None, temperature: float | None) -> CrossSectionSpectrum:
+        """The stored table; a derived column is derived again from the stored text only when
+        the zero-line energy or the temperature differ from those it was derived with (a
+        re-analysis that corrects them)."""
+        if self.table.derived is None or (epsilon == self.epsilon and temperature == self.temperature):
+            return self.table
+        return parse_spectrum_text(self.text, self.table.source, epsilon=epsilon, temperature=temperature)
+
+
+def _bom_digest(text: str, digest: str) -> bool:
+    """Whether ``digest`` is that of ``text`` saved with a UTF-8 byte-order mark."""
+    return hashlib.sha256(b"\xef\xbb\xbf" + text.encode("utf-8")).hexdigest() == digest
+
+
+_IN_USE: contextvars.ContextVar[StoredSpectrum | None] = contextvars.ContextVar("stored_spectrum", default=None)
+
+
+@contextmanager
+def using_stored(stored: StoredSpectrum | None) -> Iterator[None]:
+    """Within this block `spectrum_for_bench` gives ``stored`` (if not None) instead of a file."""
+    token = _IN_USE.set(stored)
+    try:
+        yield
+    finally:
+        _IN_USE.reset(token)
+
+
+def spectrum_for_bench(path, *, epsilon: float | None = None,
+                       temperature: float | None = None) -> CrossSectionSpectrum | None:
+    """The spectrum a bench file names: the stored one inside `using_stored`, else the file
+    ``path`` read with `load_spectrum`; None when there is neither (no such file)."""
+    stored = _IN_USE.get()
+    if stored is not None:
+        return stored.spectrum(epsilon, temperature)
+    if not Path(path).exists():
+        return None
+    return load_spectrum(path, epsilon=epsilon, temperature=temperature)

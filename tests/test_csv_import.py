@@ -8,6 +8,11 @@ source); pandas.read_csv as the independent reader of the same file.
 
 from __future__ import annotations
 
+import os
+import subprocess
+import sys
+from pathlib import Path
+
 import numpy as np
 import pandas as pd
 import pytest
@@ -55,9 +60,10 @@ def test_import_holds_the_file_samples(tmp_path, cfg):
         assert r.meta["bench_text"] == cfg.text and r.meta["simulated"] is False
         assert r.meta["mode"] == "chopped" and r.meta["import"]["samples"] == 25_000
         blocks = list(r.iter_blocks())
-    assert [b.n for b in blocks] == [10_000, 10_000, 5_000]
+    # a block also starts at the first pump-on sample (row 5000), so the baseline is taken before it
+    assert [b.n for b in blocks] == [5_000, 10_000, 10_000]
     assert all(b.channels == ("probe", "reference", "pump_monitor") and b.source == "detector" for b in blocks)
-    assert [b.first_index for b in blocks] == [0, 10_000, 20_000]
+    assert [b.first_index for b in blocks] == [0, 5_000, 15_000]
     data = np.vstack([b.data for b in blocks])
     # The same file read by pandas (independent reader) gives the same numbers.
     ref_frame = pd.read_csv(csv, skiprows=3)
@@ -78,7 +84,7 @@ def test_gaps_split_blocks_and_are_logged(tmp_path, cfg):
         blocks = list(r.iter_blocks())
         gaps = [e for e in r.events() if e.kind == "gap"]
         assert r.meta["import"]["missing_samples"] == 3
-    assert [(b.first_index, b.n) for b in blocks] == [(0, 10_000), (10_000, 2_345), (12_348, 2_655)]
+    assert [(b.first_index, b.n) for b in blocks] == [(0, 5_000), (5_000, 7_345), (12_348, 2_655)]
     assert len(gaps) == 1 and gaps[0].data["missing"] == 3
     # Header on line 4 after a 3-line preamble: data row k (from 0) is on line 5 + k.
     assert gaps[0].data["line"] == 5 + 12_345
@@ -158,3 +164,32 @@ def test_not_utf8(tmp_path, cfg):
     csv.write_bytes(HEADER.encode() + b"0,0.8,0.6,0\n" + "1e-6,0.8,0.6,\u00e9\n".encode("latin-1"))
     with pytest.raises(ConfigError, match="is not UTF-8 text"):
         import_csv(csv, COLUMNS, cfg, tmp_path / "logs")
+
+
+@pytest.mark.skipif(not Path("/dev/zero").exists(), reason="needs /dev/zero")
+def test_import_of_dev_zero_is_refused_quickly_with_bounded_memory(tmp_path):
+    """``/dev/zero`` is an endless line of NUL bytes: the import must stop at the first bounded
+    read with an error, not read on until memory runs out. The child runs with its address
+    space limited (RLIMIT_AS, 2 GB): reading the endless line whole would end in a
+    MemoryError traceback there instead of the error and exit status 2."""
+    resource = pytest.importorskip("resource")
+
+    def limit() -> None:
+        resource.setrlimit(resource.RLIMIT_AS, (2 << 30, 2 << 30))
+
+    env = dict(os.environ, PYTHONPATH=str(Path(__file__).resolve().parents[1]))
+    proc = subprocess.run(
+        [sys.executable, "-m", "bench", "import", "/dev/zero", "--logs", str(tmp_path / "logs"),
+         "--columns", "time=t,probe=p,reference=r,pump_on=m"],
+        capture_output=True, text=True, env=env, timeout=120, preexec_fn=limit)
+    assert proc.returncode == 2, proc.stderr[-2000:]
+    assert "/dev/zero: line 1 holds NUL characters: a binary file, not CSV text" in proc.stderr
+    assert "Traceback" not in proc.stderr
+    assert not (tmp_path / "logs").exists()
+
+
+def test_an_overlong_line_is_refused_with_its_number(tmp_path, cfg):
+    from bench.csv_import import MAX_LINE_CHARS
+
+    message = _error(tmp_path, cfg, HEADER + _rows(3) + "1" * (MAX_LINE_CHARS + 10) + "\n")
+    assert f"line 5 is longer than {MAX_LINE_CHARS} characters" in message
