@@ -380,6 +380,9 @@ class _CurveStats:
     ref_common: float  # variance of a ln S_off shared by all decays (stored baseline)
     n_samples: float
     tails: tuple[tuple[int, int], ...] = ()  # (tail samples, decays) of the decays that used a tail
+    level: _ScalarStats = _ScalarStats()  # per decay: settled pump-on ln S before it less its ln S_off
+    level_var: float = 0.0  # sum over those decays of the variance of each value (within-scatter)
+    level_tails: tuple[tuple[int, int], ...] = ()  # as `tails`, for the decays in `level`
 
     @classmethod
     def empty(cls, n_bins: int) -> _CurveStats:
@@ -391,6 +394,13 @@ class _CurveStats:
         y = np.where(c > 0, d.ln_ratio, 0.0)
         tails = dict(self.tails)
         tails[d.tail_n] = tails.get(d.tail_n, 0) + 1
+        level, level_var, level_tails = self.level, self.level_var, self.level_tails
+        if d.on_n > 0:
+            level = level.add(d.on_level, d.on_n)
+            level_var += d.on_var + (0.0 if d.reference == "baseline" else d.ref_var)
+            lt = dict(level_tails)
+            lt[d.tail_n] = lt.get(d.tail_n, 0) + 1
+            level_tails = tuple(sorted(lt.items()))
         return _CurveStats(
             self.n_decays + 1,
             self.count + c,
@@ -402,15 +412,17 @@ class _CurveStats:
             d.ref_var if d.reference == "baseline" else self.ref_common,
             self.n_samples + d.n_samples,
             tuple(sorted(tails.items())),
+            level, level_var, level_tails,
         )
 
-    def tail_residual(self, tail0: int, dt: float, tau: float) -> float:
-        """Mean over decays of the gain left in the tail, as a fraction of ln R(0)
-        (zero for decays referred to the stored baseline)."""
-        if self.n_decays == 0:
+    def tail_residual(self, tail0: int, dt: float, tau: float, of_levels: bool = False) -> float:
+        """Mean over decays (those with an on level if ``of_levels``) of the gain left in the
+        tail, as a fraction of ln R(0) (zero for decays referred to the stored baseline)."""
+        tails, n = (self.level_tails, self.level.k) if of_levels else (self.tails, self.n_decays)
+        if n == 0:
             return 0.0
-        total = sum(k * _residual_mean(tail0, n, dt, tau) for n, k in self.tails if n > 0)
-        return total / self.n_decays
+        total = sum(k * _residual_mean(tail0, m, dt, tau) for m, k in tails if m > 0)
+        return total / n
 
 
 @dataclass(frozen=True, eq=False)
@@ -425,6 +437,9 @@ class _Decay:
     ref_var: float  # variance of ln S_off
     n_samples: float
     tail_n: int  # samples in the tail used as S_off (0 with the stored baseline)
+    on_n: float = 0.0  # settled pump-on samples just before the edge
+    on_level: float = math.nan  # their mean ln S less ln S_off
+    on_var: float = 0.0  # variance of their mean ln S (within-scatter / n)
 
 
 # ============================================================================================
@@ -505,6 +520,14 @@ class _ChoppedCore:
     cum: _ScalarStats = _ScalarStats()
     win_off: _ScalarStats = _ScalarStats()
     cum_off: _ScalarStats = _ScalarStats()
+    off_last: float = math.nan  # ln of the last off level (successive differences)
+    off_dsq: float = 0.0  # sum of squared successive differences of ln off levels
+    off_dn: int = 0
+    frac_sum: float = 0.0  # sum over cycles of the interpolation weight f of the later off level
+    win_corr: float = 0.0  # sum over cycles of the residual-decay correction applied (ln R)
+    cum_corr: float = 0.0
+    ref_sum: float = 0.0  # dark-corrected reference volts, summed over samples
+    ref_n: int = 0
 
 
 @dataclass(frozen=True, eq=False)
@@ -516,6 +539,10 @@ class _DecayCore:
     win: _CurveStats | None = None
     cum: _CurveStats | None = None
     cum_fit: Mapping[str, Any] | None = None  # cached fit of `cum`
+    on_open: tuple[float, float, float] = (0.0, 0.0, 0.0)  # settled on samples of the open on part: n, sum ln S, sum ln S^2
+    on_levels: tuple[tuple[int, float, float, float], ...] = ()  # (edge, n, sum, sum sq) of open decays
+    ref_sum: float = 0.0  # dark-corrected reference volts, summed over samples
+    ref_n: int = 0
 
 
 @dataclass(frozen=True)
@@ -662,6 +689,7 @@ class _Frame:
     edges: np.ndarray  # local indices of pump edges
     start_is_edge: bool  # sample 0 starts a segment (stream start, gap or step)
     over: np.ndarray | None  # samples near full scale (None: none in this block)
+    ref_sum: float = 0.0  # sum of the dark-corrected reference volts (for the dark's share of sigma)
 
 
 def _watch_like(state: EstimatorState) -> bool:
@@ -728,8 +756,9 @@ def _frame(state: EstimatorState, block: Block) -> tuple[_Frame | None, _Clock, 
         # the driver switches the pump on with a soft-start ramp: an edge counts as a step
         settle_n = rise_n = step_n
     else:
-        settle_n = int(math.ceil(p.settle_time / clock.dt - 1e-9))
-        rise_n = int(math.ceil(p.rise_settle_time / clock.dt - 1e-9)) if state.mode != "decay" else settle_n
+        rise_n = int(math.ceil(p.rise_settle(state.settings.get("pump_power")) / clock.dt - 1e-9))
+        off_settle = p.off_settle() if state.mode != "decay" else p.settle_time
+        settle_n = int(math.ceil(off_settle / clock.dt - 1e-9))
     local = np.arange(n)
     if edges.size == 0:
         settled = local >= (last_edge + (rise_n if on[0] else settle_n) - i0)
@@ -753,8 +782,9 @@ def _frame(state: EstimatorState, block: Block) -> tuple[_Frame | None, _Clock, 
         last_step=last_step,
         step_pending=False,
     )
+    ref = vr - state.dark.reference if state.dark is not None else vr
     frame = _Frame(i0=i0, n=n, s=s, on=on, change=change, settled=settled, edges=edges,
-                   start_is_edge=restart or pump.step_pending, over=over)
+                   start_is_edge=restart or pump.step_pending, over=over, ref_sum=float(np.sum(ref)))
     return frame, clock, new_pump
 
 
@@ -1007,7 +1037,7 @@ def _chopped_ingest(core: _ChoppedCore, f: _Frame, clock: _Clock, p: EstimatorPa
         sm[0] += core.open_sum
         isum[0] += core.open_isum
     items: list = []
-    settle_n = int(math.ceil(p.settle_time / clock.dt - 1e-9))
+    settle_n = int(math.ceil(p.off_settle() / clock.dt - 1e-9))
     recent = list(core.recent)
     if core.open_start >= 0 and not continuing:
         recent = []  # the stream restarted: no triple across it
@@ -1037,19 +1067,24 @@ def _chopped_ingest(core: _ChoppedCore, f: _Frame, clock: _Clock, p: EstimatorPa
             items.append((sgm.end, "cycle", cyc))
         elif len(recent) >= 2 and recent[-2].on and not sgm.on:
             items.append((sgm.end, "skip", None))
-    new_core = dataclasses.replace(new_core, recent=tuple(recent[-2:]))
+    new_core = dataclasses.replace(new_core, recent=tuple(recent[-2:]), ref_sum=core.ref_sum + f.ref_sum,
+                                   ref_n=core.ref_n + f.n)
     return new_core, items
 
 
-def _cycle(recent: list[_Segment], first_pair: bool) -> tuple[float, float] | None:
-    """ln R of the on segment in the middle of the last three finished segments, or None."""
+def _cycle(recent: list[_Segment], first_pair: bool) -> tuple[float, float, float, float] | None:
+    """(ln R, samples, residual-decay correction in ln R, weight f of the later off level) of
+    the on segment in the middle of the last three finished segments, or None."""
     if first_pair:
         on, off_a = recent[-2], recent[-1]
         if not (on.on and not off_a.on and on.n > 0 and off_a.n > 0):
             return None
+        if not (on.mean > 0 and off_a.mean > 0):
+            return None
         a = math.log(on.mean / off_a.mean)
         s_off = off_a.mean * math.exp(-a * off_a.residual)
-        return math.log(on.mean / s_off), on.n + off_a.n
+        x = math.log(on.mean / s_off)
+        return x, on.n + off_a.n, x - a, 1.0
     if len(recent) < 3:
         return None
     off_b, on, off_a = recent[-3], recent[-2], recent[-1]
@@ -1063,20 +1098,88 @@ def _cycle(recent: list[_Segment], first_pair: bool) -> tuple[float, float] | No
     sb = off_b.mean * math.exp(-a * off_b.residual)
     sa = off_a.mean * math.exp(-a * off_a.residual)
     s_off = sb + (sa - sb) * frac
-    return math.log(on.mean / s_off), off_b.n + on.n + off_a.n
+    x = math.log(on.mean / s_off)
+    return x, off_b.n + on.n + off_a.n, x - a, frac
 
 
 def _chopped_add(core: _ChoppedCore, item) -> _ChoppedCore:
     _, kind, payload = item
     if kind == "cycle":
-        x, n = payload
-        return dataclasses.replace(core, win=core.win.add(x, n), cum=core.cum.add(x, n))
+        x, n, corr, frac = payload
+        return dataclasses.replace(core, win=core.win.add(x, n), cum=core.cum.add(x, n),
+                                   frac_sum=core.frac_sum + frac, win_corr=core.win_corr + corr,
+                                   cum_corr=core.cum_corr + corr)
     if kind == "off":
         # the pump-off level, less the residual of the last gain decay (ln R from the cycles so far)
         a = core.cum.mean() if core.cum.k else 0.0
         m = payload.mean * math.exp(-a * payload.residual)
-        return dataclasses.replace(core, win_off=core.win_off.add(m, payload.n), cum_off=core.cum_off.add(m, payload.n))
+        lm = math.log(m) if m > 0 else math.nan
+        dsq, dn = core.off_dsq, core.off_dn
+        if math.isfinite(core.off_last) and math.isfinite(lm):
+            dsq, dn = dsq + (lm - core.off_last) ** 2, dn + 1
+        return dataclasses.replace(core, win_off=core.win_off.add(m, payload.n), cum_off=core.cum_off.add(m, payload.n),
+                                   off_last=lm, off_dsq=dsq, off_dn=dn)
     return core
+
+
+def _chopped_noise(core: _ChoppedCore, stats: _ScalarStats) -> float:
+    """Noise sigma of the mean ln R of the cycles in ``stats`` (nan if it cannot be told).
+
+    Neighbouring cycles share the off level between them, so their ln R values are correlated
+    at lag one, ``gamma_1 = f (1 - f) var(ln S_off)`` (``f`` the interpolation weight of the
+    later off level, 1/2 at a 50 % duty cycle), and at no other lag: the exact variance of the
+    mean of ``k`` cycles is ``(gamma_0 + 2 gamma_1 (k - 1) / k) / k``, which with the sample
+    variance ``s^2`` (whose expectation is ``gamma_0 - 2 gamma_1 / k``) is
+    ``(s^2 + 2 gamma_1) / k`` [1]_ (the covariance form of the blocking analysis of [2]_).
+    ``var(ln S_off)`` is half the mean squared difference of successive off levels (von
+    Neumann), which a linear drift of the transmission does not inflate [3]_. A window of one
+    or two cycles takes the scatter of all cycles so far.
+
+    References
+    ----------
+    .. [1] M. B. Priestley, *Spectral Analysis and Time Series*, Academic Press, 1981,
+       sec. 5.3 (variance of the mean of a stationary sequence).
+    .. [2] H. Flyvbjerg and H. G. Petersen, J. Chem. Phys. 91, 461 (1989).
+    .. [3] J. von Neumann, R. H. Kent, H. R. Bellinson and B. I. Hart, "The mean square
+       successive difference", Ann. Math. Statist. 12, 153 (1941).
+    """
+    k = stats.k
+    cum = core.cum
+    if cum.k == 0 or k == 0:
+        return math.nan
+    f = core.frac_sum / cum.k
+    v_off = 0.5 * core.off_dsq / core.off_dn if core.off_dn >= 2 else 0.0
+    gamma1 = f * (1.0 - f) * v_off
+    if k >= 3:
+        s2 = stats.std() ** 2
+    elif cum.k >= 3:
+        s2 = cum.std() ** 2
+    else:
+        return math.nan
+    return math.sqrt(max(s2 + 2.0 * gamma1 * (k - 1) / k + 2.0 * gamma1 / k, 0.0) / k)
+
+
+def _dark_noise(dark: Dark | None, ref_level: float, s_off: float, ln_ratio: float) -> float:
+    """The dark's share of the noise of ln R: an error ``d`` of the probe dark moves ``ln S``
+    by ``-d / (S V_ref)``, so ln R by ``d (1 / S_off - 1 / S_on) / V_ref`` (not second order:
+    S_on and S_off differ by the factor R); the reference dark cancels in the ratio."""
+    if dark is None or not (ref_level > 0 and s_off > 0 and math.isfinite(ln_ratio)):
+        return 0.0
+    s_on = s_off * math.exp(ln_ratio)
+    return abs(dark.probe_sigma * (1.0 / s_off - 1.0 / s_on) / ref_level)
+
+
+def _with_ln_ratio_systematic(values: dict[str, Quantity], sys: float) -> dict[str, Quantity]:
+    """``values`` (from `figures`) with a systematic part ``sys`` of ln R propagated into every
+    figure through its noise sensitivity to ln R (linear, GUM sec. 5.1), in quadrature."""
+    q = values.get("ln_ratio")
+    if q is None or not (sys > 0) or not q.sigma_noise > 0:
+        return values
+    out = {}
+    for name, v in values.items():
+        sens = v.sigma_noise / q.sigma_noise
+        out[name] = _q(v.value, v.sigma_noise, math.hypot(v.sigma_systematic, sens * sys))
+    return out
 
 
 def _chopped_estimate(state: EstimatorState, core: _ChoppedCore, scope: str, t: float, counts: _Counts) -> Estimate:
@@ -1093,14 +1196,19 @@ def _chopped_estimate(state: EstimatorState, core: _ChoppedCore, scope: str, t: 
         flags.add("not_settled")
     else:
         lnr = stats.mean()
-        if stats.k >= 3:
-            sn = stats.error()
-        elif core.cum.k >= 3:  # a window of one or two cycles: the scatter of all cycles so far
-            sn = core.cum.std() / math.sqrt(stats.k)
-        else:
-            sn = math.nan
+        sn = _chopped_noise(core, stats)
         if math.isfinite(sn):
+            ref = core.ref_sum / core.ref_n if core.ref_n else math.nan
+            s_off = core.cum_off.mean() if core.cum_off.k else math.nan
+            sn = math.hypot(sn, _dark_noise(state.dark, ref, s_off, lnr))
             values = figures(p, lnr, sn, wl)
+            # the residual-decay correction of the off levels: the edge lies somewhere in its
+            # sample interval (uniform) and tau is known to u_tau
+            corr = abs((core.win_corr if scope == "window" else core.cum_corr) / stats.k)
+            t0 = p.off_settle() / p.tau
+            dt = state.clock.dt
+            rel = math.hypot(dt / p.tau / math.sqrt(12.0), (t0 + 1.0) * p.u_tau)
+            values = _with_ln_ratio_systematic(values, corr * rel)
             flags |= _snr_flags(values, p, stats.k if scope == "cumulative" else core.cum.k)
         else:
             flags.add("low_snr")
@@ -1135,8 +1243,31 @@ def _decay_ingest(core: _DecayCore, f: _Frame, clock: _Clock, p: EstimatorParams
     offedge = f.change & off
     off_local = np.flatnonzero(offedge)
     carry_edge = core.open_edge if not f.start_is_edge else -1
+    # the settled pump-on level (mean ln S) before each on->off edge: ln R(0) of its decay
+    seg = np.cumsum(f.change)
+    nseg = int(seg[-1]) + 1
+    with np.errstate(invalid="ignore", divide="ignore"):
+        ls_all = np.log(f.s)
+    won = f.on & f.settled & np.isfinite(ls_all)
+    lsz = np.where(won, ls_all, 0.0)
+    on_c = np.bincount(seg, weights=won.astype(np.float64), minlength=nseg)
+    on_1 = np.bincount(seg, weights=lsz, minlength=nseg)
+    on_2 = np.bincount(seg, weights=lsz * lsz, minlength=nseg)
+    if not f.start_is_edge:
+        c0, a0, b0 = core.on_open
+        on_c[0] += c0
+        on_1[0] += a0
+        on_2[0] += b0
+    last = nseg - 1
+    on_open = (float(on_c[last]), float(on_1[last]), float(on_2[last])) if f.on[-1] else (0.0, 0.0, 0.0)
+    levels = {} if f.start_is_edge else {e: (n_, a_, b_) for e, n_, a_, b_ in core.on_levels}
+    for e in off_local:
+        j = int(seg[e]) - 1
+        if j >= 0:
+            levels[f.i0 + int(e)] = (float(on_c[j]), float(on_1[j]), float(on_2[j]))
+    core = dataclasses.replace(core, on_open=on_open, ref_sum=core.ref_sum + f.ref_sum, ref_n=core.ref_n + f.n)
     if off_local.size == 0 and carry_edge < 0:
-        return dataclasses.replace(core, open_edge=-1, open_sums=None), []
+        return dataclasses.replace(core, open_edge=-1, open_sums=None, on_levels=()), []
     # the last on->off edge index for each sample (global), -1 if none known
     local = np.arange(f.n)
     if off_local.size:
@@ -1177,14 +1308,16 @@ def _decay_ingest(core: _DecayCore, f: _Frame, clock: _Clock, p: EstimatorParams
         if later.size:
             end = min(end, int(later[0]))
         if end - 1 <= last_index:
-            items.append(_finish_decay(state, core, e, end, sums[:, d, :], fit_n, tail0, dt))
+            items.append(_finish_decay(state, core, e, end, sums[:, d, :], fit_n, tail0, dt,
+                                       levels.get(e, (0.0, 0.0, 0.0))))
         else:
             new_open_edge, new_open = e, sums[:, d, :].copy()
-    return dataclasses.replace(core, open_edge=new_open_edge, open_sums=new_open), items
+    kept = ((new_open_edge, *levels[new_open_edge]),) if new_open_edge in levels else ()
+    return dataclasses.replace(core, open_edge=new_open_edge, open_sums=new_open, on_levels=kept), items
 
 
 def _finish_decay(state: EstimatorState, core: _DecayCore, edge: int, end: int, sums: np.ndarray, fit_n: int,
-                  tail0: int, dt: float):
+                  tail0: int, dt: float, on_sums: tuple[float, float, float] = (0.0, 0.0, 0.0)):
     p = state.params
     nb = core.n_bins
     b = end - 1
@@ -1213,7 +1346,16 @@ def _finish_decay(state: EstimatorState, core: _DecayCore, edge: int, end: int, 
         ref_var = (state.baseline.sigma / state.baseline.value) ** 2
         tail_n = 0
     lnr = np.where(good, mean - ln_off, 0.0)
-    return (b, "decay", _Decay(b, c, lnr, ss, use, ref_var, float(np.sum(c) + tc), tail_n))
+    on_n, on_1, on_2 = on_sums
+    on_level, on_var = math.nan, 0.0
+    if on_n >= 2:
+        m_on = on_1 / on_n
+        on_level = m_on - ln_off
+        on_var = max(on_2 - on_1 * m_on, 0.0) / (on_n - 1) / on_n
+    else:
+        on_n = 0.0
+    return (b, "decay", _Decay(b, c, lnr, ss, use, ref_var, float(np.sum(c) + tc), tail_n,
+                               on_n, on_level, on_var))
 
 
 def _decay_add(core: _DecayCore, item) -> _DecayCore:
@@ -1301,11 +1443,12 @@ def _decay_fit(state: EstimatorState, core: _DecayCore, stats: _CurveStats, dt: 
     if math.isfinite(da):
         var_a += da * da * ref_var
         var_tau += dtau * dtau * ref_var
-    # where the pump really went off within the sample interval: uniform over dt
-    var_a += (a * dt / tau) ** 2 / 12.0
     return {
         "amplitude": a,
         "amplitude_sigma": math.sqrt(var_a),
+        # where the pump really went off within its sample interval (uniform over dt): the
+        # same for every decay of a chop commensurate with the sample clock, so systematic
+        "amplitude_edge_sys": abs(a) * dt / tau / math.sqrt(12.0),
         "tau": tau,
         "tau_sigma": math.sqrt(var_tau),
         "chi2_reduced": fit.chi2_reduced,
@@ -1314,6 +1457,41 @@ def _decay_fit(state: EstimatorState, core: _DecayCore, stats: _CurveStats, dt: 
         "y": y,
         "sigma": sig * math.sqrt(max(fit.chi2_reduced, 0.0)) if math.isfinite(fit.chi2_reduced) else sig,
     }
+
+
+def _decay_level(state: EstimatorState, core: _DecayCore, stats: _CurveStats,
+                 fit: Mapping[str, Any]) -> tuple[float, float] | None:
+    """(ln R(0), its noise sigma) from the settled pump-on level before each decay, or None.
+
+    Just before the pump goes off, ln R is the settled pump-on level, so ``ln R(0)`` is the
+    mean over decays of (mean ln S of the settled pump-on samples before the edge) less
+    (ln S_off of the same decay). This needs no edge position, unlike the fitted amplitude,
+    whose extrapolation to the edge carries ``(A dt / tau)^2 / 12`` from an edge anywhere in
+    its sample interval. A tail taken as ``S_off`` still holds ``ln R(0) rho`` of gain
+    (`_CurveStats.tail_residual`, with the fitted decay time), put back by dividing by
+    ``1 - rho``. The noise is the scatter of the per-decay values (independent: each pairs an
+    on level with the tail right after it) over sqrt(k), or for fewer than three decays their
+    within-scatter; a stored baseline adds its own error once; the dark's share is added.
+    """
+    lv = stats.level
+    if lv.k == 0:
+        return None
+    p = state.params
+    dt = state.clock.dt
+    tail0 = int(math.ceil(p.decay_tail_start / dt))
+    rho = stats.tail_residual(tail0, dt, fit["tau"], of_levels=True)
+    d = lv.mean()
+    if lv.k >= 3:
+        var = lv.std() ** 2 / lv.k
+    else:
+        var = stats.level_var / lv.k**2
+    if any(n == 0 for n, _ in stats.level_tails):  # decays referred to the stored baseline
+        var += stats.ref_common
+    lnr0 = d / (1.0 - rho)
+    ref = core.ref_sum / core.ref_n if core.ref_n else math.nan
+    s_off = state.baseline.value if state.baseline is not None else math.nan
+    sn = math.hypot(math.sqrt(var) / (1.0 - rho), _dark_noise(state.dark, ref, s_off, lnr0))
+    return lnr0, sn
 
 
 def _lifetime_from_decay(p: EstimatorParams, decay_time: float, sigma: float,
@@ -1356,7 +1534,15 @@ def _decay_estimate(state: EstimatorState, core: _DecayCore, scope: str, t: floa
         else:
             flags.add("low_snr")
     else:
-        values = figures(p, fit["amplitude"], fit["amplitude_sigma"], wl)
+        level = _decay_level(state, core, stats, fit)
+        if level is not None:
+            lnr0, sn0 = level
+            values = figures(p, lnr0, sn0, wl)
+            extra["ln_ratio_from"] = "on_level"
+        else:
+            values = _with_ln_ratio_systematic(figures(p, fit["amplitude"], fit["amplitude_sigma"], wl),
+                                               fit["amplitude_edge_sys"])
+            extra["ln_ratio_from"] = "fit"
         tau, tau_sigma, probe_rate = _lifetime_from_decay(p, fit["tau"], fit["tau_sigma"], wl)
         xs = p.cross_sections_at(wl)
         u_rate = 0.0
@@ -1403,7 +1589,7 @@ def _step_figure(state: EstimatorState, inner) -> tuple[float, float, int, float
     stats = inner.cum
     if stats.k < 3:
         return None
-    return stats.mean(), stats.error(), stats.k, stats.n_samples
+    return stats.mean(), _chopped_noise(inner, stats), stats.k, stats.n_samples
 
 
 def _close_step(state: EstimatorState) -> EstimatorState:
@@ -1606,12 +1792,12 @@ def _reset_window(state: EstimatorState, core):
     if state.mode == "watch":
         return dataclasses.replace(core, win=_BatchStats())
     if state.mode == "chopped":
-        return dataclasses.replace(core, win=_ScalarStats(), win_off=_ScalarStats())
+        return dataclasses.replace(core, win=_ScalarStats(), win_off=_ScalarStats(), win_corr=0.0)
     if state.mode == "decay":
         return dataclasses.replace(core, win=_CurveStats.empty(core.n_bins))
     inner = core.inner
     inner = (dataclasses.replace(inner, win=_BatchStats()) if isinstance(inner, _WatchCore)
-             else dataclasses.replace(inner, win=_ScalarStats(), win_off=_ScalarStats()))
+             else dataclasses.replace(inner, win=_ScalarStats(), win_off=_ScalarStats(), win_corr=0.0))
     return dataclasses.replace(core, inner=inner)
 
 
