@@ -505,6 +505,8 @@ class _Segment:
     centre: float  # mean index of the settled samples
     residual: float  # mean exp(-t/tau) over the settled samples (t since the edge), off parts
     after_edge: bool  # starts at a real pump edge (not a stream start, gap or step)
+    monitor: float = math.nan  # mean pump monitor over the settled samples
+    steady: bool = True  # on parts: the pump level matches the previous on part's (no ramp)
 
 
 @dataclass(frozen=True)
@@ -515,14 +517,17 @@ class _ChoppedCore:
     open_n: float = 0.0
     open_sum: float = 0.0
     open_isum: float = 0.0
+    open_msum: float = 0.0
+    last_on_monitor: float = math.nan  # mean pump monitor of the last finished on segment
     recent: tuple[_Segment, ...] = ()  # the last two finished segments
     win: _ScalarStats = _ScalarStats()
     cum: _ScalarStats = _ScalarStats()
     win_off: _ScalarStats = _ScalarStats()
     cum_off: _ScalarStats = _ScalarStats()
-    off_last: float = math.nan  # ln of the last off level (successive differences)
-    off_dsq: float = 0.0  # sum of squared successive differences of ln off levels
+    off_dsum: float = 0.0  # sum over cycles of d = ln S_off after - ln S_off before
+    off_dsq: float = 0.0  # sum of d^2
     off_dn: int = 0
+    warm: bool = False  # a cycle at a steady pump level has been seen since the stream (re)started
     frac_sum: float = 0.0  # sum over cycles of the interpolation weight f of the later off level
     win_corr: float = 0.0  # sum over cycles of the residual-decay correction applied (ln R)
     cum_corr: float = 0.0
@@ -539,7 +544,9 @@ class _DecayCore:
     win: _CurveStats | None = None
     cum: _CurveStats | None = None
     cum_fit: Mapping[str, Any] | None = None  # cached fit of `cum`
-    on_open: tuple[float, float, float] = (0.0, 0.0, 0.0)  # settled on samples of the open on part: n, sum ln S, sum ln S^2
+    on_open: tuple[float, float, float, float] = (0.0, 0.0, 0.0, 0.0)  # settled samples of the open on part: n, sum ln S, sum ln S^2, sum monitor
+    on_open_after_edge: bool = False  # the open on part started at a rising edge
+    last_on_monitor: float = math.nan  # mean pump monitor of the last finished on part
     on_levels: tuple[tuple[int, float, float, float], ...] = ()  # (edge, n, sum, sum sq) of open decays
     ref_sum: float = 0.0  # dark-corrected reference volts, summed over samples
     ref_n: int = 0
@@ -690,6 +697,7 @@ class _Frame:
     start_is_edge: bool  # sample 0 starts a segment (stream start, gap or step)
     over: np.ndarray | None  # samples near full scale (None: none in this block)
     ref_sum: float = 0.0  # sum of the dark-corrected reference volts (for the dark's share of sigma)
+    monitor: np.ndarray | None = None  # the pump monitor volts
 
 
 def _watch_like(state: EstimatorState) -> bool:
@@ -784,7 +792,8 @@ def _frame(state: EstimatorState, block: Block) -> tuple[_Frame | None, _Clock, 
     )
     ref = vr - state.dark.reference if state.dark is not None else vr
     frame = _Frame(i0=i0, n=n, s=s, on=on, change=change, settled=settled, edges=edges,
-                   start_is_edge=restart or pump.step_pending, over=over, ref_sum=float(np.sum(ref)))
+                   start_is_edge=restart or pump.step_pending, over=over, ref_sum=float(np.sum(ref)),
+                   monitor=vm)
     return frame, clock, new_pump
 
 
@@ -1021,10 +1030,12 @@ def _chopped_ingest(core: _ChoppedCore, f: _Frame, clock: _Clock, p: EstimatorPa
         cnt = np.array([float(np.count_nonzero(w))])
         sm = np.array([float(np.sum(f.s, where=w))])
         isum = np.array([float(np.sum(np.arange(f.i0, f.i0 + f.n, dtype=np.float64), where=w))])
+        msum = np.array([float(np.sum(f.monitor, where=w))])
     else:
         cnt = np.bincount(seg, weights=w, minlength=nseg)
         sm = np.bincount(seg, weights=np.where(w, f.s, 0.0), minlength=nseg)
         isum = np.bincount(seg, weights=np.where(w, np.arange(f.i0, f.i0 + f.n, dtype=np.float64), 0.0), minlength=nseg)
+        msum = np.bincount(seg, weights=np.where(w, f.monitor, 0.0), minlength=nseg)
     starts = [f.i0] + [f.i0 + int(e) for e in f.edges]
     ons = [bool(f.on[0])] + [bool(f.on[e]) for e in f.edges]
     after = [False] + [True] * int(f.edges.size)
@@ -1036,12 +1047,15 @@ def _chopped_ingest(core: _ChoppedCore, f: _Frame, clock: _Clock, p: EstimatorPa
         cnt[0] += core.open_n
         sm[0] += core.open_sum
         isum[0] += core.open_isum
+        msum[0] += core.open_msum
     items: list = []
     settle_n = int(math.ceil(p.off_settle() / clock.dt - 1e-9))
     recent = list(core.recent)
     if core.open_start >= 0 and not continuing:
         recent = []  # the stream restarted: no triple across it
     finished: list[_Segment] = []
+    last_on = core.last_on_monitor if continuing else math.nan
+    warm = core.warm and continuing
     for j in range(nseg - 1):
         if j == 0 and f.edges.size and f.edges[0] == 0 and not continuing:
             continue  # the block starts with an edge and there is no open segment: nothing here
@@ -1051,11 +1065,16 @@ def _chopped_ingest(core: _ChoppedCore, f: _Frame, clock: _Clock, p: EstimatorPa
         mean = float(sm[j] / n_j) if n_j > 0 else math.nan
         centre = float(isum[j] / n_j) if n_j > 0 else math.nan
         res = _residual_mean(settle_n, n_j, clock.dt, p.tau) if (after[j] and not ons[j]) else 0.0
-        finished.append(_Segment(start, end, ons[j], n_j, mean, centre, res, after[j]))
+        mon = float(msum[j] / n_j) if n_j > 0 else math.nan
+        steady = True
+        if ons[j] and n_j > 0:
+            steady, last_on = _pump_steady(mon, last_on, after[j]), mon
+        finished.append(_Segment(start, end, ons[j], n_j, mean, centre, res, after[j], mon, steady))
     last = nseg - 1
     new_core = dataclasses.replace(
         core, open_start=starts[last], open_on=ons[last], open_after_edge=after[last],
-        open_n=float(cnt[last]), open_sum=float(sm[last]), open_isum=float(isum[last]))
+        open_n=float(cnt[last]), open_sum=float(sm[last]), open_isum=float(isum[last]),
+        open_msum=float(msum[last]), last_on_monitor=last_on)
     for sgm in finished:
         if not sgm.on and sgm.n > 0:
             items.append((sgm.end, "off", sgm))
@@ -1063,18 +1082,38 @@ def _chopped_ingest(core: _ChoppedCore, f: _Frame, clock: _Clock, p: EstimatorPa
         if len(recent) > 3:
             recent.pop(0)
         cyc = _cycle(recent, first_pair=len(recent) == 2 and not recent[0].after_edge and recent[0].on)
+        if cyc is not None and not recent[-2].steady:
+            cyc = None  # the pump was still ramping up (a soft start): not a settled cycle
         if cyc is not None:
             items.append((sgm.end, "cycle", cyc))
+            warm = True
         elif len(recent) >= 2 and recent[-2].on and not sgm.on:
-            items.append((sgm.end, "skip", None))
+            # before the first steady cycle the pump is still coming up: expected, not a fault
+            items.append((sgm.end, "skip" if warm else "warmup", None))
     new_core = dataclasses.replace(new_core, recent=tuple(recent[-2:]), ref_sum=core.ref_sum + f.ref_sum,
-                                   ref_n=core.ref_n + f.n)
+                                   ref_n=core.ref_n + f.n, warm=warm)
     return new_core, items
 
 
-def _cycle(recent: list[_Segment], first_pair: bool) -> tuple[float, float, float, float] | None:
-    """(ln R, samples, residual-decay correction in ln R, weight f of the later off level) of
-    the on segment in the middle of the last three finished segments, or None."""
+#: Two successive pump-on parts have the same pump level when their mean pump-monitor readings
+#: agree to this fraction (common practice, no source: a soft-start ramp differs by tens of %).
+PUMP_LEVEL_TOLERANCE = 2e-3
+
+
+def _pump_steady(monitor: float, previous: float, after_edge: bool) -> bool:
+    """Whether a pump-on part ran at a steady pump level: its mean monitor reading matches
+    the previous on part's. The first on part after a rising edge with no earlier on part to
+    compare with (the output just switched on, perhaps with a soft-start ramp) is not trusted;
+    one that starts with the stream (after the step settle time) is."""
+    if not math.isfinite(previous):
+        return not after_edge
+    return abs(monitor - previous) <= PUMP_LEVEL_TOLERANCE * max(abs(previous), abs(monitor))
+
+
+def _cycle(recent: list[_Segment], first_pair: bool) -> tuple[float, float, float, float, float] | None:
+    """(ln R, samples, residual-decay correction in ln R, weight f of the later off level,
+    difference of the two ln off levels or nan) of the on segment in the middle of the
+    last three finished segments, or None."""
     if first_pair:
         on, off_a = recent[-2], recent[-1]
         if not (on.on and not off_a.on and on.n > 0 and off_a.n > 0):
@@ -1084,7 +1123,7 @@ def _cycle(recent: list[_Segment], first_pair: bool) -> tuple[float, float, floa
         a = math.log(on.mean / off_a.mean)
         s_off = off_a.mean * math.exp(-a * off_a.residual)
         x = math.log(on.mean / s_off)
-        return x, on.n + off_a.n, x - a, 1.0
+        return x, on.n + off_a.n, x - a, 1.0, math.nan
     if len(recent) < 3:
         return None
     off_b, on, off_a = recent[-3], recent[-2], recent[-1]
@@ -1099,26 +1138,24 @@ def _cycle(recent: list[_Segment], first_pair: bool) -> tuple[float, float, floa
     sa = off_a.mean * math.exp(-a * off_a.residual)
     s_off = sb + (sa - sb) * frac
     x = math.log(on.mean / s_off)
-    return x, off_b.n + on.n + off_a.n, x - a, frac
+    return x, off_b.n + on.n + off_a.n, x - a, frac, math.log(sa / sb)
 
 
 def _chopped_add(core: _ChoppedCore, item) -> _ChoppedCore:
     _, kind, payload = item
     if kind == "cycle":
-        x, n, corr, frac = payload
+        x, n, corr, frac, d = payload
+        ds, dsq, dn = core.off_dsum, core.off_dsq, core.off_dn
+        if math.isfinite(d):
+            ds, dsq, dn = ds + d, dsq + d * d, dn + 1
         return dataclasses.replace(core, win=core.win.add(x, n), cum=core.cum.add(x, n),
                                    frac_sum=core.frac_sum + frac, win_corr=core.win_corr + corr,
-                                   cum_corr=core.cum_corr + corr)
+                                   cum_corr=core.cum_corr + corr, off_dsum=ds, off_dsq=dsq, off_dn=dn)
     if kind == "off":
         # the pump-off level, less the residual of the last gain decay (ln R from the cycles so far)
         a = core.cum.mean() if core.cum.k else 0.0
         m = payload.mean * math.exp(-a * payload.residual)
-        lm = math.log(m) if m > 0 else math.nan
-        dsq, dn = core.off_dsq, core.off_dn
-        if math.isfinite(core.off_last) and math.isfinite(lm):
-            dsq, dn = dsq + (lm - core.off_last) ** 2, dn + 1
-        return dataclasses.replace(core, win_off=core.win_off.add(m, payload.n), cum_off=core.cum_off.add(m, payload.n),
-                                   off_last=lm, off_dsq=dsq, off_dn=dn)
+        return dataclasses.replace(core, win_off=core.win_off.add(m, payload.n), cum_off=core.cum_off.add(m, payload.n))
     return core
 
 
@@ -1131,9 +1168,9 @@ def _chopped_noise(core: _ChoppedCore, stats: _ScalarStats) -> float:
     mean of ``k`` cycles is ``(gamma_0 + 2 gamma_1 (k - 1) / k) / k``, which with the sample
     variance ``s^2`` (whose expectation is ``gamma_0 - 2 gamma_1 / k``) is
     ``(s^2 + 2 gamma_1) / k`` [1]_ (the covariance form of the blocking analysis of [2]_).
-    ``var(ln S_off)`` is half the mean squared difference of successive off levels (von
-    Neumann), which a linear drift of the transmission does not inflate [3]_. A window of one
-    or two cycles takes the scatter of all cycles so far.
+    ``var(ln S_off)`` is half the mean squared difference of the two off levels around each
+    cycle, less their mean (a linear drift moves every difference alike) [3]_. A
+    window of one or two cycles takes the scatter of all cycles so far.
 
     References
     ----------
@@ -1148,7 +1185,8 @@ def _chopped_noise(core: _ChoppedCore, stats: _ScalarStats) -> float:
     if cum.k == 0 or k == 0:
         return math.nan
     f = core.frac_sum / cum.k
-    v_off = 0.5 * core.off_dsq / core.off_dn if core.off_dn >= 2 else 0.0
+    n = core.off_dn
+    v_off = 0.5 * max(core.off_dsq / n - (core.off_dsum / n) ** 2, 0.0) * n / (n - 1) if n >= 2 else 0.0
     gamma1 = f * (1.0 - f) * v_off
     if k >= 3:
         s2 = stats.std() ** 2
@@ -1253,19 +1291,31 @@ def _decay_ingest(core: _DecayCore, f: _Frame, clock: _Clock, p: EstimatorParams
     on_c = np.bincount(seg, weights=won.astype(np.float64), minlength=nseg)
     on_1 = np.bincount(seg, weights=lsz, minlength=nseg)
     on_2 = np.bincount(seg, weights=lsz * lsz, minlength=nseg)
+    on_m = np.bincount(seg, weights=np.where(won, f.monitor, 0.0), minlength=nseg)
+    after0 = False
+    last_on = math.nan
     if not f.start_is_edge:
-        c0, a0, b0 = core.on_open
+        c0, a0, b0, m0 = core.on_open
         on_c[0] += c0
         on_1[0] += a0
         on_2[0] += b0
+        on_m[0] += m0
+        after0 = core.on_open_after_edge
+        last_on = core.last_on_monitor
     last = nseg - 1
-    on_open = (float(on_c[last]), float(on_1[last]), float(on_2[last])) if f.on[-1] else (0.0, 0.0, 0.0)
+    on_open = ((float(on_c[last]), float(on_1[last]), float(on_2[last]), float(on_m[last])) if f.on[-1]
+               else (0.0, 0.0, 0.0, 0.0))
     levels = {} if f.start_is_edge else {e: (n_, a_, b_) for e, n_, a_, b_ in core.on_levels}
     for e in off_local:
         j = int(seg[e]) - 1
-        if j >= 0:
-            levels[f.i0 + int(e)] = (float(on_c[j]), float(on_1[j]), float(on_2[j]))
-    core = dataclasses.replace(core, on_open=on_open, ref_sum=core.ref_sum + f.ref_sum, ref_n=core.ref_n + f.n)
+        if j >= 0 and on_c[j] > 0:
+            mon = float(on_m[j] / on_c[j])
+            steady = _pump_steady(mon, last_on, after0 if j == 0 else True)
+            last_on = mon
+            if steady:  # not while the pump still ramps up (soft start)
+                levels[f.i0 + int(e)] = (float(on_c[j]), float(on_1[j]), float(on_2[j]))
+    core = dataclasses.replace(core, on_open=on_open, on_open_after_edge=(last > 0) or after0,
+                               last_on_monitor=last_on, ref_sum=core.ref_sum + f.ref_sum, ref_n=core.ref_n + f.n)
     if off_local.size == 0 and carry_edge < 0:
         return dataclasses.replace(core, open_edge=-1, open_sums=None, on_levels=()), []
     # the last on->off edge index for each sample (global), -1 if none known
