@@ -102,3 +102,15 @@ def check_timing(params: EstimatorParams, mode: str, period: float, pump_power: 
             f"edge, shorter than the {off * ms:.3g} ms of decay that is fitted: no decay can be "
             f"used. It needs a period of at least {2 * off * ms:.3g} ms; the default is "
             f"{default_period(params, mode, pump_power) * ms:.4g} ms")
+
+
+def run_period(cfg, mode: str, current: float, period: float | None = None) -> float:
+    """The pump modulation period (s) a chopped or decay run on bench ``cfg`` at pump
+    ``current`` (A) will use: ``period`` if given, else `default_period`; `TimingError` (with
+    the figures) if it leaves no settled data. Cheap and without I/O: call it before anything
+    is opened."""
+    params = EstimatorParams.from_config(cfg)
+    power = cfg.pump.power_at(current)
+    chosen = default_period(params, mode, power) if period is None else float(period)
+    check_timing(params, mode, chosen, power)
+    return chosen
