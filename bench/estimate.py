@@ -21,7 +21,11 @@ and the pump is *on* where the ``pump_monitor`` channel is above the threshold o
 ``settle_time`` of a pump edge (and within ``step_settle_time`` of a setting change, a gap in
 the sample index or the first sample of the stream) are not used. In watch mode (and sweeps
 measured as in watch) a pump edge also waits ``step_settle_time``: there the driver switches
-the pump on with a soft-start ramp. ``ln R = ln(S_on / S_off)``.
+the pump on with a soft-start ramp. In chopped and decay modes the pump-on part of a
+half-period is used from `EstimatorParams.rise_settle` (at the ``pump_power`` setting) after
+its edge and, in chopped mode, the pump-off part from `EstimatorParams.off_settle`; a pump-on
+part whose mean pump-monitor reading differs from the previous one's (a soft-start ramp) is
+not used. ``ln R = ln(S_on / S_off)``.
 
 Modes (`MODES`):
 
@@ -31,15 +35,18 @@ Modes (`MODES`):
     scatter of the batch means (batch means: honest under noise correlated on time scales
     shorter than a batch), never the per-sample standard deviation over sqrt(N).
 ``chopped``
-    Modulated pump. The settled part of each half-period gives a mean ``S`` (off parts from
-    ``settle_time`` after their edge, on parts from ``rise_settle_time``, see
-    `EstimatorParams`); each off/on/off triple gives ``ln R = ln(S_on / S_off)`` with
+    Modulated pump. The settled part of each half-period gives a mean ``S`` (see above);
+    each off/on/off triple gives ``ln R = ln(S_on / S_off)`` with
     ``S_off`` the two neighbouring off levels interpolated linearly to the time of the on level
     (for a 50 % duty cycle: their mean). This cancels a linear drift of the transmission. The
-    small residual of the gain decay left in an off level, ``A exp(-t / tau)``, is corrected
-    with the nominal tau.
-    Cumulative: mean over cycles, sigma = std / sqrt(n_cycles). The stored baseline is not
-    needed; if present, it is compared with the pump-off level (``baseline_stale``).
+    small residual of the gain decay left in an off level, ``A exp(-t / tau)`` (below 1e-5 of
+    ln R with the default off settle), is corrected with the nominal tau, the edge taken half a
+    sample before the first off sample; what that leaves unknown (the edge anywhere in its
+    sample interval, tau to ``u_tau``) is a systematic part of ln R.
+    Cumulative: mean over cycles; its noise counts the off level that neighbouring cycles
+    share (`_chopped_noise`) and the dark's standard error (`_dark_noise`). The stored
+    baseline is not needed; if present, it is compared with the pump-off level
+    (``baseline_stale``).
 ``decay``
     After each on->off edge, ``ln R(t) = ln(S(t) / S_off)`` with ``S_off`` the late tail of the
     same decay or the stored baseline (`EstimatorParams.decay_reference`). The edge is taken
@@ -48,8 +55,10 @@ Modes (`MODES`):
     ``ln R(0) exp(-t / tau)`` (`bench.fitting.fit_exponential_decay`: weights from the
     within-bin scatter or the counts, covariance scaled by the reduced chi-square). The gain
     still left in a late tail, ``ln R(0) rho(tau)``, is put back iteratively; the reference's
-    own noise is propagated through the fit's sensitivity to an offset; ``ln R(0)`` also
-    carries the unknown position of the edge within a sample interval (uniform). The fitted
+    own noise is propagated through the fit's sensitivity to an offset. ``ln R(0)`` is the
+    settled pump-on level before each decay less its ``S_off`` (`_decay_level`: no edge
+    position needed); only when no on part settles is it the fitted amplitude, whose unknown
+    edge position within a sample interval (uniform) is then a systematic part. The fitted
     decay time is corrected for the probe's own stimulated rate to give ``tau_s``.
 ``sweep``
     Pump-power or probe-wavelength steps, announced with `with_setting` (or by a pump block's
@@ -87,8 +96,8 @@ Uncertainty model (every figure is a `bench.records.Quantity`):
 
 * ``sigma_noise``: the statistical part described per mode, propagated linearly; the
   baseline's standard error is added in quadrature where the baseline is used. The dark's
-  standard error is neglected (it enters ``S_on`` and ``S_off`` with the same sign and is
-  second order in ln R).
+  standard error is added in chopped and decay modes (`_dark_noise`: it moves ln R by
+  ``d_p (1 / S_off - 1 / S_on) / V_ref``, first order in ln R); elsewhere it is neglected.
 * ``sigma_systematic``: from the configured standard uncertainties of the length ``L``
   (absolute), the density ``N`` (relative) and each cross-section (relative, ``u_sigma``,
   ``sigma_e`` and ``sigma_a`` independent), propagated linearly and assumed independent:

@@ -267,8 +267,9 @@ class EstimatorParams:
                     **overrides: Any) -> EstimatorParams:
         """Parameters for the bench ``cfg``; keyword overrides replace fields by name.
 
-        Derived defaults (settle time 5 tau, decay bins and spans in units of tau) follow an
-        overridden ``tau``. The detector range comes from the detector's ``range`` option and
+        Derived defaults (settle time 5 tau, decay bins and spans in units of tau, the chopped
+        and decay settle windows of `rise_settle` and `off_settle`) follow an overridden
+        ``tau``. The detector range comes from the detector's ``range`` option and
         the monitor responsivity from its ``pump_monitor_per_watt`` option or, on the
         simulated bench, from ``[simulation]``.
         """
