@@ -139,3 +139,21 @@ def test_run_period_follows_the_current(cfg):
     hi = run_period(cfg, "chopped", default_current(cfg))
     assert lo >= hi  # a weaker pump rises slower
     assert run_period(cfg, "chopped", default_current(cfg), 0.03) == 0.03
+
+
+@pytest.mark.parametrize("mode, period, words", [
+    ("chopped", "0 ms", "--period: '0 ms' is not a positive time"),
+    ("chopped", "fast", "--period"),
+    ("chopped", "3 A", "--period"),
+    ("watch", "50 ms", "--period: applies to chopped and decay modes"),
+    ("decay", "4 ms", "decay mode: a pump period of 4 ms"),
+])
+def test_record_period_errors_name_the_option(cfg, mode, period, words):
+    import argparse
+
+    from bench.commands import record
+
+    args = argparse.Namespace(mode=mode, period=period)
+    with pytest.raises(GainbenchError) as err:
+        record._mode_period(args, cfg, default_current(cfg))
+    assert words in str(err.value)

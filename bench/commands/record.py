@@ -132,6 +132,8 @@ def _mode_period(args, cfg, current: float) -> float | None:
             raise ConfigError(f"--period: applies to chopped and decay modes, not {args.mode}")
         return None
     chosen = None if args.period is None else parse_quantity(args.period, "time", "--period")
+    if chosen is not None and not (math.isfinite(chosen) and chosen > 0):
+        raise ConfigError(f"--period: {args.period!r} is not a positive time")
     return run_period(cfg, args.mode, current, chosen)
 
 
