@@ -392,6 +392,7 @@ class _CurveStats:
     level: _ScalarStats = _ScalarStats()  # per decay: settled pump-on ln S before it less its ln S_off
     level_var: float = 0.0  # sum over those decays of the variance of each value (within-scatter)
     level_tails: tuple[tuple[int, int], ...] = ()  # as `tails`, for the decays in `level`
+    level_ln_off: float = 0.0  # sum over those decays of their ln S_off
 
     @classmethod
     def empty(cls, n_bins: int) -> _CurveStats:
@@ -404,8 +405,10 @@ class _CurveStats:
         tails = dict(self.tails)
         tails[d.tail_n] = tails.get(d.tail_n, 0) + 1
         level, level_var, level_tails = self.level, self.level_var, self.level_tails
+        level_ln_off = self.level_ln_off
         if d.on_n > 0:
             level = level.add(d.on_level, d.on_n)
+            level_ln_off += d.ln_off
             level_var += d.on_var + (0.0 if d.reference == "baseline" else d.ref_var)
             lt = dict(level_tails)
             lt[d.tail_n] = lt.get(d.tail_n, 0) + 1
@@ -421,7 +424,7 @@ class _CurveStats:
             d.ref_var if d.reference == "baseline" else self.ref_common,
             self.n_samples + d.n_samples,
             tuple(sorted(tails.items())),
-            level, level_var, level_tails,
+            level, level_var, level_tails, level_ln_off,
         )
 
     def tail_residual(self, tail0: int, dt: float, tau: float, of_levels: bool = False) -> float:
@@ -449,6 +452,7 @@ class _Decay:
     on_n: float = 0.0  # settled pump-on samples just before the edge
     on_level: float = math.nan  # their mean ln S less ln S_off
     on_var: float = 0.0  # variance of their mean ln S (within-scatter / n)
+    ln_off: float = math.nan  # the ln S_off used
 
 
 # ============================================================================================
@@ -1203,7 +1207,7 @@ def _chopped_noise(core: _ChoppedCore, stats: _ScalarStats) -> float:
         s2 = cum.std() ** 2
     else:
         return math.nan
-    return math.sqrt(max(s2 + 2.0 * gamma1 * (k - 1) / k + 2.0 * gamma1 / k, 0.0) / k)
+    return math.sqrt(max(s2 + 2.0 * gamma1, 0.0) / k)
 
 
 def _dark_noise(dark: Dark | None, ref_level: float, s_off: float, ln_ratio: float) -> float:
@@ -1414,7 +1418,7 @@ def _finish_decay(state: EstimatorState, core: _DecayCore, edge: int, end: int, 
     else:
         on_n = 0.0
     return (b, "decay", _Decay(b, c, lnr, ss, use, ref_var, float(np.sum(c) + tc), tail_n,
-                               on_n, on_level, on_var))
+                               on_n, on_level, on_var, float(ln_off)))
 
 
 def _decay_add(core: _DecayCore, item) -> _DecayCore:
@@ -1548,7 +1552,7 @@ def _decay_level(state: EstimatorState, core: _DecayCore, stats: _CurveStats,
         var += stats.ref_common
     lnr0 = d / (1.0 - rho)
     ref = core.ref_sum / core.ref_n if core.ref_n else math.nan
-    s_off = state.baseline.value if state.baseline is not None else math.nan
+    s_off = math.exp(stats.level_ln_off / lv.k)
     sn = math.hypot(math.sqrt(var) / (1.0 - rho), _dark_noise(state.dark, ref, s_off, lnr0))
     return lnr0, sn
 
