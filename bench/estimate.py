@@ -1180,17 +1180,18 @@ def _chopped_noise(core: _ChoppedCore, stats: _ScalarStats) -> float:
     later off level, 1/2 at a 50 % duty cycle), and at no other lag: the exact variance of the
     mean of ``k`` cycles is ``(gamma_0 + 2 gamma_1 (k - 1) / k) / k``, which with the sample
     variance ``s^2`` (whose expectation is ``gamma_0 - 2 gamma_1 / k``) is
-    ``(s^2 + 2 gamma_1) / k`` [1]_ (the covariance form of the blocking analysis of [2]_).
-    ``var(ln S_off)`` is half the mean squared difference of the two off levels around each
-    cycle, less their mean (a linear drift moves every difference alike) [3]_. A
-    window of one or two cycles takes the scatter of all cycles so far.
+    ``(s^2 + 2 gamma_1) / k``: the variance of the mean of correlated data in terms of its
+    autocovariances, with which Flyvbjerg and Petersen start their blocking analysis [1]_,
+    here exact because the covariance is known to stop at lag one. ``var(ln S_off)`` is half
+    the mean squared difference of the two off levels around each cycle, less their mean (a
+    linear drift moves every difference alike) [2]_. A window of one or two cycles takes the
+    scatter of all cycles so far.
 
     References
     ----------
-    .. [1] M. B. Priestley, *Spectral Analysis and Time Series*, Academic Press, 1981,
-       sec. 5.3 (variance of the mean of a stationary sequence).
-    .. [2] H. Flyvbjerg and H. G. Petersen, J. Chem. Phys. 91, 461 (1989).
-    .. [3] J. von Neumann, R. H. Kent, H. R. Bellinson and B. I. Hart, "The mean square
+    .. [1] H. Flyvbjerg and H. G. Petersen, "Error estimates on averages of correlated data",
+       J. Chem. Phys. 91, 461 (1989).
+    .. [2] J. von Neumann, R. H. Kent, H. R. Bellinson and B. I. Hart, "The mean square
        successive difference", Ann. Math. Statist. 12, 153 (1941).
     """
     k = stats.k

@@ -370,7 +370,7 @@ class EstimatorParams:
         ----------
         .. [1] O. Svelto, *Principles of Lasers*, 5th ed., Springer, 2010, ch. 7
            (rate equations of quasi-three-level media).
-        .. [2] A. E. Siegman, *Lasers*, University Science Books, 1986, ch. 3 and 7.
+        .. [2] W. Koechner, *Solid-State Laser Engineering*, 6th ed., Springer, 2006, sec. 1.4.
         """
         p = 0.0 if pump_power is None or not pump_power > 0 else float(pump_power)
         return self.pump_rate_per_watt * p + self.probe_rate + 1.0 / self.tau
