@@ -531,7 +531,8 @@ class _ChoppedCore:
     open_sum: float = 0.0
     open_isum: float = 0.0
     open_msum: float = 0.0
-    last_on_monitor: float = math.nan  # mean pump monitor of the last finished on segment
+    open_m2sum: float = 0.0
+    last_on_monitor: tuple[float, float] = (math.nan, 0.0)  # last finished on segment: monitor mean, its variance
     recent: tuple[_Segment, ...] = ()  # the last two finished segments
     win: _ScalarStats = _ScalarStats()
     cum: _ScalarStats = _ScalarStats()
@@ -557,9 +558,10 @@ class _DecayCore:
     win: _CurveStats | None = None
     cum: _CurveStats | None = None
     cum_fit: Mapping[str, Any] | None = None  # cached fit of `cum`
-    on_open: tuple[float, float, float, float] = (0.0, 0.0, 0.0, 0.0)  # settled samples of the open on part: n, sum ln S, sum ln S^2, sum monitor
+    # settled samples of the open on part: n, sum ln S, sum ln S^2, sum monitor, sum monitor^2
+    on_open: tuple[float, float, float, float, float] = (0.0, 0.0, 0.0, 0.0, 0.0)
     on_open_after_edge: bool = False  # the open on part started at a rising edge
-    last_on_monitor: float = math.nan  # mean pump monitor of the last finished on part
+    last_on_monitor: tuple[float, float] = (math.nan, 0.0)  # last finished on part: monitor mean, its variance
     on_levels: tuple[tuple[int, float, float, float], ...] = ()  # (edge, n, sum, sum sq) of open decays
     ref_sum: float = 0.0  # dark-corrected reference volts, summed over samples
     ref_n: int = 0
@@ -1044,11 +1046,13 @@ def _chopped_ingest(core: _ChoppedCore, f: _Frame, clock: _Clock, p: EstimatorPa
         sm = np.array([float(np.sum(f.s, where=w))])
         isum = np.array([float(np.sum(np.arange(f.i0, f.i0 + f.n, dtype=np.float64), where=w))])
         msum = np.array([float(np.sum(f.monitor, where=w))])
+        m2sum = np.array([float(np.sum(f.monitor * f.monitor, where=w))])
     else:
         cnt = np.bincount(seg, weights=w, minlength=nseg)
         sm = np.bincount(seg, weights=np.where(w, f.s, 0.0), minlength=nseg)
         isum = np.bincount(seg, weights=np.where(w, np.arange(f.i0, f.i0 + f.n, dtype=np.float64), 0.0), minlength=nseg)
         msum = np.bincount(seg, weights=np.where(w, f.monitor, 0.0), minlength=nseg)
+        m2sum = np.bincount(seg, weights=np.where(w, f.monitor * f.monitor, 0.0), minlength=nseg)
     starts = [f.i0] + [f.i0 + int(e) for e in f.edges]
     ons = [bool(f.on[0])] + [bool(f.on[e]) for e in f.edges]
     after = [False] + [True] * int(f.edges.size)
@@ -1061,13 +1065,14 @@ def _chopped_ingest(core: _ChoppedCore, f: _Frame, clock: _Clock, p: EstimatorPa
         sm[0] += core.open_sum
         isum[0] += core.open_isum
         msum[0] += core.open_msum
+        m2sum[0] += core.open_m2sum
     items: list = []
     settle_n = int(math.ceil(p.off_settle() / clock.dt - 1e-9))
     recent = list(core.recent)
     if core.open_start >= 0 and not continuing:
         recent = []  # the stream restarted: no triple across it
     finished: list[_Segment] = []
-    last_on = core.last_on_monitor if continuing else math.nan
+    last_on = core.last_on_monitor if continuing else (math.nan, 0.0)
     warm = core.warm and continuing
     for j in range(nseg - 1):
         if j == 0 and f.edges.size and f.edges[0] == 0 and not continuing:
@@ -1078,16 +1083,16 @@ def _chopped_ingest(core: _ChoppedCore, f: _Frame, clock: _Clock, p: EstimatorPa
         mean = float(sm[j] / n_j) if n_j > 0 else math.nan
         centre = float(isum[j] / n_j) if n_j > 0 else math.nan
         res = _residual_mean(settle_n, n_j, clock.dt, p.tau) if (after[j] and not ons[j]) else 0.0
-        mon = float(msum[j] / n_j) if n_j > 0 else math.nan
+        mon = _level(n_j, float(msum[j]), float(m2sum[j]))
         steady = True
         if ons[j] and n_j > 0:
             steady, last_on = _pump_steady(mon, last_on, after[j]), mon
-        finished.append(_Segment(start, end, ons[j], n_j, mean, centre, res, after[j], mon, steady))
+        finished.append(_Segment(start, end, ons[j], n_j, mean, centre, res, after[j], mon[0], steady))
     last = nseg - 1
     new_core = dataclasses.replace(
         core, open_start=starts[last], open_on=ons[last], open_after_edge=after[last],
         open_n=float(cnt[last]), open_sum=float(sm[last]), open_isum=float(isum[last]),
-        open_msum=float(msum[last]), last_on_monitor=last_on)
+        open_msum=float(msum[last]), open_m2sum=float(m2sum[last]), last_on_monitor=last_on)
     for sgm in finished:
         if not sgm.on and sgm.n > 0:
             items.append((sgm.end, "off", sgm))
@@ -1109,18 +1114,29 @@ def _chopped_ingest(core: _ChoppedCore, f: _Frame, clock: _Clock, p: EstimatorPa
 
 
 #: Two successive pump-on parts have the same pump level when their mean pump-monitor readings
-#: agree to this fraction (common practice, no source: a soft-start ramp differs by tens of %).
+#: agree to this fraction, or to 5 standard errors of their difference if that is more
+#: (common practice, no source: a soft-start ramp differs by tens of %).
 PUMP_LEVEL_TOLERANCE = 2e-3
 
 
-def _pump_steady(monitor: float, previous: float, after_edge: bool) -> bool:
-    """Whether a pump-on part ran at a steady pump level: its mean monitor reading matches
-    the previous on part's. The first on part after a rising edge with no earlier on part to
-    compare with (the output just switched on, perhaps with a soft-start ramp) is not trusted;
-    one that starts with the stream (after the step settle time) is."""
-    if not math.isfinite(previous):
+def _level(n: float, s1: float, s2: float) -> tuple[float, float]:
+    """(mean, variance of the mean) of ``n`` readings from their sum and sum of squares."""
+    if not n > 0:
+        return math.nan, 0.0
+    m = s1 / n
+    return m, (max(s2 - s1 * m, 0.0) / (n - 1) / n if n > 1 else 0.0)
+
+
+def _pump_steady(monitor: tuple[float, float], previous: tuple[float, float], after_edge: bool) -> bool:
+    """Whether a pump-on part ran at a steady pump level: its mean monitor reading (mean,
+    variance) matches the previous on part's. The first on part after a rising edge with no
+    earlier on part to compare with (the output just switched on, perhaps with a soft-start
+    ramp) is not trusted; one that starts with the stream (after the step settle time) is."""
+    (m, v), (mp, vp) = monitor, previous
+    if not math.isfinite(mp):
         return not after_edge
-    return abs(monitor - previous) <= PUMP_LEVEL_TOLERANCE * max(abs(previous), abs(monitor))
+    allowed = max(PUMP_LEVEL_TOLERANCE * max(abs(m), abs(mp)), 5.0 * math.sqrt(v + vp))
+    return abs(m - mp) <= allowed
 
 
 def _cycle(recent: list[_Segment], first_pair: bool) -> tuple[float, float, float, float, float] | None:
@@ -1306,24 +1322,26 @@ def _decay_ingest(core: _DecayCore, f: _Frame, clock: _Clock, p: EstimatorParams
     on_1 = np.bincount(seg, weights=lsz, minlength=nseg)
     on_2 = np.bincount(seg, weights=lsz * lsz, minlength=nseg)
     on_m = np.bincount(seg, weights=np.where(won, f.monitor, 0.0), minlength=nseg)
+    on_mm = np.bincount(seg, weights=np.where(won, f.monitor * f.monitor, 0.0), minlength=nseg)
     after0 = False
-    last_on = math.nan
+    last_on = (math.nan, 0.0)
     if not f.start_is_edge:
-        c0, a0, b0, m0 = core.on_open
+        c0, a0, b0, m0, mm0 = core.on_open
         on_c[0] += c0
         on_1[0] += a0
         on_2[0] += b0
         on_m[0] += m0
+        on_mm[0] += mm0
         after0 = core.on_open_after_edge
         last_on = core.last_on_monitor
     last = nseg - 1
-    on_open = ((float(on_c[last]), float(on_1[last]), float(on_2[last]), float(on_m[last])) if f.on[-1]
-               else (0.0, 0.0, 0.0, 0.0))
+    on_open = ((float(on_c[last]), float(on_1[last]), float(on_2[last]), float(on_m[last]), float(on_mm[last]))
+               if f.on[-1] else (0.0, 0.0, 0.0, 0.0, 0.0))
     levels = {} if f.start_is_edge else {e: (n_, a_, b_) for e, n_, a_, b_ in core.on_levels}
     for e in off_local:
         j = int(seg[e]) - 1
         if j >= 0 and on_c[j] > 0:
-            mon = float(on_m[j] / on_c[j])
+            mon = _level(float(on_c[j]), float(on_m[j]), float(on_mm[j]))
             steady = _pump_steady(mon, last_on, after0 if j == 0 else True)
             last_on = mon
             if steady:  # not while the pump still ramps up (soft start)

@@ -245,6 +245,22 @@ def test_a_pump_still_ramping_up_is_left_out(params, mode):
     assert "not_settled" not in est.flags
 
 
+def test_a_weak_noisy_pump_monitor_does_not_lose_cycles(params):
+    # A monitor reading 10 mV with 0.5 mV of noise per sample: successive on parts differ by
+    # their noise (about 1e-4 V over 60 samples), far more than 0.2 % of the level; that is
+    # no ramp, and no cycle may be lost for it.
+    n = int(0.3 * RATE)
+    lnr, on = response(n, 50.0, 0.46, TAU)
+    rng = np.random.default_rng(8)
+    data = np.column_stack([DARK.probe + S_OFF * np.exp(lnr) * REF + rng.normal(0, 6e-4, n),
+                            DARK.reference + REF + rng.normal(0, 6e-4, n),
+                            np.where(on, 0.01, 0.0) + rng.normal(0, 5e-4, n)])
+    state, _ = feed(ready(params.replace(pump_threshold_v=0.005), "chopped"), split(data, 2000))
+    est = report(state)[0]
+    assert est.extra["n_cycles"] >= 12  # of the 14 complete cycles after the first pump-on part
+    assert est.flags == frozenset()
+
+
 # ------------------------------------------------------------------ decay
 
 
