@@ -21,7 +21,11 @@ and the pump is *on* where the ``pump_monitor`` channel is above the threshold o
 ``settle_time`` of a pump edge (and within ``step_settle_time`` of a setting change, a gap in
 the sample index or the first sample of the stream) are not used. In watch mode (and sweeps
 measured as in watch) a pump edge also waits ``step_settle_time``: there the driver switches
-the pump on with a soft-start ramp. ``ln R = ln(S_on / S_off)``.
+the pump on with a soft-start ramp. In chopped and decay modes the pump-on part of a
+half-period is used from `EstimatorParams.rise_settle` (at the ``pump_power`` setting) after
+its edge and, in chopped mode, the pump-off part from `EstimatorParams.off_settle`; a pump-on
+part whose mean pump-monitor reading differs from the previous one's (a soft-start ramp) is
+not used. ``ln R = ln(S_on / S_off)``.
 
 Modes (`MODES`):
 
@@ -31,15 +35,18 @@ Modes (`MODES`):
     scatter of the batch means (batch means: honest under noise correlated on time scales
     shorter than a batch), never the per-sample standard deviation over sqrt(N).
 ``chopped``
-    Modulated pump. The settled part of each half-period gives a mean ``S`` (off parts from
-    ``settle_time`` after their edge, on parts from ``rise_settle_time``, see
-    `EstimatorParams`); each off/on/off triple gives ``ln R = ln(S_on / S_off)`` with
+    Modulated pump. The settled part of each half-period gives a mean ``S`` (see above);
+    each off/on/off triple gives ``ln R = ln(S_on / S_off)`` with
     ``S_off`` the two neighbouring off levels interpolated linearly to the time of the on level
     (for a 50 % duty cycle: their mean). This cancels a linear drift of the transmission. The
-    small residual of the gain decay left in an off level, ``A exp(-t / tau)``, is corrected
-    with the nominal tau.
-    Cumulative: mean over cycles, sigma = std / sqrt(n_cycles). The stored baseline is not
-    needed; if present, it is compared with the pump-off level (``baseline_stale``).
+    small residual of the gain decay left in an off level, ``A exp(-t / tau)`` (below 1e-5 of
+    ln R with the default off settle), is corrected with the nominal tau, the edge taken half a
+    sample before the first off sample; what that leaves unknown (the edge anywhere in its
+    sample interval, tau to ``u_tau``) is a systematic part of ln R.
+    Cumulative: mean over cycles; its noise counts the off level that neighbouring cycles
+    share (`_chopped_noise`) and the dark's standard error (`_dark_noise`). The stored
+    baseline is not needed; if present, it is compared with the pump-off level
+    (``baseline_stale``).
 ``decay``
     After each on->off edge, ``ln R(t) = ln(S(t) / S_off)`` with ``S_off`` the late tail of the
     same decay or the stored baseline (`EstimatorParams.decay_reference`). The edge is taken
@@ -48,8 +55,10 @@ Modes (`MODES`):
     ``ln R(0) exp(-t / tau)`` (`bench.fitting.fit_exponential_decay`: weights from the
     within-bin scatter or the counts, covariance scaled by the reduced chi-square). The gain
     still left in a late tail, ``ln R(0) rho(tau)``, is put back iteratively; the reference's
-    own noise is propagated through the fit's sensitivity to an offset; ``ln R(0)`` also
-    carries the unknown position of the edge within a sample interval (uniform). The fitted
+    own noise is propagated through the fit's sensitivity to an offset. ``ln R(0)`` is the
+    settled pump-on level before each decay less its ``S_off`` (`_decay_level`: no edge
+    position needed); only when no on part settles is it the fitted amplitude, whose unknown
+    edge position within a sample interval (uniform) is then a systematic part. The fitted
     decay time is corrected for the probe's own stimulated rate to give ``tau_s``.
 ``sweep``
     Pump-power or probe-wavelength steps, announced with `with_setting` (or by a pump block's
@@ -87,8 +96,8 @@ Uncertainty model (every figure is a `bench.records.Quantity`):
 
 * ``sigma_noise``: the statistical part described per mode, propagated linearly; the
   baseline's standard error is added in quadrature where the baseline is used. The dark's
-  standard error is neglected (it enters ``S_on`` and ``S_off`` with the same sign and is
-  second order in ln R).
+  standard error is added in chopped and decay modes (`_dark_noise`: it moves ln R by
+  ``d_p (1 / S_off - 1 / S_on) / V_ref``, first order in ln R); elsewhere it is neglected.
 * ``sigma_systematic``: from the configured standard uncertainties of the length ``L``
   (absolute), the density ``N`` (relative) and each cross-section (relative, ``u_sigma``,
   ``sigma_e`` and ``sigma_a`` independent), propagated linearly and assumed independent:
@@ -380,6 +389,10 @@ class _CurveStats:
     ref_common: float  # variance of a ln S_off shared by all decays (stored baseline)
     n_samples: float
     tails: tuple[tuple[int, int], ...] = ()  # (tail samples, decays) of the decays that used a tail
+    level: _ScalarStats = _ScalarStats()  # per decay: settled pump-on ln S before it less its ln S_off
+    level_var: float = 0.0  # sum over those decays of the variance of each value (within-scatter)
+    level_tails: tuple[tuple[int, int], ...] = ()  # as `tails`, for the decays in `level`
+    level_ln_off: float = 0.0  # sum over those decays of their ln S_off
 
     @classmethod
     def empty(cls, n_bins: int) -> _CurveStats:
@@ -391,6 +404,15 @@ class _CurveStats:
         y = np.where(c > 0, d.ln_ratio, 0.0)
         tails = dict(self.tails)
         tails[d.tail_n] = tails.get(d.tail_n, 0) + 1
+        level, level_var, level_tails = self.level, self.level_var, self.level_tails
+        level_ln_off = self.level_ln_off
+        if d.on_n > 0:
+            level = level.add(d.on_level, d.on_n)
+            level_ln_off += d.ln_off
+            level_var += d.on_var + (0.0 if d.reference == "baseline" else d.ref_var)
+            lt = dict(level_tails)
+            lt[d.tail_n] = lt.get(d.tail_n, 0) + 1
+            level_tails = tuple(sorted(lt.items()))
         return _CurveStats(
             self.n_decays + 1,
             self.count + c,
@@ -402,15 +424,17 @@ class _CurveStats:
             d.ref_var if d.reference == "baseline" else self.ref_common,
             self.n_samples + d.n_samples,
             tuple(sorted(tails.items())),
+            level, level_var, level_tails, level_ln_off,
         )
 
-    def tail_residual(self, tail0: int, dt: float, tau: float) -> float:
-        """Mean over decays of the gain left in the tail, as a fraction of ln R(0)
-        (zero for decays referred to the stored baseline)."""
-        if self.n_decays == 0:
+    def tail_residual(self, tail0: int, dt: float, tau: float, of_levels: bool = False) -> float:
+        """Mean over decays (those with an on level if ``of_levels``) of the gain left in the
+        tail, as a fraction of ln R(0) (zero for decays referred to the stored baseline)."""
+        tails, n = (self.level_tails, self.level.k) if of_levels else (self.tails, self.n_decays)
+        if n == 0:
             return 0.0
-        total = sum(k * _residual_mean(tail0, n, dt, tau) for n, k in self.tails if n > 0)
-        return total / self.n_decays
+        total = sum(k * _residual_mean(tail0, m, dt, tau) for m, k in tails if m > 0)
+        return total / n
 
 
 @dataclass(frozen=True, eq=False)
@@ -425,6 +449,10 @@ class _Decay:
     ref_var: float  # variance of ln S_off
     n_samples: float
     tail_n: int  # samples in the tail used as S_off (0 with the stored baseline)
+    on_n: float = 0.0  # settled pump-on samples just before the edge
+    on_level: float = math.nan  # their mean ln S less ln S_off
+    on_var: float = 0.0  # variance of their mean ln S (within-scatter / n)
+    ln_off: float = math.nan  # the ln S_off used
 
 
 # ============================================================================================
@@ -490,6 +518,8 @@ class _Segment:
     centre: float  # mean index of the settled samples
     residual: float  # mean exp(-t/tau) over the settled samples (t since the edge), off parts
     after_edge: bool  # starts at a real pump edge (not a stream start, gap or step)
+    monitor: float = math.nan  # mean pump monitor over the settled samples
+    steady: bool = True  # on parts: the pump level matches the previous on part's (no ramp)
 
 
 @dataclass(frozen=True)
@@ -500,11 +530,23 @@ class _ChoppedCore:
     open_n: float = 0.0
     open_sum: float = 0.0
     open_isum: float = 0.0
+    open_msum: float = 0.0
+    open_m2sum: float = 0.0
+    last_on_monitor: tuple[float, float] = (math.nan, 0.0)  # last finished on segment: monitor mean, its variance
     recent: tuple[_Segment, ...] = ()  # the last two finished segments
     win: _ScalarStats = _ScalarStats()
     cum: _ScalarStats = _ScalarStats()
     win_off: _ScalarStats = _ScalarStats()
     cum_off: _ScalarStats = _ScalarStats()
+    off_dsum: float = 0.0  # sum over cycles of d = ln S_off after - ln S_off before
+    off_dsq: float = 0.0  # sum of d^2
+    off_dn: int = 0
+    warm: bool = False  # a cycle at a steady pump level has been seen since the stream (re)started
+    frac_sum: float = 0.0  # sum over cycles of the interpolation weight f of the later off level
+    win_corr: float = 0.0  # sum over cycles of the residual-decay correction applied (ln R)
+    cum_corr: float = 0.0
+    ref_sum: float = 0.0  # dark-corrected reference volts, summed over samples
+    ref_n: int = 0
 
 
 @dataclass(frozen=True, eq=False)
@@ -516,6 +558,13 @@ class _DecayCore:
     win: _CurveStats | None = None
     cum: _CurveStats | None = None
     cum_fit: Mapping[str, Any] | None = None  # cached fit of `cum`
+    # settled samples of the open on part: n, sum ln S, sum ln S^2, sum monitor, sum monitor^2
+    on_open: tuple[float, float, float, float, float] = (0.0, 0.0, 0.0, 0.0, 0.0)
+    on_open_after_edge: bool = False  # the open on part started at a rising edge
+    last_on_monitor: tuple[float, float] = (math.nan, 0.0)  # last finished on part: monitor mean, its variance
+    on_levels: tuple[tuple[int, float, float, float], ...] = ()  # (edge, n, sum, sum sq) of open decays
+    ref_sum: float = 0.0  # dark-corrected reference volts, summed over samples
+    ref_n: int = 0
 
 
 @dataclass(frozen=True)
@@ -662,6 +711,8 @@ class _Frame:
     edges: np.ndarray  # local indices of pump edges
     start_is_edge: bool  # sample 0 starts a segment (stream start, gap or step)
     over: np.ndarray | None  # samples near full scale (None: none in this block)
+    ref_sum: float = 0.0  # sum of the dark-corrected reference volts (for the dark's share of sigma)
+    monitor: np.ndarray | None = None  # the pump monitor volts
 
 
 def _watch_like(state: EstimatorState) -> bool:
@@ -728,8 +779,9 @@ def _frame(state: EstimatorState, block: Block) -> tuple[_Frame | None, _Clock, 
         # the driver switches the pump on with a soft-start ramp: an edge counts as a step
         settle_n = rise_n = step_n
     else:
-        settle_n = int(math.ceil(p.settle_time / clock.dt - 1e-9))
-        rise_n = int(math.ceil(p.rise_settle_time / clock.dt - 1e-9)) if state.mode != "decay" else settle_n
+        rise_n = int(math.ceil(p.rise_settle(state.settings.get("pump_power")) / clock.dt - 1e-9))
+        off_settle = p.off_settle() if state.mode != "decay" else p.settle_time
+        settle_n = int(math.ceil(off_settle / clock.dt - 1e-9))
     local = np.arange(n)
     if edges.size == 0:
         settled = local >= (last_edge + (rise_n if on[0] else settle_n) - i0)
@@ -753,8 +805,10 @@ def _frame(state: EstimatorState, block: Block) -> tuple[_Frame | None, _Clock, 
         last_step=last_step,
         step_pending=False,
     )
+    ref = vr - state.dark.reference if state.dark is not None else vr
     frame = _Frame(i0=i0, n=n, s=s, on=on, change=change, settled=settled, edges=edges,
-                   start_is_edge=restart or pump.step_pending, over=over)
+                   start_is_edge=restart or pump.step_pending, over=over, ref_sum=float(np.sum(ref)),
+                   monitor=vm)
     return frame, clock, new_pump
 
 
@@ -991,10 +1045,14 @@ def _chopped_ingest(core: _ChoppedCore, f: _Frame, clock: _Clock, p: EstimatorPa
         cnt = np.array([float(np.count_nonzero(w))])
         sm = np.array([float(np.sum(f.s, where=w))])
         isum = np.array([float(np.sum(np.arange(f.i0, f.i0 + f.n, dtype=np.float64), where=w))])
+        msum = np.array([float(np.sum(f.monitor, where=w))])
+        m2sum = np.array([float(np.sum(f.monitor * f.monitor, where=w))])
     else:
         cnt = np.bincount(seg, weights=w, minlength=nseg)
         sm = np.bincount(seg, weights=np.where(w, f.s, 0.0), minlength=nseg)
         isum = np.bincount(seg, weights=np.where(w, np.arange(f.i0, f.i0 + f.n, dtype=np.float64), 0.0), minlength=nseg)
+        msum = np.bincount(seg, weights=np.where(w, f.monitor, 0.0), minlength=nseg)
+        m2sum = np.bincount(seg, weights=np.where(w, f.monitor * f.monitor, 0.0), minlength=nseg)
     starts = [f.i0] + [f.i0 + int(e) for e in f.edges]
     ons = [bool(f.on[0])] + [bool(f.on[e]) for e in f.edges]
     after = [False] + [True] * int(f.edges.size)
@@ -1006,12 +1064,16 @@ def _chopped_ingest(core: _ChoppedCore, f: _Frame, clock: _Clock, p: EstimatorPa
         cnt[0] += core.open_n
         sm[0] += core.open_sum
         isum[0] += core.open_isum
+        msum[0] += core.open_msum
+        m2sum[0] += core.open_m2sum
     items: list = []
-    settle_n = int(math.ceil(p.settle_time / clock.dt - 1e-9))
+    settle_n = int(math.ceil(p.off_settle() / clock.dt - 1e-9))
     recent = list(core.recent)
     if core.open_start >= 0 and not continuing:
         recent = []  # the stream restarted: no triple across it
     finished: list[_Segment] = []
+    last_on = core.last_on_monitor if continuing else (math.nan, 0.0)
+    warm = core.warm and continuing
     for j in range(nseg - 1):
         if j == 0 and f.edges.size and f.edges[0] == 0 and not continuing:
             continue  # the block starts with an edge and there is no open segment: nothing here
@@ -1021,11 +1083,16 @@ def _chopped_ingest(core: _ChoppedCore, f: _Frame, clock: _Clock, p: EstimatorPa
         mean = float(sm[j] / n_j) if n_j > 0 else math.nan
         centre = float(isum[j] / n_j) if n_j > 0 else math.nan
         res = _residual_mean(settle_n, n_j, clock.dt, p.tau) if (after[j] and not ons[j]) else 0.0
-        finished.append(_Segment(start, end, ons[j], n_j, mean, centre, res, after[j]))
+        mon = _level(n_j, float(msum[j]), float(m2sum[j]))
+        steady = True
+        if ons[j] and n_j > 0:
+            steady, last_on = _pump_steady(mon, last_on, after[j]), mon
+        finished.append(_Segment(start, end, ons[j], n_j, mean, centre, res, after[j], mon[0], steady))
     last = nseg - 1
     new_core = dataclasses.replace(
         core, open_start=starts[last], open_on=ons[last], open_after_edge=after[last],
-        open_n=float(cnt[last]), open_sum=float(sm[last]), open_isum=float(isum[last]))
+        open_n=float(cnt[last]), open_sum=float(sm[last]), open_isum=float(isum[last]),
+        open_msum=float(msum[last]), open_m2sum=float(m2sum[last]), last_on_monitor=last_on)
     for sgm in finished:
         if not sgm.on and sgm.n > 0:
             items.append((sgm.end, "off", sgm))
@@ -1033,23 +1100,59 @@ def _chopped_ingest(core: _ChoppedCore, f: _Frame, clock: _Clock, p: EstimatorPa
         if len(recent) > 3:
             recent.pop(0)
         cyc = _cycle(recent, first_pair=len(recent) == 2 and not recent[0].after_edge and recent[0].on)
+        if cyc is not None and not recent[-2].steady:
+            cyc = None  # the pump was still ramping up (a soft start): not a settled cycle
         if cyc is not None:
             items.append((sgm.end, "cycle", cyc))
+            warm = True
         elif len(recent) >= 2 and recent[-2].on and not sgm.on:
-            items.append((sgm.end, "skip", None))
-    new_core = dataclasses.replace(new_core, recent=tuple(recent[-2:]))
+            # before the first steady cycle the pump is still coming up: expected, not a fault
+            items.append((sgm.end, "skip" if warm else "warmup", None))
+    new_core = dataclasses.replace(new_core, recent=tuple(recent[-2:]), ref_sum=core.ref_sum + f.ref_sum,
+                                   ref_n=core.ref_n + f.n, warm=warm)
     return new_core, items
 
 
-def _cycle(recent: list[_Segment], first_pair: bool) -> tuple[float, float] | None:
-    """ln R of the on segment in the middle of the last three finished segments, or None."""
+#: Two successive pump-on parts have the same pump level when their mean pump-monitor readings
+#: agree to this fraction, or to 5 standard errors of their difference if that is more
+#: (common practice, no source: a soft-start ramp differs by tens of %).
+PUMP_LEVEL_TOLERANCE = 2e-3
+
+
+def _level(n: float, s1: float, s2: float) -> tuple[float, float]:
+    """(mean, variance of the mean) of ``n`` readings from their sum and sum of squares."""
+    if not n > 0:
+        return math.nan, 0.0
+    m = s1 / n
+    return m, (max(s2 - s1 * m, 0.0) / (n - 1) / n if n > 1 else 0.0)
+
+
+def _pump_steady(monitor: tuple[float, float], previous: tuple[float, float], after_edge: bool) -> bool:
+    """Whether a pump-on part ran at a steady pump level: its mean monitor reading (mean,
+    variance) matches the previous on part's. The first on part after a rising edge with no
+    earlier on part to compare with (the output just switched on, perhaps with a soft-start
+    ramp) is not trusted; one that starts with the stream (after the step settle time) is."""
+    (m, v), (mp, vp) = monitor, previous
+    if not math.isfinite(mp):
+        return not after_edge
+    allowed = max(PUMP_LEVEL_TOLERANCE * max(abs(m), abs(mp)), 5.0 * math.sqrt(v + vp))
+    return abs(m - mp) <= allowed
+
+
+def _cycle(recent: list[_Segment], first_pair: bool) -> tuple[float, float, float, float, float] | None:
+    """(ln R, samples, residual-decay correction in ln R, weight f of the later off level,
+    difference of the two ln off levels or nan) of the on segment in the middle of the
+    last three finished segments, or None."""
     if first_pair:
         on, off_a = recent[-2], recent[-1]
         if not (on.on and not off_a.on and on.n > 0 and off_a.n > 0):
             return None
+        if not (on.mean > 0 and off_a.mean > 0):
+            return None
         a = math.log(on.mean / off_a.mean)
         s_off = off_a.mean * math.exp(-a * off_a.residual)
-        return math.log(on.mean / s_off), on.n + off_a.n
+        x = math.log(on.mean / s_off)
+        return x, on.n + off_a.n, x - a, 1.0, math.nan
     if len(recent) < 3:
         return None
     off_b, on, off_a = recent[-3], recent[-2], recent[-1]
@@ -1063,20 +1166,88 @@ def _cycle(recent: list[_Segment], first_pair: bool) -> tuple[float, float] | No
     sb = off_b.mean * math.exp(-a * off_b.residual)
     sa = off_a.mean * math.exp(-a * off_a.residual)
     s_off = sb + (sa - sb) * frac
-    return math.log(on.mean / s_off), off_b.n + on.n + off_a.n
+    x = math.log(on.mean / s_off)
+    return x, off_b.n + on.n + off_a.n, x - a, frac, math.log(sa / sb)
 
 
 def _chopped_add(core: _ChoppedCore, item) -> _ChoppedCore:
     _, kind, payload = item
     if kind == "cycle":
-        x, n = payload
-        return dataclasses.replace(core, win=core.win.add(x, n), cum=core.cum.add(x, n))
+        x, n, corr, frac, d = payload
+        ds, dsq, dn = core.off_dsum, core.off_dsq, core.off_dn
+        if math.isfinite(d):
+            ds, dsq, dn = ds + d, dsq + d * d, dn + 1
+        return dataclasses.replace(core, win=core.win.add(x, n), cum=core.cum.add(x, n),
+                                   frac_sum=core.frac_sum + frac, win_corr=core.win_corr + corr,
+                                   cum_corr=core.cum_corr + corr, off_dsum=ds, off_dsq=dsq, off_dn=dn)
     if kind == "off":
         # the pump-off level, less the residual of the last gain decay (ln R from the cycles so far)
         a = core.cum.mean() if core.cum.k else 0.0
         m = payload.mean * math.exp(-a * payload.residual)
         return dataclasses.replace(core, win_off=core.win_off.add(m, payload.n), cum_off=core.cum_off.add(m, payload.n))
     return core
+
+
+def _chopped_noise(core: _ChoppedCore, stats: _ScalarStats) -> float:
+    """Noise sigma of the mean ln R of the cycles in ``stats`` (nan if it cannot be told).
+
+    Neighbouring cycles share the off level between them, so their ln R values are correlated
+    at lag one, ``gamma_1 = f (1 - f) var(ln S_off)`` (``f`` the interpolation weight of the
+    later off level, 1/2 at a 50 % duty cycle), and at no other lag: the exact variance of the
+    mean of ``k`` cycles is ``(gamma_0 + 2 gamma_1 (k - 1) / k) / k``, which with the sample
+    variance ``s^2`` (whose expectation is ``gamma_0 - 2 gamma_1 / k``) is
+    ``(s^2 + 2 gamma_1) / k``: the variance of the mean of correlated data in terms of its
+    autocovariances, with which Flyvbjerg and Petersen start their blocking analysis [1]_,
+    here exact because the covariance is known to stop at lag one. ``var(ln S_off)`` is half
+    the mean squared difference of the two off levels around each cycle, less their mean (a
+    linear drift moves every difference alike) [2]_. A window of one or two cycles takes the
+    scatter of all cycles so far.
+
+    References
+    ----------
+    .. [1] H. Flyvbjerg and H. G. Petersen, "Error estimates on averages of correlated data",
+       J. Chem. Phys. 91, 461 (1989).
+    .. [2] J. von Neumann, R. H. Kent, H. R. Bellinson and B. I. Hart, "The mean square
+       successive difference", Ann. Math. Statist. 12, 153 (1941).
+    """
+    k = stats.k
+    cum = core.cum
+    if cum.k == 0 or k == 0:
+        return math.nan
+    f = core.frac_sum / cum.k
+    n = core.off_dn
+    v_off = 0.5 * max(core.off_dsq / n - (core.off_dsum / n) ** 2, 0.0) * n / (n - 1) if n >= 2 else 0.0
+    gamma1 = f * (1.0 - f) * v_off
+    if k >= 3:
+        s2 = stats.std() ** 2
+    elif cum.k >= 3:
+        s2 = cum.std() ** 2
+    else:
+        return math.nan
+    return math.sqrt(max(s2 + 2.0 * gamma1, 0.0) / k)
+
+
+def _dark_noise(dark: Dark | None, ref_level: float, s_off: float, ln_ratio: float) -> float:
+    """The dark's share of the noise of ln R: an error ``d`` of the probe dark moves ``ln S``
+    by ``-d / (S V_ref)``, so ln R by ``d (1 / S_off - 1 / S_on) / V_ref`` (not second order:
+    S_on and S_off differ by the factor R); the reference dark cancels in the ratio."""
+    if dark is None or not (ref_level > 0 and s_off > 0 and math.isfinite(ln_ratio)):
+        return 0.0
+    s_on = s_off * math.exp(ln_ratio)
+    return abs(dark.probe_sigma * (1.0 / s_off - 1.0 / s_on) / ref_level)
+
+
+def _with_ln_ratio_systematic(values: dict[str, Quantity], sys: float) -> dict[str, Quantity]:
+    """``values`` (from `figures`) with a systematic part ``sys`` of ln R propagated into every
+    figure through its noise sensitivity to ln R (linear, GUM sec. 5.1), in quadrature."""
+    q = values.get("ln_ratio")
+    if q is None or not (sys > 0) or not q.sigma_noise > 0:
+        return values
+    out = {}
+    for name, v in values.items():
+        sens = v.sigma_noise / q.sigma_noise
+        out[name] = _q(v.value, v.sigma_noise, math.hypot(v.sigma_systematic, sens * sys))
+    return out
 
 
 def _chopped_estimate(state: EstimatorState, core: _ChoppedCore, scope: str, t: float, counts: _Counts) -> Estimate:
@@ -1093,14 +1264,19 @@ def _chopped_estimate(state: EstimatorState, core: _ChoppedCore, scope: str, t: 
         flags.add("not_settled")
     else:
         lnr = stats.mean()
-        if stats.k >= 3:
-            sn = stats.error()
-        elif core.cum.k >= 3:  # a window of one or two cycles: the scatter of all cycles so far
-            sn = core.cum.std() / math.sqrt(stats.k)
-        else:
-            sn = math.nan
+        sn = _chopped_noise(core, stats)
         if math.isfinite(sn):
+            ref = core.ref_sum / core.ref_n if core.ref_n else math.nan
+            s_off = core.cum_off.mean() if core.cum_off.k else math.nan
+            sn = math.hypot(sn, _dark_noise(state.dark, ref, s_off, lnr))
             values = figures(p, lnr, sn, wl)
+            # the residual-decay correction of the off levels: the edge lies somewhere in its
+            # sample interval (uniform) and tau is known to u_tau
+            corr = abs((core.win_corr if scope == "window" else core.cum_corr) / stats.k)
+            t0 = p.off_settle() / p.tau
+            dt = state.clock.dt
+            rel = math.hypot(dt / p.tau / math.sqrt(12.0), (t0 + 1.0) * p.u_tau)
+            values = _with_ln_ratio_systematic(values, corr * rel)
             flags |= _snr_flags(values, p, stats.k if scope == "cumulative" else core.cum.k)
         else:
             flags.add("low_snr")
@@ -1135,8 +1311,45 @@ def _decay_ingest(core: _DecayCore, f: _Frame, clock: _Clock, p: EstimatorParams
     offedge = f.change & off
     off_local = np.flatnonzero(offedge)
     carry_edge = core.open_edge if not f.start_is_edge else -1
+    # the settled pump-on level (mean ln S) before each on->off edge: ln R(0) of its decay
+    seg = np.cumsum(f.change)
+    nseg = int(seg[-1]) + 1
+    with np.errstate(invalid="ignore", divide="ignore"):
+        ls_all = np.log(f.s)
+    won = f.on & f.settled & np.isfinite(ls_all)
+    lsz = np.where(won, ls_all, 0.0)
+    on_c = np.bincount(seg, weights=won.astype(np.float64), minlength=nseg)
+    on_1 = np.bincount(seg, weights=lsz, minlength=nseg)
+    on_2 = np.bincount(seg, weights=lsz * lsz, minlength=nseg)
+    on_m = np.bincount(seg, weights=np.where(won, f.monitor, 0.0), minlength=nseg)
+    on_mm = np.bincount(seg, weights=np.where(won, f.monitor * f.monitor, 0.0), minlength=nseg)
+    after0 = False
+    last_on = (math.nan, 0.0)
+    if not f.start_is_edge:
+        c0, a0, b0, m0, mm0 = core.on_open
+        on_c[0] += c0
+        on_1[0] += a0
+        on_2[0] += b0
+        on_m[0] += m0
+        on_mm[0] += mm0
+        after0 = core.on_open_after_edge
+        last_on = core.last_on_monitor
+    last = nseg - 1
+    on_open = ((float(on_c[last]), float(on_1[last]), float(on_2[last]), float(on_m[last]), float(on_mm[last]))
+               if f.on[-1] else (0.0, 0.0, 0.0, 0.0, 0.0))
+    levels = {} if f.start_is_edge else {e: (n_, a_, b_) for e, n_, a_, b_ in core.on_levels}
+    for e in off_local:
+        j = int(seg[e]) - 1
+        if j >= 0 and on_c[j] > 0:
+            mon = _level(float(on_c[j]), float(on_m[j]), float(on_mm[j]))
+            steady = _pump_steady(mon, last_on, after0 if j == 0 else True)
+            last_on = mon
+            if steady:  # not while the pump still ramps up (soft start)
+                levels[f.i0 + int(e)] = (float(on_c[j]), float(on_1[j]), float(on_2[j]))
+    core = dataclasses.replace(core, on_open=on_open, on_open_after_edge=(last > 0) or after0,
+                               last_on_monitor=last_on, ref_sum=core.ref_sum + f.ref_sum, ref_n=core.ref_n + f.n)
     if off_local.size == 0 and carry_edge < 0:
-        return dataclasses.replace(core, open_edge=-1, open_sums=None), []
+        return dataclasses.replace(core, open_edge=-1, open_sums=None, on_levels=()), []
     # the last on->off edge index for each sample (global), -1 if none known
     local = np.arange(f.n)
     if off_local.size:
@@ -1177,14 +1390,16 @@ def _decay_ingest(core: _DecayCore, f: _Frame, clock: _Clock, p: EstimatorParams
         if later.size:
             end = min(end, int(later[0]))
         if end - 1 <= last_index:
-            items.append(_finish_decay(state, core, e, end, sums[:, d, :], fit_n, tail0, dt))
+            items.append(_finish_decay(state, core, e, end, sums[:, d, :], fit_n, tail0, dt,
+                                       levels.get(e, (0.0, 0.0, 0.0))))
         else:
             new_open_edge, new_open = e, sums[:, d, :].copy()
-    return dataclasses.replace(core, open_edge=new_open_edge, open_sums=new_open), items
+    kept = ((new_open_edge, *levels[new_open_edge]),) if new_open_edge in levels else ()
+    return dataclasses.replace(core, open_edge=new_open_edge, open_sums=new_open, on_levels=kept), items
 
 
 def _finish_decay(state: EstimatorState, core: _DecayCore, edge: int, end: int, sums: np.ndarray, fit_n: int,
-                  tail0: int, dt: float):
+                  tail0: int, dt: float, on_sums: tuple[float, float, float] = (0.0, 0.0, 0.0)):
     p = state.params
     nb = core.n_bins
     b = end - 1
@@ -1213,7 +1428,16 @@ def _finish_decay(state: EstimatorState, core: _DecayCore, edge: int, end: int, 
         ref_var = (state.baseline.sigma / state.baseline.value) ** 2
         tail_n = 0
     lnr = np.where(good, mean - ln_off, 0.0)
-    return (b, "decay", _Decay(b, c, lnr, ss, use, ref_var, float(np.sum(c) + tc), tail_n))
+    on_n, on_1, on_2 = on_sums
+    on_level, on_var = math.nan, 0.0
+    if on_n >= 2:
+        m_on = on_1 / on_n
+        on_level = m_on - ln_off
+        on_var = max(on_2 - on_1 * m_on, 0.0) / (on_n - 1) / on_n
+    else:
+        on_n = 0.0
+    return (b, "decay", _Decay(b, c, lnr, ss, use, ref_var, float(np.sum(c) + tc), tail_n,
+                               on_n, on_level, on_var, float(ln_off)))
 
 
 def _decay_add(core: _DecayCore, item) -> _DecayCore:
@@ -1301,11 +1525,12 @@ def _decay_fit(state: EstimatorState, core: _DecayCore, stats: _CurveStats, dt: 
     if math.isfinite(da):
         var_a += da * da * ref_var
         var_tau += dtau * dtau * ref_var
-    # where the pump really went off within the sample interval: uniform over dt
-    var_a += (a * dt / tau) ** 2 / 12.0
     return {
         "amplitude": a,
         "amplitude_sigma": math.sqrt(var_a),
+        # where the pump really went off within its sample interval (uniform over dt): the
+        # same for every decay of a chop commensurate with the sample clock, so systematic
+        "amplitude_edge_sys": abs(a) * dt / tau / math.sqrt(12.0),
         "tau": tau,
         "tau_sigma": math.sqrt(var_tau),
         "chi2_reduced": fit.chi2_reduced,
@@ -1314,6 +1539,41 @@ def _decay_fit(state: EstimatorState, core: _DecayCore, stats: _CurveStats, dt: 
         "y": y,
         "sigma": sig * math.sqrt(max(fit.chi2_reduced, 0.0)) if math.isfinite(fit.chi2_reduced) else sig,
     }
+
+
+def _decay_level(state: EstimatorState, core: _DecayCore, stats: _CurveStats,
+                 fit: Mapping[str, Any]) -> tuple[float, float] | None:
+    """(ln R(0), its noise sigma) from the settled pump-on level before each decay, or None.
+
+    Just before the pump goes off, ln R is the settled pump-on level, so ``ln R(0)`` is the
+    mean over decays of (mean ln S of the settled pump-on samples before the edge) less
+    (ln S_off of the same decay). This needs no edge position, unlike the fitted amplitude,
+    whose extrapolation to the edge carries ``(A dt / tau)^2 / 12`` from an edge anywhere in
+    its sample interval. A tail taken as ``S_off`` still holds ``ln R(0) rho`` of gain
+    (`_CurveStats.tail_residual`, with the fitted decay time), put back by dividing by
+    ``1 - rho``. The noise is the scatter of the per-decay values (independent: each pairs an
+    on level with the tail right after it) over sqrt(k), or for fewer than three decays their
+    within-scatter; a stored baseline adds its own error once; the dark's share is added.
+    """
+    lv = stats.level
+    if lv.k == 0:
+        return None
+    p = state.params
+    dt = state.clock.dt
+    tail0 = int(math.ceil(p.decay_tail_start / dt))
+    rho = stats.tail_residual(tail0, dt, fit["tau"], of_levels=True)
+    d = lv.mean()
+    if lv.k >= 3:
+        var = lv.std() ** 2 / lv.k
+    else:
+        var = stats.level_var / lv.k**2
+    if any(n == 0 for n, _ in stats.level_tails):  # decays referred to the stored baseline
+        var += stats.ref_common
+    lnr0 = d / (1.0 - rho)
+    ref = core.ref_sum / core.ref_n if core.ref_n else math.nan
+    s_off = math.exp(stats.level_ln_off / lv.k)
+    sn = math.hypot(math.sqrt(var) / (1.0 - rho), _dark_noise(state.dark, ref, s_off, lnr0))
+    return lnr0, sn
 
 
 def _lifetime_from_decay(p: EstimatorParams, decay_time: float, sigma: float,
@@ -1356,7 +1616,15 @@ def _decay_estimate(state: EstimatorState, core: _DecayCore, scope: str, t: floa
         else:
             flags.add("low_snr")
     else:
-        values = figures(p, fit["amplitude"], fit["amplitude_sigma"], wl)
+        level = _decay_level(state, core, stats, fit)
+        if level is not None:
+            lnr0, sn0 = level
+            values = figures(p, lnr0, sn0, wl)
+            extra["ln_ratio_from"] = "on_level"
+        else:
+            values = _with_ln_ratio_systematic(figures(p, fit["amplitude"], fit["amplitude_sigma"], wl),
+                                               fit["amplitude_edge_sys"])
+            extra["ln_ratio_from"] = "fit"
         tau, tau_sigma, probe_rate = _lifetime_from_decay(p, fit["tau"], fit["tau_sigma"], wl)
         xs = p.cross_sections_at(wl)
         u_rate = 0.0
@@ -1403,7 +1671,7 @@ def _step_figure(state: EstimatorState, inner) -> tuple[float, float, int, float
     stats = inner.cum
     if stats.k < 3:
         return None
-    return stats.mean(), stats.error(), stats.k, stats.n_samples
+    return stats.mean(), _chopped_noise(inner, stats), stats.k, stats.n_samples
 
 
 def _close_step(state: EstimatorState) -> EstimatorState:
@@ -1606,12 +1874,12 @@ def _reset_window(state: EstimatorState, core):
     if state.mode == "watch":
         return dataclasses.replace(core, win=_BatchStats())
     if state.mode == "chopped":
-        return dataclasses.replace(core, win=_ScalarStats(), win_off=_ScalarStats())
+        return dataclasses.replace(core, win=_ScalarStats(), win_off=_ScalarStats(), win_corr=0.0)
     if state.mode == "decay":
         return dataclasses.replace(core, win=_CurveStats.empty(core.n_bins))
     inner = core.inner
     inner = (dataclasses.replace(inner, win=_BatchStats()) if isinstance(inner, _WatchCore)
-             else dataclasses.replace(inner, win=_ScalarStats(), win_off=_ScalarStats()))
+             else dataclasses.replace(inner, win=_ScalarStats(), win_off=_ScalarStats(), win_corr=0.0))
     return dataclasses.replace(core, inner=inner)
 
 

@@ -28,6 +28,30 @@ DECAY_REFERENCES = ("auto", "baseline", "tail")
 FALLBACK_PUMP_THRESHOLD_V = 0.05
 
 
+#: The settle windows of the modulated modes end when the part of ln R still to come (rise)
+#: or still to go (decay) is at most this fraction of ln R: ``exp(-k t) = 1e-5`` at
+#: ``t = 11.5 / k``. Averaged over the used part of a half-period that is a few 1e-7 of ln R,
+#: well below the noise of a run of minutes.
+SETTLE_RESIDUAL = 1e-5
+
+
+def back_face_pump_rate(sigma_ap: float, sigma_ep: float, wavelength: float, beam_diameter: float,
+                        absorbance: float) -> float:
+    """Pump rate per watt at the back face of the sample, ``(sigma_ap + sigma_ep) exp(-A) /
+    (h nu_p pi w^2)`` in 1/(s W), ``w = D/2``, ``A = sigma_ap N L`` the unbleached absorbance.
+
+    The intensity ``P / (pi w^2)`` is the mean over the beam's 1/e^2 area: exact for a top-hat
+    beam of diameter D, and below the intensity a probe narrower than 0.6 D sees on the axis
+    of a Gaussian pump, so the rate is a lower bound either way (Svelto, *Principles of
+    Lasers*, 5th ed., 2010, sec. 2.4 for Beer-Lambert absorption, ch. 7 for the rate).
+    """
+    if not (math.isfinite(beam_diameter) and beam_diameter > 0):
+        raise ValueError(f"beam_diameter: must be a positive length in m, got {beam_diameter!r}")
+    w = 0.5 * beam_diameter
+    flux_per_watt = float(physics.photon_flux(1.0 / (math.pi * w * w), wavelength))
+    return (sigma_ap + sigma_ep) * flux_per_watt * math.exp(-absorbance)
+
+
 def gaussian_peak(total: float, beam_diameter: float) -> float:
     """Peak (on-axis) intensity or fluence of a Gaussian beam, ``2 P / (pi w^2)``, ``w = D/2``.
 
@@ -77,11 +101,19 @@ class EstimatorParams:
     settle_time : float
         Samples within this time after a pump edge are not used, s (default 5 tau).
     rise_settle_time : float
-        In chopped mode, the pump-on part of a half-period is used from this time after its
-        edge (default 10 tau). The rise is faster than 1/tau where the pump is strong, but
-        the weakly pumped depth of a thick sample rises at nearly 1/tau, so that is the worst
-        case: after 10 tau its deficit is below exp(-10) = 4.5e-5 of ln R. (The pump-off part
-        decays at exactly 1/tau plus the probe's rate; its residual is corrected instead.)
+        In chopped and decay modes, the pump-on part of a half-period is used from this time
+        after its edge. Zero (the default) derives it from the pump power in use,
+        `rise_settle`: ``ln(1 / SETTLE_RESIDUAL) / k_rise`` with ``k_rise`` the pumped rise
+        rate of the most weakly pumped depth (`rise_rate`).
+    off_settle_time : float
+        In chopped mode, the pump-off part of a half-period is used from this time after its
+        edge. Zero (the default) derives it, `off_settle`: ``ln(1 / SETTLE_RESIDUAL)`` times
+        the pump-off relaxation time ``1 / (1 / tau + W_s)``; what is left of the gain decay
+        (below ``SETTLE_RESIDUAL`` of ln R) is corrected as well.
+    pump_rate_per_watt : float
+        Pump rate ``(sigma_ap + sigma_ep) I_p / (h nu_p)`` per watt of pump power, at the back
+        face of the sample after unbleached absorption, 1/(s W) (see `rise_rate`); zero when
+        unknown (the rise is then taken at the bare relaxation rate, the slowest it can be).
     step_settle_time : float
         The same after a sweep step (default the settle time plus 30 ms for the driver's
         current to reach its new setpoint).
@@ -154,6 +186,8 @@ class EstimatorParams:
     settle_time: float
     step_settle_time: float
     rise_settle_time: float = 0.0
+    off_settle_time: float = 0.0
+    pump_rate_per_watt: float = 0.0
     window: float = 0.25
     batches_per_window: int = 20
     pump_threshold_v: float | None = None
@@ -179,7 +213,7 @@ class EstimatorParams:
 
     def __post_init__(self) -> None:
         positive = ("probe_wavelength", "length", "n_total", "tau", "weak_fraction", "window",
-                    "settle_time", "step_settle_time", "rise_settle_time", "pump_slope", "baseline_max_age",
+                    "settle_time", "step_settle_time", "pump_slope", "baseline_max_age",
                     "baseline_drift_k", "decay_bin", "decay_fit_span", "decay_tail_start",
                     "decay_record", "decay_min_tail", "temperature")
         for name in positive:
@@ -187,7 +221,8 @@ class EstimatorParams:
             if not (isinstance(v, (int, float)) and math.isfinite(v) and v > 0):
                 raise ValueError(f"{name}: must be a positive number, got {v!r}")
         nonneg = ("sigma_e", "sigma_a", "u_length", "u_n_total", "u_cross_sections", "u_tau",
-                  "probe_peak", "pump_threshold_current", "snr_min", "decay_skip")
+                  "probe_peak", "pump_threshold_current", "snr_min", "decay_skip",
+                  "rise_settle_time", "off_settle_time", "pump_rate_per_watt")
         for name in nonneg:
             v = getattr(self, name)
             if not (isinstance(v, (int, float)) and math.isfinite(v) and v >= 0):
@@ -232,8 +267,9 @@ class EstimatorParams:
                     **overrides: Any) -> EstimatorParams:
         """Parameters for the bench ``cfg``; keyword overrides replace fields by name.
 
-        Derived defaults (settle time 5 tau, decay bins and spans in units of tau) follow an
-        overridden ``tau``. The detector range comes from the detector's ``range`` option and
+        Derived defaults (settle time 5 tau, decay bins and spans in units of tau, the chopped
+        and decay settle windows of `rise_settle` and `off_settle`) follow an overridden
+        ``tau``. The detector range comes from the detector's ``range`` option and
         the monitor responsivity from its ``pump_monitor_per_watt`` option or, on the
         simulated bench, from ``[simulation]``.
         """
@@ -277,6 +313,9 @@ class EstimatorParams:
             pump_slope=cfg.pump.slope_efficiency,
             pump_threshold_current=cfg.pump.threshold_current,
             pump_absorbance=s.sigma.pump_absorption * s.n_total * s.length,
+            pump_rate_per_watt=back_face_pump_rate(
+                s.sigma.pump_absorption, s.sigma.pump_emission, cfg.pump.wavelength, cfg.pump.beam_diameter,
+                s.sigma.pump_absorption * s.n_total * s.length),
             spectrum=spectrum,
             zero_line_energy=physics.photon_energy(s.zero_line).item() if s.zero_line is not None else None,
             temperature=s.temperature,
@@ -287,7 +326,6 @@ class EstimatorParams:
         tau = float(base["tau"])
         derived = dict(
             settle_time=5.0 * tau,
-            rise_settle_time=10.0 * tau,
             decay_bin=tau / 10.0,
             decay_fit_span=5.0 * tau,
             decay_tail_start=8.0 * tau,
@@ -306,6 +344,50 @@ class EstimatorParams:
         return dataclasses.replace(self, **changes)
 
     # -- derived figures -----------------------------------------------------------------
+
+    @property
+    def probe_rate(self) -> float:
+        """The probe's own stimulated rate ``W_s = (sigma_e + sigma_a) Phi_s``, 1/s (cw probes;
+        ``Phi_s`` the photon flux weighted by the probe's Gaussian profile, half the on-axis
+        value); zero for pulsed probes."""
+        if self.probe_kind != "cw":
+            return 0.0
+        return (self.sigma_e + self.sigma_a) * float(physics.photon_flux(0.5 * self.probe_peak, self.probe_wavelength))
+
+    def rise_rate(self, pump_power: float | None) -> float:
+        """Slowest rate (1/s) at which the excited fraction approaches its pumped level.
+
+        In the rate-equation picture of a quasi-three-level medium under constant pump and
+        probe [1]_ [2]_, ``dN2/dt = (sigma_ap N1 - sigma_ep N2) Phi_p + (sigma_as N1 -
+        sigma_es N2) Phi_s - N2 / tau`` is linear in N2, so N2 relaxes to its steady state at
+        ``k = W_p + W_s + 1 / tau`` with ``W_p = (sigma_ap + sigma_ep) I_p / (h nu_p)``. In a
+        thick sample the pump is absorbed on its way, so the back face is pumped least and
+        rises slowest; `pump_rate_per_watt` takes the intensity there after *unbleached*
+        absorption ``exp(-sigma_ap N L)``, a lower bound (bleaching only lets more pump
+        through). ``pump_power`` None or 0 gives the bare ``1/tau + W_s``.
+
+        References
+        ----------
+        .. [1] O. Svelto, *Principles of Lasers*, 5th ed., Springer, 2010, ch. 7
+           (rate equations of quasi-three-level media).
+        .. [2] W. Koechner, *Solid-State Laser Engineering*, 6th ed., Springer, 2006, sec. 1.4.
+        """
+        p = 0.0 if pump_power is None or not pump_power > 0 else float(pump_power)
+        return self.pump_rate_per_watt * p + self.probe_rate + 1.0 / self.tau
+
+    def rise_settle(self, pump_power: float | None) -> float:
+        """Time (s) after a rising pump edge from which pump-on samples are used: the
+        configured `rise_settle_time`, or ``ln(1 / SETTLE_RESIDUAL) / rise_rate(pump_power)``."""
+        if self.rise_settle_time > 0:
+            return float(self.rise_settle_time)
+        return math.log(1.0 / SETTLE_RESIDUAL) / self.rise_rate(pump_power)
+
+    def off_settle(self) -> float:
+        """Time (s) after a falling pump edge from which pump-off samples are used (chopped):
+        the configured `off_settle_time`, or ``ln(1 / SETTLE_RESIDUAL) / (1 / tau + W_s)``."""
+        if self.off_settle_time > 0:
+            return float(self.off_settle_time)
+        return math.log(1.0 / SETTLE_RESIDUAL) / (1.0 / self.tau + self.probe_rate)
 
     @property
     def u_pump_absorbance(self) -> float:

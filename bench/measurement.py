@@ -543,11 +543,13 @@ def default_current(cfg: BenchConfig) -> float:
     return 0.8 * min(cfg.pump.max_current, cfg.guard.max_current)
 
 
-def chop_frequency(cfg: BenchConfig, mode: str) -> float:
-    """Pump modulation for chopped (half period 10 tau) and decay (half period 25 tau) modes."""
-    tau = cfg.sample.upper_state_lifetime
-    half = 10 * tau if mode == "chopped" else 25 * tau
-    return float(min(1e4, max(0.1, 1.0 / (2 * half))))
+def chop_frequency(cfg: BenchConfig, mode: str, current: float | None = None) -> float:
+    """Default pump modulation (Hz) of chopped and decay modes at ``current`` (default: the
+    default current), from the settle windows (`bench.mode_timing.default_period`)."""
+    from bench.mode_timing import default_period
+
+    i = default_current(cfg) if current is None else current
+    return 1.0 / default_period(EstimatorParams.from_config(cfg), mode, cfg.pump.power_at(i))
 
 
 def sweep_currents(cfg: BenchConfig, steps: int) -> list[float]:

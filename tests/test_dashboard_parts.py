@@ -339,3 +339,47 @@ def test_trend_plot_draws_the_band():
 
     title, text, _ = plot_text(TrendPlot, snapshot(), key="gain_db")
     assert "gain" in title and "±2σ" in text
+
+
+def test_mode_screen_refuses_a_chopping_period_with_no_settled_data():
+    # The same refusal as `record --period` (bench.mode_timing.run_period), on the screen,
+    # before the choice reaches the bench.
+    import asyncio
+
+    from textual.app import App
+
+    from bench.dashboard.mode_screen import ModeScreen
+    from bench.measurement import default_current
+    from bench.mode_timing import run_period
+
+    cfg = load_bench()
+    results = []
+
+    def check(choice):
+        if choice.period is not None:
+            run_period(cfg, choice.mode, default_current(cfg), choice.period)
+
+    class One(App):
+        def on_mount(self):
+            self.push_screen(ModeScreen(ModeChoice.defaults(cfg, "chopped"), check=check), callback=results.append)
+
+    async def run():
+        app = One()
+        async with app.run_test(size=(100, 30)) as pilot:
+            await pilot.pause(0.05)
+            chop = app.screen.query_one("#in-chop")
+            chop.value = "10"
+            chop.focus()
+            await pilot.press("enter")
+            await pilot.pause(0.05)
+            error = str(app.screen.query_one("#mode-error").render())
+            refused = isinstance(app.screen, ModeScreen) and not results
+            chop.value = "50"
+            await pilot.press("enter")
+            await pilot.pause(0.05)
+            return error, refused
+
+    error, refused = asyncio.run(run())
+    assert refused
+    assert "no settled data" in error and "10 ms" in error and "50 ms" in error
+    assert len(results) == 1 and results[0].chop_period == pytest.approx(0.05)

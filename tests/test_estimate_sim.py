@@ -116,3 +116,30 @@ def test_pump_sweep_finds_the_rate_equation_saturation(cfg, params):
     assert abs(bm.value - beta_max) < 4 * bm.sigma_noise, (bm, beta_max)
     assert abs(ps.value - p_sat) < 4 * ps.sigma_noise, (ps, p_sat)
     assert est.extra["fits"]["saturation"]["model"] == "thick"
+
+
+@pytest.mark.parametrize("mode", ["chopped", "decay"])
+def test_default_timing_gives_noise_limited_estimates(cfg, params, mode):
+    # The defaults a user gets (`record --mode chopped|decay`): the pump period from the
+    # settle windows at the default current, the estimator's own settle windows. Scored
+    # against the simulator's truth within 4 sigma_noise (no parameter error here). The
+    # former defaults (half-period and rise settle window both 10 tau) gave no cycle at all.
+    from bench.measurement import chop_frequency, default_current
+
+    current = default_current(cfg)
+    settings = {"pump_current": current, "pump_power": cfg.pump.power_at(current)}
+    model, dark, baseline = _bench(cfg, seed=5)
+    model.set_pump(current=current, on=True)
+    model.advance_to(model.t + 0.025)
+    truth = model.truth()
+    model.set_modulation(chop_frequency(cfg, mode))
+    est = _run(params, model, dark, baseline, mode, 2.0, settings)
+    assert not est.flags & {"not_settled", "low_snr"}, est.flags
+    q = est.values["ln_ratio"]
+    assert abs(q.value - truth["ln_ratio"]) < 4 * q.sigma_noise, (q, truth["ln_ratio"])
+    assert q.sigma_noise < 1e-4  # noise-limited: no per-run constant in it
+    if mode == "decay":
+        t = est.values["tau_s"]
+        assert abs(t.value - cfg.sample.upper_state_lifetime) < 4 * t.sigma_noise, t
+    else:
+        assert est.extra["n_cycles"] >= 30

@@ -285,8 +285,9 @@ def test_a_reanalysis_shows_its_overrides_and_both_estimates(runs, reports):
 
     assert pm_text(b1.value, b1.sigma) in page.text and pm_text(b2.value, b2.sigma) in page.text
     # beta = ln R / ((sigma_e + sigma_a) L N): the same ln R over 5.1 mm instead of 5 mm
-    # (Koechner, sec. 1.4)
-    assert b2.value / b1.value == pytest.approx(5.0 / 5.1, rel=1e-9)
+    # (Koechner, sec. 1.4); to 1e-6 only, as the pumped rise (so the settle window, so which
+    # samples are used) depends on the pump absorbance sigma_ap N L
+    assert b2.value / b1.value == pytest.approx(5.0 / 5.1, rel=1e-6)
 
 
 def test_a_sweep_run_has_the_saturation_fit(runs, reports):

@@ -29,6 +29,9 @@ def configure(parser: argparse.ArgumentParser) -> None:
                         help="how long the pump program runs, in seconds of the run clock (default 5)")
     parser.add_argument("--current", metavar="I", help='pump current, e.g. "6 A" (default 80%% of the limit)')
     parser.add_argument("--steps", type=int, default=6, help="pump current steps in sweep mode (default 6)")
+    parser.add_argument("--period", metavar="T",
+                        help='pump modulation period in chopped and decay modes, e.g. "50 ms" (default: from '
+                             "the settle windows at the pump current; a period that leaves no settled data is refused)")
     parser.add_argument("--logs", metavar="DIR", help="run store directory (default: the bench file's run.log_dir)")
     parser.add_argument("--speed", type=float, default=1.0,
                         help="simulated bench only: simulated seconds per real second (default 1)")
@@ -52,7 +55,6 @@ def configure(parser: argparse.ArgumentParser) -> None:
 def run(args: argparse.Namespace) -> int:
     from bench.measurement import (
         Measurement,
-        chop_frequency,
         default_current,
         sweep_currents,
     )
@@ -69,6 +71,7 @@ def run(args: argparse.Namespace) -> int:
         raise ConfigError(f"--current: {current:g} A is above the guard's limit "
                           f"({min(cfg.guard.max_current, cfg.pump.max_current):g} A)")
     settings = {"pump_current": current, "pump_power": cfg.pump.power_at(current)}
+    period = _mode_period(args, cfg, current)
     if args.mode == "sweep":
         settings = {}
     answers, operator = _flag_answers(args, cfg)
@@ -90,7 +93,7 @@ def run(args: argparse.Namespace) -> int:
             print(f"run {meas.run_id} kept (dark and baseline only, pump never on)", file=out)
             return 3
         if args.mode in ("chopped", "decay"):
-            meas.set_modulation(chop_frequency(cfg, args.mode))
+            meas.set_modulation(1.0 / period)
         currents = sweep_currents(cfg, args.steps) if args.mode == "sweep" else [current]
         meas.set_current(currents[0], who=operator)
         meas.emit(who=operator)
@@ -118,6 +121,20 @@ def run(args: argparse.Namespace) -> int:
         status.line(final=True)
     print(f"\n{meas.run_id}", file=out)
     return 0
+
+
+def _mode_period(args, cfg, current: float) -> float | None:
+    """The modulation period of a chopped or decay run, checked before anything opens."""
+    from bench.mode_timing import run_period
+
+    if args.mode not in ("chopped", "decay"):
+        if args.period is not None:
+            raise ConfigError(f"--period: applies to chopped and decay modes, not {args.mode}")
+        return None
+    chosen = None if args.period is None else parse_quantity(args.period, "time", "--period")
+    if chosen is not None and not (math.isfinite(chosen) and chosen > 0):
+        raise ConfigError(f"--period: {args.period!r} is not a positive time")
+    return run_period(cfg, args.mode, current, chosen)
 
 
 def _flag_answers(args, cfg):

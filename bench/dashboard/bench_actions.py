@@ -86,7 +86,14 @@ class BenchActions:
         if self.busy is not None:
             self.say(f"wait: {self.busy} is still running", "refused")
             return
-        self.push_screen(ModeScreen(self.choice), callback=self._mode_chosen)
+        self.push_screen(ModeScreen(self.choice, check=self._check_timing), callback=self._mode_chosen)
+
+    def _check_timing(self, choice: ModeChoice) -> None:
+        """Refuse a pump period that leaves the mode no settled data (`bench.mode_timing`)."""
+        from bench.mode_timing import run_period
+
+        if choice.period is not None:
+            run_period(self.meas.cfg, choice.mode, self.setpoint, choice.period)
 
     def _mode_chosen(self, choice: ModeChoice | None) -> None:
         if choice is None:

@@ -11,6 +11,7 @@ The choice is a `ModeChoice`; the app applies it in a thread worker.
 from __future__ import annotations
 
 import math
+from collections.abc import Callable
 from dataclasses import dataclass, replace
 
 from rich.text import Text
@@ -21,6 +22,7 @@ from textual.screen import ModalScreen
 from textual.widgets import Button, Input, Label, RadioButton, RadioSet, Static
 
 from bench.config import BenchConfig
+from bench.errors import GainbenchError
 from bench.estimate import MODES
 from bench.measurement import chop_frequency
 
@@ -54,8 +56,14 @@ class ModeChoice:
 
     @classmethod
     def defaults(cls, cfg: BenchConfig, mode: str = "watch") -> ModeChoice:
-        """The bench's defaults: periods of 20 and 50 lifetimes (`chop_frequency`)."""
+        """The bench's defaults: periods from the settle windows at the default current
+        (`bench.mode_timing.default_period`, through `chop_frequency`)."""
         return cls(mode, 1.0 / chop_frequency(cfg, "chopped"), 1.0 / chop_frequency(cfg, "decay"))
+
+    @property
+    def period(self) -> float | None:
+        """The pump modulation period this mode uses, s (None: steady)."""
+        return {"chopped": self.chop_period, "decay": self.decay_period}.get(self.mode)
 
     @property
     def modulation_hz(self) -> float | None:
@@ -86,7 +94,12 @@ class ModeButton(RadioButton):
 
 
 class ModeScreen(ModalScreen[ModeChoice | None]):
-    """Pick a mode and edit its timing; enter or the apply button applies, escape cancels."""
+    """Pick a mode and edit its timing; enter or the apply button applies, escape cancels.
+
+    ``check``, if given, is called with the choice before it is applied; a `ValueError` it
+    raises, or a `bench.errors.GainbenchError` (e.g. `bench.mode_timing.TimingError`: a period that leaves no settled data) is
+    shown on the screen and the choice is not applied.
+    """
 
     DEFAULT_CSS = """
     ModeScreen { align: center middle; }
@@ -101,9 +114,10 @@ class ModeScreen(ModalScreen[ModeChoice | None]):
 
     BINDINGS = [Binding("escape", "cancel", "cancel")]
 
-    def __init__(self, current: ModeChoice) -> None:
+    def __init__(self, current: ModeChoice, check: Callable[[ModeChoice], None] | None = None) -> None:
         super().__init__()
         self.current = current
+        self.check = check
 
     def compose(self) -> ComposeResult:
         c = self.current
@@ -154,7 +168,9 @@ class ModeScreen(ModalScreen[ModeChoice | None]):
     def _apply(self) -> None:
         try:
             choice = self.read_choice()
-        except ValueError as exc:
+            if self.check is not None:
+                self.check(choice)
+        except (ValueError, GainbenchError) as exc:
             self.query_one("#mode-error", Static).update(Text(f"✗ {exc}"))
             return
         self.dismiss(choice)
