@@ -122,17 +122,11 @@ def run(args: argparse.Namespace) -> int:
 
 def _flag_answers(args, cfg):
     """Checklist answers from flags, or None to ask on the terminal."""
-    from bench.checklist import answers_from_flags, parse_eyewear_flag
+    from bench.checklist import answers_from_flags, parse_eyewear_flags
 
     operator = args.operator or cfg.run.operator or ""
     if args.eyewear_od or args.confirm_setup:
-        ods = {}
-        for item in args.eyewear_od:
-            try:
-                wl, od = parse_eyewear_flag(item)
-            except (ValueError, GainbenchError) as exc:
-                raise ConfigError(f"--eyewear-od {item!r}: {exc}") from None
-            ods[wl] = od
+        ods = parse_eyewear_flags(args.eyewear_od)
         if not operator:
             raise ConfigError("--operator NAME is needed with --eyewear-od / --confirm-setup")
         return answers_from_flags(operator, ods, args.confirm_setup), operator
