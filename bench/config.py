@@ -193,6 +193,8 @@ class BenchConfig:
     simulation: SimulationConfig | None
     #: Values given apart from the file (``--set``), applied over ``text``.
     overrides: Mapping[str, str] = field(default_factory=dict)
+    #: The folder relative file names in ``text`` were read from (spectrum files).
+    base_dir: Path | None = None
 
 
 # --------------------------------------------------------------------------------------------
@@ -241,11 +243,9 @@ def load_bench_text(
     reader = _Reader(raw, source, text, overridden=set(overrides or ()))
     cfg = _build(reader, text, base_dir or Path.cwd())
     reader.reject_unknown()
-    if overrides:
-        from dataclasses import replace
+    from dataclasses import replace
 
-        cfg = replace(cfg, overrides=dict(overrides))
-    return cfg
+    return replace(cfg, overrides=dict(overrides or {}), base_dir=base_dir)
 
 
 def parse_overrides(items: list[str] | None) -> dict[str, str]:
@@ -437,6 +437,11 @@ class _Reader:
 def _is_free_table(dotted: str) -> bool:
     """Tables whose keys belong to someone else (instrument options go to the driver)."""
     return bool(re.fullmatch(r"instruments\.[^.]+\.options", dotted))
+
+
+def line_of(text: str, key: str) -> int | None:
+    """Line number of a dotted key in bench-file text, or None (for errors found past this module)."""
+    return _line_of(text, key)
 
 
 def _line_of(text: str, key: str) -> int | None:
