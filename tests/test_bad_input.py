@@ -21,7 +21,7 @@ from hypothesis import strategies as st
 from bench import laser_safety
 from bench.checklist import OD_MAX, parse_eyewear_flag, parse_eyewear_flags, parse_od
 from bench.cli import main
-from bench.config import load_bench, load_bench_text
+from bench.config import builtin_bench_path, load_bench, load_bench_text
 from bench.errors import ConfigError
 from bench.run_checks import check_instruments, lowered_eyewear
 from bench.runstore import RunReader, resolve_run
@@ -349,3 +349,56 @@ def test_record_in_a_folder_holding_a_decoy_bench_package(tmp_path):
     assert proc.returncode == 0, proc.stderr
     assert "decoy" not in proc.stderr
     assert len(list((tmp_path / "logs").iterdir())) == 1
+
+
+# --------------------------------------------------------------------------------------------
+# Whatever passes check, sample and the checklist can compute
+
+def _log_uniform(lo: float, hi: float):
+    import math
+
+    return st.floats(math.log10(lo), math.log10(hi)).map(lambda e: 10.0 ** e)
+
+
+@settings(max_examples=150, deadline=None)
+@given(
+    length=_log_uniform(1e-6, 100.0),
+    n_total=_log_uniform(1e18, 1e29),
+    sigma_e=_log_uniform(1e-28, 1e-18),
+    sigma_a=_log_uniform(1e-28, 1e-18),
+    sigma_pump=_log_uniform(1e-28, 1e-18),
+    tau=_log_uniform(1e-9, 0.1),
+    probe_d=_log_uniform(1e-6, 0.1),
+    pump_d=_log_uniform(1e-6, 0.1),
+    probe_power=_log_uniform(1e-9, 10.0),
+    slope=_log_uniform(1e-6, 100.0),
+)
+def test_every_bench_that_passes_check_gives_its_figures(length, n_total, sigma_e, sigma_a, sigma_pump,
+                                                         tau, probe_d, pump_d, probe_power, slope):
+    import math
+
+    from bench.checklist import checklist_items
+    from bench.commands.sample import figures
+
+    text = builtin_bench_path().read_text(encoding="utf-8")
+    for old, new in (
+        ('length = "5 mm"', f'length = "{length!r} m"'),
+        ('n_total = "2.0e20 cm^-3"', f'n_total = "{n_total!r} m^-3"'),
+        ('probe_emission = "2.2e-20 cm^2"', f'probe_emission = "{sigma_e!r} m^2"'),
+        ('probe_absorption = "0.12e-20 cm^2"', f'probe_absorption = "{sigma_a!r} m^2"'),
+        ('pump_absorption = "1.0e-20 cm^2"', f'pump_absorption = "{sigma_pump!r} m^2"'),
+        ('upper_state_lifetime = "0.6 ms"', f'upper_state_lifetime = "{tau!r} s"'),
+        ('beam_diameter = "0.1 mm"', f'beam_diameter = "{probe_d!r} m"'),
+        ('beam_diameter = "0.2 mm"', f'beam_diameter = "{pump_d!r} m"'),
+        ('power = "1 mW"', f'power = "{probe_power!r} W"'),
+        ('slope_efficiency = "1.05 W/A"', f'slope_efficiency = "{slope!r} W/A"'),
+    ):
+        assert old in text
+        text = text.replace(old, new, 1)
+    try:
+        cfg = load_bench_text(text, "bench.toml")
+    except ConfigError:
+        return  # refused with a message: fine (e.g. an optical depth above the bound)
+    values = figures(cfg)  # before the bounds: OverflowError, ZeroDivisionError, ValueError
+    assert all(isinstance(v, float) and not math.isnan(v) for v in values.values())
+    checklist_items(cfg)
