@@ -402,3 +402,15 @@ def test_every_bench_that_passes_check_gives_its_figures(length, n_total, sigma_
     values = figures(cfg)  # before the bounds: OverflowError, ZeroDivisionError, ValueError
     assert all(isinstance(v, float) and not math.isnan(v) for v in values.values())
     checklist_items(cfg)
+
+
+def test_the_benchmarks_fresh_process_ignores_a_decoy_bench_package(tmp_path, monkeypatch):
+    from bench.benchmark import in_fresh_process
+
+    decoy = tmp_path / "bench"
+    decoy.mkdir()
+    (decoy / "__init__.py").write_text('raise SystemExit("the decoy bench package was imported")\n')
+    (decoy / "benchmark.py").write_text('raise SystemExit("the decoy bench package was imported")\n')
+    monkeypatch.chdir(tmp_path)
+    # no rates to try: the fresh process imports bench.benchmark, calls it, returns at once
+    assert in_fresh_process("highest_rate", str(tmp_path), [], 0.1, report=lambda line: None) == [None, []]
