@@ -414,3 +414,27 @@ def test_the_benchmarks_fresh_process_ignores_a_decoy_bench_package(tmp_path, mo
     monkeypatch.chdir(tmp_path)
     # no rates to try: the fresh process imports bench.benchmark, calls it, returns at once
     assert in_fresh_process("highest_rate", str(tmp_path), [], 0.1, report=lambda line: None) == [None, []]
+
+
+def test_live_refuses_the_same_before_the_dashboard_starts(tmp_path, demo_text, capsys):
+    logs = ["--logs", str(tmp_path / "logs")]
+    for argv, expected in (
+        (["live", *logs, "--set", "pump.slope_efficiency=1e-6W/A"], "lowers the eyewear OD required"),
+        (["live", *logs, "--set", "guard.comm_failures=100"], "--set guard.comm_failures (over <built-in demo "
+                                                              "bench>): 100 is outside 1 ... 10"),
+        (["live", *logs, "--speed", "nan"], "--speed: nan"),
+        (["live", *logs, "--current-step", "inf"], "--current-step: inf"),
+        (["live", *logs, "--config", str(_bench(tmp_path, demo_text, 'driver = "digitiser"', 'driver = "x"'))],
+         "instruments.detector.driver (line 54): unknown driver 'x'"),
+    ):
+        code, err = _run(argv, capsys)
+        assert code == 2, argv
+        assert expected in err
+    assert not (tmp_path / "logs").exists()
+
+
+def test_sim_serve_refuses_instrument_mistakes(tmp_path, demo_text, capsys):
+    path = _bench(tmp_path, demo_text, 'sample_rate = "100 kHz"', 'sample_rate = "5 MHz"')
+    code, err = _run(["sim", "serve", "--config", str(path)], capsys)
+    assert code == 2
+    assert f"{path}: instruments.detector.options.sample_rate (line 58): " in err
