@@ -26,6 +26,9 @@ WAVELENGTH_RANGE = (200e-9, 20e-6)
 
 ROLES = ("detector", "pump", "shutter", "wavelength")
 
+#: A bench file is a few kB; more than this is the wrong file (or a device that never ends).
+BENCH_FILE_MAX_BYTES = 1_000_000
+
 # Bounds of values a bench file (and ``--set``, which passes through the same reader) may
 # give. Each is far outside what a real bench needs and inside what the tool's arithmetic
 # and the guard's job survive; common practice, no source, unless a value says otherwise.
@@ -219,7 +222,12 @@ def load_bench(path: str | Path | None = None, overrides: Mapping[str, str] | No
         p = Path(path)
         source = str(path)
     try:
-        text = p.read_text(encoding="utf-8")
+        with p.open("rb") as f:
+            data = f.read(BENCH_FILE_MAX_BYTES + 1)  # bounded: a device such as /dev/zero never ends
+        if len(data) > BENCH_FILE_MAX_BYTES:
+            raise ConfigError(f"{source}: larger than {BENCH_FILE_MAX_BYTES // 1000} kB; a bench file is a few kB "
+                              "of TOML (is this the right file?)")
+        text = data.decode("utf-8")
     except FileNotFoundError:
         raise ConfigError(f"{source}: no such bench file") from None
     except (OSError, UnicodeDecodeError) as exc:

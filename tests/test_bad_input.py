@@ -438,3 +438,13 @@ def test_sim_serve_refuses_instrument_mistakes(tmp_path, demo_text, capsys):
     code, err = _run(["sim", "serve", "--config", str(path)], capsys)
     assert code == 2
     assert f"{path}: instruments.detector.options.sample_rate (line 58): " in err
+
+
+def test_a_bench_file_that_never_ends_is_refused(tmp_path, capsys):
+    big = tmp_path / "big.toml"
+    big.write_bytes(b"# " + b"x" * 2_000_000 + b"\n")
+    paths = [big] + ([Path("/dev/zero")] if Path("/dev/zero").exists() else [])  # /dev/zero: POSIX only
+    for path in paths:
+        code, err = _run(["check", str(path)], capsys)
+        assert code == 2
+        assert f"{path}: larger than 1000 kB" in err
