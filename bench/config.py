@@ -51,6 +51,9 @@ LENGTH_RANGE = (1e-6, 100.0)
 #: (sigma_e + sigma_a) N_total L at the probe: exp(200) is 7e86, a gain or loss of 870 dB in
 #: one pass that no probe is measured through (double precision overflows at exp(709)).
 OPTICAL_DEPTH_MAX = 200.0
+#: Pump slope efficiency, W/A: at most h nu / e per emitter in series (1.3 W/A at 940 nm, a
+#: quantum efficiency of 1); 1000 W/A would be some 750 emitters in series.
+SLOPE_EFFICIENCY_MAX = 1000.0
 
 #: The guard's limits. A value outside switches a trip condition off in effect:
 #: - stale_after: a pump left on with no fresh reading for longer than a few seconds is
@@ -646,7 +649,7 @@ def _pump(r: _Reader) -> PumpConfig:
         max_current=r.positive("pump.max_current", "current"),
         diode_current_rating=r.positive("pump.diode_current_rating", "current"),
         threshold_current=r.positive("pump.threshold_current", "current", "0 A", allow_zero=True),
-        slope_efficiency=r.positive("pump.slope_efficiency", "slope"),
+        slope_efficiency=r.bounded("pump.slope_efficiency", "slope", 0.0, SLOPE_EFFICIENCY_MAX, "W/A"),
         beam_diameter=r.bounded("pump.beam_diameter", "length", *BEAM_DIAMETER_RANGE, "m"),
     )
     if pump.max_current > pump.diode_current_rating:

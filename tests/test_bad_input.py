@@ -15,7 +15,7 @@ import sys
 from pathlib import Path
 
 import pytest
-from hypothesis import given, settings
+from hypothesis import example, given, settings
 from hypothesis import strategies as st
 
 from bench import laser_safety
@@ -448,3 +448,45 @@ def test_a_bench_file_that_never_ends_is_refused(tmp_path, capsys):
         code, err = _run(["check", str(path)], capsys)
         assert code == 2
         assert f"{path}: larger than 1000 kB" in err
+
+
+def _demo_keys() -> list[str]:
+    import tomllib
+
+    keys: list[str] = []
+
+    def walk(node: dict, prefix: str) -> None:
+        for k, v in node.items():
+            if isinstance(v, dict):
+                walk(v, f"{prefix}{k}.")
+            elif not isinstance(v, list):
+                keys.append(f"{prefix}{k}")
+
+    walk(tomllib.loads(builtin_bench_path().read_text(encoding="utf-8")), "")
+    return keys
+
+
+#: Values at the edges of floats and of units, typed as a user might through --set.
+ODD_VALUES = ["0", "-1", "-0", "nan", "inf", "1e308", "1e400 m", "2**64", "5_0", "", "abc", "true", "0 s",
+              "1e-30 s", "5 kg", "1e300 W", "1e300 A", "1e300 W/A", "1e300 m", "1e300 m^-3", "1e300 m^2",
+              "1e-300 m", "1e-300 m^2", "1e-300 W", "1e-300 A", "1e300 Hz", "1e300 V", "1e6 K", "-40 degC",
+              "0 degC", "1e-9 s", "30 um", "100 m", "0.1 s"]
+
+
+@settings(max_examples=300, deadline=None)
+@given(st.sampled_from(_demo_keys()), st.sampled_from(ODD_VALUES))
+@example("pump.slope_efficiency", "1e300 W/A")
+def test_any_odd_override_is_refused_or_computes(key, value):
+    import math
+
+    from bench.checklist import checklist_items
+    from bench.commands.sample import figures
+
+    try:
+        cfg = load_bench(overrides={key: value})
+        check_instruments(cfg)
+        lowered_eyewear(cfg)
+    except ConfigError:
+        return
+    checklist_items(cfg)  # before the slope efficiency's bound: "1e300 W/A" gave an infinite intensity
+    assert all(not math.isnan(v) for v in figures(cfg).values())
