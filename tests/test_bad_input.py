@@ -490,3 +490,21 @@ def test_any_odd_override_is_refused_or_computes(key, value):
         return
     checklist_items(cfg)  # before the slope efficiency's bound: "1e300 W/A" gave an infinite intensity
     assert all(not math.isnan(v) for v in figures(cfg).values())
+
+
+def test_the_terminal_checklist_re_asks_odd_numerals():
+    from bench.checklist import checklist_items, run_interactive
+
+    replies = iter(["5_0", "\u0665", "1e1", "50", "5", "2", "yes", "yes", "yes"])
+    asked: list[str] = []
+    shown: list[str] = []
+
+    def input_fn(question: str) -> str:
+        asked.append(question)
+        return next(replies)
+
+    answers = run_interactive(checklist_items(load_bench()), input_fn, shown.append, operator="ana")
+    assert len(asked) == 9  # four odd numerals re-asked at 940 nm, then the answers that count
+    assert answers["eyewear@940nm"].value == 5.0 and answers["eyewear@1030nm"].value == 2.0
+    assert sum("Please enter the OD printed on your eyewear" in s for s in shown) == 4
+    assert any("'5_0' is not a plain number" in s for s in shown)
