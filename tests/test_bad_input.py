@@ -508,3 +508,18 @@ def test_the_terminal_checklist_re_asks_odd_numerals():
     assert answers["eyewear@940nm"].value == 5.0 and answers["eyewear@1030nm"].value == 2.0
     assert sum("Please enter the OD printed on your eyewear" in s for s in shown) == 4
     assert any("'5_0' is not a plain number" in s for s in shown)
+
+
+def test_check_refuses_ascii_data_from_a_profile_without_an_ascii_fetch(tmp_path, demo_text, capsys):
+    from drivers.profile import BUILTIN_DIR
+
+    text = (BUILTIN_DIR / "generic-digitiser.toml").read_text(encoding="utf-8")
+    line = next(x for x in text.splitlines(keepends=True) if x.startswith("fetch_ascii = "))
+    profile = tmp_path / "no-ascii.toml"
+    profile.write_text(text.replace(line, "", 1), encoding="utf-8")
+    path = _bench(tmp_path, demo_text.replace('profile = "generic-digitiser"', f'profile = "{profile.as_posix()}"', 1),
+                  'format = "binary"', 'format = "ascii"')
+    code, err = _run(["check", str(path)], capsys)
+    assert code == 2
+    assert f"{path}: instruments.detector.options.format (line 58): profile " in err
+    assert "has no ASCII fetch" in err
