@@ -103,17 +103,35 @@ def lowered_eyewear(cfg: BenchConfig) -> list[str]:
     except ConfigError as exc:
         raise ConfigError(f"{exc} (in the bench file as written, before --set: the eyewear OD it requires is "
                           "what the overrides are checked against, so fix the file itself)") from None
-    before, after = required_ods(written), required_ods(cfg)
-    given = ", ".join(f"{k}={v}" for k, v in cfg.overrides.items())
+    before = required_ods(written)
+    lowered = _lowered(before, required_ods(cfg))
+    if not lowered:
+        return []
+    # name the overrides that lower it by themselves, when some do (else all of them together)
+    alone = [k for k, v in cfg.overrides.items() if _lowered(before, _ods_with(cfg, {k: v}) or before)]
+    given = ", ".join(f"{k}={cfg.overrides[k]}" for k in (alone or cfg.overrides))
     out = []
-    for laser, (wl0, od0) in before.items():
-        wl1, od1 = after.get(laser, (wl0, None))
-        if od0 is None or (od1 is not None and od1 >= od0):
-            continue
+    for laser, (wl0, od0), (wl1, od1) in lowered:
         now = "cannot be computed" if od1 is None else f"OD {od1} at {wl1 * 1e9:g} nm"
         out.append(f"--set {given} lowers the eyewear OD required against the {laser} from OD {od0} at "
                    f"{wl0 * 1e9:g} nm (the bench file as written) to {now}")
     return out
+
+
+def _lowered(before, after) -> list[tuple[str, tuple[float, int | None], tuple[float, int | None]]]:
+    out = []
+    for laser, (wl0, od0) in before.items():
+        wl1, od1 = after.get(laser, (wl0, None))
+        if od0 is not None and (od1 is None or od1 < od0):
+            out.append((laser, (wl0, od0), (wl1, od1)))
+    return out
+
+
+def _ods_with(cfg: BenchConfig, overrides: dict[str, str]) -> dict[str, tuple[float, int | None]] | None:
+    try:
+        return required_ods(load_bench_text(cfg.text, cfg.source, overrides=overrides, base_dir=cfg.base_dir))
+    except ConfigError:  # valid only together with the other overrides
+        return None
 
 
 def add_run_options(parser: argparse.ArgumentParser) -> None:

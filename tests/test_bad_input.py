@@ -139,7 +139,7 @@ def test_accepted_lower_od_is_loud_and_recorded(tmp_path, capsys):
                  "--set", "pump.slope_efficiency=1e-6W/A", "--accept-lower-od"])
     out = capsys.readouterr()
     assert code == 0, out.err
-    assert "gainbench: WARNING: --set guard.stale_after=3s, pump.slope_efficiency=1e-6W/A lowers the eyewear OD" \
+    assert "gainbench: WARNING: --set pump.slope_efficiency=1e-6W/A lowers the eyewear OD" \
         in out.err
     run_id = out.out.strip().splitlines()[-1]
     with RunReader(resolve_run(run_id, tmp_path)) as reader:
@@ -523,3 +523,17 @@ def test_check_refuses_ascii_data_from_a_profile_without_an_ascii_fetch(tmp_path
     assert code == 2
     assert f"{path}: instruments.detector.options.format (line 58): profile " in err
     assert "has no ASCII fetch" in err
+
+
+def test_the_refusal_names_the_overrides_that_lower_the_od():
+    # OD exact from bench.laser_safety.required_od at 940 nm, 7 mm aperture: 8.82 W in 0.2 mm 3.88
+    # (OD 4); in 40 mm 2.65 (OD 3); 4.2 W in 0.2 mm 3.56 (OD 4); 8.82 W in 20 mm 3.22 (OD 4);
+    # 4.2 W in 20 mm 2.90 (OD 3)
+    cfg = load_bench(overrides={"guard.stale_after": "2 s", "pump.beam_diameter": "40 mm", "probe.power": "2 mW"})
+    (text,) = lowered_eyewear(cfg)
+    assert text.startswith("--set pump.beam_diameter=40 mm lowers the eyewear OD required against the pump "
+                           "from OD 4 at 940 nm (the bench file as written) to OD 3 at 940 nm")
+    # neither lowers it alone, both together do
+    cfg = load_bench(overrides={"pump.slope_efficiency": "0.5 W/A", "pump.beam_diameter": "20 mm"})
+    (text,) = lowered_eyewear(cfg)
+    assert text.startswith("--set pump.slope_efficiency=0.5 W/A, pump.beam_diameter=20 mm lowers")
