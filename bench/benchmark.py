@@ -304,7 +304,8 @@ def in_fresh_process(function: str, *args: Any, report: Callable[[str], None] = 
             "    print(json.dumps(out, default=str))\n")
     call = json.dumps({"f": function, "args": [str(a) if isinstance(a, Path) else a for a in args],
                        "kwargs": kwargs})
-    proc = subprocess.Popen([sys.executable, "-c", code, call], stdout=subprocess.PIPE, stderr=subprocess.PIPE,
+    # -P: a folder named "bench" in the current directory is never imported in place of this package
+    proc = subprocess.Popen([sys.executable, "-P", "-c", code, call], stdout=subprocess.PIPE, stderr=subprocess.PIPE,
                             text=True)
     lines = []
     assert proc.stderr is not None

@@ -34,6 +34,7 @@ References
 from __future__ import annotations
 
 import math
+import re
 import time
 import uuid
 from collections.abc import Callable, Mapping, Sequence
@@ -529,22 +530,65 @@ def answers_from_flags(
     return answers
 
 
+#: An OD as printed on eyewear: ASCII digits with at most one decimal point, nothing else
+#: (Python's float would also take "5_0" as 50, "٥" as 5, "1e1", "inf" and "nan").
+_OD_NUMERAL = re.compile(r"[0-9]{1,3}(?:\.[0-9]{0,3})?|\.[0-9]{1,3}")
+
+#: No eyewear is rated above this (EN 207 scale numbers stop at LB10, from memory): a larger
+#: figure is a typing mistake.
+OD_MAX = 10.0
+
+
+def parse_od(text: str) -> float:
+    """An eyewear OD as typed (``"5"``, ``"4.5"``); ValueError saying what is wrong otherwise."""
+    t = str(text).strip()
+    if not _OD_NUMERAL.fullmatch(t):
+        raise ValueError(f"the OD {t!r} is not a plain number such as 5 or 4.5 (ASCII digits, "
+                         "no underscores, no exponent)")
+    od = float(t)
+    if od > OD_MAX:
+        raise ValueError(f"the OD {t!r} is above OD {OD_MAX:g}, more than any eyewear is rated for")
+    return od
+
+
 def parse_eyewear_flag(text: str) -> tuple[float, float]:
     """``"976nm=5"`` -> ``(9.76e-7, 5.0)``; a `ConfigError` naming ``--eyewear-od`` otherwise."""
     where = f"--eyewear-od {text!r}"
     left, sep, right = str(text).partition("=")
     if not sep or not left.strip() or not right.strip():
         raise ConfigError(f"{where}: expected WAVELENGTH=OD, e.g. 976nm=5")
+    if "=" in right:
+        raise ConfigError(f"{where}: expected one WAVELENGTH=OD, e.g. 976nm=5 (repeat the option for more)")
     wavelength = parse_quantity(left.strip(), "length", where)
     try:
-        od = float(right.strip())
-    except ValueError:
-        raise ConfigError(f"{where}: the OD {right.strip()!r} is not a number") from None
-    if not math.isfinite(od) or od < 0:
-        raise ConfigError(f"{where}: the OD must be a number >= 0")
+        od = parse_od(right)
+    except ValueError as exc:
+        raise ConfigError(f"{where}: {exc}") from None
     if not wavelength > 0:
         raise ConfigError(f"{where}: the wavelength must be positive")
     return wavelength, od
+
+
+def parse_eyewear_flags(items: Sequence[str]) -> dict[float, float]:
+    """Every ``--eyewear-od`` given -> wavelength (m) -> OD; each wavelength once.
+
+    The same wavelength named twice (``940nm=0`` and ``940nm=5``, or ``940nm`` and ``0.94um``,
+    which are one eyewear item) is refused, whether the ODs agree or not: which answer the
+    operator meant cannot be guessed, and the safe-looking one must not win silently.
+    """
+    ods: dict[float, float] = {}
+    given: dict[str, str] = {}
+    for item in items:
+        wavelength, od = parse_eyewear_flag(item)
+        key = eyewear_id(wavelength)
+        if key in given:
+            raise ConfigError(
+                f"--eyewear-od {item!r}: {key.removeprefix('eyewear@')} was already answered by --eyewear-od "
+                f"{given[key]!r}; give each wavelength once, with the OD printed on the eyewear worn"
+            )
+        given[key] = str(item)
+        ods[wavelength] = od
+    return ods
 
 
 def run_interactive(
@@ -611,12 +655,10 @@ def _ask(item: Item, head: str, input_fn: Callable[[str], str], print_fn: Callab
             print_fn("Please answer yes or no.")
             continue
         try:
-            od = float(text)
-        except ValueError:
-            od = math.nan
-        if math.isfinite(od) and od >= 0:
-            return od
-        print_fn("Please enter the OD printed on your eyewear for this wavelength, a number such as 5.")
+            return parse_od(text)
+        except ValueError as exc:
+            print_fn(f"{str(exc)[0].upper()}{str(exc)[1:]}. Please enter the OD printed on your eyewear for "
+                     "this wavelength, a number such as 5.")
     return None
 
 

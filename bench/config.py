@@ -26,6 +26,51 @@ WAVELENGTH_RANGE = (200e-9, 20e-6)
 
 ROLES = ("detector", "pump", "shutter", "wavelength")
 
+#: A bench file is a few kB; more than this is the wrong file (or a device that never ends).
+BENCH_FILE_MAX_BYTES = 1_000_000
+
+# Bounds of values a bench file (and ``--set``, which passes through the same reader) may
+# give. Each is far outside what a real bench needs and inside what the tool's arithmetic
+# and the guard's job survive; common practice, no source, unless a value says otherwise.
+
+#: 1/e² beam diameters at the sample, m: no free-space beam at 200 nm - 20 um focuses below
+#: 1 um (diffraction), and no lab sample is pumped or probed through a beam wider than 10 cm.
+BEAM_DIAMETER_RANGE = (1e-6, 0.1)
+#: Upper-state lifetimes, s. Long-lived laser levels live about 10 ms (Er3+ 4I13/2 in glass,
+#: from memory); 100 ms leaves a factor ten. The baseline and the chopping wait several
+#: lifetimes for the medium to relax, so a lifetime of minutes would make them wait for hours.
+LIFETIME_RANGE = (1e-9, 0.1)
+#: Active-ion density, m^-3: stoichiometric Yb or Nd crystals hold about 1.4e22 cm^-3 (from
+#: memory); no solid holds ten times that.
+N_TOTAL_MAX = 1e29
+#: Cross-sections, m² (1e-14 cm²): above those of dyes and semiconductors, the largest of
+#: laser transitions (about 1e-16 cm², from memory).
+CROSS_SECTION_MAX = 1e-18
+#: Sample length, m (long fibre amplifiers are tens of metres).
+LENGTH_RANGE = (1e-6, 100.0)
+#: (sigma_e + sigma_a) N_total L at the probe: exp(200) is 7e86, a gain or loss of 870 dB in
+#: one pass that no probe is measured through (double precision overflows at exp(709)).
+OPTICAL_DEPTH_MAX = 200.0
+#: Pump slope efficiency, W/A: at most h nu / e per emitter in series (1.3 W/A at 940 nm, a
+#: quantum efficiency of 1); 1000 W/A would be some 750 emitters in series.
+SLOPE_EFFICIENCY_MAX = 1000.0
+
+#: The guard's limits. A value outside switches a trip condition off in effect:
+#: - stale_after: a pump left on with no fresh reading for longer than a few seconds is
+#:   unsupervised (5 s leaves room for a loaded lab PC and slow instruments);
+#: - comm_failures: more than 10 failed exchanges in a row is a link that is down, not a glitch;
+#: - mount temperatures: laser-diode mounts are run within about -10 degC to 60 degC; a window
+#:   reaching beyond that would never trip on a failed cooler;
+#: - current_tolerance: the over-current trip fires at max_current + current_tolerance, so more
+#:   than 10 % of the diode's rating would let the diode run well above its rating;
+#: - transmission_jump: a beam blocked or a sample broken makes S fall towards 0, a relative
+#:   change of at most 1; above 0.9 such a fall could not trip.
+STALE_AFTER_MAX = 5.0
+COMM_FAILURES_MAX = 10
+MOUNT_TEMPERATURE_RANGE = (263.15, 333.15)
+CURRENT_TOLERANCE_MAX_FRACTION = 0.1
+TRANSMISSION_JUMP_MAX = 0.9
+
 
 @dataclass(frozen=True)
 class CrossSections:
@@ -154,6 +199,8 @@ class BenchConfig:
     simulation: SimulationConfig | None
     #: Values given apart from the file (``--set``), applied over ``text``.
     overrides: Mapping[str, str] = field(default_factory=dict)
+    #: The folder relative file names in ``text`` were read from (spectrum files).
+    base_dir: Path | None = None
 
 
 # --------------------------------------------------------------------------------------------
@@ -178,7 +225,12 @@ def load_bench(path: str | Path | None = None, overrides: Mapping[str, str] | No
         p = Path(path)
         source = str(path)
     try:
-        text = p.read_text(encoding="utf-8")
+        with p.open("rb") as f:
+            data = f.read(BENCH_FILE_MAX_BYTES + 1)  # bounded: a device such as /dev/zero never ends
+        if len(data) > BENCH_FILE_MAX_BYTES:
+            raise ConfigError(f"{source}: larger than {BENCH_FILE_MAX_BYTES // 1000} kB; a bench file is a few kB "
+                              "of TOML (is this the right file?)")
+        text = data.decode("utf-8")
     except FileNotFoundError:
         raise ConfigError(f"{source}: no such bench file") from None
     except (OSError, UnicodeDecodeError) as exc:
@@ -208,14 +260,12 @@ def load_bench_text(
         raise ConfigError(f"{source}: not valid TOML: {exc}") from None
     if overrides:
         raw = _apply_overrides(raw, overrides, source)
-    reader = _Reader(raw, source, text)
+    reader = _Reader(raw, source, text, overridden=set(overrides or ()))
     cfg = _build(reader, text, base_dir or Path.cwd())
     reader.reject_unknown()
-    if overrides:
-        from dataclasses import replace
+    from dataclasses import replace
 
-        cfg = replace(cfg, overrides=dict(overrides))
-    return cfg
+    return replace(cfg, overrides=dict(overrides or {}), base_dir=base_dir)
 
 
 def parse_overrides(items: list[str] | None) -> dict[str, str]:
@@ -268,15 +318,18 @@ def _apply_overrides(raw: dict, overrides: Mapping[str, str], source: str) -> di
 class _Reader:
     """Walks the TOML tree, remembers which keys were used, and words every error."""
 
-    def __init__(self, raw: dict, source: str, text: str):
+    def __init__(self, raw: dict, source: str, text: str, overridden: set[str] | None = None):
         self.raw = raw
         self.source = source
         self.text = text
+        self.overridden = overridden or set()
         self.used: set[str] = set()
         self.known_tables: set[str] = set()
 
     # -- locating --------------------------------------------------------------------------
     def where(self, key: str) -> str:
+        if key in self.overridden:
+            return f"--set {key} (over {self.source})"
         line = _line_of(self.text, key)
         return f"{self.source}: {key}" + (f" (line {line})" if line else "")
 
@@ -325,6 +378,17 @@ class _Reader:
         if not math.isfinite(value) or value < 0 or (value == 0 and not allow_zero):
             word = "negative" if value < 0 else ("zero" if value == 0 else "not finite")
             raise self.fail(key, f'"{self.get(key)}" is {word}; expected a positive value')
+        return value
+
+    def bounded(self, key: str, kind: str, lo: float, hi: float, unit: str, default: Any = ...) -> float:
+        """A positive quantity within [lo, hi] (SI); the error names the key, the value and the bound."""
+        value = self.positive(key, kind, default)
+        if value is None:
+            return None  # type: ignore[return-value]
+        if value < lo:
+            raise self.fail(key, f'"{self.get(key)}" is below {lo:g} {unit}, the smallest this tool accepts')
+        if value > hi:
+            raise self.fail(key, f'"{self.get(key)}" is above {hi:g} {unit}, the largest this tool accepts')
         return value
 
     def wavelength(self, key: str, default: Any = ...) -> float:
@@ -395,6 +459,11 @@ def _is_free_table(dotted: str) -> bool:
     return bool(re.fullmatch(r"instruments\.[^.]+\.options", dotted))
 
 
+def line_of(text: str, key: str) -> int | None:
+    """Line number of a dotted key in bench-file text, or None (for errors found past this module)."""
+    return _line_of(text, key)
+
+
 def _line_of(text: str, key: str) -> int | None:
     """Best-effort line number of a dotted key in TOML text (tomllib gives none)."""
     parts = key.split(".")
@@ -429,6 +498,7 @@ def _build(r: _Reader, text: str, base_dir: Path) -> BenchConfig:
     pump = _pump(r)
     if sample.spectrum_file is not None:
         sample = _sample_from_spectrum(r, sample, probe, pump)
+    _check_optical_depth(r, sample)
     instruments = _instruments(r)
     guard = _guard(r, pump)
     run = RunConfig(
@@ -463,9 +533,9 @@ def _build(r: _Reader, text: str, base_dir: Path) -> BenchConfig:
 
 def _sample(r: _Reader, base_dir: Path) -> SampleConfig:
     r.table("sample")
-    length = r.positive("sample.length", "length")
-    n_total = r.positive("sample.n_total", "density")
-    tau = r.positive("sample.upper_state_lifetime", "time")
+    length = r.bounded("sample.length", "length", *LENGTH_RANGE, "m")
+    n_total = r.bounded("sample.n_total", "density", 0.0, N_TOTAL_MAX, "m^-3")
+    tau = r.bounded("sample.upper_state_lifetime", "time", *LIFETIME_RANGE, "s")
     temperature = r.positive("sample.temperature", "temperature", "295 K")
     n = r.number("sample.refractive_index", 1.5, lo=1.0, hi=5.0)
     spectrum = r.get("sample.spectrum", None)
@@ -481,10 +551,10 @@ def _sample(r: _Reader, base_dir: Path) -> SampleConfig:
         )
     if has_numbers:
         sigma = CrossSections(
-            probe_emission=r.positive("sample.cross_sections.probe_emission", "area"),
-            probe_absorption=r.positive("sample.cross_sections.probe_absorption", "area", "0 cm^2", allow_zero=True),
-            pump_absorption=r.positive("sample.cross_sections.pump_absorption", "area"),
-            pump_emission=r.positive("sample.cross_sections.pump_emission", "area", "0 cm^2", allow_zero=True),
+            probe_emission=_cross_section(r, "probe_emission"),
+            probe_absorption=_cross_section(r, "probe_absorption", "0 cm^2"),
+            pump_absorption=_cross_section(r, "pump_absorption"),
+            pump_emission=_cross_section(r, "pump_emission", "0 cm^2"),
         )
         spectrum_file = None
     else:
@@ -516,6 +586,26 @@ def _sample(r: _Reader, base_dir: Path) -> SampleConfig:
         spectrum_file=spectrum_file,
         zero_line=zero_line,
     )
+
+
+def _cross_section(r: _Reader, name: str, default: Any = ...) -> float:
+    key = f"sample.cross_sections.{name}"
+    value = r.positive(key, "area", default, allow_zero=default is not ...)
+    if value > CROSS_SECTION_MAX:
+        raise r.fail(key, f'"{r.get(key, default)}" is above {CROSS_SECTION_MAX * 1e4:g} cm^2, larger than any laser '
+                          "transition's cross-section")
+    return value
+
+
+def _check_optical_depth(r: _Reader, sample: SampleConfig) -> None:
+    """(sigma_e + sigma_a) N_total L at the probe within `OPTICAL_DEPTH_MAX`."""
+    depth = (sample.sigma.probe_emission + sample.sigma.probe_absorption) * sample.n_total * sample.length
+    if not depth <= OPTICAL_DEPTH_MAX:
+        raise ConfigError(
+            f"{r.where('sample.length')}: (sigma_e + sigma_a) x n_total x length at the probe is {depth:.3g}, above "
+            f"{OPTICAL_DEPTH_MAX:g} (a single-pass gain or loss beyond {OPTICAL_DEPTH_MAX * 10 / math.log(10):.0f} dB); "
+            "check sample.length, sample.n_total and the cross-sections and their units"
+        )
 
 
 def _sample_from_spectrum(r: _Reader, sample: SampleConfig, probe: ProbeConfig, pump: PumpConfig) -> SampleConfig:
@@ -555,7 +645,7 @@ def _probe(r: _Reader) -> ProbeConfig:
     return ProbeConfig(
         wavelength=r.wavelength("probe.wavelength"),
         power=r.positive("probe.power", "power"),
-        beam_diameter=r.positive("probe.beam_diameter", "length"),
+        beam_diameter=r.bounded("probe.beam_diameter", "length", *BEAM_DIAMETER_RANGE, "m"),
         kind=kind,
         pulse_energy=pulse_energy,
         weak_fraction=r.number("probe.weak_fraction", 0.05, lo=1e-6, hi=1.0),
@@ -569,8 +659,8 @@ def _pump(r: _Reader) -> PumpConfig:
         max_current=r.positive("pump.max_current", "current"),
         diode_current_rating=r.positive("pump.diode_current_rating", "current"),
         threshold_current=r.positive("pump.threshold_current", "current", "0 A", allow_zero=True),
-        slope_efficiency=r.positive("pump.slope_efficiency", "slope"),
-        beam_diameter=r.positive("pump.beam_diameter", "length"),
+        slope_efficiency=r.bounded("pump.slope_efficiency", "slope", 0.0, SLOPE_EFFICIENCY_MAX, "W/A"),
+        beam_diameter=r.bounded("pump.beam_diameter", "length", *BEAM_DIAMETER_RANGE, "m"),
     )
     if pump.max_current > pump.diode_current_rating:
         raise r.fail(
@@ -616,13 +706,15 @@ def _guard(r: _Reader, pump: PumpConfig) -> GuardConfig:
     jump = r.get("guard.transmission_jump", None)
     guard = GuardConfig(
         max_current=r.positive("guard.max_current", "current"),
-        current_tolerance=r.positive("guard.current_tolerance", "current", "0.2 A"),
-        mount_temperature_min=r.positive("guard.mount_temperature_min", "temperature"),
-        mount_temperature_max=r.positive("guard.mount_temperature_max", "temperature"),
+        current_tolerance=r.bounded("guard.current_tolerance", "current", 0.0,
+                                    CURRENT_TOLERANCE_MAX_FRACTION * pump.diode_current_rating, "A", "0.2 A"),
+        mount_temperature_min=_mount_temperature(r, "guard.mount_temperature_min"),
+        mount_temperature_max=_mount_temperature(r, "guard.mount_temperature_max"),
         full_scale_fraction=r.number("guard.full_scale_fraction", 0.95, lo=0.1, hi=1.0),
-        stale_after=r.positive("guard.stale_after", "time", "0.5 s"),
-        comm_failures=r.integer("guard.comm_failures", 3, lo=1, hi=100),
-        transmission_jump=None if jump is None else r.number("guard.transmission_jump", lo=0.01, hi=10.0),
+        stale_after=r.bounded("guard.stale_after", "time", 0.0, STALE_AFTER_MAX, "s", "0.5 s"),
+        comm_failures=r.integer("guard.comm_failures", 3, lo=1, hi=COMM_FAILURES_MAX),
+        transmission_jump=None if jump is None else r.number("guard.transmission_jump", lo=0.01,
+                                                             hi=TRANSMISSION_JUMP_MAX),
     )
     if guard.mount_temperature_min >= guard.mount_temperature_max:
         raise r.fail("guard.mount_temperature_min", "is not below guard.mount_temperature_max")
@@ -632,6 +724,15 @@ def _guard(r: _Reader, pump: PumpConfig) -> GuardConfig:
             f"{guard.max_current:g} A is above pump.diode_current_rating ({pump.diode_current_rating:g} A)",
         )
     return guard
+
+
+def _mount_temperature(r: _Reader, key: str) -> float:
+    lo, hi = MOUNT_TEMPERATURE_RANGE
+    value = r.positive(key, "temperature")
+    if not lo <= value <= hi:
+        raise r.fail(key, f'"{r.get(key)}" is outside {lo - 273.15:g} degC ... {hi - 273.15:g} degC, the range '
+                          "laser-diode mounts are run in")
+    return value
 
 
 def _simulation(r: _Reader) -> SimulationConfig:

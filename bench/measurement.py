@@ -144,6 +144,7 @@ class Measurement:
 
     def open(self) -> None:
         from bench.guarded_pump import GuardedPump
+        from bench.run_checks import override_events
         from bench.trip_conditions import POLL_SPAN, TripMonitor
         from drivers.registry import open_instrument
 
@@ -229,6 +230,8 @@ class Measurement:
         det_reader.start_acquisition()
         self.control_q.put(Event(self.clock.now(), "run", f"run started on {cfg.name}", self.operator or "gainbench",
                                  data={"mode": self.mode, "speed": self.speed, "simulated": cfg.simulated}))
+        for event in override_events(cfg, self.clock.now(), self.operator or "gainbench"):  # --accept-lower-od
+            self.control_q.put(event)
         for r in self.readers:
             r.start()
         self._watch_thread = threading.Thread(target=self._watch_stale, name="guard-watch", daemon=True)

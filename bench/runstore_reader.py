@@ -403,8 +403,10 @@ def _run_files(log_dir: Path) -> list[Path]:
 
 def resolve_run(text: str, log_dir: str | Path = "logs") -> Path:
     """The run file meant by ``text``: a path, a run id, or a unique prefix of one in ``log_dir``."""
-    if not isinstance(text, str) or not text.strip():
+    if not isinstance(text, str):
         raise ValueError(f"text: expected a run id or a path, got {text!r}")
+    if not text.strip():  # typed by a user: `gainbench summary ""`
+        raise RunStoreError("no run named (an empty run id); give a run id, a unique prefix of one, or a run file path")
     text = text.strip()
     given = Path(text)
     if given.is_file() or given.suffix == SUFFIX or "/" in text or os.sep in text:

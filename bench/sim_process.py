@@ -64,7 +64,9 @@ class SimulatorProcess:
         self._dir = tempfile.TemporaryDirectory(prefix="gainbench-sim-")
         bench = Path(self._dir.name) / "bench.toml"
         bench.write_text(self.cfg.text, encoding="utf-8")
-        cmd = [sys.executable, "-m", "bench", "sim", "serve", "--config", str(bench), "--speed", repr(self.speed),
+        # -P: the current directory is not put on sys.path, so a folder named "bench" there is never
+        # imported in place of this package
+        cmd = [sys.executable, "-P", "-m", "bench", "sim", "serve", "--config", str(bench), "--speed", repr(self.speed),
                "--until-stdin-closes"]
         if self.seed is not None:
             cmd += ["--seed", str(self.seed)]

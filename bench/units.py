@@ -59,6 +59,36 @@ KIND_WORDS = {
 _SAFE_EXPONENTS = re.compile(r"(?:(?!\*\*)[^*]|\*(?!\*)|\*\*\s*\(?-?\d{1,2}\)?(?!\s*\*\*))*")
 
 
+#: A digit, an underscore and a digit: Python's and pint's numerals allow it, people misread it.
+_UNDERSCORE_IN_NUMBER = re.compile(r"\d_+\d")
+
+
+def odd_numeral(text: str) -> str:
+    """Why ``text`` holds a numeral a person would misread ("" when it holds none).
+
+    Python's ``float`` (and pint, which uses it) reads ``"5_0"`` as 50 and digits of other
+    scripts (``"٥"``, fullwidth ``"５"``) as ASCII ones; a value typed on a bench must say what
+    it looks like, so both are refused.
+    """
+    if _UNDERSCORE_IN_NUMBER.search(text):
+        return "has an underscore inside a number; write the digits without it (5_0 is not 5.0)"
+    if any(ch.isdecimal() and not ch.isascii() for ch in text):
+        return "has digits other than 0-9; write the number with ASCII digits"
+    return ""
+
+
+def clean_unit_text(text: str) -> str | None:
+    """``text`` as pint should read it (``^`` as ``**``, ``µ`` as ``u``), or None when pint must not.
+
+    None for text longer than 60 characters or with a power that is not a small whole number:
+    pint evaluates powers exactly, and ``"9**9**9 A"`` would never return.
+    """
+    cleaned = text.strip().replace("^", "**").replace("µ", "u").replace("μ", "u")
+    if len(cleaned) > 60 or not _SAFE_EXPONENTS.fullmatch(cleaned):
+        return None
+    return cleaned
+
+
 @lru_cache(maxsize=1)
 def registry() -> pint.UnitRegistry:
     """The one unit registry (temperatures in °C are converted as offsets, not deltas)."""
@@ -97,8 +127,11 @@ def parse_quantity(text: object, kind: str, where: str) -> float:
     if not isinstance(text, str) or not text.strip():
         raise ConfigError(f"{where}: {text!r} is not {KIND_WORDS[kind]}")
     ureg = registry()
-    cleaned = text.strip().replace("^", "**").replace("µ", "u").replace("μ", "u")
-    if len(cleaned) > 60 or not _SAFE_EXPONENTS.fullmatch(cleaned):
+    odd = odd_numeral(text)
+    if odd:
+        raise ConfigError(f"{where}: \"{text}\" {odd}")
+    cleaned = clean_unit_text(text)
+    if cleaned is None:
         # pint evaluates powers exactly: "9**9**9 m" would never return
         raise ConfigError(
             f"{where}: \"{text}\" is not {KIND_WORDS[kind]} (write a number and a unit, e.g. "

@@ -59,6 +59,13 @@ class Digitiser(Driver):
         self.data_format: str = self._option_format()
         self.channels: tuple[int, ...] = self._option_channels()
         self.names_by_channel: dict[int, str] = self._option_names()
+        for name, value in (("sample_rate", self.rate_hz), ("range", self.range_v)):
+            if value is not None and not value > 0:
+                raise ConfigError(f"{self._where(name)}: {self.options[name]!r} is not positive")
+        if self.data_format == "ascii" and not self.session.has("fetch_ascii") \
+                and self.session.profile.command("fetch").reply != "csv_floats":
+            raise ConfigError(f"{self._where('format')}: profile {self.profile_name} has no ASCII fetch "
+                              "(commands.fetch_ascii); use format = \"binary\"")
 
     # -- options -----------------------------------------------------------------------
 

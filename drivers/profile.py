@@ -410,11 +410,17 @@ def _unit_conversion(unit: Any, kind: str | None, path: str, key: str) -> tuple[
         raise ProfileError(path, key, "this operation has no quantity, so it takes no unit")
     import pint
 
-    from bench.units import SI_UNITS, registry
+    from bench.units import SI_UNITS, clean_unit_text, odd_numeral, registry
 
     ureg = registry()
     target = SI_UNITS[kind]
-    cleaned = unit.strip().replace("^", "**").replace("µ", "u").replace("μ", "u")
+    odd = odd_numeral(unit)
+    if odd:
+        raise ProfileError(path, key, f"{unit!r} {odd}")
+    cleaned = clean_unit_text(unit)
+    if cleaned is None:  # pint evaluates powers exactly: "9**9**9 A" would never return
+        raise ProfileError(path, key, f"{unit!r} is not a unit this tool reads (expected a unit such as \"degC\" "
+                                      "or \"mA\"; powers may only be small whole numbers)")
     try:
         zero = float(ureg.Quantity(0.0, cleaned).to(target).magnitude)
         one = float(ureg.Quantity(1.0, cleaned).to(target).magnitude)

@@ -101,6 +101,48 @@ def driver_class(name: str, *, role: str = "", resource: str = "") -> type[Drive
     return info.cls
 
 
+class _Unconnected:
+    """A transport that refuses every exchange: a driver built on it can only be checked."""
+
+    resource = "(not connected)"
+
+    def _refuse(self, *args: Any) -> Any:
+        raise InstrumentError("not connected: the instrument is only being checked", resource=self.resource)
+
+    write = read_line = read_exact = discard_input = reconnect = _refuse
+
+    def close(self) -> None:
+        pass
+
+
+def check_instrument(role: str, driver: str, profile: str, options: Mapping[str, Any] | None = None) -> None:
+    """What `open_instrument` would refuse before sending anything, without opening a transport.
+
+    The driver is known, is available and serves ``role``; the profile exists, loads, and is
+    for that role; the driver accepts the options and their values (the same code that
+    `open_instrument` runs: the driver is built, on a transport that refuses every exchange).
+
+    Raises
+    ------
+    InstrumentError
+        An unknown or unavailable driver, or a driver for another role (``detail`` says which).
+    ProfileError
+        The profile cannot be found or is wrong (names its file and key).
+    bench.errors.ConfigError
+        An option the driver does not take, or a value it cannot use (names the option).
+    """
+    cls = driver_class(driver, role=role)
+    if cls.ROLE != role:
+        raise InstrumentError(f"driver {driver!r} is for the {cls.ROLE!r} role, not {role!r}; drivers for "
+                              f"{role!r}: {', '.join(n for n, i in known_drivers().items() if i.role == role) or '(none)'}",
+                              role=role)
+    prof = load_profile(profile, role=cls.ROLE)
+    merged: dict[str, Any] = {**prof.options, **(options or {})}
+    transport = _Unconnected()
+    session = Session(prof, transport, role=role, resource=transport.resource, timeout_s=prof.transport.timeout_s)
+    cls(session, merged)
+
+
 def open_instrument(
     role: str,
     driver: str,

@@ -5,6 +5,7 @@ from __future__ import annotations
 import argparse
 
 from bench.config import load_bench
+from bench.run_checks import check_instruments
 
 NAME = "check"
 HELP = "validate a bench file (units, ranges, instruments) and summarise it"
@@ -16,6 +17,7 @@ def configure(parser: argparse.ArgumentParser) -> None:
 
 def run(args: argparse.Namespace) -> int:
     cfg = load_bench(args.file)
+    check_instruments(cfg)  # what opening the instruments would refuse, refused here first
     s, p, q = cfg.sample, cfg.probe, cfg.pump
     print(f"{cfg.source}: ok")
     print(f"  bench       {cfg.name}{'  [SIMULATED]' if cfg.simulated else ''}")

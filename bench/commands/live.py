@@ -12,8 +12,8 @@ from __future__ import annotations
 import argparse
 import sys
 
-from bench.config import load_bench, parse_overrides
 from bench.errors import ConfigError, GainbenchError
+from bench.run_checks import add_run_options, load_for_run
 
 NAME = "live"
 HELP = "the live dashboard: signals, guard, pump, estimates; dark, baseline, arming, emission (records a run)"
@@ -36,6 +36,7 @@ def configure(parser: argparse.ArgumentParser) -> None:
     parser.add_argument("--set", action="append", default=[], metavar="KEY=VALUE", dest="overrides",
                         help="change a key of the bench file for this run, with units, e.g. "
                              "guard.stale_after=1s (repeatable)")
+    add_run_options(parser)  # --accept-lower-od
     parser.add_argument("--single-process", action="store_true",
                         help="run the bench in the dashboard's own process (by default it has a process of "
                              "its own, so that drawing the screen never slows acquisition)")
@@ -46,12 +47,12 @@ def run(args: argparse.Namespace) -> int:
     from bench.dashboard.live_app import LiveDashboard
     from bench.measurement import Measurement, default_current
 
-    cfg = load_bench(args.config, overrides=parse_overrides(args.overrides))
-    if not args.speed > 0:
-        raise ConfigError(f"--speed: {args.speed} is not positive")
+    cfg = load_for_run(args)  # instruments checked, overrides lowering the eyewear OD refused
+    if not 0 < args.speed < float("inf"):
+        raise ConfigError(f"--speed: {args.speed} is not a positive number")
     if not cfg.simulated and (args.fault or args.speed != 1.0 or args.seed is not None):
         raise ConfigError("--fault, --speed and --seed apply to the simulated bench only")
-    if not args.current_step > 0:
+    if not 0 < args.current_step < float("inf"):
         raise ConfigError(f"--current-step: {args.current_step} is not a positive current")
     current = default_current(cfg)
     settings = {} if args.mode == "sweep" else {"pump_current": current, "pump_power": cfg.pump.power_at(current)}

@@ -12,8 +12,8 @@ import math
 import sys
 import time
 
-from bench.config import load_bench, parse_overrides
 from bench.errors import ConfigError, GainbenchError
+from bench.run_checks import add_run_options, load_for_run
 from bench.units import parse_quantity
 
 NAME = "record"
@@ -47,6 +47,7 @@ def configure(parser: argparse.ArgumentParser) -> None:
     parser.add_argument("--set", action="append", default=[], metavar="KEY=VALUE", dest="overrides",
                         help="change a bench-file value for this run, e.g. guard.stale_after=1s (repeatable; "
                              "the run stores the bench file as used)")
+    add_run_options(parser)  # --accept-lower-od
     parser.add_argument("--no-dark", action="store_true", help="skip the dark capture")
     parser.add_argument("--seed", type=int, help="simulated bench only: random seed")
     parser.add_argument("--quiet", action="store_true", help="no status line")
@@ -59,11 +60,11 @@ def run(args: argparse.Namespace) -> int:
         sweep_currents,
     )
 
-    cfg = load_bench(args.config, overrides=parse_overrides(args.overrides))
+    cfg = load_for_run(args)  # instruments checked, overrides lowering the eyewear OD refused
     if args.seconds <= 0 or not math.isfinite(args.seconds):
         raise ConfigError(f"--seconds: {args.seconds} is not a positive number of seconds")
-    if args.speed <= 0:
-        raise ConfigError(f"--speed: {args.speed} is not positive")
+    if not (args.speed > 0 and math.isfinite(args.speed)):
+        raise ConfigError(f"--speed: {args.speed} is not a positive number")
     if not cfg.simulated and (args.fault or args.speed != 1.0 or args.seed is not None):
         raise ConfigError("--fault, --speed and --seed apply to the simulated bench only")
     current = default_current(cfg) if args.current is None else parse_quantity(args.current, "current", "--current")
@@ -139,17 +140,11 @@ def _mode_period(args, cfg, current: float) -> float | None:
 
 def _flag_answers(args, cfg):
     """Checklist answers from flags, or None to ask on the terminal."""
-    from bench.checklist import answers_from_flags, parse_eyewear_flag
+    from bench.checklist import answers_from_flags, parse_eyewear_flags
 
     operator = args.operator or cfg.run.operator or ""
     if args.eyewear_od or args.confirm_setup:
-        ods = {}
-        for item in args.eyewear_od:
-            try:
-                wl, od = parse_eyewear_flag(item)
-            except (ValueError, GainbenchError) as exc:
-                raise ConfigError(f"--eyewear-od {item!r}: {exc}") from None
-            ods[wl] = od
+        ods = parse_eyewear_flags(args.eyewear_od)
         if not operator:
             raise ConfigError("--operator NAME is needed with --eyewear-od / --confirm-setup")
         return answers_from_flags(operator, ods, args.confirm_setup), operator

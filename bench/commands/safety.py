@@ -28,6 +28,21 @@ _OPTION_OF = {
 }
 
 
+#: Beam diameters the calculation takes, m: no free-space beam at these wavelengths focuses
+#: below 1 um (diffraction), and none a person meets on a bench is a metre wide (common
+#: practice, no source).
+BEAM_DIAMETER_RANGE = (1e-6, 1.0)
+#: CW powers, W: no laser on a lab bench emits a megawatt CW (common practice, no source).
+POWER_MAX = 1e6
+
+
+def _within(option: str, value: float, lo: float, hi: float, unit: str, text: str) -> float:
+    if not lo <= value <= hi:
+        raise ConfigError(f"{option}: {text!r} is outside {lo:g} {unit} ... {hi:g} {unit}, the range this "
+                          "calculation takes")
+    return value
+
+
 def configure(parser: argparse.ArgumentParser) -> None:
     parser.add_argument("--wavelength", required=True, metavar="QUANTITY",
                         help='laser wavelength, above 400 nm up to 2600 nm, e.g. "976nm"')
@@ -45,13 +60,19 @@ def configure(parser: argparse.ArgumentParser) -> None:
 def run(args: argparse.Namespace) -> int:
     wavelength = parse_quantity(args.wavelength, "length", "--wavelength")
     power = parse_quantity(args.power, "power", "--power")
-    beam_diameter = parse_quantity(args.beam_diameter, "length", "--beam-diameter")
+    if power > POWER_MAX:
+        raise ConfigError(f"--power: {args.power!r} is above {POWER_MAX:g} W, more than any CW laser on a bench")
+    beam_diameter = _within("--beam-diameter", parse_quantity(args.beam_diameter, "length", "--beam-diameter"),
+                            *BEAM_DIAMETER_RANGE, "m", args.beam_diameter)
     exposure = None if args.exposure is None else parse_quantity(args.exposure, "time", "--exposure")
     try:
         result = laser_safety.required_od(wavelength, power, beam_diameter, exposure)
     except laser_safety.OutOfRangeError as exc:
         option = _OPTION_OF.get(exc.argument, exc.argument)
         raise ConfigError(f"{option}: {exc.detail}") from None
+    except ArithmeticError:  # a combination the bounds above let through and the formulas cannot take
+        raise ConfigError(f"the eyewear OD for --wavelength {args.wavelength} --power {args.power} --beam-diameter "
+                          f"{args.beam_diameter} cannot be computed (the numbers overflow); check them") from None
     if args.json:
         print(json.dumps(as_json(result), indent=2))
     else:

@@ -59,6 +59,9 @@ def run(args: argparse.Namespace) -> int:
     if not (math.isfinite(args.speed) and args.speed > 0):
         raise ConfigError(f"--speed {args.speed!r}: expected a positive number of simulated seconds per second")
     cfg = load_bench(args.config, overrides=parse_overrides(args.overrides) or None)
+    from bench.run_checks import check_instruments
+
+    check_instruments(cfg)  # the bench file's instrument mistakes, before the simulator trips on them
     if cfg.simulation is None:
         raise ConfigError(f"{cfg.source}: no [simulation] table; `gainbench sim serve` needs a simulated bench file")
     faults = [parse_fault(spec) for spec in args.fault]
@@ -69,8 +72,14 @@ def run(args: argparse.Namespace) -> int:
 
     wanted = [signal.SIGINT] + ([signal.SIGTERM] if hasattr(signal, "SIGTERM") else [])
     previous = {sig: signal.signal(sig, on_signal) for sig in wanted}
+    from simulated_instruments.device_errors import DeviceError
+
     try:
-        with SimulatedBench(cfg, speed=args.speed, faults=faults, seed=args.seed) as sim:
+        bench = SimulatedBench(cfg, speed=args.speed, faults=faults, seed=args.seed)
+    except DeviceError as exc:  # a value the simulated instruments cannot take (e.g. their sample rates)
+        raise ConfigError(f"{cfg.source}: the simulated bench cannot take this bench file: {exc.detail or exc}") from None
+    try:
+        with bench as sim:
             for role, resource in sim.resources.items():
                 print(f"{role} {resource}")
             sys.stdout.flush()

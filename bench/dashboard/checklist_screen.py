@@ -14,7 +14,6 @@ Reading the pump driver and arming run in thread workers; the screen is updated 
 
 from __future__ import annotations
 
-import math
 from collections.abc import Callable, Mapping, Sequence
 
 from rich.text import Text
@@ -26,7 +25,9 @@ from textual.screen import ModalScreen
 from textual.widgets import Button, Input, Static
 
 from bench import laser_safety
-from bench.checklist import CHECK, CONFIRM, EYEWEAR, SECOND_LAYER_NOTICE, Answer, ChecklistResult, Item, evaluate
+from bench.checklist import (
+    CHECK, CONFIRM, EYEWEAR, SECOND_LAYER_NOTICE, Answer, ChecklistResult, Item, evaluate, parse_od,
+)
 from bench.errors import GainbenchError
 
 REMINDER = ("Software layer only: the hardware interlock, your laser safety officer (LSO), "
@@ -272,11 +273,10 @@ class ChecklistScreen(ModalScreen[ChecklistResult | None]):
         if item.kind != EYEWEAR:
             return
         try:
-            od = float(value)
-        except ValueError:
-            od = math.nan
-        if not (math.isfinite(od) and od >= 0):
-            self._feedback("Enter the OD printed on your eyewear for this wavelength, a number such as 5.")
+            od = parse_od(value)
+        except ValueError as exc:
+            self._feedback(f"Not accepted: {exc}. Enter the OD printed on your eyewear for this wavelength, "
+                           "a number such as 5.")
             return
         self.answers[item.id] = Answer(od, t=float(self._clock()), who=self.operator, via="dashboard")
         if self._judge_current():
