@@ -39,7 +39,7 @@ def gainbench(*args: str, cwd: Path) -> subprocess.CompletedProcess:
 
 def record_and_summarise(tmp_path: Path, mode: str, seed: int, *extra: str) -> dict:
     logs = tmp_path / "logs"
-    rec = gainbench("record", "--mode", mode, "--logs", str(logs), *ARM, "--set", f"simulation.seed={seed}",
+    rec = gainbench("record", "--mode", mode, "--logs", str(logs), *ARM, "--seed", str(seed),
                     *extra, cwd=tmp_path)
     assert rec.returncode == 0, rec.stdout + rec.stderr
     run_id = rec.stdout.strip().splitlines()[-1]
