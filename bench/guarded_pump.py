@@ -214,6 +214,7 @@ class GuardedPump:
         self._lock = threading.RLock()
         self._commanded_on = False
         self._off_since: float | None = None
+        self._on_since: float | None = None
         self._latencies: deque[float] = deque(maxlen=1000)
         self._recent: deque[Event] = deque(maxlen=1000)
 
@@ -256,6 +257,14 @@ class GuardedPump:
         if self._commanded_on:
             return None
         return -math.inf if self._off_since is None else self._off_since
+
+    @property
+    def output_on_since(self) -> float | None:
+        """Run-clock time the output was last commanded on; None while commanded off.
+
+        Pass it to `TripMonitor.feed_pump`: a later reading showing the output off trips.
+        """
+        return self._on_since if self._commanded_on else None
 
     @property
     def trip_latencies(self) -> list[float]:
@@ -492,6 +501,7 @@ class GuardedPump:
                     done.failed = (PUMP_COMMAND_FAILED, f"the {action.name} shutter did not open ({detail})", self._clock())
                     break
             elif isinstance(action, PumpOn):
+                self._on_since = self._clock()
                 self._commanded_on = True
                 self._off_since = None
                 try:

@@ -28,7 +28,7 @@ import time
 from collections.abc import Callable, Mapping
 from typing import Any
 
-from bench import __version__
+from bench import __version__, stop_signals
 from bench.acquisition import (
     DetectorReader,
     DropCounter,
@@ -62,6 +62,10 @@ MIN_BLOCK = 0.01
 
 #: Queue length in blocks; at 64k sample sets per block this is several seconds of data.
 QUEUE_BLOCKS = 256
+
+#: Real s between reads of the pump driver's error queue while the pump emits: a device fault
+#: the driver reports there (and nowhere else) trips the guard.
+ERROR_POLL = 0.25
 
 
 class MeasurementError(GainbenchError):
@@ -173,6 +177,7 @@ class Measurement:
                 self.identities[role] = str(driver.identify())
             except GainbenchError as exc:
                 raise MeasurementError(f"{role} at {resources[role]}: no identity ({exc})") from exc
+            self._clear_error_queue(role, driver)
         pump = self.instruments["pump"]
         shutter = self.instruments.get("shutter")
         self.clock = RunClock(self.speed)  # the run's time zero: instruments open, nothing read yet
@@ -242,10 +247,18 @@ class Measurement:
             self._truth_thread.start()
 
     def close(self, reason: str = "stopped") -> None:
-        """Pump off first, then stop the threads, then close the run file. Safe to call twice."""
+        """Pump off first, then stop the threads, then close the run file. Safe to call twice.
+
+        Ctrl-C and termination signals arriving meanwhile are held until it has finished: they
+        must not cut off the pump-off command, its read-back or the closing of the run file.
+        """
         if self._closed:
             return
         self._closed = True
+        with stop_signals.shielded():
+            self._close(reason)
+
+    def _close(self, reason: str) -> None:
         if self.guarded_pump is not None:
             try:
                 self.guarded_pump.shutdown(reason=reason)
@@ -333,7 +346,8 @@ class Measurement:
         gp, mon = self.guarded_pump, self.monitor
         now = self.clock.now()
         if block.source == "pump":
-            found = mon.feed_pump(block, output_off_since=gp.output_off_since, received_at=now)
+            found = mon.feed_pump(block, output_off_since=gp.output_off_since,
+                                  output_on_since=gp.output_on_since, received_at=now)
         elif block.source == "detector" and self.params.detector_range is not None:
             found = mon.feed_detector(block, self.params.detector_range, pump_steady=self.mode == "watch",
                                       received_at=now)
@@ -348,7 +362,9 @@ class Measurement:
             self.guarded_pump.trip_on(found)
 
     def _watch_stale(self) -> None:
-        """Trips when an instrument has given no fresh reading for too long (20 checks a second)."""
+        """Trips when an instrument has given no fresh reading for too long (20 checks a second),
+        and reads the pump driver's error queue while the pump emits (every `ERROR_POLL` s)."""
+        next_errors = time.monotonic()
         while not self.stop_flag.wait(0.05):
             try:
                 found = self.monitor.check_stale(self.clock.now())
@@ -356,6 +372,44 @@ class Measurement:
                     self.guarded_pump.trip_on(found)
             except Exception:
                 log.exception("stale-reading check failed")
+            if time.monotonic() >= next_errors:
+                next_errors = time.monotonic() + ERROR_POLL
+                try:
+                    self._poll_pump_errors()
+                except Exception:
+                    log.exception("reading the pump driver's error queue failed")
+
+    def _poll_pump_errors(self) -> None:
+        from bench.trip_conditions import check_device_errors
+        from drivers.errors import InstrumentError
+
+        if self.guarded_pump.state != "emitting":
+            return
+        self.pump_access.wait_for_turn()  # the guard's own commands go first
+        try:
+            entries = self.instruments["pump"].instrument_errors()
+        except InstrumentError:  # a failed exchange: the pump reader's checks deal with those
+            return
+        if not entries:
+            return
+        now = self.clock.now()
+        found = check_device_errors("pump driver", [(e.code, e.text) for e in entries], now)
+        self.control_q.put(Event(now, "fault", found.reason, data={
+            "source": "pump", "errors": [[e.code, e.text] for e in entries]}))
+        self.guarded_pump.trip_on([found])
+
+    def _clear_error_queue(self, role: str, driver) -> None:
+        """Empty an instrument's error queue at start: what it holds is from before this run
+        (and would otherwise be blamed on this run's first setting). Noted as a run event."""
+        try:
+            entries = driver.instrument_errors()
+        except GainbenchError as exc:
+            raise MeasurementError(f"{role}: reading its error queue at start failed ({exc})") from exc
+        if entries:
+            listed = "; ".join(f"{e.code}, {e.text!r}" for e in entries)
+            self.control_q.put(Event(0.0, "run", f"{role}: error queue at start held (from before this run, "
+                                     f"cleared): {listed}", data={"source": role,
+                                                                  "errors": [[e.code, e.text] for e in entries]}))
 
     def _poll_truth(self) -> None:
         """The simulator's truth every 0.1 s of real time, over a connection of its own."""
@@ -498,6 +552,16 @@ class Measurement:
         self.control_q.put(Event(self.clock.now(), "setting",
                                  "pump modulation off" if hz is None else f"pump modulation {hz:g} Hz", who,
                                  data={"modulation_hz": hz}))
+
+    def set_operator(self, name: str) -> None:
+        """The person running the measurement, once known (e.g. asked at the checklist)."""
+        name = name.strip() if isinstance(name, str) else ""
+        if not name:
+            raise MeasurementError("operator: name the person running the measurement")
+        self.operator = name
+        if self.store is not None:
+            self.store.set_meta(operator=name)
+        self.control_q.put(Event(self.clock.now(), "run", f"operator: {name}", name, data={"operator": name}))
 
     def note(self, text: str, who: str | None = None) -> None:
         self.control_q.put(Event(self.clock.now(), "note", text, who or self.operator or "operator"))
