@@ -54,7 +54,8 @@ def main(argv: Sequence[str] | None = None) -> int:
     # further ones cannot interrupt the shutdown (bench.stop_signals).
     previous = stop_signals.install()
     try:
-        parser = build_parser()  # imports every command: a Ctrl-C may well come now
+        with stop_signals.shielded():  # imports every command: a Ctrl-C then acts once they are done
+            parser = build_parser()
         args = parser.parse_args(argv)
         if not getattr(args, "_run", None):
             parser.print_help()

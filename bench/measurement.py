@@ -255,7 +255,7 @@ class Measurement:
         if self._closed:
             return
         self._closed = True
-        with stop_signals.shielded():
+        with stop_signals.shielded("the pump is off and the run closed"):
             self._close(reason)
 
     def _close(self, reason: str) -> None:

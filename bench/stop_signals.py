@@ -8,6 +8,12 @@ a block of code (`bench.measurement.Measurement.close`) also in programs that di
 `install`: signals arriving inside it are held and delivered to the previous handlers once the
 block has finished.
 
+Imports are shielded too (`bench.cli` builds its parser, `record` loads the measurement code
+inside `shielded`): an exception raised in the middle of an import leaves half-made modules
+behind, and under ``python -m`` a `KeyboardInterrupt` raised inside code that an import runs
+through ``exec`` (dataclasses, named tuples) makes CPython end the process by SIGINT even
+after the command has handled it and returned its status.
+
 Signal handlers can only be set in the main thread; elsewhere both functions do nothing.
 Windows has SIGINT (Ctrl-C) and SIGTERM but no SIGHUP; the names missing on a platform are
 skipped.
@@ -44,10 +50,18 @@ def stopping() -> bool:
     return _stopping
 
 
+_notes: list[str | None] = []  # what each active shield says of a signal it holds
+
+
 def _say_wait(signum: int) -> None:
+    if _stopping:
+        text = "received while stopping; the pump is being switched off and the run closed, please wait"
+    elif _notes and _notes[-1]:
+        text = f"noted; it takes effect once {_notes[-1]}"
+    else:
+        return
     try:
-        print(f"gainbench: {signal.Signals(signum).name} received while stopping; switching the pump off "
-              "and closing the run, please wait", file=sys.stderr, flush=True)
+        print(f"gainbench: {signal.Signals(signum).name} {text}", file=sys.stderr, flush=True)
     except (OSError, ValueError):  # no usable stderr: the wait goes on all the same
         pass
 
@@ -89,12 +103,13 @@ def _holding(signum: int, frame: object) -> None:
 
 
 @contextlib.contextmanager
-def shielded() -> Iterator[None]:
+def shielded(note: str | None = None) -> Iterator[None]:
     """Hold ending signals while the block runs; afterwards deliver the first one held.
 
     A signal held is delivered to the handler that was set before the block (so with the
     default Ctrl-C handler, `KeyboardInterrupt` is raised after the block). Nothing is
     delivered when the command is already stopping (`install`'s handler has ended it).
+    ``note`` (e.g. ``"the run is closed"``) is said on standard error when a signal is held.
     """
     global _shield_depth
     if not _in_main_thread():
@@ -102,6 +117,7 @@ def shielded() -> Iterator[None]:
         return
     previous = [(sig, signal.getsignal(sig)) for sig in _signals()]
     _shield_depth += 1
+    _notes.append(note)
     try:
         for sig, handler in previous:
             if handler is not _ending:  # `_ending` already holds while shielded
@@ -109,6 +125,7 @@ def shielded() -> Iterator[None]:
         yield
     finally:
         _shield_depth -= 1
+        _notes.pop()
         if _shield_depth == 0:
             restore(previous)
             held = list(_held)

@@ -240,6 +240,7 @@ def test_double_ctrl_c_during_emission_leaves_the_pump_off(external_sim, tmp_pat
 
 
 @pytest.mark.slow
+@pytest.mark.timeout(1800)
 def test_double_ctrl_c_during_emission_leaves_the_pump_off_many_times(external_sim, tmp_path):
     _double_ctrl_c(external_sim, tmp_path, tries=40)
 

@@ -9,9 +9,11 @@ from __future__ import annotations
 
 import argparse
 import math
+import shutil
 import sys
 import time
 
+from bench import stop_signals
 from bench.config import load_bench, parse_overrides
 from bench.errors import ConfigError, GainbenchError
 from bench.units import parse_quantity
@@ -65,12 +67,19 @@ def configure(parser: argparse.ArgumentParser) -> None:
 
 
 def run(args: argparse.Namespace) -> int:
-    from bench.measurement import (
-        Measurement,
-        chop_frequency,
-        default_current,
-        sweep_currents,
-    )
+    with stop_signals.shielded():  # a Ctrl-C acts once the imports are done (see bench.stop_signals)
+        import bench.checklist  # noqa: F401 - imported here, not halfway through the run
+        import bench.guarded_pump  # noqa: F401
+        import bench.runstore  # noqa: F401
+        import bench.sim_process  # noqa: F401
+        import bench.trip_conditions  # noqa: F401
+        import drivers.registry  # noqa: F401
+        from bench.measurement import (
+            Measurement,
+            chop_frequency,
+            default_current,
+            sweep_currents,
+        )
 
     cfg = load_bench(args.config, overrides=parse_overrides(args.overrides))
     if args.seconds <= 0 or not math.isfinite(args.seconds):
@@ -229,4 +238,8 @@ class _Status:
         if self.quiet and not final:
             return
         end = "\n" if final or not sys.stdout.isatty() else "\r"
+        if end == "\r":
+            # a line that wraps cannot be overwritten with a carriage return: keep it to one row
+            width = shutil.get_terminal_size().columns
+            text = text[: max(20, width - 1)].ljust(max(20, width - 1))
         print(text, end=end, file=sys.stdout, flush=True)
