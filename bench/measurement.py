@@ -28,6 +28,8 @@ import time
 from collections.abc import Callable, Mapping
 from typing import Any
 
+import numpy as np
+
 from bench import __version__, stop_signals
 from bench.acquisition import (
     DetectorReader,
@@ -66,6 +68,9 @@ QUEUE_BLOCKS = 256
 #: Real s between reads of the pump driver's error queue while the pump emits: a device fault
 #: the driver reports there (and nowhere else) trips the guard.
 ERROR_POLL = 0.25
+
+#: Run-clock s of the newest pump-monitor data averaged for the power-calibration check.
+MONITOR_SPAN = 0.01
 
 
 class MeasurementError(GainbenchError):
@@ -125,6 +130,7 @@ class Measurement:
         self._consumer_error: BaseException | None = None
         self._closed = False
         self._started_wall = None
+        self._monitor_level: tuple[float, float] | None = None  # (run-clock t, V) of the pump monitor
 
     # -- life cycle ---------------------------------------------------------------------------
     def __enter__(self) -> Measurement:
@@ -345,6 +351,9 @@ class Measurement:
     def _guard_block(self, block) -> None:
         gp, mon = self.guarded_pump, self.monitor
         now = self.clock.now()
+        if block.source == "detector" and block.n and "pump_monitor" in block.channels:
+            k = max(1, min(block.n, int(round(MONITOR_SPAN / block.dt)) if block.dt > 0 else 1))
+            self._monitor_level = (block.t_end, float(np.mean(block.column("pump_monitor")[-k:])))
         if block.source == "pump":
             found = mon.feed_pump(block, output_off_since=gp.output_off_since,
                                   output_on_since=gp.output_on_since, received_at=now)
@@ -378,6 +387,10 @@ class Measurement:
                     self._poll_pump_errors()
                 except Exception:
                     log.exception("reading the pump driver's error queue failed")
+                try:
+                    self._check_power_calibration()
+                except Exception:
+                    log.exception("the pump power calibration check failed")
 
     def _poll_pump_errors(self) -> None:
         from bench.trip_conditions import check_device_errors
@@ -397,6 +410,48 @@ class Measurement:
         self.control_q.put(Event(now, "fault", found.reason, data={
             "source": "pump", "errors": [[e.code, e.text] for e in entries]}))
         self.guarded_pump.trip_on([found])
+
+    def _check_power_calibration(self) -> None:
+        """While the pump emits at a settled current, compare the bench file's power calibration
+        with the driver's power reading (profiles with ``power``) and, in steady modes, with the
+        pump monitor through its responsivity; a disagreement trips (`trip_conditions`)."""
+        from bench.records import PUMP_CURRENT, PUMP_SETPOINT
+        from bench.trip_conditions import check_power_calibration
+        from drivers.errors import InstrumentError
+
+        gp, mon = self.guarded_pump, self.monitor
+        on_since = gp.output_on_since
+        now = self.clock.now()
+        if gp.state != "emitting" or on_since is None or now - on_since < mon.output_grace:
+            return
+        values = mon.latest().values
+        if PUMP_CURRENT not in values or PUMP_SETPOINT not in values:
+            return
+        t_i, current = values[PUMP_CURRENT]
+        if t_i <= on_since or abs(current - values[PUMP_SETPOINT][1]) > self.cfg.guard.current_tolerance:
+            return  # not settled at its setpoint yet (or a sweep step is under way)
+        expected = self.cfg.pump.power_at(current)
+        found = []
+        pump = self.instruments["pump"]
+        if pump.session.has("power"):
+            self.pump_access.wait_for_turn()
+            try:
+                measured = pump.power()
+            except InstrumentError:  # a failed exchange: the pump reader's checks deal with those
+                measured = None
+            if measured is not None:
+                found.append(check_power_calibration(expected, measured, current,
+                                                     "the pump driver's power reading", now))
+        level = self._monitor_level
+        per_watt = self.params.monitor_per_watt
+        if (level is not None and per_watt and self.mode in ("watch", "sweep") and level[0] > on_since
+                and now - level[0] < 1.0):
+            found.append(check_power_calibration(
+                expected, level[1] / per_watt, current,
+                f"the pump monitor ({level[1]:.4g} V at {per_watt:.4g} V/W)", now))
+        found = [c for c in found if c is not None]
+        if found:
+            gp.trip_on(found[:1])
 
     def _clear_error_queue(self, role: str, driver) -> None:
         """Empty an instrument's error queue at start: what it holds is from before this run

@@ -25,6 +25,10 @@ Conditions checked:
   lost connection;
 - no fresh reading from a source for longer than ``stale_after``;
 - an instrument reports a device error (its error queue, read while the pump emits);
+- the pump power by the bench file's calibration (``pump.slope_efficiency``,
+  ``pump.threshold_current``) disagrees by more than `CALIBRATION_FACTOR` with the power the
+  pump driver reports, or with the pump monitor read through its responsivity (a calibration
+  that makes the pump look weak also makes the eyewear checklist ask too little);
 - optionally, a sudden relative change of the probe transmission ``S = probe / reference``
   between consecutive short windows larger than ``transmission_jump`` while the pump did not
   change (parasitic lasing, or an optic that moved). Each window is compared with the one
@@ -77,6 +81,16 @@ NEAR_FULL_SCALE = "near_full_scale"
 TRANSMISSION_JUMP = "transmission_jump"
 COMM_PREFIX = "comm_failure."
 DEVICE_ERROR = "device_error"
+POWER_CALIBRATION = "power_calibration"
+
+#: Largest factor by which the bench file's pump power may differ from a measured one. A
+#: driver's calibration and a monitor photodiode agree with a careful bench-file calibration
+#: to some ten per cent; a factor 2 is a wrong calibration, not drift (common practice, no
+#: source).
+CALIBRATION_FACTOR = 2.0
+
+#: W; below this on both sides the powers are too small to compare (noise, offsets).
+CALIBRATION_FLOOR = 1e-3
 STALE_PREFIX = "stale."
 
 #: Detector channels checked against full scale.
@@ -383,6 +397,35 @@ def check_device_errors(source: str, entries: Sequence[tuple[int, str]], t: floa
                          float(t), source)
 
 
+def check_power_calibration(expected_w: float, measured_w: float, current_a: float, what: str, t: float,
+                            factor: float = CALIBRATION_FACTOR) -> TripCondition | None:
+    """The bench file's pump power at ``current_a`` (``expected_w``) against ``measured_w``.
+
+    ``what`` names the measurement (``"the pump driver's power reading"``). Returns a condition
+    with both figures when they differ by more than ``factor`` either way; None when they agree
+    or both are below `CALIBRATION_FLOOR`.
+    """
+    if not (math.isfinite(factor) and factor > 1):
+        raise ValueError(f"factor: expected a number above 1, got {factor!r}")
+    if not (math.isfinite(expected_w) and math.isfinite(measured_w)):
+        return None
+    if max(expected_w, measured_w) < CALIBRATION_FLOOR:
+        return None
+    low, high = sorted((max(expected_w, 0.0), max(measured_w, 0.0)))
+    if high <= factor * low:
+        return None
+    ratio = "more than 1e6" if low <= 0 or high / low > 1e6 else f"{high / low:.3g}"
+    return TripCondition(
+        POWER_CALIBRATION,
+        f"pump power calibration disagrees with {what}: the bench file gives {expected_w:.4g} W at "
+        f"{current_a:.4g} A (pump.slope_efficiency, pump.threshold_current), {what} gives {measured_w:.4g} W, "
+        f"a factor {ratio} apart (at most {factor:g} allowed); check the calibration before emitting again "
+        f"(the eyewear checklist depends on it) at t={t:.3f} s",
+        float(t),
+        PUMP,
+    )
+
+
 def check_stale(source: str, now: float, newest: float, stale_after: float) -> TripCondition | None:
     """No reading from ``source`` newer than ``stale_after`` s before ``now``."""
     age = now - newest
@@ -517,6 +560,9 @@ _HOLDS = {
     OUTPUT_OFF_UNEXPECTED: _cleared_by_acknowledgement,
     # An error entry is an event: the person acknowledging confirms the driver was checked.
     DEVICE_ERROR: _cleared_by_acknowledgement,
+    # The pump is off after the trip; the person acknowledging confirms the calibration was
+    # checked (emitting again with it unchanged trips again).
+    POWER_CALIBRATION: _cleared_by_acknowledgement,
     PUMP_OFF_FAILED: _output_off_holds,
     PUMP_COMMAND_FAILED: _output_off_holds,
     NEAR_FULL_SCALE: _full_scale_holds,
