@@ -777,7 +777,8 @@ class TripMonitor:
             if PUMP_ON in ch and output_off_since is not None:
                 self._level(OUTPUT_UNEXPECTED, check_output_unexpected(
                     t, col(PUMP_ON), output_off_since, self.output_grace), found)
-            if PUMP_ON in ch and output_on_since is not None:
+            if PUMP_ON in ch and output_on_since is not None and not found and INTERLOCK_OPEN not in self._active:
+                # (an open interlock, or another condition of this reading, already explains it)
                 self._level(OUTPUT_OFF_UNEXPECTED, check_output_off_unexpected(
                     t, col(PUMP_ON), output_on_since, self.output_grace), found)
             elif output_off_since is not None:
