@@ -34,6 +34,7 @@ from typing import Protocol, Self, runtime_checkable
 
 import numpy as np
 
+from bench import stop_signals
 from bench.config import BenchConfig
 from bench.guard import (
     ARMED,
@@ -393,7 +394,7 @@ class GuardedPump:
             raise GuardRefused("no current limit is configured for the pump: setting the current is refused")
         if current > self.max_current:
             raise GuardRefused(f"pump current {current:g} A is above the limit {self.max_current:g} A of the bench file")
-        with self._lock:
+        with stop_signals.shielded(), self._lock:
             try:
                 self._pump.set_current(float(current))
             except Exception as exc:  # any driver failure
@@ -440,7 +441,9 @@ class GuardedPump:
 
     # -- the machinery ---------------------------------------------------------------------
     def _run(self, event: object) -> Outcome:
-        with self._lock:
+        # A Ctrl-C must not cut a pump exchange in half (the reply left unread would be taken
+        # for the answer to the next command): in the main thread it waits for the command.
+        with stop_signals.shielded(), self._lock:
             now = self._clock()
             outcome = self._guard.handle(event, now)  # type: ignore[arg-type]
             if any(isinstance(a, (PumpOff, PumpOn)) for a in outcome.actions):

@@ -603,7 +603,8 @@ class Measurement:
 
     def set_modulation(self, hz: float | None, who: str = "gainbench") -> None:
         pump = self.instruments["pump"]
-        pump.set_modulation(hz)
+        with stop_signals.shielded():  # never a pump exchange cut in half (see GuardedPump._run)
+            pump.set_modulation(hz)
         self.control_q.put(Event(self.clock.now(), "setting",
                                  "pump modulation off" if hz is None else f"pump modulation {hz:g} Hz", who,
                                  data={"modulation_hz": hz}))
