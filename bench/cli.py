@@ -7,10 +7,9 @@ import importlib
 import os
 import signal
 import sys
-import threading
 from collections.abc import Sequence
 
-from bench import __version__
+from bench import __version__, stop_signals
 from bench.errors import GainbenchError, Terminated
 
 #: Modules of `bench.commands`, in the order `gainbench --help` lists them.
@@ -50,30 +49,17 @@ def build_parser() -> argparse.ArgumentParser:
     return parser
 
 
-def _terminate(signum, frame) -> None:
-    raise Terminated(signal.Signals(signum).name)
-
-
-def _end_cleanly_on_signals() -> list[tuple[int, object]]:
-    """SIGTERM and SIGHUP end the command as Ctrl-C does (pump off, run closed), not at once."""
-    previous = []
-    if threading.current_thread() is not threading.main_thread():
-        return previous
-    for name in ("SIGTERM", "SIGHUP"):
-        sig = getattr(signal, name, None)
-        if sig is not None:
-            previous.append((sig, signal.signal(sig, _terminate)))
-    return previous
-
-
 def main(argv: Sequence[str] | None = None) -> int:
-    parser = build_parser()
-    args = parser.parse_args(argv)
-    if not getattr(args, "_run", None):
-        parser.print_help()
-        return 2
-    previous = _end_cleanly_on_signals()
+    # Ctrl-C, SIGTERM and SIGHUP end the command cleanly (pump off, run closed); once one has,
+    # further ones cannot interrupt the shutdown (bench.stop_signals).
+    previous = stop_signals.install()
     try:
+        with stop_signals.shielded():  # imports every command: a Ctrl-C then acts once they are done
+            parser = build_parser()
+        args = parser.parse_args(argv)
+        if not getattr(args, "_run", None):
+            parser.print_help()
+            return 2
         return int(args._run(args) or 0)
     except Terminated as exc:
         print(f"gainbench: terminated ({exc.signal_name})", file=sys.stderr)
@@ -91,5 +77,4 @@ def main(argv: Sequence[str] | None = None) -> int:
             pass
         return 0
     finally:
-        for sig, handler in previous:
-            signal.signal(sig, handler)
+        stop_signals.restore(previous)

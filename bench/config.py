@@ -489,6 +489,19 @@ def _line_of(text: str, key: str) -> int | None:
 # Building
 
 
+def _refuse_simulator_on_a_real_bench(r: _Reader, simulated: bool, instruments: Mapping[str, Any]) -> None:
+    """A bench that is not simulated must not name the simulator: its data would be stored as
+    real (no simulation banner, tag or ground truth)."""
+    if simulated:
+        return
+    for role, inst in instruments.items():
+        if inst.resource == "simulated":
+            raise r.fail(f"instruments.{role}.resource",
+                         '"simulated" is the simulated bench, but bench.simulated is false (the run would be '
+                         "stored as real data); set bench.simulated = true with a [simulation] table, or give "
+                         "the instrument's real resource")
+
+
 def _build(r: _Reader, text: str, base_dir: Path) -> BenchConfig:
     r.table("bench")
     name = r.string("bench.name")
@@ -516,6 +529,7 @@ def _build(r: _Reader, text: str, base_dir: Path) -> BenchConfig:
         for role, inst in instruments.items():
             if inst.resource != "simulated":
                 raise r.fail(f"instruments.{role}.resource", 'a simulated bench needs resource = "simulated"')
+    _refuse_simulator_on_a_real_bench(r, simulated, instruments)
     return BenchConfig(
         source=r.source,
         text=text,

@@ -34,6 +34,7 @@ from typing import Protocol, Self, runtime_checkable
 
 import numpy as np
 
+from bench import stop_signals
 from bench.config import BenchConfig
 from bench.guard import (
     ARMED,
@@ -214,6 +215,7 @@ class GuardedPump:
         self._lock = threading.RLock()
         self._commanded_on = False
         self._off_since: float | None = None
+        self._on_since: float | None = None
         self._latencies: deque[float] = deque(maxlen=1000)
         self._recent: deque[Event] = deque(maxlen=1000)
 
@@ -256,6 +258,14 @@ class GuardedPump:
         if self._commanded_on:
             return None
         return -math.inf if self._off_since is None else self._off_since
+
+    @property
+    def output_on_since(self) -> float | None:
+        """Run-clock time the output was last commanded on; None while commanded off.
+
+        Pass it to `TripMonitor.feed_pump`: a later reading showing the output off trips.
+        """
+        return self._on_since if self._commanded_on else None
 
     @property
     def trip_latencies(self) -> list[float]:
@@ -384,7 +394,7 @@ class GuardedPump:
             raise GuardRefused("no current limit is configured for the pump: setting the current is refused")
         if current > self.max_current:
             raise GuardRefused(f"pump current {current:g} A is above the limit {self.max_current:g} A of the bench file")
-        with self._lock:
+        with stop_signals.shielded(), self._lock:
             try:
                 self._pump.set_current(float(current))
             except Exception as exc:  # any driver failure
@@ -431,7 +441,9 @@ class GuardedPump:
 
     # -- the machinery ---------------------------------------------------------------------
     def _run(self, event: object) -> Outcome:
-        with self._lock:
+        # A Ctrl-C must not cut a pump exchange in half (the reply left unread would be taken
+        # for the answer to the next command): in the main thread it waits for the command.
+        with stop_signals.shielded(), self._lock:
             now = self._clock()
             outcome = self._guard.handle(event, now)  # type: ignore[arg-type]
             if any(isinstance(a, (PumpOff, PumpOn)) for a in outcome.actions):
@@ -492,6 +504,7 @@ class GuardedPump:
                     done.failed = (PUMP_COMMAND_FAILED, f"the {action.name} shutter did not open ({detail})", self._clock())
                     break
             elif isinstance(action, PumpOn):
+                self._on_since = self._clock()
                 self._commanded_on = True
                 self._off_since = None
                 try:

@@ -28,7 +28,9 @@ import time
 from collections.abc import Callable, Mapping
 from typing import Any
 
-from bench import __version__
+import numpy as np
+
+from bench import __version__, stop_signals
 from bench.acquisition import (
     DetectorReader,
     DropCounter,
@@ -62,6 +64,13 @@ MIN_BLOCK = 0.01
 
 #: Queue length in blocks; at 64k sample sets per block this is several seconds of data.
 QUEUE_BLOCKS = 256
+
+#: Real s between reads of the pump driver's error queue while the pump emits: a device fault
+#: the driver reports there (and nowhere else) trips the guard.
+ERROR_POLL = 0.25
+
+#: Run-clock s of the newest pump-monitor data averaged for the power-calibration check.
+MONITOR_SPAN = 0.01
 
 
 class MeasurementError(GainbenchError):
@@ -121,6 +130,7 @@ class Measurement:
         self._consumer_error: BaseException | None = None
         self._closed = False
         self._started_wall = None
+        self._monitor_level: tuple[float, float] | None = None  # (run-clock t, V) of the pump monitor
 
     # -- life cycle ---------------------------------------------------------------------------
     def __enter__(self) -> Measurement:
@@ -174,6 +184,7 @@ class Measurement:
                 self.identities[role] = str(driver.identify())
             except GainbenchError as exc:
                 raise MeasurementError(f"{role} at {resources[role]}: no identity ({exc})") from exc
+            self._clear_error_queue(role, driver)
         pump = self.instruments["pump"]
         shutter = self.instruments.get("shutter")
         self.clock = RunClock(self.speed)  # the run's time zero: instruments open, nothing read yet
@@ -245,10 +256,18 @@ class Measurement:
             self._truth_thread.start()
 
     def close(self, reason: str = "stopped") -> None:
-        """Pump off first, then stop the threads, then close the run file. Safe to call twice."""
+        """Pump off first, then stop the threads, then close the run file. Safe to call twice.
+
+        Ctrl-C and termination signals arriving meanwhile are held until it has finished: they
+        must not cut off the pump-off command, its read-back or the closing of the run file.
+        """
         if self._closed:
             return
         self._closed = True
+        with stop_signals.shielded("the pump is off and the run closed"):
+            self._close(reason)
+
+    def _close(self, reason: str) -> None:
         if self.guarded_pump is not None:
             try:
                 self.guarded_pump.shutdown(reason=reason)
@@ -335,8 +354,12 @@ class Measurement:
     def _guard_block(self, block) -> None:
         gp, mon = self.guarded_pump, self.monitor
         now = self.clock.now()
+        if block.source == "detector" and block.n and "pump_monitor" in block.channels:
+            k = max(1, min(block.n, int(round(MONITOR_SPAN / block.dt)) if block.dt > 0 else 1))
+            self._monitor_level = (block.t_end, float(np.mean(block.column("pump_monitor")[-k:])))
         if block.source == "pump":
-            found = mon.feed_pump(block, output_off_since=gp.output_off_since, received_at=now)
+            found = mon.feed_pump(block, output_off_since=gp.output_off_since,
+                                  output_on_since=gp.output_on_since, received_at=now)
         elif block.source == "detector" and self.params.detector_range is not None:
             found = mon.feed_detector(block, self.params.detector_range, pump_steady=self.mode == "watch",
                                       received_at=now)
@@ -351,7 +374,9 @@ class Measurement:
             self.guarded_pump.trip_on(found)
 
     def _watch_stale(self) -> None:
-        """Trips when an instrument has given no fresh reading for too long (20 checks a second)."""
+        """Trips when an instrument has given no fresh reading for too long (20 checks a second),
+        and reads the pump driver's error queue while the pump emits (every `ERROR_POLL` s)."""
+        next_errors = time.monotonic()
         while not self.stop_flag.wait(0.05):
             try:
                 found = self.monitor.check_stale(self.clock.now())
@@ -359,6 +384,90 @@ class Measurement:
                     self.guarded_pump.trip_on(found)
             except Exception:
                 log.exception("stale-reading check failed")
+            if time.monotonic() >= next_errors:
+                next_errors = time.monotonic() + ERROR_POLL
+                try:
+                    self._poll_pump_errors()
+                except Exception:
+                    log.exception("reading the pump driver's error queue failed")
+                try:
+                    self._check_power_calibration()
+                except Exception:
+                    log.exception("the pump power calibration check failed")
+
+    def _poll_pump_errors(self) -> None:
+        from bench.trip_conditions import check_device_errors
+        from drivers.errors import InstrumentError
+
+        if self.guarded_pump.state != "emitting":
+            return
+        self.pump_access.wait_for_turn()  # the guard's own commands go first
+        try:
+            entries = self.instruments["pump"].instrument_errors()
+        except InstrumentError:  # a failed exchange: the pump reader's checks deal with those
+            return
+        if not entries:
+            return
+        now = self.clock.now()
+        found = check_device_errors("pump driver", [(e.code, e.text) for e in entries], now)
+        self.control_q.put(Event(now, "fault", found.reason, data={
+            "source": "pump", "errors": [[e.code, e.text] for e in entries]}))
+        self.guarded_pump.trip_on([found])
+
+    def _check_power_calibration(self) -> None:
+        """While the pump emits at a settled current, compare the bench file's power calibration
+        with the driver's power reading (profiles with ``power``) and, in steady modes, with the
+        pump monitor through its responsivity; a disagreement trips (`trip_conditions`)."""
+        from bench.records import PUMP_CURRENT, PUMP_SETPOINT
+        from bench.trip_conditions import check_power_calibration
+        from drivers.errors import InstrumentError
+
+        gp, mon = self.guarded_pump, self.monitor
+        on_since = gp.output_on_since
+        now = self.clock.now()
+        if gp.state != "emitting" or on_since is None or now - on_since < mon.output_grace:
+            return
+        values = mon.latest().values
+        if PUMP_CURRENT not in values or PUMP_SETPOINT not in values:
+            return
+        t_i, current = values[PUMP_CURRENT]
+        if t_i <= on_since or abs(current - values[PUMP_SETPOINT][1]) > self.cfg.guard.current_tolerance:
+            return  # not settled at its setpoint yet (or a sweep step is under way)
+        expected = self.cfg.pump.power_at(current)
+        found = []
+        pump = self.instruments["pump"]
+        if pump.session.has("power"):
+            self.pump_access.wait_for_turn()
+            try:
+                measured = pump.power()
+            except InstrumentError:  # a failed exchange: the pump reader's checks deal with those
+                measured = None
+            if measured is not None:
+                found.append(check_power_calibration(expected, measured, current,
+                                                     "the pump driver's power reading", now))
+        level = self._monitor_level
+        per_watt = self.params.monitor_per_watt
+        if (level is not None and per_watt and self.mode in ("watch", "sweep") and level[0] > on_since
+                and now - level[0] < 1.0):
+            found.append(check_power_calibration(
+                expected, level[1] / per_watt, current,
+                f"the pump monitor ({level[1]:.4g} V at {per_watt:.4g} V/W)", now))
+        found = [c for c in found if c is not None]
+        if found:
+            gp.trip_on(found[:1])
+
+    def _clear_error_queue(self, role: str, driver) -> None:
+        """Empty an instrument's error queue at start: what it holds is from before this run
+        (and would otherwise be blamed on this run's first setting). Noted as a run event."""
+        try:
+            entries = driver.instrument_errors()
+        except GainbenchError as exc:
+            raise MeasurementError(f"{role}: reading its error queue at start failed ({exc})") from exc
+        if entries:
+            listed = "; ".join(f"{e.code}, {e.text!r}" for e in entries)
+            self.control_q.put(Event(0.0, "run", f"{role}: error queue at start held (from before this run, "
+                                     f"cleared): {listed}", data={"source": role,
+                                                                  "errors": [[e.code, e.text] for e in entries]}))
 
     def _poll_truth(self) -> None:
         """The simulator's truth every 0.1 s of real time, over a connection of its own."""
@@ -497,10 +606,21 @@ class Measurement:
 
     def set_modulation(self, hz: float | None, who: str = "gainbench") -> None:
         pump = self.instruments["pump"]
-        pump.set_modulation(hz)
+        with stop_signals.shielded():  # never a pump exchange cut in half (see GuardedPump._run)
+            pump.set_modulation(hz)
         self.control_q.put(Event(self.clock.now(), "setting",
                                  "pump modulation off" if hz is None else f"pump modulation {hz:g} Hz", who,
                                  data={"modulation_hz": hz}))
+
+    def set_operator(self, name: str) -> None:
+        """The person running the measurement, once known (e.g. asked at the checklist)."""
+        name = name.strip() if isinstance(name, str) else ""
+        if not name:
+            raise MeasurementError("operator: name the person running the measurement")
+        self.operator = name
+        if self.store is not None:
+            self.store.set_meta(operator=name)
+        self.control_q.put(Event(self.clock.now(), "run", f"operator: {name}", name, data={"operator": name}))
 
     def note(self, text: str, who: str | None = None) -> None:
         self.control_q.put(Event(self.clock.now(), "note", text, who or self.operator or "operator"))

@@ -25,6 +25,11 @@ from bench.errors import GainbenchError
 
 ROLES = ("detector", "pump", "shutter", "wavelength")
 
+#: Bench-file keys a ``--set`` changes for the tool only, not for the simulated bench: the pump
+#: calibration is what the tool believes of the pump; the simulated pump (and its driver's own
+#: power reading) stays as the bench file describes it, as a real pump would.
+BELIEF_ONLY = frozenset({"pump.slope_efficiency", "pump.threshold_current"})
+
 
 class SimulatorError(GainbenchError):
     """The simulated bench did not start, or stopped."""
@@ -73,6 +78,8 @@ class SimulatorProcess:
         for f in self.faults:
             cmd += ["--fault", f]
         for key, value in self.cfg.overrides.items():  # e.g. --set simulation.drift_per_hour=0
+            if key in BELIEF_ONLY:
+                continue
             cmd += ["--set", f"{key}={value}"]
         env = dict(os.environ, PYTHONUNBUFFERED="1")
         # The child's standard input is a pipe nobody writes to: it closes when this process

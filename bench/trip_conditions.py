@@ -17,11 +17,18 @@ Conditions checked:
   the target being the setpoint while the output reads on and 0 while it reads off), once
   ``settle_time`` has passed since the target last changed;
 - the pump output reads on although the guard commanded it off;
+- the pump output reads off although the guard commanded it on (another connection switched it
+  off, or the driver's own protection did: the guard's view of the pump is then wrong);
 - a detector channel (``probe``, ``reference``, ``pump_monitor``) at or above
   ``full_scale_fraction`` of its range;
 - ``comm_failures`` consecutive failed exchanges with the pump driver or the detector, or a
   lost connection;
 - no fresh reading from a source for longer than ``stale_after``;
+- an instrument reports a device error (its error queue, read while the pump emits);
+- the pump power by the bench file's calibration (``pump.slope_efficiency``,
+  ``pump.threshold_current``) disagrees by more than `CALIBRATION_FACTOR` with the power the
+  pump driver reports, or with the pump monitor read through its responsivity (a calibration
+  that makes the pump look weak also makes the eyewear checklist ask too little);
 - optionally, a sudden relative change of the probe transmission ``S = probe / reference``
   between consecutive short windows larger than ``transmission_jump`` while the pump did not
   change (parasitic lasing, or an optic that moved). Each window is compared with the one
@@ -69,9 +76,21 @@ MOUNT_TEMPERATURE = "mount_temperature"
 OVER_CURRENT = "over_current"
 CURRENT_NOT_FOLLOWING = "current_not_following"
 OUTPUT_UNEXPECTED = "output_on_unexpected"
+OUTPUT_OFF_UNEXPECTED = "output_off_unexpected"
 NEAR_FULL_SCALE = "near_full_scale"
 TRANSMISSION_JUMP = "transmission_jump"
 COMM_PREFIX = "comm_failure."
+DEVICE_ERROR = "device_error"
+POWER_CALIBRATION = "power_calibration"
+
+#: Largest factor by which the bench file's pump power may differ from a measured one. A
+#: driver's calibration and a monitor photodiode agree with a careful bench-file calibration
+#: to some ten per cent; a factor 2 is a wrong calibration, not drift (common practice, no
+#: source).
+CALIBRATION_FACTOR = 2.0
+
+#: W; below this on both sides the powers are too small to compare (noise, offsets).
+CALIBRATION_FLOOR = 1e-3
 STALE_PREFIX = "stale."
 
 #: Detector channels checked against full scale.
@@ -272,6 +291,22 @@ def check_output_unexpected(times: object, pump_on: object, off_since: float, gr
     )
 
 
+def check_output_off_unexpected(times: object, pump_on: object, on_since: float, grace: float) -> TripCondition | None:
+    """The output reads off in a sample taken more than ``grace`` s after it was commanded on."""
+    on = _array(pump_on, "pump_on")
+    t = _times(times, on.shape[0])
+    i = _first((t > on_since + grace) & ~(on >= 0.5))
+    if i is None:
+        return None
+    return TripCondition(
+        OUTPUT_OFF_UNEXPECTED,
+        f"pump output reads off at t={t[i]:.3f} s although the guard commanded it on at t={on_since:.3f} s "
+        "(switched off by another connection or by the driver's own protection?)",
+        float(t[i]),
+        PUMP,
+    )
+
+
 def check_full_scale(
     times: object,
     columns: Mapping[str, object],
@@ -351,6 +386,44 @@ def check_comm(source: str, failures: int, limit: int, t: float, detail: str = "
             source,
         )
     return None
+
+
+def check_device_errors(source: str, entries: Sequence[tuple[int, str]], t: float) -> TripCondition | None:
+    """``source`` reported errors ``(code, text)`` from its queue, read at run-clock time ``t``."""
+    if not entries:
+        return None
+    listed = "; ".join(f"{code}, {text!r}" for code, text in entries)
+    return TripCondition(DEVICE_ERROR, f"the {source} reported a device error at t={t:.3f} s: {listed}",
+                         float(t), source)
+
+
+def check_power_calibration(expected_w: float, measured_w: float, current_a: float, what: str, t: float,
+                            factor: float = CALIBRATION_FACTOR) -> TripCondition | None:
+    """The bench file's pump power at ``current_a`` (``expected_w``) against ``measured_w``.
+
+    ``what`` names the measurement (``"the pump driver's power reading"``). Returns a condition
+    with both figures when they differ by more than ``factor`` either way; None when they agree
+    or both are below `CALIBRATION_FLOOR`.
+    """
+    if not (math.isfinite(factor) and factor > 1):
+        raise ValueError(f"factor: expected a number above 1, got {factor!r}")
+    if not (math.isfinite(expected_w) and math.isfinite(measured_w)):
+        return None
+    if max(expected_w, measured_w) < CALIBRATION_FLOOR:
+        return None
+    low, high = sorted((max(expected_w, 0.0), max(measured_w, 0.0)))
+    if high <= factor * low:
+        return None
+    ratio = "more than 1e6" if low <= 0 or high / low > 1e6 else f"{high / low:.3g}"
+    return TripCondition(
+        POWER_CALIBRATION,
+        f"pump power calibration disagrees with {what}: the bench file gives {expected_w:.4g} W at "
+        f"{current_a:.4g} A (pump.slope_efficiency, pump.threshold_current), {what} gives {measured_w:.4g} W, "
+        f"a factor {ratio} apart (at most {factor:g} allowed); check the calibration before emitting again "
+        f"(the eyewear checklist depends on it) at t={t:.3f} s",
+        float(t),
+        PUMP,
+    )
 
 
 def check_stale(source: str, now: float, newest: float, stale_after: float) -> TripCondition | None:
@@ -482,6 +555,14 @@ _HOLDS = {
     OVER_CURRENT: _current_holds,
     CURRENT_NOT_FOLLOWING: _following_holds,
     OUTPUT_UNEXPECTED: _output_off_holds,
+    # The guard switched the pump off on the trip: what stays is to find out why the output
+    # went off; the person acknowledging confirms they did.
+    OUTPUT_OFF_UNEXPECTED: _cleared_by_acknowledgement,
+    # An error entry is an event: the person acknowledging confirms the driver was checked.
+    DEVICE_ERROR: _cleared_by_acknowledgement,
+    # The pump is off after the trip; the person acknowledging confirms the calibration was
+    # checked (emitting again with it unchanged trips again).
+    POWER_CALIBRATION: _cleared_by_acknowledgement,
     PUMP_OFF_FAILED: _output_off_holds,
     PUMP_COMMAND_FAILED: _output_off_holds,
     NEAR_FULL_SCALE: _full_scale_holds,
@@ -641,12 +722,15 @@ class TripMonitor:
 
     # -- feeding ---------------------------------------------------------------------------
     def feed_pump(self, block: Block, *, output_off_since: float | None = None,
+                  output_on_since: float | None = None,
                   received_at: float | None = None) -> list[TripCondition]:
         """Check one pump block (channels ``pump_current``, ``pump_setpoint``, ``pump_on``,
         ``mount_temp``, ``interlock``; any subset).
 
         ``output_off_since`` is the run-clock time the guard last commanded the output off
         (None while it is commanded on): a later reading showing it on trips.
+        ``output_on_since`` is the time it commanded the output on (None while commanded off):
+        a later reading showing it off trips.
         """
         if not isinstance(block, Block):
             raise ValueError(f"block: expected a Block, got {type(block).__name__}")
@@ -693,6 +777,12 @@ class TripMonitor:
             if PUMP_ON in ch and output_off_since is not None:
                 self._level(OUTPUT_UNEXPECTED, check_output_unexpected(
                     t, col(PUMP_ON), output_off_since, self.output_grace), found)
+            if PUMP_ON in ch and output_on_since is not None and not found and INTERLOCK_OPEN not in self._active:
+                # (an open interlock, or another condition of this reading, already explains it)
+                self._level(OUTPUT_OFF_UNEXPECTED, check_output_off_unexpected(
+                    t, col(PUMP_ON), output_on_since, self.output_grace), found)
+            elif output_off_since is not None:
+                self._active.pop(OUTPUT_OFF_UNEXPECTED, None)
         return found
 
     def feed_detector(

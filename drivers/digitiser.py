@@ -120,6 +120,9 @@ class Digitiser(Driver):
         Arguments not given fall back to the options (``sample_rate``, ``channels``, ``range``,
         ``format``); what is still unknown is left as the instrument has it. The rate read
         back, when the profile can read it, becomes `rate_hz`.
+
+        An acquisition still running (left by a program that ended without stopping it) is
+        stopped first: digitisers commonly refuse settings while acquiring.
         """
         rate = self.rate_hz if rate_hz is None else check_finite("rate_hz", rate_hz, positive=True)
         chans = self.channels if channels is None else _check_channels(channels)
@@ -129,6 +132,7 @@ class Digitiser(Driver):
             raise ValueError(f"data_format: expected one of {list(DATA_FORMATS)}, got {data_format!r}")
         if fmt == "ascii" and not self.session.has("fetch_ascii") and self.session.profile.command("fetch").reply != "csv_floats":
             raise ValueError("data_format: this profile has no ASCII fetch (commands.fetch_ascii)")
+        self.session.write("stop")
         if rate is not None:
             self.session.write("set_rate", value=rate)
             if self.session.has("rate"):

@@ -87,7 +87,9 @@ def test_prompts_show_the_caution_and_wavelength():
 
 
 def test_the_simulated_bench_asks_the_same_questions():
-    real = load_bench(overrides={"bench.simulated": "false"})
+    real = load_bench(overrides={"bench.simulated": "false", **{
+        f"instruments.{role}.resource": f"TCPIP::192.0.2.{k}::5025::SOCKET"  # TEST-NET-1 (RFC 5737)
+        for k, role in enumerate(("detector", "pump", "shutter"), start=1)}})
     assert CFG.simulated and not real.simulated
     assert cl.checklist_items(real) == cl.checklist_items(CFG)
 

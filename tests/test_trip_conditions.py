@@ -200,6 +200,22 @@ def test_output_on_after_the_guard_commanded_it_off():
     assert not [x for x in found if x.condition == tc.OUTPUT_UNEXPECTED]
 
 
+def test_output_off_while_the_guard_commands_it_on():
+    # another connection, or the driver's own protection, switched the output off
+    m = tc.TripMonitor(CFG, settle_time=0.2, lag_allowance=0.1)
+    assert m.feed_pump(pump_block(10.1, current=0.0, on=0.0), output_on_since=10.0) == []  # within grace
+    found = m.feed_pump(pump_block(10.5, current=0.0, on=0.0), output_on_since=10.0)
+    assert [x.condition for x in found] == [tc.OUTPUT_OFF_UNEXPECTED] and found[0].seen_at == 10.5
+    assert "commanded it on at t=10.000 s" in found[0].reason
+    # commanded off again (the trip): no longer held
+    m.feed_pump(pump_block(10.6, current=0.0, on=0.0), output_off_since=10.55)
+    assert tc.OUTPUT_OFF_UNEXPECTED not in m.active_conditions()
+    # an open interlock explains an output that went off: that is the one condition reported
+    m2 = tc.TripMonitor(CFG, settle_time=0.2, lag_allowance=0.1)
+    found = m2.feed_pump(pump_block(10.5, current=0.0, on=0.0, interlock=0.0), output_on_since=10.0)
+    assert [x.condition for x in found] == [tc.INTERLOCK_OPEN]
+
+
 @pytest.mark.parametrize(
     ("channel", "value", "trips"),
     [(PROBE, 1.92, True), (PROBE, 1.85, False), (REFERENCE, -1.95, True), (PUMP_MONITOR, 2.0, True),

@@ -9,9 +9,11 @@ from __future__ import annotations
 
 import argparse
 import math
+import shutil
 import sys
 import time
 
+from bench import stop_signals
 from bench.errors import ConfigError, GainbenchError
 from bench.run_checks import add_run_options, load_for_run
 from bench.units import parse_quantity
@@ -19,8 +21,23 @@ from bench.units import parse_quantity
 NAME = "record"
 HELP = "acquire, estimate and log a run (headless; dark, baseline, arming checklist, pump program)"
 
+#: Exit statuses of `gainbench record` besides 0 (done) and 2 (bad input).
+ARMING_REFUSED = 3
+TRIP_NOT_ACKNOWLEDGED = 4
+
+EXIT_STATUSES = f"""exit status:
+  0    the pump program ran (a trip on the way was acknowledged: it is in the run's events)
+  2    bad input (bench file, flags), or a procedure failed; nothing was switched on
+  {ARMING_REFUSED}    arming refused by the checklist; the run holds dark and baseline only
+  {TRIP_NOT_ACKNOWLEDGED}    the guard tripped and the trip could not be acknowledged (its condition still
+       held 10 s later); the pump output was commanded off and the guard is left tripped
+  130  interrupted (Ctrl-C); 143 terminated (SIGTERM); 129 terminal closed (SIGHUP);
+       the pump output is commanded off and the run closed in every case"""
+
 
 def configure(parser: argparse.ArgumentParser) -> None:
+    parser.formatter_class = argparse.RawDescriptionHelpFormatter
+    parser.epilog = EXIT_STATUSES
     parser.add_argument("--config", metavar="FILE", help="bench file; default: the built-in simulated bench")
     parser.add_argument("--mode", choices=("watch", "chopped", "decay", "sweep"), default="watch",
                         help="watch: steady pump; chopped: modulated pump; decay: lifetime from pump-off "
@@ -54,11 +71,18 @@ def configure(parser: argparse.ArgumentParser) -> None:
 
 
 def run(args: argparse.Namespace) -> int:
-    from bench.measurement import (
-        Measurement,
-        default_current,
-        sweep_currents,
-    )
+    with stop_signals.shielded():  # a Ctrl-C acts once the imports are done (see bench.stop_signals)
+        import bench.checklist  # noqa: F401 - imported here, not halfway through the run
+        import bench.guarded_pump  # noqa: F401
+        import bench.runstore  # noqa: F401
+        import bench.sim_process  # noqa: F401
+        import bench.trip_conditions  # noqa: F401
+        import drivers.registry  # noqa: F401
+        from bench.measurement import (
+            Measurement,
+            default_current,
+            sweep_currents,
+        )
 
     cfg = load_for_run(args)  # instruments checked, overrides lowering the eyewear OD refused
     if args.seconds <= 0 or not math.isfinite(args.seconds):
@@ -68,6 +92,8 @@ def run(args: argparse.Namespace) -> int:
     if not cfg.simulated and (args.fault or args.speed != 1.0 or args.seed is not None):
         raise ConfigError("--fault, --speed and --seed apply to the simulated bench only")
     current = default_current(cfg) if args.current is None else parse_quantity(args.current, "current", "--current")
+    if not (math.isfinite(current) and current >= 0):
+        raise ConfigError(f"--current: {args.current!r} is not a pump current of 0 A or more")
     if current > min(cfg.guard.max_current, cfg.pump.max_current):
         raise ConfigError(f"--current: {current:g} A is above the guard's limit "
                           f"({min(cfg.guard.max_current, cfg.pump.max_current):g} A)")
@@ -87,12 +113,12 @@ def run(args: argparse.Namespace) -> int:
             meas.capture_dark()
         print("capturing baseline (pump off) ...", file=out)
         meas.capture_baseline()
-        result = _arm(meas, cfg, answers, operator)
+        result, operator = _arm(meas, cfg, answers, operator)
         if result is None or not result.passed:
             reasons = "; ".join(result.refusals) if result is not None else "no checklist answers"
             print(f"gainbench: arming refused: {reasons}", file=sys.stderr)
             print(f"run {meas.run_id} kept (dark and baseline only, pump never on)", file=out)
-            return 3
+            return ARMING_REFUSED
         if args.mode in ("chopped", "decay"):
             meas.set_modulation(1.0 / period)
         currents = sweep_currents(cfg, args.steps) if args.mode == "sweep" else [current]
@@ -106,6 +132,7 @@ def run(args: argparse.Namespace) -> int:
             if meas.guarded_pump.state == "tripped":
                 break
         tripped = meas.guarded_pump.state == "tripped"
+        acknowledged = True
         if tripped:
             snap = meas.snapshot(with_history=False)
             print(f"\nguard TRIPPED: {snap.trip_reason}", file=out)
@@ -113,7 +140,7 @@ def run(args: argparse.Namespace) -> int:
             if lat:
                 print(f"trip latency {lat[-1] * 1e3:.1f} ms (reading to pump-off command)", file=out)
             meas.hold(0.2)
-            _acknowledge(meas, operator)
+            acknowledged = _acknowledge(meas, operator)
         else:
             meas.stop_emission(who=operator)
             if args.mode in ("chopped", "decay"):
@@ -121,6 +148,10 @@ def run(args: argparse.Namespace) -> int:
         meas.hold(0.05)
         status.line(final=True)
     print(f"\n{meas.run_id}", file=out)
+    if tripped and not acknowledged:
+        print(f"gainbench: the guard tripped and the trip is not acknowledged (exit status "
+              f"{TRIP_NOT_ACKNOWLEDGED}); run {meas.run_id}", file=sys.stderr)
+        return TRIP_NOT_ACKNOWLEDGED
     return 0
 
 
@@ -152,32 +183,43 @@ def _flag_answers(args, cfg):
 
 
 def _arm(meas, cfg, answers, operator):
+    """Judge the checklist; returns (result or None, the operator of the run).
+
+    On a terminal without flags the operator's name is asked first; that person is then the
+    operator of the run (stored with it) and the one named for switching the pump on.
+    """
     from bench.checklist import run_interactive
 
     if answers is None:
         if not sys.stdin.isatty():
             print("gainbench: the arming checklist needs answers: run on a terminal, or give --operator NAME, "
                   "--eyewear-od WAVELENGTH=OD for each laser wavelength and --confirm-setup", file=sys.stderr)
-            return None
+            return None, operator
         while not operator:
-            operator = input("operator name: ").strip()
+            try:
+                operator = input("operator name: ").strip()
+            except EOFError:
+                return None, operator
+        meas.set_operator(operator)
         answers = run_interactive(meas.checklist_items(), operator=operator, readings=meas.pump_readings(),
                                   clock=meas.clock.now)
-    return meas.arm(answers, operator)
+    return meas.arm(answers, operator), operator
 
 
-def _acknowledge(meas, operator: str) -> None:
+def _acknowledge(meas, operator: str) -> bool:
     """Acknowledge the trip once its condition has cleared (headless: wait up to 10 s)."""
     deadline = time.monotonic() + 10.0
+    last = "no attempt"
     while time.monotonic() < deadline:
         try:
             meas.acknowledge(operator or "gainbench")
             print("trip acknowledged; guard back to safe", file=sys.stdout)
-            return
+            return True
         except GainbenchError as exc:
             last = str(exc)
             time.sleep(0.2)
     print(f"trip not acknowledged: {last}", file=sys.stdout)
+    return False
 
 
 class _Status:
@@ -208,4 +250,8 @@ class _Status:
         if self.quiet and not final:
             return
         end = "\n" if final or not sys.stdout.isatty() else "\r"
+        if end == "\r":
+            # a line that wraps cannot be overwritten with a carriage return: keep it to one row
+            width = shutil.get_terminal_size().columns
+            text = text[: max(20, width - 1)].ljust(max(20, width - 1))
         print(text, end=end, file=sys.stdout, flush=True)

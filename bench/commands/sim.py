@@ -45,8 +45,8 @@ def configure(parser: argparse.ArgumentParser) -> None:
                        help="change a key of the bench file for this run, e.g. simulation.drift_per_hour=0 "
                             "(repeatable)")
     serve.add_argument("--until-stdin-closes", action="store_true",
-                       help="also stop when standard input closes (for a parent process that starts the "
-                            "simulator: it stops with its parent, even a killed one)")
+                       help="also stop when standard input closes, and ignore Ctrl-C (for a parent process "
+                            "that starts the simulator: it stops with its parent, even a killed one)")
 
 
 def run(args: argparse.Namespace) -> int:
@@ -72,6 +72,11 @@ def run(args: argparse.Namespace) -> int:
 
     wanted = [signal.SIGINT] + ([signal.SIGTERM] if hasattr(signal, "SIGTERM") else [])
     previous = {sig: signal.signal(sig, on_signal) for sig in wanted}
+    if args.until_stdin_closes:
+        # Started by a parent (`gainbench record`): a Ctrl-C at the terminal reaches both, and
+        # the parent must switch the pump off before its instruments go away. This process
+        # stops when the parent has finished (its standard input closes) or on SIGTERM.
+        signal.signal(signal.SIGINT, signal.SIG_IGN)
     from simulated_instruments.device_errors import DeviceError
 
     try:
