@@ -60,7 +60,12 @@ Modes (`MODES`):
     whose uncertainty enters the fit parameters' systematic parts) and, over wavelength, the
     pump-induced gain change ``ln R / L`` with a Voigt line in optical frequency
     (`bench.fitting.fit_voigt`) plus a McCumber check when a cross-section spectrum and the
-    zero-line energy are configured. Extras: ``points``, ``fits`` (with the fitted curve).
+    zero-line energy are configured. The points' ``beta`` is absolute (see Figures); the fit
+    takes the probe-held part ``beta_off`` off first and undoes the probe's stimulated rate
+    ``W_s``, which stretches the fitted saturation power by ``1 + tau W_s`` (the same rate as
+    the decay mode's correction; `_saturation_fit`). Extras: ``points`` (each with its span
+    ``t_start``/``t_end`` on the run clock), ``fits`` (with the fitted curve). A sweep's last
+    step is closed by `report` (the consumer calls it when the stream ends).
 
 Emission. Time is cut into windows of ``window`` seconds on the sample-index grid. When the
 first sample after a window has been processed, the estimator emits that window's estimate
@@ -83,6 +88,14 @@ well-defined optimum (tolerances 1e-12); a saturation model far from the points 
 rounding to about 1e-8. Setting changes must arrive at the same sample positions (between the
 same two samples), as they do on replay.
 
+Figures (`figures`). ``ln R`` is the pump-induced change from the baseline, which already
+holds the excitation the probe alone keeps up, ``beta_off = sigma_a Phi_s / ((sigma_a +
+sigma_e) Phi_s + 1/tau)`` (`probe_terms`; about 5e-5 on the demo bench). It is added back:
+``beta`` (``N2 / N_total``) and ``n2_per_m3`` are absolute, and the gain figures are those of the
+pumped sample, ``ln G = ln R + (sigma_e + sigma_a) L N beta_off - sigma_a N L = g L``. The
+pump-induced change itself is in the watch estimates' and the sweep points' ``beta_change``
+(with ``beta_probe_held``).
+
 Uncertainty model (every figure is a `bench.records.Quantity`):
 
 * ``sigma_noise``: the statistical part described per mode, propagated linearly; the
@@ -92,14 +105,15 @@ Uncertainty model (every figure is a `bench.records.Quantity`):
 * ``sigma_systematic``: from the configured standard uncertainties of the length ``L``
   (absolute), the density ``N`` (relative) and each cross-section (relative, ``u_sigma``,
   ``sigma_e`` and ``sigma_a`` independent), propagated linearly and assumed independent:
-  for ``beta = ln R / ((sigma_e + sigma_a) L N)`` the relative part is
+  for the pump-induced ``ln R / ((sigma_e + sigma_a) L N)`` of beta the relative part is
   ``sqrt(u_sum^2 + (u_L / L)^2 + u_N^2)`` with ``u_sum = u_sigma sqrt(sigma_e^2 + sigma_a^2)
   / (sigma_e + sigma_a)``; ``n2`` drops ``u_N``; ``ln G = ln R - sigma_a N L`` carries
   ``sigma_a N L sqrt(u_sigma^2 + u_N^2 + (u_L / L)^2)``; ``g = ln R / L - sigma_a N`` carries
   ``sqrt((ln R u_L / L^2)^2 + (sigma_a N)^2 (u_sigma^2 + u_N^2))``. ``ln_ratio`` is measured
   directly and has no configured systematic part; ``tau_s`` has only that of its correction for
   the probe's own stimulated rate, ``tau^2 (sigma_e + sigma_a) Phi_s u_sum`` (the probe power
-  and beam size carry no configured uncertainty).
+  and beam size carry no configured uncertainty). ``beta_off`` adds a systematic part from the
+  cross-sections and the lifetime's configured uncertainty ``u_tau`` (`_held_sys`).
 * ``sigma``: the two parts in quadrature.
 
 Flags (`bench.records.FLAGS`): ``probe_not_weak`` (``I/I_sat`` or ``F/F_sat`` above

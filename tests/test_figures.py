@@ -168,3 +168,14 @@ def test_truth_rows_without_the_medium_transmission_fall_back_and_say_so(cfg):
     figs, source = truth_figures([{"t": 1.0, "ln_ratio": 0.46, "pump_w": 5.0}], cfg)
     assert "estimator's formulas" in source
     assert np.isfinite(figs["beta"])
+
+
+def test_the_report_draws_the_medium_own_gain_as_truth(cfg):
+    from bench.report_figures import truth_series
+
+    s = cfg.sample
+    row = {"t": 1.0, "pump_w": 5.0, "beta": 0.2, "ln_ratio": 0.46, "n_total": s.n_total, "length": s.length,
+           "ln_t_pumped": 0.5}
+    series = truth_series([row], s.sigma.probe_absorption)
+    # IEC 60027-3: 10 log10 of the power gain exp(ln T)
+    assert series["gain_db"][0] == pytest.approx(10 * math.log10(math.exp(0.5)), rel=1e-12)
