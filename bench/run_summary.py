@@ -37,6 +37,13 @@ def _pumped_rows(rows: list[dict[str, Any]], t0: float, t1: float) -> list[dict[
     return [r for r, s in zip(rows, sel) if s]
 
 
+def _rows_at_power(rows: list[dict[str, Any]], power: float | None) -> list[dict[str, Any]]:
+    """Truth rows whose pump power is within 1 % of ``power`` (W)."""
+    if power is None or not power > 0:
+        return []
+    return [r for r in rows if abs(r.get("pump_w", r.get("pump_W", 0.0)) - power) <= 0.01 * power]
+
+
 def truth_figures(pick: list[dict[str, Any]], cfg: BenchConfig) -> tuple[dict[str, float], str] | None:
     """(figures keyed as `SUMMARY_ESTIMATES`, where they come from) of some truth rows.
 
@@ -131,12 +138,16 @@ def sweep_steps(final: Estimate, reader: RunReader | None, cfg: BenchConfig) -> 
         if span is not None:
             step["t_start"], step["t_end"] = span
         if reader is not None:
-            found = truth_over(reader, cfg, None, span) if span is not None else None
+            if span is not None:
+                found = truth_over(reader, cfg, None, span)
+            else:  # recorded before points had spans: the truth rows at the step's pump power
+                found = truth_figures(_rows_at_power(reader.truth(), pt.get("pump_power_w")), cfg)
+                step["truth_by"] = "pump power (the run's points have no time spans)"
             if found is not None:
                 truth, _ = found
                 step["truth"] = {k: {"value": truth[k]} for k in ("beta", "ln_ratio") if k in truth}
             else:
-                step["truth"] = None  # no truth row inside the step (or a run without step spans)
+                step["truth"] = None  # no truth row inside the step
         out.append(step)
     return out
 
@@ -189,6 +200,7 @@ def summary(reader: RunReader, cfg: BenchConfig, analysis_id: int | None = None)
     }
     simulated = out["simulated"]
     span = None
+    points: list = []
     if final is not None and final.mode == "sweep":
         out["steps"] = sweep_steps(final, reader if simulated else None, cfg)
         out["fit"] = sweep_fit(final)
@@ -196,6 +208,10 @@ def summary(reader: RunReader, cfg: BenchConfig, analysis_id: int | None = None)
         # the top-level figures are those of the last step: its truth is that step's
         span = _step_span(points[-1]) if points else None
     truth = truth_over(reader, cfg, final, span) if simulated else None
+    if simulated and final is not None and final.mode == "sweep" and span is None:
+        # recorded before points had spans: the truth at the pump power of the final figures' step
+        power = (final.extra.get("step") or {}).get("pump_power_w")
+        truth = truth_figures(_rows_at_power(reader.truth(), power), cfg)
     if truth is not None:
         figures, source = truth
         out["truth"] = {k: {"value": v} for k, v in figures.items()}

@@ -179,3 +179,24 @@ def test_the_report_draws_the_medium_own_gain_as_truth(cfg):
     series = truth_series([row], s.sigma.probe_absorption)
     # IEC 60027-3: 10 log10 of the power gain exp(ln T)
     assert series["gain_db"][0] == pytest.approx(10 * math.log10(math.exp(0.5)), rel=1e-12)
+
+
+def test_sweep_steps_of_an_old_run_take_the_truth_at_their_pump_power(cfg):
+    from types import MappingProxyType
+
+    from bench.records import Estimate
+    from bench.run_summary import sweep_steps
+
+    class Rows:  # the part of a RunReader that sweep_steps reads
+        def truth(self):
+            return [{"t": 1.0 + k, "pump_w": p, "beta": b, "n2_avg": b * cfg.sample.n_total, "ln_ratio": 2.3 * b}
+                    for k, (p, b) in enumerate([(1.0, 0.05), (2.0, 0.09), (2.0, 0.09), (3.0, 0.13)])]
+
+    points = [{"pump_power_w": p, "pump_current_a": p + 0.6, "probe_wavelength_m": None, "ln_ratio": 2.3 * b,
+               "ln_ratio_sigma": 1e-5, "beta": b, "beta_sigma": 1e-3, "beta_sigma_noise": 1e-6}
+              for p, b in [(1.0, 0.05), (2.0, 0.09), (3.0, 0.13)]]  # no t_start / t_end: an old run
+    final = Estimate(t=9.0, mode="sweep", scope="cumulative", values=MappingProxyType({}), flags=frozenset(),
+                     n_samples=1, extra=MappingProxyType({"points": points}))
+    steps = sweep_steps(final, Rows(), cfg)
+    assert [st["truth"]["beta"]["value"] for st in steps] == [0.05, 0.09, 0.13]
+    assert all("pump power" in st["truth_by"] for st in steps)
