@@ -117,7 +117,7 @@ Uncertainty model (every figure is a `bench.records.Quantity`):
 * ``sigma``: the two parts in quadrature.
 
 Flags (`bench.records.FLAGS`): ``probe_not_weak`` (``I/I_sat`` or ``F/F_sat`` above
-``weak_fraction``; pulsed probes are then corrected with Frantz-Nodvik), ``near_full_scale``
+``weak_fraction``, ``I`` the probe's power-weighted mean intensity, half its peak; pulsed probes are then corrected with Frantz-Nodvik), ``near_full_scale``
 (a sample behind the estimate above ``full_scale_fraction`` of the range), ``baseline_stale``
 (older than ``baseline_max_age``, or in chopped mode the pump-off level differs from it by more
 than ``baseline_drift_k`` sigma), ``low_snr`` (``|ln R| < snr_min sigma_noise``, or fewer than
