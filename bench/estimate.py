@@ -468,6 +468,7 @@ class _Pump:
     last_edge: int = 0  # first index after the last pump edge (or stream start, gap)
     last_step: int = -(2**62)  # first index after the last setting change
     step_pending: bool = False  # a setting changed: the next sample starts a step
+    step_time: float | None = None  # ... at this run-clock time, if later than the next sample
 
 
 @dataclass(frozen=True)
@@ -642,13 +643,20 @@ def with_baseline(state: EstimatorState, baseline: Baseline | None) -> Estimator
     return dataclasses.replace(state, baseline=baseline)
 
 
-def with_setting(state: EstimatorState, **settings: Any) -> EstimatorState:
+def with_setting(state: EstimatorState, *, t: float | None = None, **settings: Any) -> EstimatorState:
     """Announce a setting change (pump power or current, probe wavelength).
 
     A change starts a new cumulative scope from the next sample, with ``step_settle_time``
     before samples count again; in sweep mode it also closes the current step and adds its
     point. Settings equal to the current ones change nothing.
+
+    ``t`` (run clock, s) is when the setting changed on the bench, if known: the step's
+    ``step_settle_time`` then runs from ``t`` when that is later than the next sample (a
+    setting applied before the block that holds ``t``), so where the new step starts does not
+    depend on how the samples are cut into blocks.
     """
+    if t is not None and not (isinstance(t, (int, float)) and math.isfinite(t)):
+        raise ValueError(f"t: must be a finite time in s or None, got {t!r}")
     new = _check_settings(settings, state.mode)
     if "method" in new:
         raise ValueError("settings: method can only be given to new_state")
@@ -659,7 +667,8 @@ def with_setting(state: EstimatorState, **settings: Any) -> EstimatorState:
     if merged == dict(state.settings):
         return state
     st = _close_step(state) if state.mode == "sweep" else state
-    return _restart(st, settings=MappingProxyType(merged))
+    st = _restart(st, settings=MappingProxyType(merged))
+    return dataclasses.replace(st, pump=dataclasses.replace(st.pump, step_time=None if t is None else float(t)))
 
 
 # ============================================================================================
@@ -739,6 +748,8 @@ def _frame(state: EstimatorState, block: Block) -> tuple[_Frame | None, _Clock, 
     edges = np.flatnonzero(change)
     last_edge = i0 if restart else pump.last_edge
     last_step = i0 if pump.step_pending else pump.last_step
+    if pump.step_pending and pump.step_time is not None:
+        last_step = max(i0, int(math.ceil((pump.step_time - clock.origin) / clock.dt - 1e-9)))
     step_n = int(math.ceil(p.step_settle_time / clock.dt - 1e-9))
     if _watch_like(state):
         # the driver switches the pump on with a soft-start ramp: an edge counts as a step

@@ -380,7 +380,7 @@ class Consumer:
             self.state = est.with_baseline(est.with_dark(self.state, keep_dark), keep_base)
             text = f"mode {mode}"
         elif control.kind == "setting":
-            self.state = est.with_setting(self.state, **data)
+            self.state = est.with_setting(self.state, t=control.t, **data)
             text = "setting " + ", ".join(f"{k}={v:g}" if isinstance(v, float) else f"{k}={v}"
                                           for k, v in data.items())
         self.procedure_results.append((control.kind, True, text))

@@ -88,3 +88,36 @@ def test_a_setting_waits_for_the_data_to_reach_it(params):
         assert abs(pt["ln_ratio"] - truth) < 4 * pt["ln_ratio_sigma"], (pt, truth)
     assert points[1]["t_start"] >= t_change
     assert points[0]["t_end"] < t_change
+
+
+@pytest.mark.parametrize("size", [700, 1000, 1900])
+def test_a_step_settles_from_the_time_of_its_setting_however_the_data_are_blocked(params, size):
+    # the driver ramps the current for 20 ms after the setting (the simulated driver's soft
+    # start); the step must wait its settle time from the setting itself, not from the start of
+    # the block that holds it (blocks of 35 ... 95 ms here)
+    n_step = 10_000
+    t_change = n_step * DT + 0.0123  # inside a block, whatever the block size
+    i_change = int(round(t_change / DT))
+    lnr = np.full(2 * n_step + 1000, 0.1)
+    ramp = np.arange(lnr.size - i_change) * DT / 0.02
+    lnr[i_change:] = 0.1 + 0.3 * np.minimum(ramp, 1.0)
+    rng = np.random.default_rng(5)
+    ref = 0.6 + 3.6e-4 * rng.standard_normal(lnr.size)
+    probe = S_OFF * np.exp(lnr) * 0.6 + 3.6e-4 * rng.standard_normal(lnr.size)
+    data = np.column_stack([probe, ref, np.full(lnr.size, 0.5)])
+    blocks = [Block("detector", k // size, k * DT, DT, k, CHANNELS, data[k:k + size])
+              for k in range(0, lnr.size, size)]
+    c = _consumer(params)
+    c.apply(_setting(0.0, 2.0, params))
+    told = False
+    for b in blocks:
+        if not told and b.t_end >= t_change - 0.3:
+            c.apply(_setting(t_change, 4.0, params))  # the consumer sees it 0.3 s of data early
+            told = True
+        c.process(b)
+    (final,) = c.finish()
+    first, second = final.extra["points"]
+    assert abs(second["ln_ratio"] - 0.4) < 4 * second["ln_ratio_sigma"], second
+    # no ramp inside the step: its batches scatter as little as the first step's
+    assert second["ln_ratio_sigma"] < 2 * first["ln_ratio_sigma"], (first, second)
+    assert second["t_start"] == pytest.approx(t_change + params.step_settle_time, abs=DT)
