@@ -69,7 +69,12 @@ Modes (`MODES`):
     whose uncertainty enters the fit parameters' systematic parts) and, over wavelength, the
     pump-induced gain change ``ln R / L`` with a Voigt line in optical frequency
     (`bench.fitting.fit_voigt`) plus a McCumber check when a cross-section spectrum and the
-    zero-line energy are configured. Extras: ``points``, ``fits`` (with the fitted curve).
+    zero-line energy are configured. The points' ``beta`` is absolute (see Figures); the fit
+    takes the probe-held part ``beta_off`` off first and undoes the probe's stimulated rate
+    ``W_s``, which stretches the fitted saturation power by ``1 + tau W_s`` (the same rate as
+    the decay mode's correction; `_saturation_fit`). Extras: ``points`` (each with its span
+    ``t_start``/``t_end`` on the run clock), ``fits`` (with the fitted curve). A sweep's last
+    step is closed by `report` (the consumer calls it when the stream ends).
 
 Emission. Time is cut into windows of ``window`` seconds on the sample-index grid. When the
 first sample after a window has been processed, the estimator emits that window's estimate
@@ -92,6 +97,14 @@ well-defined optimum (tolerances 1e-12); a saturation model far from the points 
 rounding to about 1e-8. Setting changes must arrive at the same sample positions (between the
 same two samples), as they do on replay.
 
+Figures (`figures`). ``ln R`` is the pump-induced change from the baseline, which already
+holds the excitation the probe alone keeps up, ``beta_off = sigma_a Phi_s / ((sigma_a +
+sigma_e) Phi_s + 1/tau)`` (`probe_terms`; about 5e-5 on the demo bench). It is added back:
+``beta`` (``N2 / N_total``) and ``n2_per_m3`` are absolute, and the gain figures are those of the
+pumped sample, ``ln G = ln R + (sigma_e + sigma_a) L N beta_off - sigma_a N L = g L``. The
+pump-induced change itself is in the watch estimates' and the sweep points' ``beta_change``
+(with ``beta_probe_held``).
+
 Uncertainty model (every figure is a `bench.records.Quantity`):
 
 * ``sigma_noise``: the statistical part described per mode, propagated linearly; the
@@ -101,18 +114,19 @@ Uncertainty model (every figure is a `bench.records.Quantity`):
 * ``sigma_systematic``: from the configured standard uncertainties of the length ``L``
   (absolute), the density ``N`` (relative) and each cross-section (relative, ``u_sigma``,
   ``sigma_e`` and ``sigma_a`` independent), propagated linearly and assumed independent:
-  for ``beta = ln R / ((sigma_e + sigma_a) L N)`` the relative part is
+  for the pump-induced ``ln R / ((sigma_e + sigma_a) L N)`` of beta the relative part is
   ``sqrt(u_sum^2 + (u_L / L)^2 + u_N^2)`` with ``u_sum = u_sigma sqrt(sigma_e^2 + sigma_a^2)
   / (sigma_e + sigma_a)``; ``n2`` drops ``u_N``; ``ln G = ln R - sigma_a N L`` carries
   ``sigma_a N L sqrt(u_sigma^2 + u_N^2 + (u_L / L)^2)``; ``g = ln R / L - sigma_a N`` carries
   ``sqrt((ln R u_L / L^2)^2 + (sigma_a N)^2 (u_sigma^2 + u_N^2))``. ``ln_ratio`` is measured
   directly and has no configured systematic part; ``tau_s`` has only that of its correction for
   the probe's own stimulated rate, ``tau^2 (sigma_e + sigma_a) Phi_s u_sum`` (the probe power
-  and beam size carry no configured uncertainty).
+  and beam size carry no configured uncertainty). ``beta_off`` adds a systematic part from the
+  cross-sections and the lifetime's configured uncertainty ``u_tau`` (`_held_sys`).
 * ``sigma``: the two parts in quadrature.
 
 Flags (`bench.records.FLAGS`): ``probe_not_weak`` (``I/I_sat`` or ``F/F_sat`` above
-``weak_fraction``; pulsed probes are then corrected with Frantz-Nodvik), ``near_full_scale``
+``weak_fraction``, ``I`` the probe's power-weighted mean intensity, half its peak; pulsed probes are then corrected with Frantz-Nodvik), ``near_full_scale``
 (a sample behind the estimate above ``full_scale_fraction`` of the range), ``baseline_stale``
 (older than ``baseline_max_age``, or in chopped mode the pump-off level differs from it by more
 than ``baseline_drift_k`` sigma), ``low_snr`` (``|ln R| < snr_min sigma_noise``, or fewer than
@@ -175,6 +189,8 @@ __all__ = [
     "update",
     "report",
     "figures",
+    "probe_terms",
+    "pump_induced",
     "pulsed_small_signal_ln_ratio",
 ]
 
@@ -480,6 +496,7 @@ class _Pump:
     last_edge: int = 0  # first index after the last pump edge (or stream start, gap)
     last_step: int = -(2**62)  # first index after the last setting change
     step_pending: bool = False  # a setting changed: the next sample starts a step
+    step_time: float | None = None  # ... at this run-clock time, if later than the next sample
 
 
 @dataclass(frozen=True)
@@ -675,13 +692,20 @@ def with_baseline(state: EstimatorState, baseline: Baseline | None) -> Estimator
     return dataclasses.replace(state, baseline=baseline)
 
 
-def with_setting(state: EstimatorState, **settings: Any) -> EstimatorState:
+def with_setting(state: EstimatorState, *, t: float | None = None, **settings: Any) -> EstimatorState:
     """Announce a setting change (pump power or current, probe wavelength).
 
     A change starts a new cumulative scope from the next sample, with ``step_settle_time``
     before samples count again; in sweep mode it also closes the current step and adds its
     point. Settings equal to the current ones change nothing.
+
+    ``t`` (run clock, s) is when the setting changed on the bench, if known: the step's
+    ``step_settle_time`` then runs from ``t`` when that is later than the next sample (a
+    setting applied before the block that holds ``t``), so where the new step starts does not
+    depend on how the samples are cut into blocks.
     """
+    if t is not None and not (isinstance(t, (int, float)) and math.isfinite(t)):
+        raise ValueError(f"t: must be a finite time in s or None, got {t!r}")
     new = _check_settings(settings, state.mode)
     if "method" in new:
         raise ValueError("settings: method can only be given to new_state")
@@ -692,7 +716,8 @@ def with_setting(state: EstimatorState, **settings: Any) -> EstimatorState:
     if merged == dict(state.settings):
         return state
     st = _close_step(state) if state.mode == "sweep" else state
-    return _restart(st, settings=MappingProxyType(merged))
+    st = _restart(st, settings=MappingProxyType(merged))
+    return dataclasses.replace(st, pump=dataclasses.replace(st.pump, step_time=None if t is None else float(t)))
 
 
 # ============================================================================================
@@ -774,6 +799,8 @@ def _frame(state: EstimatorState, block: Block) -> tuple[_Frame | None, _Clock, 
     edges = np.flatnonzero(change)
     last_edge = i0 if restart else pump.last_edge
     last_step = i0 if pump.step_pending else pump.last_step
+    if pump.step_pending and pump.step_time is not None:
+        last_step = max(i0, int(math.ceil((pump.step_time - clock.origin) / clock.dt - 1e-9)))
     step_n = int(math.ceil(p.step_settle_time / clock.dt - 1e-9))
     if _watch_like(state):
         # the driver switches the pump on with a soft-start ramp: an edge counts as a step
@@ -872,9 +899,60 @@ def pulsed_small_signal_ln_ratio(ln_ratio: float, params: EstimatorParams, sigma
     return float(ln_g0 - ln_t0)
 
 
+def probe_terms(params: EstimatorParams, wavelength: float | None = None) -> tuple[float, float, float]:
+    """(photon flux, stimulated rate, held fraction) of the probe alone, at ``wavelength``.
+
+    The flux is the probe's photon flux weighted by its own Gaussian profile,
+    ``P / (pi w^2) / (h nu)`` (half the on-axis value; the one definition gainbench uses for the
+    probe's intensity, see `EstimatorParams.probe_saturation`); the stimulated rate
+    ``W_s = (sigma_e + sigma_a) Phi_s`` is what it adds to the relaxation rate ``1/tau``; the
+    held fraction ``beta_off`` (`bench.physics.probe_held_fraction`) is the excitation it keeps up
+    with the pump off, which the baseline already holds. Pulsed probes: all zero (their mean
+    stimulated rate is negligible); unknown cross-sections: zero as well.
+
+    References
+    ----------
+    .. [1] O. Svelto, *Principles of Lasers*, 5th ed., Springer, 2010, ch. 7 (rate equations).
+    .. [2] A. E. Siegman, *Lasers*, University Science Books, 1986, sec. 17.1 (Gaussian beams).
+    """
+    xs = params.cross_sections_at(wavelength)
+    if params.probe_kind != "cw" or xs is None or not params.probe_peak > 0:
+        return 0.0, 0.0, 0.0
+    lam = params.probe_wavelength if wavelength is None else wavelength
+    se, sa = xs
+    flux = float(physics.photon_flux(params.probe_mean, lam))
+    return flux, (se + sa) * flux, float(physics.probe_held_fraction(flux, se, sa, params.tau))
+
+
+def _held_sys(params: EstimatorParams, wavelength: float | None, se: float, sa: float) -> float:
+    """Standard uncertainty of ``beta_off`` from the configured ones of sigma_a, sigma_e and tau
+    (linear propagation, GUM sec. 5.1): ``d ln beta_off`` is ``1 - sigma_a Phi / k`` per
+    ``d ln sigma_a``, ``-sigma_e Phi / k`` per ``d ln sigma_e`` and ``1 / (tau k)`` per
+    ``d ln tau``, with ``k = (sigma_a + sigma_e) Phi + 1/tau``."""
+    flux, rate, b_off = probe_terms(params, wavelength)
+    if b_off == 0.0:
+        return 0.0
+    k = rate + 1.0 / params.tau
+    d_sa = 1.0 - sa * flux / k
+    d_se = -se * flux / k
+    d_tau = 1.0 / (params.tau * k)
+    u = params.u_cross_sections
+    return b_off * math.sqrt((d_sa * u) ** 2 + (d_se * u) ** 2 + (d_tau * params.u_tau) ** 2)
+
+
 def figures(params: EstimatorParams, ln_ratio: float, sigma_noise: float,
             wavelength: float | None = None) -> dict[str, Quantity]:
     """All figures from one ln R and its noise sigma (uncertainty model in the module doc).
+
+    ``ln R`` measures the pump-induced change from the baseline, and the baseline already holds
+    the excitation the probe alone keeps up, ``beta_off`` (`probe_terms`). It is added back, so
+    ``n2_per_m3`` and ``beta`` are absolute (``beta = N2 / N_total``) and ``gain_coefficient``,
+    ``gain_linear`` and ``gain_db`` are those of the pumped sample itself:
+    ``<N2> = ln R / ((sigma_e + sigma_a) L) + beta_off N``, ``ln G = (sigma_e + sigma_a) L <N2>
+    - sigma_a N L = g L``. ``beta_off`` carries no noise; its systematic part (`_held_sys`,
+    from the configured uncertainties of the cross-sections and of the lifetime) is added in
+    quadrature to the others. dB are computed from ``ln G`` directly (no overflow or underflow
+    however thick the sample).
 
     ``wavelength`` selects the cross-sections (`EstimatorParams.cross_sections_at`); if none
     are known there only ``ln_ratio`` is returned. Pulsed probes are corrected with
@@ -896,22 +974,40 @@ def figures(params: EstimatorParams, ln_ratio: float, sigma_noise: float,
     u_cs, u_n, u_l = params.u_cross_sections, params.u_n_total, params.u_length / L
     total = se + sa
     u_sum = u_cs * math.hypot(se, sa) / total
-    n2 = float(physics.excited_density_from_ln_ratio(lnr, se, sa, L))
+    _, _, b_off = probe_terms(params, wavelength)
+    b_off_sys = _held_sys(params, wavelength, se, sa)
+    n2_change = float(physics.excited_density_from_ln_ratio(lnr, se, sa, L))
+    n2 = n2_change + b_off * N
     beta = n2 / N
     alpha0 = sa * N * L
-    lng_sys = alpha0 * math.sqrt(u_cs**2 + u_n**2 + u_l**2)
-    gain = float(physics.net_gain(lnr, sa, N, L))
+    ln_held = total * L * b_off * N  # ln T of the baseline state over the unexcited sample
+    ln_gain = lnr + ln_held - alpha0
+    lng_sys = math.hypot(alpha0 * math.sqrt(u_cs**2 + u_n**2 + u_l**2), total * L * N * b_off_sys)
+    gain = math.exp(ln_gain) if ln_gain < 700.0 else math.inf
     g = float(physics.gain_coefficient(n2, N, se, sa))
-    g_sys = math.hypot(lnr * u_l / L, sa * N * math.hypot(u_cs, u_n))
+    g_sys = math.hypot(lnr * u_l / L, sa * N * math.hypot(u_cs, u_n), total * N * b_off_sys)
     db = 10.0 / math.log(10.0)
     return {
         "ln_ratio": _q(lnr, sn),
         "gain_linear": _q(gain, gain * sn, gain * lng_sys),
-        "gain_db": _q(float(physics.gain_db(gain)), db * sn, db * lng_sys),
+        "gain_db": _q(float(physics.ln_gain_to_db(ln_gain)), db * sn, db * lng_sys),
         "gain_coefficient_per_cm": _q(float(physics.per_m_to_per_cm(g)), sn / L / 100.0, g_sys / 100.0),
-        "n2_per_m3": _q(n2, sn / (total * L), abs(n2) * math.hypot(u_sum, u_l)),
-        "beta": _q(beta, sn / (total * L * N), abs(beta) * math.sqrt(u_sum**2 + u_l**2 + u_n**2)),
+        "n2_per_m3": _q(n2, sn / (total * L), math.hypot(abs(n2_change) * math.hypot(u_sum, u_l),
+                                                         N * b_off_sys, b_off * N * u_n)),
+        "beta": _q(beta, sn / (total * L * N),
+                   math.hypot(abs(n2_change / N) * math.sqrt(u_sum**2 + u_l**2 + u_n**2), b_off_sys)),
     }
+
+
+def pump_induced(params: EstimatorParams, values: Mapping[str, Quantity],
+                 wavelength: float | None = None) -> dict[str, float]:
+    """The pump-induced change of the excited fraction behind `figures`' absolute ``beta``, and
+    the probe-held part added back (for an estimate's ``extra``); empty without a ``beta``."""
+    q = values.get("beta")
+    if q is None:
+        return {}
+    b_off = probe_terms(params, wavelength)[2]
+    return {"beta_change": q.value - b_off, "beta_probe_held": b_off}
 
 
 def _common_flags(state: EstimatorState, t: float, counts: _Counts, wavelength: float | None,
@@ -1016,6 +1112,7 @@ def _watch_estimate(state: EstimatorState, core: _WatchCore, scope: str, t: floa
         sn = math.hypot(e_on / s_on, b.sigma / b.value)
         extra["s_off"] = b.value
         values = figures(state.params, lnr, sn, wl)
+        extra.update(pump_induced(state.params, values, wl))
         flags |= _snr_flags(values, state.params, stats.k)
     elif stats.k == 1:
         flags.add("low_snr")
@@ -1586,12 +1683,9 @@ def _lifetime_from_decay(p: EstimatorParams, decay_time: float, sigma: float,
     ``P / (pi w^2) / (h nu)`` (half the on-axis value). The lifetime is what remains. Pulsed
     probes are left uncorrected (their mean stimulated rate is negligible).
     """
-    lam = p.probe_wavelength if wavelength is None else wavelength
-    xs = p.cross_sections_at(wavelength)
-    if p.probe_kind != "cw" or xs is None or not decay_time > 0:
+    rate = probe_terms(p, wavelength)[1]  # the same rate as the sweep fit's (`_sweep_fits`)
+    if not (rate > 0 and decay_time > 0):
         return decay_time, sigma, 0.0
-    se, sa = xs
-    rate = (se + sa) * float(physics.photon_flux(0.5 * p.probe_peak, lam))
     k = 1.0 / decay_time - rate
     if not k > 0:
         return decay_time, sigma, rate
@@ -1708,7 +1802,37 @@ def _make_point(state: EstimatorState, core: _SweepCore) -> dict[str, Any] | Non
         point["beta"] = vals["beta"].value
         point["beta_sigma_noise"] = vals["beta"].sigma_noise
         point["beta_sigma"] = vals["beta"].sigma
+        point.update(pump_induced(state.params, vals, wl))
+    # the step's span on the run clock: from its settle time after the setting to its last sample
+    clock = state.clock
+    if clock is not None:
+        step_n = int(math.ceil(state.params.step_settle_time / clock.dt - 1e-9))
+        first = max(state.pump.last_step, 0) + step_n
+        point["t_start"] = clock.time(min(first, clock.next_index - 1))
+        point["t_end"] = clock.time(clock.next_index - 1)
     return point
+
+
+def _saturation_fit(x: np.ndarray, y: np.ndarray, s: np.ndarray, absorbance: float | None,
+                    b_off: float) -> tuple[fitting.FitResult, float | None]:
+    """Fit the pump-induced change ``y`` (beta less the probe-held ``b_off``) with the saturation
+    form; (fit, the absorbance used).
+
+    With the probe on, the steady state is ``beta = (beta_max s + b_off) / (1 + s)``, so
+    ``beta - b_off`` follows the saturation form with maximum ``beta_max - b_off`` and the
+    saturation power stretched by ``1 + tau W_s`` (the caller undoes both). Over a thick sample
+    the pump's unbleached absorption coefficient is then ``sigma_ap N (1 - b_off / beta_max)``
+    (the probe-held ions do not absorb the pump): one refit with that absorbance, taking
+    ``beta_max`` from the first fit (rate equations: Svelto, *Principles of Lasers*, ch. 7).
+    """
+    fit = fitting.fit_saturation(x, y, s, absorbance=absorbance)
+    if absorbance is None or b_off <= 0.0:
+        return fit, absorbance
+    bm = fit.value("beta_max") + b_off
+    if not bm > b_off:
+        return fit, absorbance
+    a_eff = absorbance * (1.0 - b_off / bm)
+    return fitting.fit_saturation(x, y, s, absorbance=a_eff), a_eff
 
 
 def _sweep_fits(state: EstimatorState, points: tuple[Mapping[str, Any], ...]) -> dict[str, Any]:
@@ -1721,11 +1845,13 @@ def _sweep_fits(state: EstimatorState, points: tuple[Mapping[str, Any], ...]) ->
         pw = [pt for pt in pw if pt["probe_wavelength_m"] == wl0]
     if len({pt["pump_power_w"] for pt in pw if pt["pump_power_w"] > 0}) >= 3:
         x = np.array([pt["pump_power_w"] for pt in pw])
-        y = np.array([pt["beta"] for pt in pw])
+        _, w_probe, b_off = probe_terms(p, wl0)
+        # the pump-induced change (the points' beta less the probe-held part)
+        y = np.array([pt["beta"] for pt in pw]) - b_off
         s = np.array([pt["beta_sigma_noise"] for pt in pw])
         a = p.pump_absorbance
         try:
-            fit = fitting.fit_saturation(x, y, s, absorbance=a)
+            fit, a_eff = _saturation_fit(x, y, s, a, b_off)
         except ValueError as exc:
             out["saturation_error"] = str(exc)
         else:
@@ -1733,28 +1859,33 @@ def _sweep_fits(state: EstimatorState, points: tuple[Mapping[str, Any], ...]) ->
             se, sa = xs if xs is not None else (p.sigma_e, p.sigma_a)
             u_sum = p.u_cross_sections * math.hypot(se, sa) / (se + sa)
             rel_sys = math.sqrt(u_sum**2 + (p.u_length / p.length) ** 2 + p.u_n_total**2)
-            bm, ps = fit.value("beta_max"), fit.value("p_sat")
-            sys_bm, sys_ps = bm * rel_sys, 0.0
+            # the probe's own stimulated rate adds to 1/tau: the fitted saturation power is
+            # p_sat (1 + tau W_s); its maximum is beta_max less the probe-held part
+            stretch = 1.0 + p.tau * w_probe
+            bm, ps = fit.value("beta_max") + b_off, fit.value("p_sat") / stretch
+            sys_bm, sys_ps = (bm - b_off) * rel_sys, ps * (p.tau * w_probe / stretch) * p.u_tau
             if a is not None:
                 # the configured absorbance is uncertain too: its effect by refitting at A +/- u_A
                 ua = a * p.u_pump_absorbance
                 try:
-                    hi = fitting.fit_saturation(x, y, s, absorbance=a + ua)
-                    lo = fitting.fit_saturation(x, y, s, absorbance=max(a - ua, 1e-6 * a))
+                    hi, _ = _saturation_fit(x, y, s, a + ua, b_off)
+                    lo, _ = _saturation_fit(x, y, s, max(a - ua, 1e-6 * a), b_off)
                 except ValueError:
                     pass
                 else:
                     d_bm = 0.5 * (hi.value("beta_max") - lo.value("beta_max"))
-                    d_ps = 0.5 * (hi.value("p_sat") - lo.value("p_sat"))
-                    sys_bm, sys_ps = math.hypot(sys_bm, d_bm), abs(d_ps)
+                    d_ps = 0.5 * (hi.value("p_sat") - lo.value("p_sat")) / stretch
+                    sys_bm, sys_ps = math.hypot(sys_bm, d_bm), math.hypot(sys_ps, d_ps)
             grid = np.linspace(0.0, float(np.max(x)) * 1.1, 50)
-            curve = (fitting.thick_sample_fraction(grid, bm, ps, a) if a is not None
-                     else physics.beta_of_pump(grid, bm, ps))
+            curve = b_off + (fitting.thick_sample_fraction(grid, bm - b_off, ps * stretch, a_eff) if a is not None
+                             else physics.beta_of_pump(grid, bm - b_off, ps * stretch))
             out["saturation"] = {
                 "model": "thick" if a is not None else "thin", "pump_absorbance": a,
                 "beta_max": bm, "beta_max_sigma_noise": fit.sigma("beta_max"),
                 "beta_max_sigma_systematic": sys_bm,
-                "p_sat_w": ps, "p_sat_w_sigma_noise": fit.sigma("p_sat"), "p_sat_w_sigma_systematic": sys_ps,
+                "p_sat_w": ps, "p_sat_w_sigma_noise": fit.sigma("p_sat") / stretch,
+                "p_sat_w_sigma_systematic": sys_ps,
+                "probe_rate_per_s": w_probe, "beta_probe_held": b_off,
                 "chi2_reduced": fit.chi2_reduced, "dof": fit.dof,
                 "curve": {"pump_power_w": [float(v) for v in grid], "beta": [float(v) for v in curve]},
             }

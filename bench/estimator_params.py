@@ -87,13 +87,17 @@ class EstimatorParams:
         Relative standard uncertainties of the density and of each cross-section (the two are
         taken as independent).
     tau, u_tau : float
-        Nominal upper-state lifetime (s) and its relative uncertainty.
+        Nominal upper-state lifetime (s) and its relative uncertainty (it enters the
+        systematic part of the probe-held excitation added back to beta, and of the sweep's
+        correction of p_sat for the probe's stimulated rate).
     probe_kind : str
         ``"cw"`` or ``"pulsed"``.
     probe_peak : float
-        On-axis probe intensity (W/m^2, cw) or fluence (J/m^2, pulsed).
+        On-axis probe intensity (W/m^2, cw) or fluence (J/m^2, pulsed); the probe's own figures
+        use half of it (`probe_mean`).
     weak_fraction : float
-        Flag the probe as not weak above this ``I/I_sat`` (or ``F/F_sat``).
+        Flag the probe as not weak above this ``I/I_sat`` (or ``F/F_sat``), ``I`` the probe's
+        power-weighted mean intensity (`probe_mean`).
     detector_range : float or None
         Full scale of the detector inputs, V; None if unknown (no full-scale check).
     full_scale_fraction : float
@@ -410,16 +414,29 @@ class EstimatorParams:
             return None
         return float(se), float(sa)
 
+    @property
+    def probe_mean(self) -> float:
+        """The probe's intensity (W/m^2, cw) or fluence (J/m^2, pulsed) as gainbench uses it:
+        the mean over its own power, ``P / (pi w^2)``, half the on-axis `probe_peak`.
+
+        For a Gaussian beam ``int I^2 dA / int I dA = I_peak / 2`` (Siegman sec. 17.1): the
+        intensity an average probe photon sees, so what sets the probe's own effect on the gain
+        it measures (its stimulated rate, the excitation it keeps up, how far it saturates).
+        `gainbench sample` shows the same figure.
+        """
+        return 0.5 * self.probe_peak
+
     def probe_saturation(self, wavelength: float | None = None) -> float | None:
-        """``I_probe / I_sat`` (cw) or ``F_probe / F_sat`` (pulsed) at the probe wavelength."""
+        """``I_probe / I_sat`` (cw) or ``F_probe / F_sat`` (pulsed) at the probe wavelength, with
+        the probe's power-weighted mean intensity or fluence (`probe_mean`)."""
         lam = self.probe_wavelength if wavelength is None else wavelength
         xs = self.cross_sections_at(lam)
         if xs is None:
             return None
         se, sa = xs
         if self.probe_kind == "pulsed":
-            return float(self.probe_peak / physics.saturation_fluence(lam, se, sa))
-        return float(physics.probe_weakness(self.probe_peak, physics.saturation_intensity(lam, se, sa, self.tau)))
+            return float(self.probe_mean / physics.saturation_fluence(lam, se, sa))
+        return float(physics.probe_weakness(self.probe_mean, physics.saturation_intensity(lam, se, sa, self.tau)))
 
     def pump_threshold(self, pump_power: float | None) -> float:
         """Pump-on threshold (V) on the monitor channel at this pump power (see the class doc)."""

@@ -341,6 +341,7 @@ class Measurement:
                     c.tick(self.clock.now())
             c.drain_controls(self.pump_q)
             c.drain_controls(self.control_q)
+            c.finish()  # the stream has ended: a sweep's open step becomes its last point
         except BaseException as exc:  # the pump goes off on any failure of the pipeline
             self._consumer_error = exc
             log.exception("consumer failed; switching the pump off")

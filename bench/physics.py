@@ -276,6 +276,39 @@ def gain_coefficient(n2, n_total, sigma_e, sigma_a):
     return _out(se * n - sa * (nt - n))
 
 
+def ln_gain_to_db(ln_gain):
+    """A power gain given by its natural logarithm, in decibels: ``10 log10(e) ln G``.
+
+    Never forms ``G`` itself, so it holds for gains far beyond the range of a float (an
+    optically thick sample's ``exp(-sigma_a N L)`` underflows above ``sigma_a N L ~ 745``).
+
+    References
+    ----------
+    .. [1] IEC 60027-3, *Letter symbols to be used in electrical technology - Part 3:
+       Logarithmic and related quantities, and their units* (decibel, neper).
+    """
+    return _out(10.0 * math.log10(math.e) * _real(ln_gain, "ln_gain"))
+
+
+def fresnel_reflectance(refractive_index):
+    """Power reflectance of one uncoated face at normal incidence, ``((n - 1) / (n + 1))^2``.
+
+    Parameters
+    ----------
+    refractive_index : float or array_like
+        Refractive index of the sample (surrounded by air, n = 1), at least 1.
+
+    References
+    ----------
+    .. [1] M. Born and E. Wolf, *Principles of Optics*, 7th ed., Cambridge University Press,
+       1999, sec. 1.5.3 (Fresnel formulae at normal incidence).
+    """
+    n = _positive(refractive_index, "refractive_index")
+    if np.any(n < 1.0):
+        raise ValueError(f"refractive_index: must be at least 1, got {float(np.min(n))!r}")
+    return _out(((n - 1.0) / (n + 1.0)) ** 2)
+
+
 def gain_db(linear):
     """A linear power gain in decibels, ``10 log10(G)``.
 
@@ -629,6 +662,32 @@ def steady_state_fraction(pump_intensity, pump_wavelength, sigma_a_pump, sigma_e
     else:
         phi_s = ip / _energy(probe_wavelength, "probe_wavelength")
     up, k = _rates(phi_p, sigma_a_pump, sigma_e_pump, tau, phi_s, sigma_a_probe, sigma_e_probe)
+    return _out(up / k)
+
+
+def probe_held_fraction(probe_flux, sigma_e, sigma_a, tau):
+    """Excited fraction a CW probe alone keeps up (no pump): the unpumped reference state.
+
+    The two-level steady state under the probe's own stimulated rates (absorption
+    ``sigma_a Phi_s`` up, emission ``sigma_e Phi_s`` and decay ``1 / tau`` down):
+    ``beta_off = sigma_a Phi_s / ((sigma_a + sigma_e) Phi_s + 1 / tau)``. A baseline taken with
+    the pump off already holds this much excitation, so ln R measures the *change* from it.
+
+    Parameters
+    ----------
+    probe_flux : float or array_like
+        Probe photon flux, photons m⁻² s⁻¹ (weighted by the probe's own profile).
+    sigma_e, sigma_a : float or array_like
+        Cross-sections at the probe, m².
+    tau : float or array_like
+        Upper-state lifetime, s.
+
+    References
+    ----------
+    .. [1] O. Svelto, *Principles of Lasers*, 5th ed., Springer, 2010, ch. 7 (rate equations
+       of a quasi-three-level medium; here with the pump rate zero).
+    """
+    up, k = _rates(0.0, 0.0, 0.0, tau, probe_flux, sigma_a, sigma_e)
     return _out(up / k)
 
 

@@ -8,17 +8,21 @@ does, for each block, in this order:
 2. feed the estimator (a pure function of state and block) and store its estimates;
 3. update the decimated history and the latest readings that `snapshot` hands out.
 
+`Consumer.finish` ends the stream (a sweep's open step is closed there), live and on replay.
+
 The guard's trip checks do not wait for this: they run in the reader threads as each reading
 arrives (`bench.measurement.Measurement`), so a trip never waits behind storage or a backlog.
 
 A `Control` (capture dark, capture baseline, change mode or setting) is applied between two
 blocks and stored as an event that names the detector block it was applied before, so a
-replay applies it at exactly the same place and reproduces the estimates. The consumer never
+replay applies it at exactly the same place and reproduces the estimates. A setting change
+waits until the data reach its time (`Consumer.apply`), so a backlog does not move it earlier. The consumer never
 waits for a display: `snapshot` copies what it needs under a short lock.
 """
 
 from __future__ import annotations
 
+import dataclasses
 import logging
 import queue
 import threading
@@ -136,6 +140,7 @@ class Consumer:
         self.drop_totals = drop_totals
         self._lock = threading.Lock()
         self._recent: deque[Block] = deque()
+        self._pending: deque[Control] = deque()  # controls waiting for the data to reach them
         self._recent_span = 0.0
         self._next_detector_seq = 0
         #: Sample index the next detector block should start at (a digitiser counts from 0).
@@ -195,6 +200,26 @@ class Consumer:
         if item.source == "detector":
             self.unanalysed_blocks += 1
 
+    def finish(self) -> list[Estimate]:
+        """The end of the stream: in sweep mode, close the open step and store the result.
+
+        A sweep's last step is otherwise never closed into a point (steps close when the next
+        setting arrives), so its point, and the fit with it, would be missing.
+        `bench.estimate.report` closes it; its cumulative estimate is stored as the run's last
+        one (what `gainbench summary` reports). Other modes need nothing (their last
+        cumulative estimate already holds every finished window). Nothing is done after a
+        late close that stored blocks without analysing them (`store_only`): the analysis is
+        incomplete then, and a replay finishes it. Call once, after the last item.
+        """
+        while self._pending:  # settings timed after the last sample: applied now, in order
+            self._apply_now(self._pending.popleft())
+        if self.state.mode != "sweep" or self.unanalysed_blocks:
+            return []
+        estimates = [dataclasses.replace(e, extra=MappingProxyType({**e.extra, "final": True}))
+                     for e in est.report(self.state)]
+        self._estimates(estimates)
+        return estimates
+
     def _take(self, block: Block) -> None:
         """Store ``block`` (first: nothing is lost), check its sample index, count it."""
         if self.store is not None:
@@ -217,6 +242,8 @@ class Consumer:
             self._estimates(estimates)
 
     def _detector(self, block: Block) -> None:
+        if self._pending:
+            self._apply_due(block.t_end)
         self.state, estimates = est.update(self.state, block)  # 2. estimator
         self._estimates(estimates)
         self._next_detector_seq = block.seq + 1
@@ -304,8 +331,26 @@ class Consumer:
             self._recent.popleft()
 
     # -- controls -------------------------------------------------------------------------
-    def apply(self, control: Control) -> None:
-        """Apply ``control`` before the next detector block and store it as an event."""
+    def apply(self, control: Control, *, at_data_time: bool = True) -> None:
+        """Apply ``control`` before the next detector block and store it as an event.
+
+        With ``at_data_time`` a ``setting`` waits until the data reach its time: it is applied
+        before the first detector block that ends at or after ``control.t`` (a consumer behind
+        the readers would otherwise start the new step on samples taken before the change, and
+        a sweep step would mix two pump levels). Controls after a waiting one wait with it, in
+        order. Replay applies stored controls where they were applied (``at_data_time=False``).
+        """
+        if at_data_time and (self._pending or (control.kind == "setting" and control.t > self._t)):
+            self._pending.append(control)
+            return
+        self._apply_now(control)
+
+    def _apply_due(self, t_end: float) -> None:
+        """Apply the waiting controls that are due before data ending at ``t_end``."""
+        while self._pending and (self._pending[0].kind != "setting" or self._pending[0].t <= t_end):
+            self._apply_now(self._pending.popleft())
+
+    def _apply_now(self, control: Control) -> None:
         before_seq = self._next_detector_seq
         data = dict(control.data)
         text = control.kind
@@ -341,7 +386,7 @@ class Consumer:
             self.state = est.with_baseline(est.with_dark(self.state, keep_dark), keep_base)
             text = f"mode {mode}"
         elif control.kind == "setting":
-            self.state = est.with_setting(self.state, **data)
+            self.state = est.with_setting(self.state, t=control.t, **data)
             text = "setting " + ", ".join(f"{k}={v:g}" if isinstance(v, float) else f"{k}={v}"
                                           for k, v in data.items())
         self.procedure_results.append((control.kind, True, text))

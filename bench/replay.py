@@ -147,7 +147,7 @@ def replay(
                         time.sleep(pause)
                 if block.source == "detector":
                     for c in controls.pop(block.seq, ()):
-                        consumer.apply(c)
+                        consumer.apply(c, at_data_time=False)
                 before = consumer.all_estimates_count
                 consumer.process(block)
                 if consumer.all_estimates_count != before:
@@ -163,13 +163,16 @@ def replay(
                     progress(done, total)
             for seq in sorted(controls):  # controls after the last detector block
                 for c in controls[seq]:
-                    consumer.apply(c)
-            if reader.meta.get(FINAL_REPORT) and done == total:
-                # the analysis ended with the estimator's report of everything (an import)
-                tail = est.report(consumer.state)
-                results.extend(tail)
-                if writer is not None and tail:
-                    writer.append_estimates(tail)
+                    consumer.apply(c, at_data_time=False)
+            if should_stop is None or not should_stop():
+                if reader.meta.get(FINAL_REPORT) and done == total:
+                    # the analysis ended with the estimator's report of everything (an import)
+                    new = est.report(consumer.state)
+                else:
+                    new = consumer.finish()  # as the live run ended (a sweep's open step)
+                results.extend(new)
+                if writer is not None and new:
+                    writer.append_estimates(new)
         finally:
             if writer is not None:
                 writer.close()
@@ -190,6 +193,8 @@ def replay(
             # live estimates are then a prefix of the replayed ones.
             unanalysed = any(e.kind == "run" and (e.data or {}).get("unanalysed_blocks") for e in events)
             mine = results[:len(live)] if unanalysed and len(results) > len(live) else results
+            if mine and mine[-1].extra.get("final") and not (live and live[-1].extra.get("final")):
+                mine = mine[:-1]  # recorded before runs closed a sweep's open step at their end
             result.max_relative_difference, result.compared = compare(live, mine)
         return result
 

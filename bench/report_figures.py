@@ -453,7 +453,10 @@ def _thin(items: list, limit: int) -> list:
 
 
 def truth_series(truth: Sequence[Mapping[str, Any]], sigma_a: float) -> dict[str, np.ndarray]:
-    """The simulator's truth over time: beta and gain (dB), NaN where the pump was off."""
+    """The simulator's truth over time: beta and gain (dB), NaN where the pump was off.
+
+    The gain is the medium's own single-pass transmission where the rows hold it, else (older
+    runs) the net gain of the true ln R."""
     rows = [r for r in truth if isinstance(r.get("t"), (int, float))]
     t = np.array([float(r["t"]) for r in rows])
     pump = np.array([float(r.get("pump_w", 1.0)) for r in rows])
@@ -462,6 +465,9 @@ def truth_series(truth: Sequence[Mapping[str, Any]], sigma_a: float) -> dict[str
     gain = np.full(t.size, np.nan)
     for i, r in enumerate(rows):
         try:
+            if "ln_t_pumped" in r:  # the medium's own probe transmission (newer runs)
+                gain[i] = float(physics.ln_gain_to_db(float(r["ln_t_pumped"])))
+                continue
             g = physics.net_gain(float(r["ln_ratio"]), sigma_a, float(r["n_total"]), float(r["length"]))
             gain[i] = float(physics.gain_db(g))
         except (KeyError, TypeError, ValueError):

@@ -21,7 +21,8 @@ from drivers.registry import register
 DEFAULT_CHANNEL_NAMES = {1: "probe", 2: "reference", 3: "pump_monitor"}
 
 #: Field names of the simulator-only truth query, in reply order.
-SIM_TRUTH_FIELDS = ("t", "n2_avg", "beta", "tau", "pump_W", "ln_ratio", "n_total", "length")
+SIM_TRUTH_FIELDS = ("t", "n2_avg", "beta", "tau", "pump_W", "ln_ratio", "n_total", "length",
+                    "ln_t_pumped", "ln_t_unpumped", "gain_per_m", "n2_probe_only")
 
 DATA_FORMATS = ("binary", "ascii")
 

@@ -11,8 +11,10 @@ Acquisition: sample set ``i`` is taken at ``t_acq + i / sample_rate`` (``t_acq``
 `advance_to` skips to a later time (the samples in between are not produced).
 
 Ground truth (`truth`): length-averaged N2, excited fraction, the lifetime used, pump power on
-the sample and the true ln R = ln(S_on / S_off) = (sigma_es + sigma_as) L (<N2> - N2_off) of
-the probe relative to the unpumped sample, at the model's time. N2_off is the (tiny) excitation
+the sample, the probe's true single-pass transmission pumped and unpumped (summed over the
+medium's slices), the true gain coefficient and the true ln R = ln(S_on / S_off) =
+(sigma_es + sigma_as) L (<N2> - N2_off) of the probe relative to the unpumped sample, at the
+model's time. N2_off is the (tiny) excitation
 the probe itself keeps up with the pump off, which a baseline includes; ``n2_avg`` and ``beta``
 are absolute.
 
@@ -54,6 +56,10 @@ STRAY_LIGHT = 1.5
 CHUNK = 1 << 16
 
 SHUTTERS = {"probe": 1, "pump": 2, 1: 1, 2: 2}
+
+#: The fields of `BenchModel.truth`, in the order of the ``SIM:TRUTH?`` reply (COMMANDS.md).
+TRUTH_FIELDS = ("t", "n2_avg", "beta", "tau", "pump_w", "ln_ratio", "n_total", "length",
+                "ln_t_pumped", "ln_t_unpumped", "gain_per_m", "n2_probe_only")
 
 
 @dataclass(frozen=True)
@@ -549,19 +555,37 @@ class BenchModel:
 
     # -- truth -------------------------------------------------------------------------------------
     def truth(self) -> dict[str, float]:
-        """True state now: t, n2_avg, beta, tau, pump_w, ln_ratio, n_total, length (SI)."""
-        n2 = self._timeline.mean()
+        """True state now, SI, as the medium itself knows it (the keys of `TRUTH_FIELDS`).
+
+        ``t``; ``n2_avg`` and ``beta`` (absolute, length-averaged over the slices); ``tau``;
+        ``pump_w`` (on the sample); ``ln_ratio`` = ln(T_on / T_off); ``n_total``; ``length``;
+        ``ln_t_pumped``: ln of the probe's true single-pass transmission now, the sum over the
+        slices of (sigma_es N2_i - sigma_as N1_i) dz (Beer-Lambert slice by slice), which is
+        also the true ln of the net gain; ``ln_t_unpumped``: the same for the sample with the
+        pump off and the probe on (every slice at N2_off, the baseline state);
+        ``gain_per_m``: the true length-averaged gain coefficient, ``ln_t_pumped / L``;
+        ``n2_probe_only``: N2_off. All at the present probe wavelength.
+        """
+        slices = self._timeline.state()
+        n2 = float(np.mean(slices))
         s = self.cfg.sample
         pump_w = float(self._timeline.drive.pump_power(np.array([self.t]))[0])
+        ln_on = self.medium.probe_ln_transmission(slices, self._sigma_as, self._sigma_es)
+        ln_off = self.medium.probe_ln_transmission(np.full(self.medium.slices, self._n2_off), self._sigma_as,
+                                                   self._sigma_es)
         return {
             "t": self.t,
             "n2_avg": n2,
             "beta": n2 / s.n_total,
             "tau": s.upper_state_lifetime,
             "pump_w": pump_w,
-            "ln_ratio": (n2 - self._n2_off) * self._ln_ratio_per_n2,
+            "ln_ratio": ln_on - ln_off,
             "n_total": s.n_total,
             "length": s.length,
+            "ln_t_pumped": ln_on,
+            "ln_t_unpumped": ln_off,
+            "gain_per_m": ln_on / s.length,
+            "n2_probe_only": self._n2_off,
         }
 
     @property

@@ -8,7 +8,7 @@ import numpy as np
 
 from bench.errors import ConfigError
 from simulated_instruments.bench_core import BenchCore
-from simulated_instruments.bench_model import DEFAULT_RANGE, DEFAULT_SAMPLE_RATE, RATE_RANGE
+from simulated_instruments.bench_model import DEFAULT_RANGE, DEFAULT_SAMPLE_RATE, RATE_RANGE, TRUTH_FIELDS
 from simulated_instruments.device_errors import ILLEGAL_VALUE, OUT_OF_RANGE, SETTINGS_CONFLICT, DeviceError
 from simulated_instruments.ring_buffer import CAPACITY
 from simulated_instruments.scpi import (
@@ -145,8 +145,8 @@ class Digitiser:
         expect(params, 0)
         tr = self.core.model.truth()
         t = self.core.acquisition_time()
-        return ",".join(fmt(v) for v in (t, tr["n2_avg"], tr["beta"], tr["tau"], tr["pump_w"],
-                                          tr["ln_ratio"], tr["n_total"], tr["length"]))
+        tr["t"] = t
+        return ",".join(fmt(tr[k]) for k in TRUTH_FIELDS)
 
     def _fault(self, params: list[str]) -> None:
         if self._inject is None:

@@ -70,13 +70,14 @@ def test_parameters_from_the_demo_bench(cfg, params):
 
 
 def test_probe_weakness_of_the_demo_bench(cfg, params):
-    # I_peak = 2 P / (pi w^2) (Siegman 17.1), I_sat = h nu / ((se + sa) tau) (Koechner 4.1)
+    # the probe's power-weighted mean intensity P / (pi w^2), half of I_peak = 2 P / (pi w^2)
+    # (Siegman 17.1), over I_sat = h nu / ((se + sa) tau) (Koechner 4.1)
     w = cfg.probe.beam_diameter / 2
-    i_peak = 2 * cfg.probe.power / (math.pi * w * w)
+    i_mean = cfg.probe.power / (math.pi * w * w)
     h_nu = constants.h * constants.c / cfg.probe.wavelength
     s = cfg.sample
     i_sat = h_nu / ((s.sigma.probe_emission + s.sigma.probe_absorption) * s.upper_state_lifetime)
-    assert params.probe_saturation() == pytest.approx(i_peak / i_sat, rel=1e-12)
+    assert params.probe_saturation() == pytest.approx(i_mean / i_sat, rel=1e-12)
     assert params.probe_saturation() < cfg.probe.weak_fraction
 
 
@@ -169,7 +170,8 @@ def test_pulsed_probe_is_corrected_to_the_small_signal_gain(params):
     vals = figures(pulsed, measured, 1e-4)
     assert vals["ln_ratio"].value == pytest.approx(ln_r0, rel=1e-6)
     assert vals["ln_ratio"].sigma_noise > 1e-4  # the correction stretches the noise too
-    assert pulsed.probe_saturation() == pytest.approx(0.5)
+    # F / F_sat with the pulse's power-weighted mean fluence, half its peak (Siegman sec. 17.1)
+    assert pulsed.probe_saturation() == pytest.approx(0.25)
     # a very weak pulse needs no correction
     weak = params.replace(probe_kind="pulsed", probe_peak=1e-9 * f_sat)
     assert pulsed_small_signal_ln_ratio(0.3, weak, se, sa) == pytest.approx(0.3, rel=1e-6)

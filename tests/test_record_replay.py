@@ -82,8 +82,12 @@ def test_reanalysis_is_stored_beside_the_original(recorded, capsys):
         kinds = [a["kind"] for a in r.analyses()]
         assert kinds[0] == "live" and "reanalysis" in kinds
         re = r.final_estimate(out["analysis_id"])
-    # beta = ln R / ((se+sa) L N): a 2 % longer sample gives a 2 % smaller beta (Beer-Lambert scaling)
-    assert re.values["beta"].value == pytest.approx(live.values["beta"].value * 5.0 / 5.1, rel=1e-9)
+    # the pump-induced change ln R / ((se+sa) L N): a 2 % longer sample gives a 2 % smaller one
+    # (Beer-Lambert scaling); the probe-held part added back to it does not depend on L
+    assert re.extra["beta_change"] == pytest.approx(live.extra["beta_change"] * 5.0 / 5.1, rel=1e-9)
+    held = live.extra["beta_probe_held"]
+    assert re.extra["beta_probe_held"] == held
+    assert re.values["beta"].value == pytest.approx(live.extra["beta_change"] * 5.0 / 5.1 + held, rel=1e-9)
 
 
 def test_runs_lists_the_run(recorded, capsys):

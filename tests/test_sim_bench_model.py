@@ -265,7 +265,8 @@ def test_truth_fields():
     m.advance_to(0.1)
     tr = m.truth()
     s = CFG.sample
-    assert set(tr) == {"t", "n2_avg", "beta", "tau", "pump_w", "ln_ratio", "n_total", "length"}
+    assert set(tr) == {"t", "n2_avg", "beta", "tau", "pump_w", "ln_ratio", "n_total", "length",
+                       "ln_t_pumped", "ln_t_unpumped", "gain_per_m", "n2_probe_only"}
     assert tr["t"] == pytest.approx(0.1)
     assert tr["beta"] == pytest.approx(tr["n2_avg"] / s.n_total)
     assert tr["tau"] == s.upper_state_lifetime and tr["length"] == s.length
@@ -275,6 +276,15 @@ def test_truth_fields():
     n2_off = m.n2_probe_only
     assert 0 < n2_off < 1e-3 * s.n_total
     assert tr["ln_ratio"] == pytest.approx(sigma * s.length * (tr["n2_avg"] - n2_off), rel=1e-12)
+    # Beer-Lambert slice by slice: ln T = sum_i (sigma_e N2_i - sigma_a N1_i) dz (Svelto sec. 2.4)
+    slices = m.slice_densities()
+    dz = s.length / slices.size
+    se, sa = s.sigma.probe_emission, s.sigma.probe_absorption
+    assert tr["ln_t_pumped"] == pytest.approx(float(np.sum(se * slices - sa * (s.n_total - slices)) * dz), rel=1e-12)
+    assert tr["ln_t_unpumped"] == pytest.approx((se * n2_off - sa * (s.n_total - n2_off)) * s.length, rel=1e-12)
+    assert tr["ln_ratio"] == pytest.approx(tr["ln_t_pumped"] - tr["ln_t_unpumped"], rel=1e-9)
+    assert tr["gain_per_m"] == pytest.approx(tr["ln_t_pumped"] / s.length, rel=1e-12)
+    assert tr["n2_probe_only"] == n2_off
     assert m.medium_regime == "steady"
 
 

@@ -54,8 +54,11 @@ def run(args: argparse.Namespace) -> int:
         if key in truth:
             line += f"   truth {truth[key]['value'] * scale:.5g}"
         print(line)
+    if out.get("truth_source"):
+        print(f"  truth from the {out['truth_source']}")
     if out["flags"]:
         print(f"  flags: {', '.join(out['flags'])}")
+    _print_sweep(out)
     for t in out["trips"]:
         lat = t.get("latency_s")
         lat_text = "unknown" if lat is None else f"{lat * 1e3:.1f} ms"
@@ -67,6 +70,34 @@ def run(args: argparse.Namespace) -> int:
     counts = ", ".join(f"{k} {v}" for k, v in out["events"].items())
     print(f"  events: {counts}; drops {out['drops']}")
     return 0
+
+
+def _print_sweep(out: dict) -> None:
+    """The steps of a sweep (one line each) and its fitted figures."""
+    steps = out.get("steps")
+    if steps is None:
+        return
+    print(f"  sweep: {len(steps)} steps")
+    for k, st in enumerate(steps, 1):
+        cur = st.get("pump_current_a")
+        pw = st.get("pump_power_w")
+        where = (f"{cur:6.3f} A" if cur is not None else "     - A") + (f" {pw:7.3f} W" if pw is not None else "")
+        b = st.get("beta")
+        b_text = f"beta {b['value']:.6f} ± {b['sigma']:.2g} (noise {b['sigma_noise']:.2g})" if b else "beta -"
+        q = st["ln_ratio"]
+        line = f"    step {k}: {where}  ln R {q['value']:.6f} ± {q['sigma']:.2g}  {b_text}"
+        truth = st.get("truth")
+        if truth and "beta" in truth:
+            line += f"   truth beta {truth['beta']['value']:.6f}"
+        print(line)
+    fit = out.get("fit") or {}
+    for key, label, unit in (("beta_max", "fitted beta_max", ""), ("p_sat_w", "fitted p_sat", "W")):
+        q = fit.get(key)
+        if q is not None:
+            print(f"  {label:<22} {q['value']:>12.6g} ± {q['sigma']:<9.3g} {unit:<6}"
+                  f" (noise {q['sigma_noise']:.2g}, systematic {q['sigma_systematic']:.2g})")
+    if fit.get("model"):
+        print(f"  saturation model: {fit['model']} sample, reduced chi-square {fit['chi2_reduced']:.3g}")
 
 
 def _json_default(o):
