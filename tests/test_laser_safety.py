@@ -642,7 +642,7 @@ def test_command_accepts_units_with_and_without_space(cli, capsys):
         (["--wavelength", "350 nm"], "above 400 nm up to 2600 nm"),
         (["--wavelength", "400 nm"], "--wavelength: 400 nm is the upper edge of the 315-400 nm"),
         (["--power", "-1 W"], "--power: must be positive"),
-        (["--beam-diameter", "0 mm"], "--beam-diameter: must be positive"),
+        (["--beam-diameter", "0 mm"], "--beam-diameter: '0 mm' is outside"),
         (["--exposure", "10 us", "--wavelength", "1550nm"], "--exposure: "),
         (["--exposure", "1 day"], "--exposure: "),
     ],
