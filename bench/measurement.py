@@ -247,6 +247,8 @@ class Measurement:
             r.start()
         self._watch_thread = threading.Thread(target=self._watch_stale, name="guard-watch", daemon=True)
         self._watch_thread.start()
+        self._pump_check_thread = threading.Thread(target=self._pump_checks, name="pump-checks", daemon=True)
+        self._pump_check_thread.start()
         # What exists now (imports, drivers, the run file) lives as long as the run: out of the
         # collector's reach, a full collection scans only what the run makes, and no longer
         # holds the readers up for 100 ms or more.
@@ -279,6 +281,8 @@ class Measurement:
             self._truth_thread.join(2.0)
         if getattr(self, "_watch_thread", None) is not None:
             self._watch_thread.join(2.0)
+        if getattr(self, "_pump_check_thread", None) is not None:
+            self._pump_check_thread.join(2.0)
         if self._consumer_thread is not None:
             # The consumer finishes what the readers queued before the run file closes. If it
             # is far behind (an accelerated bench producing estimates faster than they can be
@@ -375,9 +379,10 @@ class Measurement:
             self.guarded_pump.trip_on(found)
 
     def _watch_stale(self) -> None:
-        """Trips when an instrument has given no fresh reading for too long (20 checks a second),
-        and reads the pump driver's error queue while the pump emits (every `ERROR_POLL` s)."""
-        next_errors = time.monotonic()
+        """Trips when an instrument has given no fresh reading for too long (20 checks a second).
+
+        It never talks to an instrument: a slow or silent instrument must not hold up the very
+        check that notices it (the pump checks that do talk run in `_pump_checks`)."""
         while not self.stop_flag.wait(0.05):
             try:
                 found = self.monitor.check_stale(self.clock.now())
@@ -385,16 +390,20 @@ class Measurement:
                     self.guarded_pump.trip_on(found)
             except Exception:
                 log.exception("stale-reading check failed")
-            if time.monotonic() >= next_errors:
-                next_errors = time.monotonic() + ERROR_POLL
-                try:
-                    self._poll_pump_errors()
-                except Exception:
-                    log.exception("reading the pump driver's error queue failed")
-                try:
-                    self._check_power_calibration()
-                except Exception:
-                    log.exception("the pump power calibration check failed")
+
+    def _pump_checks(self) -> None:
+        """While the pump emits, every `ERROR_POLL` s: read the pump driver's error queue and
+        compare its power reading with the bench file's calibration. These exchanges can take
+        as long as the driver's timeout, so they have this thread of their own."""
+        while not self.stop_flag.wait(ERROR_POLL):
+            try:
+                self._poll_pump_errors()
+            except Exception:
+                log.exception("reading the pump driver's error queue failed")
+            try:
+                self._check_power_calibration()
+            except Exception:
+                log.exception("the pump power calibration check failed")
 
     def _poll_pump_errors(self) -> None:
         from bench.trip_conditions import check_device_errors
