@@ -216,6 +216,7 @@ class GuardedPump:
         self._commanded_on = False
         self._off_since: float | None = None
         self._on_since: float | None = None
+        self._changed_at = -math.inf
         self._latencies: deque[float] = deque(maxlen=1000)
         self._recent: deque[Event] = deque(maxlen=1000)
 
@@ -623,6 +624,13 @@ class GuardedPump:
             return f"could not read the pump driver ({type(exc).__name__}: {exc})"
         return f"no trip monitor is attached to judge {condition!r}; report it cleared with clear_condition()"
 
+    @property
+    def changed_at(self) -> float:
+        """Run-clock time of the last change this guard made to the pump (current, output);
+        -inf before any. A reading taken before it may describe the pump as it was."""
+        return self._changed_at
+
     def _note_change(self, t: float | None = None) -> None:
+        self._changed_at = self._clock() if t is None else t
         if self._monitor is not None:
             self._monitor.note_pump_change(self._clock() if t is None else t)

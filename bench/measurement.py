@@ -446,18 +446,23 @@ class Measurement:
         expected = self.cfg.pump.power_at(current)
         found = []
         pump = self.instruments["pump"]
+        changed = gp.changed_at
+        if t_i <= changed:
+            return  # the current reading is older than the last change (a sweep step)
         if pump.session.has("power"):
             self.pump_access.wait_for_turn()
             try:
                 measured = pump.power()
             except InstrumentError:  # a failed exchange: the pump reader's checks deal with those
                 measured = None
+            if gp.changed_at != changed:
+                measured = None  # the current changed while the power was read: compare next time
             if measured is not None:
                 found.append(check_power_calibration(expected, measured, current,
                                                      "the pump driver's power reading", now))
         level = self._monitor_level
         per_watt = self.params.monitor_per_watt
-        if (level is not None and per_watt and self.mode in ("watch", "sweep") and level[0] > on_since
+        if (level is not None and per_watt and self.mode in ("watch", "sweep") and level[0] > max(on_since, t_i)
                 and now - level[0] < 1.0):
             found.append(check_power_calibration(
                 expected, level[1] / per_watt, current,
