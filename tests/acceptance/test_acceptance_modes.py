@@ -25,7 +25,8 @@ import pytest
 ARM = ["--operator", "tester", "--eyewear-od", "940nm=5", "--eyewear-od", "1030nm=2", "--confirm-setup",
        "--set", "guard.stale_after=2s"]
 
-SEEDS = (11, 29)
+#: One seed in the default suite, a second in the slow set (`pytest -m slow`).
+SEEDS = (11, pytest.param(29, marks=pytest.mark.slow))
 
 #: Within this many sigma_noise of the truth.
 K = 4.0
