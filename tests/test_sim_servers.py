@@ -311,6 +311,9 @@ def test_several_clients_and_a_client_that_vanishes(sim, rm):
     b = open_scpi(rm, sim.resources["pump"])
     try:
         a.write("SOUR:CURR 1.5")
+        # each connection has its own server thread: a's query returns once a's setting is
+        # done, so b's query cannot overtake it (IEEE 488.2 sequential commands per connection)
+        assert a.query("SOUR:CURR?") == "1.5"
         assert b.query("SOUR:CURR?") == "1.5"
         wait_for(lambda: sim.client_count("pump") == 2, what="the vanished client to be forgotten")
     finally:
