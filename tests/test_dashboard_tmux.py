@@ -15,9 +15,8 @@ from pathlib import Path
 
 import pytest
 
-from bench.config import builtin_bench_path
 from bench.runstore import RunReader
-from tmux_session import Tmux
+from tmux_session import Tmux, arm_through_checklist, bench_file
 
 pytestmark = [
     pytest.mark.skipif(shutil.which("tmux") is None, reason="tmux is not installed"),
@@ -31,17 +30,6 @@ def tmux():
     t = Tmux(120, 40)
     yield t
     t.kill()
-
-
-def bench_file(tmp_path: Path) -> Path:
-    """The built-in simulated bench, with the guard's staleness limit at 3 s instead of 0.5 s:
-    this test drives the keys, not the guard's timing (tests/test_guard_on_bench.py does), and a
-    loaded 2-core test machine can starve any process for half a second."""
-    text = builtin_bench_path().read_text(encoding="utf-8")
-    assert 'stale_after = "0.5 s"' in text
-    path = tmp_path / "bench.toml"
-    path.write_text(text.replace('stale_after = "0.5 s"', 'stale_after = "3 s"'), encoding="utf-8")
-    return path
 
 
 def test_live_in_a_terminal_arm_and_quit(tmux, tmp_path):
@@ -60,24 +48,7 @@ def test_live_in_a_terminal_arm_and_quit(tmux, tmp_path):
     screen = tmux.wait_for("SAFE")
     assert "output off" in screen and "interlock closed" in tmux.wait_for("interlock closed")
 
-    tmux.keys("a")
-    tmux.wait_for("SECOND LAYER ONLY")
-    tmux.keys("Enter")  # the operator's name, given on the command line
-    tmux.wait_for("ok: the hardware interlock reads closed")
-    tmux.keys("Enter")
-    tmux.wait_for("[2/8] Laser-safety eyewear at 940 nm")
-    tmux.keys("5", "Enter")
-    tmux.wait_for("[3/8] Laser-safety eyewear at 1030 nm")
-    tmux.keys("2", "Enter")
-    for number in (4, 5, 6):
-        tmux.wait_for(f"[{number}/8]")
-        tmux.keys("y")
-    for number in (7, 8):
-        tmux.wait_for(f"[{number}/8]")
-        tmux.wait_for("ok: ")
-        tmux.keys("Enter")
-    tmux.wait_for("Arming checklist passed")
-    tmux.keys("Enter")
+    arm_through_checklist(tmux)
     screen = tmux.wait_for("◇ ARMED")
     assert "pump still off" in screen
 

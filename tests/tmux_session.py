@@ -7,6 +7,9 @@ import os
 import subprocess
 import time
 import uuid
+from pathlib import Path
+
+from bench.config import builtin_bench_path
 
 
 class Tmux:
@@ -45,3 +48,39 @@ class Tmux:
 
     def kill(self) -> None:
         self.run("kill-server", check=False)
+
+
+def bench_file(tmp_path: Path) -> Path:
+    """The built-in simulated bench, with the guard's staleness limit at 3 s instead of 0.5 s:
+    the terminal tests drive the keys, not the guard's timing (tests/test_guard_on_bench.py
+    does), and a loaded 2-core test machine can starve any process for half a second."""
+    text = builtin_bench_path().read_text(encoding="utf-8")
+    assert 'stale_after = "0.5 s"' in text
+    path = tmp_path / "bench.toml"
+    path.write_text(text.replace('stale_after = "0.5 s"', 'stale_after = "3 s"'), encoding="utf-8")
+    return path
+
+
+def arm_through_checklist(tmux: Tmux) -> str:
+    """Answer the dashboard's arming checklist one question at a time, as a person does (the
+    operator named on the command line, OD 5 at 940 nm and 2 at 1030 nm, the setup confirmed);
+    returns the screen once the guard reads armed."""
+    tmux.keys("a")
+    tmux.wait_for("SECOND LAYER ONLY")
+    tmux.keys("Enter")  # the operator's name, given on the command line
+    tmux.wait_for("ok: the hardware interlock reads closed")
+    tmux.keys("Enter")
+    tmux.wait_for("[2/8] Laser-safety eyewear at 940 nm")
+    tmux.keys("5", "Enter")
+    tmux.wait_for("[3/8] Laser-safety eyewear at 1030 nm")
+    tmux.keys("2", "Enter")
+    for number in (4, 5, 6):
+        tmux.wait_for(f"[{number}/8]")
+        tmux.keys("y")
+    for number in (7, 8):
+        tmux.wait_for(f"[{number}/8]")
+        tmux.wait_for("ok: ")
+        tmux.keys("Enter")
+    tmux.wait_for("Arming checklist passed")
+    tmux.keys("Enter")
+    return tmux.wait_for("ARMED")

@@ -15,51 +15,16 @@ import shutil
 import subprocess
 import sys
 import time
-from pathlib import Path
 
 import pytest
 
-from bench.config import builtin_bench_path
-from tmux_session import Tmux
+from tmux_session import Tmux, arm_through_checklist, bench_file
 
 pytestmark = [pytest.mark.skipif(shutil.which("tmux") is None, reason="tmux is not installed")]
 
 
 #: Seconds of emission: several hundred chopping cycles at the default period.
 EMIT_SECONDS = 5.0
-
-
-def bench_file(tmp_path: Path) -> Path:
-    """The built-in bench with a 3 s stale-reading limit (a loaded 2-core test machine can starve
-    a process for half a second; this test is about the estimate, not the guard's timing)."""
-    text = builtin_bench_path().read_text(encoding="utf-8")
-    assert 'stale_after = "0.5 s"' in text
-    path = tmp_path / "bench.toml"
-    path.write_text(text.replace('stale_after = "0.5 s"', 'stale_after = "3 s"'), encoding="utf-8")
-    return path
-
-
-def arm(tmux: Tmux) -> None:
-    """The arming checklist, answered one question at a time as a person does."""
-    tmux.keys("a")
-    tmux.wait_for("Who is running the checklist?")
-    tmux.keys("Enter")  # the operator's name, given on the command line
-    tmux.wait_for("ok: the hardware interlock reads closed")
-    tmux.keys("Enter")
-    tmux.wait_for("[2/8] Laser-safety eyewear at 940 nm")
-    tmux.keys("5", "Enter")
-    tmux.wait_for("[3/8] Laser-safety eyewear at 1030 nm")
-    tmux.keys("2", "Enter")
-    for number in (4, 5, 6):
-        tmux.wait_for(f"[{number}/8]")
-        tmux.keys("y")
-    for number in (7, 8):
-        tmux.wait_for(f"[{number}/8]")
-        tmux.wait_for("ok: ")
-        tmux.keys("Enter")
-    tmux.wait_for("Arming checklist passed")
-    tmux.keys("Enter")
-    tmux.wait_for("ARMED")
 
 
 def test_live_chopped_default_timing(tmp_path):
@@ -82,7 +47,7 @@ def test_live_chopped_default_timing(tmp_path):
         tmux.keys("Down", "Enter")       # chopped
         tmux.keys("Tab", "Enter")        # keep the offered timing, apply
         tmux.wait_for("mode: chopped", timeout=10)
-        arm(tmux)
+        arm_through_checklist(tmux)
         tmux.keys("e")
         tmux.wait_for("EMITTING", timeout=20)
         time.sleep(EMIT_SECONDS)  # the measurement itself: emission for a fixed span, not a wait for a condition
