@@ -26,11 +26,10 @@ import pytest
 
 from bench.config import load_bench
 from bench.estimate import EstimatorParams, capture_baseline, capture_dark, new_state, report, update, with_baseline, with_dark
-from bench.records import Block
+from sim_blocks import model_blocks
 
 BenchModel = pytest.importorskip("simulated_instruments.bench_model").BenchModel
 
-CHANNELS = ("probe", "reference", "pump_monitor")
 RATE = 20e3  # Hz
 SECONDS = {"watch": 0.3, "chopped": 1.5, "decay": 1.0}  # s of data behind each estimate
 CURRENT = 5.0  # A
@@ -67,12 +66,7 @@ def _true_config(cfg, rng):
 
 
 def _blocks(model, n, size=2000):
-    while n > 0:
-        k = min(n, size)
-        data, first = model.generate(k)
-        yield Block("detector", first // size, model.acquisition_start + first / model.sample_rate,
-                    1.0 / model.sample_rate, first, CHANNELS, data)
-        n -= k
+    return model_blocks(model, n, size)
 
 
 def _one_run(cfg, params, seed, mode):

@@ -27,11 +27,10 @@ from bench.estimate import (
     with_dark,
     with_setting,
 )
-from bench.records import Block
+from sim_blocks import model_blocks
 
 BenchModel = pytest.importorskip("simulated_instruments.bench_model").BenchModel
 
-CHANNELS = ("probe", "reference", "pump_monitor")
 RATE = 50e3
 
 
@@ -46,12 +45,7 @@ def params(cfg):
 
 
 def _blocks(model, n, size=2500):
-    while n > 0:
-        k = min(n, size)
-        data, first = model.generate(k)
-        yield Block("detector", first // size, model.acquisition_start + first / model.sample_rate,
-                    1.0 / model.sample_rate, first, CHANNELS, data)
-        n -= k
+    return model_blocks(model, n, size)
 
 
 def _bench(cfg, seed):
