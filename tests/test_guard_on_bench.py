@@ -20,16 +20,11 @@ from bench.errors import GainbenchError
 from bench.guard import GuardRefused
 from bench.measurement import Measurement
 from bench.runstore import RunReader
+from waiting import wait_until
 
 LATENCY_BOUND = 0.100
 
 
-def _wait(condition, timeout: float, what: str) -> None:
-    deadline = time.monotonic() + timeout
-    while not condition():
-        if time.monotonic() > deadline:
-            raise AssertionError(f"timed out waiting for {what}")
-        time.sleep(0.01)
 
 
 @pytest.fixture
@@ -44,7 +39,7 @@ def emitting(tmp_path):
         assert result.passed, result.refusals
         m.set_current(current, who="tester")
         m.emit("tester")
-        _wait(m.sim.pump_output_on, 5, "the simulated pump to emit")
+        wait_until(m.sim.pump_output_on, 5, "the simulated pump to emit")
         m.hold(0.3)
         assert m.guarded_pump.state == "emitting"
         yield m
@@ -52,12 +47,12 @@ def emitting(tmp_path):
 
 def _trip_and_check(m: Measurement, spec: str, condition: str) -> dict:
     m.sim.inject(spec)
-    _wait(lambda: m.guarded_pump.state == "tripped", 10, f"a trip after {spec}")
+    wait_until(lambda: m.guarded_pump.state == "tripped", 10, f"a trip after {spec}")
     # The first reading to show a fault may show a symptom (the current no longer follows its
     # setpoint when the driver's own interlock switched it off); the cause joins the held
     # conditions with the next reading.
-    _wait(lambda: condition in m.guarded_pump.held, 5, f"condition {condition} held")
-    _wait(lambda: not m.sim.pump_output_on(), 5, "the simulated pump to be off")
+    wait_until(lambda: condition in m.guarded_pump.held, 5, f"condition {condition} held")
+    wait_until(lambda: not m.sim.pump_output_on(), 5, "the simulated pump to be off")
     latencies = m.guarded_pump.trip_latencies
     assert latencies and latencies[0] <= LATENCY_BOUND, f"trip latency {latencies}"
     with pytest.raises(GuardRefused):  # no path commands emission while tripped
@@ -99,7 +94,7 @@ def test_detector_saturation_trips(emitting):
 def test_lost_pump_communication_trips(emitting):
     # replies held back past the driver's 1 s timeout: repeated failed exchanges
     emitting.sim.inject("slow:pump+5s")
-    _wait(lambda: emitting.guarded_pump.state == "tripped", 15, "a communication trip")
+    wait_until(lambda: emitting.guarded_pump.state == "tripped", 15, "a communication trip")
     reason = emitting.guarded_pump.trip_reason or ""
     assert "pump" in reason and ("communication" in reason or "no fresh" in reason), reason
 
@@ -112,8 +107,8 @@ def test_injected_exception_in_the_pipeline_switches_the_pump_off(emitting, monk
         raise RuntimeError("injected failure")
 
     monkeypatch.setattr(est, "update", broken)
-    _wait(lambda: m.guarded_pump.state == "tripped", 5, "a trip after the pipeline failed")
-    _wait(lambda: not m.sim.pump_output_on(), 5, "the simulated pump to be off")
+    wait_until(lambda: m.guarded_pump.state == "tripped", 5, "a trip after the pipeline failed")
+    wait_until(lambda: not m.sim.pump_output_on(), 5, "the simulated pump to be off")
     with pytest.raises(GainbenchError):
         m.check_alive()
 
@@ -132,7 +127,7 @@ def test_arming_refused_with_low_eyewear_od(tmp_path):
 def test_stale_detector_readings_trip(emitting):
     # the digitiser's replies held back for 3 s: no fresh detector data for longer than stale_after
     emitting.sim.inject("slow:detector+4s")
-    _wait(lambda: emitting.guarded_pump.state == "tripped", 15, "a trip on stale detector readings")
+    wait_until(lambda: emitting.guarded_pump.state == "tripped", 15, "a trip on stale detector readings")
     reason = emitting.guarded_pump.trip_reason or ""
     assert "detector" in reason, reason
-    _wait(lambda: not emitting.sim.pump_output_on(), 5, "the simulated pump to be off")
+    wait_until(lambda: not emitting.sim.pump_output_on(), 5, "the simulated pump to be off")

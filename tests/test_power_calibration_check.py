@@ -13,7 +13,6 @@ from __future__ import annotations
 
 import subprocess
 import sys
-import time
 
 import pytest
 
@@ -23,6 +22,7 @@ from bench.config import load_bench, load_bench_text
 from bench.measurement import Measurement
 from bench.runstore import RunReader
 from cli_flags import ARM
+from waiting import wait_until
 
 
 def test_the_check_passes_within_the_factor_and_names_both_figures_outside_it():
@@ -61,12 +61,6 @@ def test_record_trips_on_a_calibration_that_disagrees_with_the_drivers_power_rea
     assert max(row["pump_w"] for row in truth) > 1.0
 
 
-def _wait(condition, timeout: float, what: str) -> None:
-    deadline = time.monotonic() + timeout
-    while not condition():
-        if time.monotonic() > deadline:
-            raise AssertionError(f"timed out waiting for {what}")
-        time.sleep(0.01)
 
 
 def test_without_a_driver_power_reading_the_pump_monitor_is_compared(tmp_path):
@@ -81,10 +75,10 @@ def test_without_a_driver_power_reading_the_pump_monitor_is_compared(tmp_path):
         assert m.arm(answers_from_flags("tester", {940e-9: 5, 1030e-9: 2}, True), "tester").passed
         m.set_current(current, who="tester")
         m.emit("tester")
-        _wait(lambda: m.guarded_pump.state == "tripped", 10, "a trip")
+        wait_until(lambda: m.guarded_pump.state == "tripped", 10, "a trip")
         assert tc.POWER_CALIBRATION in m.guarded_pump.held, m.guarded_pump.trip_reason
         assert "pump monitor" in m.guarded_pump.trip_reason
-        _wait(lambda: not m.sim.pump_output_on(), 5, "the simulated pump to be off")
+        wait_until(lambda: not m.sim.pump_output_on(), 5, "the simulated pump to be off")
 
 
 @pytest.mark.parametrize("mode", ["watch"])
