@@ -22,6 +22,7 @@ import gc
 import logging
 import math
 import queue
+import random
 import sys
 import threading
 import time
@@ -462,7 +463,7 @@ class Measurement:
                                                      "the pump driver's power reading", now))
         level = self._monitor_level
         per_watt = self.params.monitor_per_watt
-        if (level is not None and per_watt and self.mode in ("watch", "sweep") and level[0] > max(on_since, t_i)
+        if (level is not None and per_watt and self._pump_steady() and level[0] > max(on_since, t_i)
                 and now - level[0] < 1.0):
             found.append(check_power_calibration(
                 expected, level[1] / per_watt, current,
@@ -470,6 +471,11 @@ class Measurement:
         found = [c for c in found if c is not None]
         if found:
             gp.trip_on(found[:1])
+
+    def _pump_steady(self) -> bool:
+        """Whether this mode keeps the pump at a steady level while it emits (watch, and a
+        sweep measured with steady steps); chopped, decay and chopped sweeps modulate it."""
+        return self.mode == "watch" or (self.mode == "sweep" and self.settings.get("method", "watch") == "watch")
 
     def _clear_error_queue(self, role: str, driver) -> None:
         """Empty an instrument's error queue at start: what it holds is from before this run
@@ -485,7 +491,7 @@ class Measurement:
                                                                   "errors": [[e.code, e.text] for e in entries]}))
 
     def _poll_truth(self) -> None:
-        """The simulator's truth every 0.1 s of real time, over a connection of its own."""
+        """The simulator's truth about every 50 ms of real time, over a connection of its own."""
         from drivers.registry import open_instrument
 
         det = self.readers[0]
@@ -503,10 +509,16 @@ class Measurement:
                 conn.close()
 
     def _truth_loop(self, det, conn) -> None:
-        while not self.stop_flag.wait(0.1):
+        # every 30-70 ms at random, so that the rows never lock to the phase of a chopped pump
+        jitter = random.Random()
+        warned = False
+        while not self.stop_flag.wait(jitter.uniform(0.03, 0.07)):
             try:
                 truth = conn.sim_truth()  # t: simulated s since the digitiser's INIT
             except Exception:  # a fault on this connection (it reconnects), or the simulator is closing
+                if not warned:
+                    log.warning("the simulator's truth query failed (further failures not logged)", exc_info=True)
+                    warned = True
                 continue
             names = {"t": "sim_t", "pump_W": "pump_w"}
             values = {names.get(k, k): float(v) for k, v in truth.items()}
@@ -609,6 +621,7 @@ class Measurement:
 
     def set_mode(self, mode: str, settings: Mapping[str, Any] | None = None, who: str = "gainbench") -> None:
         self.mode = mode
+        self.settings = dict(settings or {})
         self.control_q.put(Control("mode", self.clock.now(), {"mode": mode, "settings": dict(settings or {})}, who))
 
     def set_current(self, current: float, who: str = "gainbench") -> None:

@@ -5,12 +5,14 @@ report): pure reading, never writes."""
 from __future__ import annotations
 
 import math
+from collections.abc import Callable
 from typing import Any
 
 import numpy as np
 
 from bench import physics
 from bench.config import BenchConfig
+from bench.estimator_params import EstimatorParams
 from bench.records import Estimate, Event, Quantity
 from bench.runstore import RunReader
 
@@ -27,14 +29,31 @@ def final_estimate(reader: RunReader, analysis_id: int | None = None) -> Estimat
 MEDIUM_KEYS = ("ln_t_pumped", "ln_t_unpumped", "gain_per_m")
 
 
-def _pumped_rows(rows: list[dict[str, Any]], t0: float, t1: float) -> list[dict[str, Any]]:
-    """Truth rows in [t0, t1] taken while the pump was on (at least half its largest power there)."""
+def _pumped_rows(rows: list[dict[str, Any]], t0: float, t1: float,
+                 settle: Callable[[float], float] | None = None) -> list[dict[str, Any]]:
+    """Truth rows in [t0, t1] taken while the pump was on (at least half its largest power there).
+
+    With ``settle`` (pump power in W -> s) and rows that say how long the medium's inputs had
+    been constant (``inputs_steady_s``), only rows at least that long after the last change
+    count: the settled state that the estimator's own settle windows select, not a row caught
+    on a pump edge of a chopped run or a sweep step (if none is settled, all pumped rows count).
+    """
     t = np.array([r["t"] for r in rows])
     sel = (t >= t0 - 1e-9) & (t <= t1 + 1e-9)
     pump = np.array([r.get("pump_w", r.get("pump_W", 0.0)) for r in rows])
     if sel.any() and pump[sel].max() > 0:
         sel &= pump >= 0.5 * pump[sel].max()  # the pumped part (chopped runs alternate)
+    if settle is not None and sel.any() and all("inputs_steady_s" in r for r in rows):
+        steady = np.array([r["inputs_steady_s"] >= settle(p) for r, p in zip(rows, pump)])
+        if (sel & steady).any():
+            sel &= steady
     return [r for r, s in zip(rows, sel) if s]
+
+
+def _settle_rule(cfg: BenchConfig) -> Callable[[float], float]:
+    """The rise settle window (s) at a pump power (W): `EstimatorParams.rise_settle`."""
+    params = EstimatorParams.from_config(cfg)
+    return lambda power: params.rise_settle(power if power > 0 else None)
 
 
 def _rows_at_power(rows: list[dict[str, Any]], power: float | None) -> list[dict[str, Any]]:
@@ -107,9 +126,10 @@ def truth_over(reader: RunReader, cfg: BenchConfig, estimate: Estimate | None,
         t0, t1 = -math.inf, estimate.t
     else:
         t0, t1 = -math.inf, math.inf
-    pick = _pumped_rows(rows, t0, t1)
+    settle = _settle_rule(cfg)
+    pick = _pumped_rows(rows, t0, t1, settle)
     if not pick and span is None:
-        pick = _pumped_rows(rows, -math.inf, math.inf)
+        pick = _pumped_rows(rows, -math.inf, math.inf, settle)
     return truth_figures(pick, cfg)
 
 

@@ -22,7 +22,7 @@ DEFAULT_CHANNEL_NAMES = {1: "probe", 2: "reference", 3: "pump_monitor"}
 
 #: Field names of the simulator-only truth query, in reply order.
 SIM_TRUTH_FIELDS = ("t", "n2_avg", "beta", "tau", "pump_W", "ln_ratio", "n_total", "length",
-                    "ln_t_pumped", "ln_t_unpumped", "gain_per_m", "n2_probe_only")
+                    "ln_t_pumped", "ln_t_unpumped", "gain_per_m", "n2_probe_only", "inputs_steady_s")
 
 DATA_FORMATS = ("binary", "ascii")
 

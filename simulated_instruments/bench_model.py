@@ -59,7 +59,7 @@ SHUTTERS = {"probe": 1, "pump": 2, 1: 1, 2: 2}
 
 #: The fields of `BenchModel.truth`, in the order of the ``SIM:TRUTH?`` reply (COMMANDS.md).
 TRUTH_FIELDS = ("t", "n2_avg", "beta", "tau", "pump_w", "ln_ratio", "n_total", "length",
-                "ln_t_pumped", "ln_t_unpumped", "gain_per_m", "n2_probe_only")
+                "ln_t_pumped", "ln_t_unpumped", "gain_per_m", "n2_probe_only", "inputs_steady_s")
 
 
 @dataclass(frozen=True)
@@ -133,6 +133,7 @@ class BenchModel:
         self._flux_per_watt = 1.0 / (_top_hat_area(cfg.pump.beam_diameter) * _photon_energy(cfg.pump.wavelength))
         self._ramp_piece = min(s.upper_state_lifetime / 4.0, RAMP_TIME / 50.0)
         self.t = 0.0
+        self._drive_since = 0.0  # when the drive last changed (`truth`'s inputs_steady_s)
         self._wavelength = cfg.probe.wavelength
         self._wavelength_changed = -math.inf
         self._update_probe()
@@ -198,6 +199,7 @@ class BenchModel:
         )
 
     def _changed(self) -> None:
+        self._drive_since = self.t
         self._timeline.set_drive(self._drive())
 
     # -- pump driver -------------------------------------------------------------------------------
@@ -564,7 +566,10 @@ class BenchModel:
         also the true ln of the net gain; ``ln_t_unpumped``: the same for the sample with the
         pump off and the probe on (every slice at N2_off, the baseline state);
         ``gain_per_m``: the true length-averaged gain coefficient, ``ln_t_pumped / L``;
-        ``n2_probe_only``: N2_off. All at the present probe wavelength.
+        ``n2_probe_only``: N2_off. All at the present probe wavelength. ``inputs_steady_s``:
+        how long the medium's inputs (pump power on the sample, probe) have been constant, s
+        (since the last setting change, modulation or chopper edge, or the end of a ramp), so
+        that a reader can tell a settled state from one caught during a transient.
         """
         slices = self._timeline.state()
         n2 = float(np.mean(slices))
@@ -586,6 +591,7 @@ class BenchModel:
             "ln_t_unpumped": ln_off,
             "gain_per_m": ln_on / s.length,
             "n2_probe_only": self._n2_off,
+            "inputs_steady_s": self._timeline.drive.steady_for(self.t, self._drive_since),
         }
 
     @property

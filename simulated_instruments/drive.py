@@ -177,6 +177,18 @@ class Drive:
                 return None
         return longest.period, longest.t_ref
 
+    def steady_for(self, t: float, since: float) -> float:
+        """How long (s) the inputs have been constant at ``t``, given that this drive took over
+        at ``since``: from the latest of ``since``, the end of the envelope's ramp and the last
+        edge of every active square wave (0 while a ramp is under way)."""
+        if self.envelope.ramping_at(t):
+            return 0.0
+        start = max(since, self.envelope.t1 if self.envelope.i0 != self.envelope.i1 else since)
+        for wave in self._waves(t):
+            half = 0.5 / wave.frequency
+            start = max(start, wave.t_ref + math.floor((t - wave.t_ref) / half) * half)
+        return max(0.0, t - start)
+
     # -- inputs for the medium -----------------------------------------------------------------
     def segment(self, t: float) -> tuple[float, Inputs, bool]:
         """(t_next, inputs on [t, t_next), whether t_next is an edge rather than a ramp piece)."""

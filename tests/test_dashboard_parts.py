@@ -212,7 +212,8 @@ def test_mode_choice_defaults_and_modulation():
     assert choice.modulation_hz == pytest.approx(chop_frequency(cfg, "chopped"))
     assert ModeChoice.defaults(cfg, "decay").modulation_hz == pytest.approx(chop_frequency(cfg, "decay"))
     assert ModeChoice.defaults(cfg, "watch").modulation_hz is None
-    assert ModeChoice.defaults(cfg, "sweep").modulation_hz is None
+    # a sweep chops every step at the chopped period (drift cancels step by step)
+    assert ModeChoice.defaults(cfg, "sweep").modulation_hz == pytest.approx(chop_frequency(cfg, "chopped"))
     # a 30 ms period is 33.3 Hz (f = 1 / T)
     assert ModeChoice("chopped", 0.030, 0.05).modulation_hz == pytest.approx(1 / 0.030)
 

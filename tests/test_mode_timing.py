@@ -145,7 +145,7 @@ def test_run_period_follows_the_current(cfg):
     ("chopped", "0 ms", "--period: '0 ms' is not a positive time"),
     ("chopped", "fast", "--period"),
     ("chopped", "3 A", "--period"),
-    ("watch", "50 ms", "--period: applies to chopped and decay modes"),
+    ("watch", "50 ms", "--period: applies to chopped, decay and sweep modes"),
     ("decay", "4 ms", "decay mode: a pump period of 4 ms"),
 ])
 def test_record_period_errors_name_the_option(cfg, mode, period, words):

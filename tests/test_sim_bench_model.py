@@ -266,7 +266,7 @@ def test_truth_fields():
     tr = m.truth()
     s = CFG.sample
     assert set(tr) == {"t", "n2_avg", "beta", "tau", "pump_w", "ln_ratio", "n_total", "length",
-                       "ln_t_pumped", "ln_t_unpumped", "gain_per_m", "n2_probe_only"}
+                       "ln_t_pumped", "ln_t_unpumped", "gain_per_m", "n2_probe_only", "inputs_steady_s"}
     assert tr["t"] == pytest.approx(0.1)
     assert tr["beta"] == pytest.approx(tr["n2_avg"] / s.n_total)
     assert tr["tau"] == s.upper_state_lifetime and tr["length"] == s.length
@@ -286,6 +286,25 @@ def test_truth_fields():
     assert tr["gain_per_m"] == pytest.approx(tr["ln_t_pumped"] / s.length, rel=1e-12)
     assert tr["n2_probe_only"] == n2_off
     assert m.medium_regime == "steady"
+
+
+def test_truth_says_how_long_the_inputs_have_been_steady():
+    # the contract's 20 ms ramp and 50 % square wave (COMMANDS.md); edges read off the monitor
+    m = model(sample_rate=100e3)
+    m.set_pump(current=5.0, on=True)
+    m.advance_to(0.010)
+    assert m.truth()["inputs_steady_s"] == 0.0  # ramping
+    m.advance_to(0.100)
+    assert m.truth()["inputs_steady_s"] == pytest.approx(0.080, abs=1e-9)  # since the ramp's end
+    m.set_modulation(100.0)
+    t_set = m.t
+    data, i0 = m.generate(int(0.0373 * 100e3))
+    monitor = data[:, 2]
+    high = monitor > 0.5 * monitor.max()
+    last_edge = (i0 + np.flatnonzero(np.diff(high.astype(int)) != 0)[-1] + 1) / 100e3
+    steady = m.truth()["inputs_steady_s"]
+    assert steady == pytest.approx(m.t - last_edge, abs=1.5e-5)  # within a sample or so
+    assert 0 < steady < 0.005 and m.t - t_set > 0.035
 
 
 def test_tunable_probe_wavelength():

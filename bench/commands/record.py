@@ -41,14 +41,15 @@ def configure(parser: argparse.ArgumentParser) -> None:
     parser.add_argument("--config", metavar="FILE", help="bench file; default: the built-in simulated bench")
     parser.add_argument("--mode", choices=("watch", "chopped", "decay", "sweep"), default="watch",
                         help="watch: steady pump; chopped: modulated pump; decay: lifetime from pump-off "
-                             "transients; sweep: pump current steps (default watch)")
+                             "transients; sweep: pump current steps, each chopped (default watch)")
     parser.add_argument("--seconds", type=float, default=5.0, metavar="N",
                         help="how long the pump program runs, in seconds of the run clock (default 5)")
     parser.add_argument("--current", metavar="I", help='pump current, e.g. "6 A" (default 80%% of the limit)')
     parser.add_argument("--steps", type=int, default=6, help="pump current steps in sweep mode (default 6)")
     parser.add_argument("--period", metavar="T",
-                        help='pump modulation period in chopped and decay modes, e.g. "50 ms" (default: from '
-                             "the settle windows at the pump current; a period that leaves no settled data is refused)")
+                        help='pump modulation period in chopped, decay and sweep modes (a sweep chops every step), '
+                             'e.g. "50 ms" (default: from the settle windows at the pump current, for a sweep at '
+                             "its lowest step; a period that leaves no settled data is refused)")
     parser.add_argument("--logs", metavar="DIR", help="run store directory (default: the bench file's run.log_dir)")
     parser.add_argument("--speed", type=float, default=1.0,
                         help="simulated bench only: simulated seconds per real second (default 1)")
@@ -98,9 +99,10 @@ def run(args: argparse.Namespace) -> int:
         raise ConfigError(f"--current: {current:g} A is above the guard's limit "
                           f"({min(cfg.guard.max_current, cfg.pump.max_current):g} A)")
     settings = {"pump_current": current, "pump_power": cfg.pump.power_at(current)}
-    period = _mode_period(args, cfg, current)
+    currents = sweep_currents(cfg, args.steps) if args.mode == "sweep" else [current]
+    period = _mode_period(args, cfg, currents[0])
     if args.mode == "sweep":
-        settings = {}
+        settings = {"method": "chopped"}  # each step chopped: its ln R is immune to slow drift
     answers, operator = _flag_answers(args, cfg)
     out = sys.stdout
     meas = Measurement(cfg, mode=args.mode, settings=settings, log_dir=args.logs, speed=args.speed,
@@ -119,9 +121,8 @@ def run(args: argparse.Namespace) -> int:
             print(f"gainbench: arming refused: {reasons}", file=sys.stderr)
             print(f"run {meas.run_id} kept (dark and baseline only, pump never on)", file=out)
             return ARMING_REFUSED
-        if args.mode in ("chopped", "decay"):
+        if period is not None:
             meas.set_modulation(1.0 / period)
-        currents = sweep_currents(cfg, args.steps) if args.mode == "sweep" else [current]
         meas.set_current(currents[0], who=operator)
         meas.emit(who=operator)
         per_step = args.seconds / len(currents)
@@ -143,7 +144,7 @@ def run(args: argparse.Namespace) -> int:
             acknowledged = _acknowledge(meas, operator)
         else:
             meas.stop_emission(who=operator)
-            if args.mode in ("chopped", "decay"):
+            if period is not None:
                 meas.set_modulation(None)
         meas.hold(0.05)
         status.line(final=True)
@@ -156,17 +157,23 @@ def run(args: argparse.Namespace) -> int:
 
 
 def _mode_period(args, cfg, current: float) -> float | None:
-    """The modulation period of a chopped or decay run, checked before anything opens."""
+    """The modulation period of a chopped, decay or sweep run, checked before anything opens.
+
+    A sweep chops the pump at every step (each step's ln R is then referred to the pump-off
+    half-periods around it, not to the baseline taken before the sweep, so slow drift of the
+    probe/reference ratio cancels); its period follows the settle windows at ``current``, the
+    sweep's lowest step (the slowest rise).
+    """
     from bench.mode_timing import run_period
 
-    if args.mode not in ("chopped", "decay"):
+    if args.mode not in ("chopped", "decay", "sweep"):
         if args.period is not None:
-            raise ConfigError(f"--period: applies to chopped and decay modes, not {args.mode}")
+            raise ConfigError(f"--period: applies to chopped, decay and sweep modes, not {args.mode}")
         return None
     chosen = None if args.period is None else parse_quantity(args.period, "time", "--period")
     if chosen is not None and not (math.isfinite(chosen) and chosen > 0):
         raise ConfigError(f"--period: {args.period!r} is not a positive time")
-    return run_period(cfg, args.mode, current, chosen)
+    return run_period(cfg, "chopped" if args.mode == "sweep" else args.mode, current, chosen)
 
 
 def _flag_answers(args, cfg):

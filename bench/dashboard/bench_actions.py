@@ -92,7 +92,10 @@ class BenchActions:
         """Refuse a pump period that leaves the mode no settled data (`bench.mode_timing`)."""
         from bench.mode_timing import run_period
 
-        if choice.period is not None:
+        if choice.mode == "sweep":  # every step chopped: judged at the lowest step (slowest rise)
+            lowest = sweep_currents(self.meas.cfg, choice.sweep_steps)[0]
+            run_period(self.meas.cfg, "chopped", lowest, choice.chop_period)
+        elif choice.period is not None:
             run_period(self.meas.cfg, choice.mode, self.setpoint, choice.period)
 
     def _mode_chosen(self, choice: ModeChoice | None) -> None:
@@ -106,7 +109,7 @@ class BenchActions:
     def _mode_worker(self, choice: ModeChoice) -> None:
         def change() -> str:
             cfg = self.meas.cfg
-            settings = {} if choice.mode == "sweep" else {
+            settings = {"method": "chopped"} if choice.mode == "sweep" else {
                 "pump_current": self.setpoint, "pump_power": cfg.pump.power_at(self.setpoint)}
             self.meas.set_modulation(choice.modulation_hz, who=self.who)
             self.meas.set_mode(choice.mode, settings, who=self.who)

@@ -63,12 +63,12 @@ class ModeChoice:
     @property
     def period(self) -> float | None:
         """The pump modulation period this mode uses, s (None: steady)."""
-        return {"chopped": self.chop_period, "decay": self.decay_period}.get(self.mode)
+        return {"chopped": self.chop_period, "decay": self.decay_period, "sweep": self.chop_period}.get(self.mode)
 
     @property
     def modulation_hz(self) -> float | None:
         """The pump modulation this mode needs (None: steady)."""
-        if self.mode == "chopped":
+        if self.mode in ("chopped", "sweep"):  # a sweep chops every step (drift cancels)
             return 1.0 / self.chop_period
         if self.mode == "decay":
             return 1.0 / self.decay_period
@@ -80,7 +80,8 @@ class ModeChoice:
         if self.mode == "decay":
             return f"decay, pump period {self.decay_period * 1e3:g} ms"
         if self.mode == "sweep":
-            return f"sweep, {self.sweep_steps} steps of {self.sweep_dwell:g} s"
+            return (f"sweep, {self.sweep_steps} steps of {self.sweep_dwell:g} s, "
+                    f"each chopped at {self.chop_period * 1e3:g} ms")
         return "watch, steady pump"
 
 
