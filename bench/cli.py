@@ -9,7 +9,8 @@ import signal
 import sys
 from collections.abc import Sequence
 
-from bench import __version__, stop_signals
+from bench import __version__
+from bench.run import stop_signals
 from bench.errors import GainbenchError, Terminated
 
 #: Modules of `bench.commands`, in the order `gainbench --help` lists them.
@@ -51,7 +52,7 @@ def build_parser() -> argparse.ArgumentParser:
 
 def main(argv: Sequence[str] | None = None) -> int:
     # Ctrl-C, SIGTERM and SIGHUP end the command cleanly (pump off, run closed); once one has,
-    # further ones cannot interrupt the shutdown (bench.stop_signals).
+    # further ones cannot interrupt the shutdown (bench.run.stop_signals).
     previous = stop_signals.install()
     try:
         with stop_signals.shielded():  # imports every command: a Ctrl-C then acts once they are done

@@ -625,13 +625,13 @@ def _check_optical_depth(r: _Reader, sample: SampleConfig) -> None:
 def _sample_from_spectrum(r: _Reader, sample: SampleConfig, probe: ProbeConfig, pump: PumpConfig) -> SampleConfig:
     from dataclasses import replace
 
-    from bench import spectra
+    from bench.physics import spectra
     from bench.physics import photon_energy
 
     epsilon = photon_energy(sample.zero_line) if sample.zero_line is not None else None
     path = sample.spectrum_file
     assert path is not None
-    # a run's own copy of the spectrum when its bench file is read back (bench.replay)
+    # a run's own copy of the spectrum when its bench file is read back (bench.run.replay)
     spec = spectra.spectrum_for_bench(path, epsilon=epsilon, temperature=sample.temperature)
     if spec is None:
         raise r.fail("sample.spectrum", f"no such file {path.name!r} (looked in {path.parent})")

@@ -4,8 +4,8 @@ never a traceback or a hang, and nothing left in the run store.
 The bounds themselves (guard limits, lifetimes, densities, beam diameters) are common practice,
 no source, as `bench.config` states beside each; the message shape ("FILE: KEY (line N): what
 is wrong") is this project's own. The eyewear ODs compared here come from
-`bench.laser_safety.required_od`, whose figures are checked against ICNIRP 2000 /
-2006/25/EC in tests/test_laser_safety.py.
+`bench.safety.exposure_limits.required_od`, whose figures are checked against ICNIRP 2000 /
+2006/25/EC in tests/safety/test_laser_safety.py.
 """
 
 from __future__ import annotations
@@ -18,13 +18,13 @@ import pytest
 from hypothesis import example, given, settings
 from hypothesis import strategies as st
 
-from bench import laser_safety
-from bench.checklist import OD_MAX, parse_eyewear_flag, parse_eyewear_flags, parse_od
+from bench.safety import exposure_limits as laser_safety
+from bench.safety.checklist import OD_MAX, parse_eyewear_flag, parse_eyewear_flags, parse_od
 from bench.cli import main
 from bench.config import builtin_bench_path, load_bench, load_bench_text
 from bench.errors import ConfigError
-from bench.run_checks import check_instruments, lowered_eyewear
-from bench.runstore import RunReader, resolve_run
+from bench.run.preflight import check_instruments, lowered_eyewear
+from bench.store import RunReader, resolve_run
 from bench.units import parse_quantity
 
 ARM = ["--operator", "tester", "--eyewear-od", "940nm=5", "--eyewear-od", "1030nm=2", "--confirm-setup"]
@@ -377,7 +377,7 @@ def test_every_bench_that_passes_check_gives_its_figures(length, n_total, sigma_
                                                          tau, probe_d, pump_d, probe_power, slope):
     import math
 
-    from bench.checklist import checklist_items
+    from bench.safety.checklist import checklist_items
     from bench.commands.sample import figures
 
     text = builtin_bench_path().read_text(encoding="utf-8")
@@ -405,14 +405,14 @@ def test_every_bench_that_passes_check_gives_its_figures(length, n_total, sigma_
 
 
 def test_the_benchmarks_fresh_process_ignores_a_decoy_bench_package(tmp_path, monkeypatch):
-    from bench.benchmark import in_fresh_process
+    from bench.performance import in_fresh_process
 
     decoy = tmp_path / "bench"
     decoy.mkdir()
     (decoy / "__init__.py").write_text('raise SystemExit("the decoy bench package was imported")\n')
     (decoy / "benchmark.py").write_text('raise SystemExit("the decoy bench package was imported")\n')
     monkeypatch.chdir(tmp_path)
-    # no rates to try: the fresh process imports bench.benchmark, calls it, returns at once
+    # no rates to try: the fresh process imports bench.performance, calls it, returns at once
     assert in_fresh_process("highest_rate", str(tmp_path), [], 0.1, report=lambda line: None) == [None, []]
 
 
@@ -479,7 +479,7 @@ ODD_VALUES = ["0", "-1", "-0", "nan", "inf", "1e308", "1e400 m", "2**64", "5_0",
 def test_any_odd_override_is_refused_or_computes(key, value):
     import math
 
-    from bench.checklist import checklist_items
+    from bench.safety.checklist import checklist_items
     from bench.commands.sample import figures
 
     try:
@@ -493,7 +493,7 @@ def test_any_odd_override_is_refused_or_computes(key, value):
 
 
 def test_the_terminal_checklist_re_asks_odd_numerals():
-    from bench.checklist import checklist_items, run_interactive
+    from bench.safety.checklist import checklist_items, run_interactive
 
     replies = iter(["5_0", "\u0665", "1e1", "50", "5", "2", "yes", "yes", "yes"])
     asked: list[str] = []
@@ -526,7 +526,7 @@ def test_check_refuses_ascii_data_from_a_profile_without_an_ascii_fetch(tmp_path
 
 
 def test_the_refusal_names_the_overrides_that_lower_the_od():
-    # OD exact from bench.laser_safety.required_od at 940 nm, 7 mm aperture: 8.82 W in 0.2 mm 3.88
+    # OD exact from bench.safety.exposure_limits.required_od at 940 nm, 7 mm aperture: 8.82 W in 0.2 mm 3.88
     # (OD 4); in 40 mm 2.65 (OD 3); 4.2 W in 0.2 mm 3.56 (OD 4); 8.82 W in 20 mm 3.22 (OD 4);
     # 4.2 W in 20 mm 2.90 (OD 3)
     cfg = load_bench(overrides={"guard.stale_after": "2 s", "pump.beam_diameter": "40 mm", "probe.power": "2 mW"})

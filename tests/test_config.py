@@ -126,7 +126,7 @@ def test_pump_power_calibration():
 
 
 def test_estimate_every_sets_the_estimator_window():
-    from bench.estimator_params import EstimatorParams
+    from bench.estimator.params import EstimatorParams
 
     cfg = load_bench()
     assert cfg.run.estimate_every == 0.25

@@ -52,7 +52,7 @@ class Tmux:
 
 def bench_file(tmp_path: Path) -> Path:
     """The built-in simulated bench, with the guard's staleness limit at 3 s instead of 0.5 s:
-    the terminal tests drive the keys, not the guard's timing (tests/test_guard_on_bench.py
+    the terminal tests drive the keys, not the guard's timing (tests/safety/test_guard_on_bench.py
     does), and a loaded 2-core test machine can starve any process for half a second."""
     text = builtin_bench_path().read_text(encoding="utf-8")
     assert 'stale_after = "0.5 s"' in text

@@ -21,7 +21,7 @@ def configure(parser: argparse.ArgumentParser) -> None:
 
 
 def run(args: argparse.Namespace) -> int:
-    from bench.benchmark import run_benchmark
+    from bench.performance import run_benchmark
 
     def report(text: str) -> None:
         print(text, file=sys.stderr, flush=True)

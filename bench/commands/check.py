@@ -5,7 +5,7 @@ from __future__ import annotations
 import argparse
 
 from bench.config import load_bench
-from bench.run_checks import check_instruments
+from bench.run.preflight import check_instruments
 
 NAME = "check"
 HELP = "validate a bench file (units, ranges, instruments) and summarise it"

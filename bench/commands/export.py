@@ -5,7 +5,7 @@ from __future__ import annotations
 import argparse
 from pathlib import Path
 
-from bench.runstore import resolve_run
+from bench.store import resolve_run
 
 NAME = "export"
 HELP = "export a run's blocks, estimates or events as CSV or parquet"
@@ -23,7 +23,7 @@ def configure(parser: argparse.ArgumentParser) -> None:
 
 
 def run(args: argparse.Namespace) -> int:
-    from bench.export import export_run
+    from bench.store.export import export_run
 
     path = resolve_run(args.run, args.logs)
     out = Path(args.out) if args.out else path.with_name(f"{path.stem}-{args.what}.{args.fmt}")

@@ -53,8 +53,8 @@ def parse_columns(text: str) -> dict[str, str]:
 
 
 def parse_dark(dark: str | None, window: str | None):
-    """The `bench.import_analysis.DarkGiven` of ``--dark`` or ``--dark-window`` (None: neither)."""
-    from bench.import_analysis import DarkGiven
+    """The `bench.run.import_analysis.DarkGiven` of ``--dark`` or ``--dark-window`` (None: neither)."""
+    from bench.run.import_analysis import DarkGiven
 
     if window is not None:
         start, sep, end = window.partition(":")
@@ -84,8 +84,8 @@ def parse_dark(dark: str | None, window: str | None):
 
 
 def run(args: argparse.Namespace) -> int:
-    from bench.csv_import import import_csv
-    from bench.runstore import RunReader
+    from bench.store.csv_import import import_csv
+    from bench.store import RunReader
 
     columns = parse_columns(args.columns)
     dark = parse_dark(args.dark, args.dark_window)

@@ -2,7 +2,7 @@
 
 With no ``--config`` it opens the built-in simulated bench (served over loopback), and the
 dashboard says so on its top line. The bench (instruments, guard, run file) runs in a process
-of its own (`bench.bench_process`). The pump output is off at start and off at exit, whatever
+of its own (`bench.run.measurement_process`). The pump output is off at start and off at exit, whatever
 way the program ends: the measurement is closed in a ``finally``, and the bench process
 switches the pump off by itself when the dashboard's process goes away.
 """
@@ -13,7 +13,7 @@ import argparse
 import sys
 
 from bench.errors import ConfigError, GainbenchError
-from bench.run_checks import add_run_options, load_for_run
+from bench.run.preflight import add_run_options, load_for_run
 
 NAME = "live"
 HELP = "the live dashboard: signals, guard, pump, estimates; dark, baseline, arming, emission (records a run)"
@@ -43,9 +43,9 @@ def configure(parser: argparse.ArgumentParser) -> None:
 
 
 def run(args: argparse.Namespace) -> int:
-    from bench.bench_process import RemoteMeasurement
+    from bench.run.measurement_process import RemoteMeasurement
     from bench.dashboard.live_app import LiveDashboard
-    from bench.measurement import Measurement, default_current
+    from bench.run.measurement import Measurement, default_current
 
     cfg = load_for_run(args)  # instruments checked, overrides lowering the eyewear OD refused
     if not 0 < args.speed < float("inf"):

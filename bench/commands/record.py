@@ -13,9 +13,9 @@ import shutil
 import sys
 import time
 
-from bench import stop_signals
+from bench.run import stop_signals
 from bench.errors import ConfigError, GainbenchError
-from bench.run_checks import add_run_options, load_for_run
+from bench.run.preflight import add_run_options, load_for_run
 from bench.units import parse_quantity
 
 NAME = "record"
@@ -72,14 +72,14 @@ def configure(parser: argparse.ArgumentParser) -> None:
 
 
 def run(args: argparse.Namespace) -> int:
-    with stop_signals.shielded():  # a Ctrl-C acts once the imports are done (see bench.stop_signals)
-        import bench.checklist  # noqa: F401 - imported here, not halfway through the run
-        import bench.guarded_pump  # noqa: F401
-        import bench.runstore  # noqa: F401
-        import bench.sim_process  # noqa: F401
-        import bench.trip_conditions  # noqa: F401
+    with stop_signals.shielded():  # a Ctrl-C acts once the imports are done (see bench.run.stop_signals)
+        import bench.safety.checklist  # noqa: F401 - imported here, not halfway through the run
+        import bench.safety.guarded_pump  # noqa: F401
+        import bench.store  # noqa: F401
+        import bench.run.simulator_process  # noqa: F401
+        import bench.safety.conditions  # noqa: F401
         import drivers.registry  # noqa: F401
-        from bench.measurement import (
+        from bench.run.measurement import (
             Measurement,
             default_current,
             sweep_currents,
@@ -164,7 +164,7 @@ def _mode_period(args, cfg, current: float) -> float | None:
     probe/reference ratio cancels); its period follows the settle windows at ``current``, the
     sweep's lowest step (the slowest rise).
     """
-    from bench.mode_timing import run_period
+    from bench.estimator.timing import run_period
 
     if args.mode not in ("chopped", "decay", "sweep"):
         if args.period is not None:
@@ -178,7 +178,7 @@ def _mode_period(args, cfg, current: float) -> float | None:
 
 def _flag_answers(args, cfg):
     """Checklist answers from flags, or None to ask on the terminal."""
-    from bench.checklist import answers_from_flags, parse_eyewear_flags
+    from bench.safety.checklist import answers_from_flags, parse_eyewear_flags
 
     operator = args.operator or cfg.run.operator or ""
     if args.eyewear_od or args.confirm_setup:
@@ -195,7 +195,7 @@ def _arm(meas, cfg, answers, operator):
     On a terminal without flags the operator's name is asked first; that person is then the
     operator of the run (stored with it) and the one named for switching the pump on.
     """
-    from bench.checklist import run_interactive
+    from bench.safety.checklist import run_interactive
 
     if answers is None:
         if not sys.stdin.isatty():

@@ -9,7 +9,7 @@ import sys
 
 from bench.config import parse_overrides
 from bench.errors import ConfigError
-from bench.runstore import resolve_run
+from bench.store import resolve_run
 
 NAME = "replay"
 HELP = "replay a run through the pipeline; --set KEY=VALUE re-analyses with corrected parameters"
@@ -41,7 +41,7 @@ def parse_speed(text: str) -> float | None:
 
 
 def run(args: argparse.Namespace) -> int:
-    from bench.replay import replay
+    from bench.run.replay import replay
 
     speed = parse_speed(args.speed)
     overrides = parse_overrides(args.overrides)

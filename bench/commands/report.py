@@ -9,7 +9,7 @@ HELP = "write a run's figures (PNG) and an HTML report page (estimates, figures,
 
 
 def _analysis(text: str):
-    from bench.report import parse_analysis
+    from bench.report.build import parse_analysis
 
     try:
         return parse_analysis(text)
@@ -30,7 +30,7 @@ def configure(parser: argparse.ArgumentParser) -> None:
 
 
 def run(args: argparse.Namespace) -> int:
-    from bench.report import build_report
+    from bench.report.build import build_report
 
     if args.buckets < 10:
         from bench.errors import GainbenchError

@@ -6,7 +6,7 @@ import argparse
 import json
 from pathlib import Path
 
-from bench.runstore import list_runs
+from bench.store import list_runs
 
 NAME = "runs"
 HELP = "list the recorded runs (id, start, duration, sample, mode, size, final beta)"

@@ -1,6 +1,6 @@
 """`gainbench safety`: the optical density laser eyewear needs against one beam.
 
-A calculation aid only (see `bench.laser_safety`): it never replaces a hardware interlock, the
+A calculation aid only (see `bench.safety.exposure_limits`): it never replaces a hardware interlock, the
 laser safety officer, ANSI Z136.1 / IEC 60825-1 / EN 207 or local rules.
 """
 
@@ -9,7 +9,7 @@ from __future__ import annotations
 import argparse
 import json
 
-from bench import laser_safety
+from bench.safety import exposure_limits as laser_safety
 from bench.errors import ConfigError
 from bench.units import parse_quantity
 
@@ -19,7 +19,7 @@ HELP = (
     "2006/25/EC / ICNIRP 2000); a calculation aid that never replaces your LSO or interlocks."
 )
 
-#: Argument names of `bench.laser_safety` -> the option that sets them.
+#: Argument names of `bench.safety.exposure_limits` -> the option that sets them.
 _OPTION_OF = {
     "wavelength": "--wavelength",
     "power": "--power",

@@ -59,7 +59,7 @@ def run(args: argparse.Namespace) -> int:
     if not (math.isfinite(args.speed) and args.speed > 0):
         raise ConfigError(f"--speed {args.speed!r}: expected a positive number of simulated seconds per second")
     cfg = load_bench(args.config, overrides=parse_overrides(args.overrides) or None)
-    from bench.run_checks import check_instruments
+    from bench.run.preflight import check_instruments
 
     check_instruments(cfg)  # the bench file's instrument mistakes, before the simulator trips on them
     if cfg.simulation is None:

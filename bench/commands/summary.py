@@ -6,9 +6,9 @@ import argparse
 import json
 import math
 
-from bench.replay import run_config
-from bench.run_summary import summary
-from bench.runstore import RunReader, resolve_run
+from bench.run.replay import run_config
+from bench.store.summary import summary
+from bench.store import RunReader, resolve_run
 
 NAME = "summary"
 HELP = "final estimates of a run with uncertainties (and the simulator's truth), trips, events"

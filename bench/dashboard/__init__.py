@@ -1,11 +1,11 @@
 """The terminal dashboard (textual): a live measurement or a stored run on one screen.
 
-- `live_app.LiveDashboard` drives a `bench.measurement.Measurement` (`gainbench live`);
+- `live_app.LiveDashboard` drives a `bench.run.measurement.Measurement` (`gainbench live`);
   `replay_app.ReplayDashboard` shows a stored run through `replay_feed.ReplayFeed`
   (`gainbench replay RUN`, entry point `replay_app.run_replay_dashboard`).
 - `base_app.DashboardBase` holds what both share: the layout (``dashboard.tcss``) and the
   snapshot timer. The pipeline never waits for the screen: the timer reads
-  `bench.pipeline.Snapshot` objects; procedures run in thread workers.
+  `bench.run.consumer.Snapshot` objects; procedures run in thread workers.
 - Panels, one small widget each: `guard_panel`, `pump_panel`, `run_panel`, `figures_panel`,
   `health_panel`, `events_panel`, `replay_panel`, `banner` (and the action line), `plots`.
 - Modal screens: `checklist_screen` (arming), `trip_screen`, `mode_screen`, `small_screens`

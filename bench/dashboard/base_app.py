@@ -30,7 +30,7 @@ from bench.dashboard.meters import ScreenLatency
 from bench.dashboard.plots import ResponsePlot, SignalsPlot, TrendPlot, _SnapshotPlot
 from bench.dashboard.pump_panel import PumpPanel
 from bench.dashboard.run_panel import RunPanel
-from bench.pipeline import Snapshot
+from bench.run.consumer import Snapshot
 
 #: Repaints per second (the snapshot timer).
 REFRESH_HZ = 30.0

@@ -1,10 +1,10 @@
 """The arming checklist as a modal screen: the same items as the terminal, one at a time.
 
 First the operator's name, with the notice that this software is a second layer only and
-the caution of the eyewear figures. Then each `bench.checklist.Item` in order: checks read
+the caution of the eyewear figures. Then each `bench.safety.checklist.Item` in order: checks read
 from the pump driver are shown with their verdict; yes/no confirmations take ``y`` or ``n``;
 eyewear items take the OD printed on the operator's eyewear. Asking stops at the first item
-that refuses arming. The answers then go to ``arm`` (`bench.measurement.Measurement.arm`),
+that refuses arming. The answers then go to ``arm`` (`bench.run.measurement.Measurement.arm`),
 which records every answer in the run and arms the guard only if all passed; the verdict is
 shown, refusals in words.
 
@@ -24,8 +24,8 @@ from textual.containers import Horizontal, Vertical, VerticalScroll
 from textual.screen import ModalScreen
 from textual.widgets import Button, Input, Static
 
-from bench import laser_safety
-from bench.checklist import (
+from bench.safety import exposure_limits as laser_safety
+from bench.safety.checklist import (
     CHECK, CONFIRM, EYEWEAR, SECOND_LAYER_NOTICE, Answer, ChecklistResult, Item, evaluate, parse_od,
 )
 from bench.errors import GainbenchError
@@ -36,7 +36,7 @@ REMINDER = ("Software layer only: the hardware interlock, your laser safety offi
 
 def verdict_of(items: Sequence[Item], index: int, answers: Mapping[str, Answer],
                readings: Mapping[str, object], operator: str, clock: Callable[[], float]) -> tuple[bool, str]:
-    """(ok, why) of item ``index`` given the answers so far (`bench.checklist.evaluate`'s wording)."""
+    """(ok, why) of item ``index`` given the answers so far (`bench.safety.checklist.evaluate`'s wording)."""
     result = evaluate(items, answers, readings, operator or "unnamed", clock=clock)
     record = result.records[index]
     parts = record.text.split(": ", 2)

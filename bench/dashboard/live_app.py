@@ -1,7 +1,7 @@
 """The live dashboard: a `Measurement` on screen, its keys, trips, notes and quitting.
 
 The bench procedures behind the keys (dark, baseline, mode, arming, emission, pump current)
-are in `bench.dashboard.bench_actions`. Everything that talks to an instrument or waits for
+are in `bench.dashboard.pump_actions`. Everything that talks to an instrument or waits for
 data runs in a textual thread worker, never on the event loop; workers report back through
 ``call_from_thread`` and never touch a widget. The screen is fed by the base class's timer
 from ``Measurement.snapshot()``. An unopened measurement is opened in a worker once the
@@ -22,7 +22,7 @@ from textual.app import ComposeResult
 from textual.binding import Binding
 
 from bench.dashboard.base_app import DashboardBase
-from bench.dashboard.bench_actions import BenchActions
+from bench.dashboard.pump_actions import BenchActions
 from bench.dashboard.guard_panel import GuardPanel
 from bench.dashboard.health_panel import HealthPanel
 from bench.dashboard.mode_screen import ModeChoice
@@ -30,8 +30,8 @@ from bench.dashboard.small_screens import HelpScreen, NoteScreen, QuitScreen
 from bench.dashboard.stats_poller import StatsPoller
 from bench.dashboard.trip_screen import TripScreen
 from bench.errors import GainbenchError
-from bench.measurement import Measurement, default_current
-from bench.pipeline import Snapshot
+from bench.run.measurement import Measurement, default_current
+from bench.run.consumer import Snapshot
 
 log = logging.getLogger(__name__)
 
@@ -81,7 +81,7 @@ class LiveDashboard(BenchActions, DashboardBase):
     ----------
     measurement : Measurement or RemoteMeasurement
         Closed by the caller (closing twice is harmless); opened here if it is not open yet.
-        `gainbench live` passes a `bench.bench_process.RemoteMeasurement`: the bench in a
+        `gainbench live` passes a `bench.run.measurement_process.RemoteMeasurement`: the bench in a
         process of its own.
     operator : str
         Who is at the bench (asked in the checklist when empty).

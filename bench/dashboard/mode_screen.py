@@ -23,8 +23,8 @@ from textual.widgets import Button, Input, Label, RadioButton, RadioSet, Static
 
 from bench.config import BenchConfig
 from bench.errors import GainbenchError
-from bench.estimate import MODES
-from bench.measurement import chop_frequency
+from bench.estimator.estimate import MODES
+from bench.run.measurement import chop_frequency
 
 MODE_WORDS = {
     "watch": "watch: steady pump",
@@ -57,7 +57,7 @@ class ModeChoice:
     @classmethod
     def defaults(cls, cfg: BenchConfig, mode: str = "watch") -> ModeChoice:
         """The bench's defaults: periods from the settle windows at the default current
-        (`bench.mode_timing.default_period`, through `chop_frequency`)."""
+        (`bench.estimator.timing.default_period`, through `chop_frequency`)."""
         return cls(mode, 1.0 / chop_frequency(cfg, "chopped"), 1.0 / chop_frequency(cfg, "decay"))
 
     @property
@@ -98,7 +98,7 @@ class ModeScreen(ModalScreen[ModeChoice | None]):
     """Pick a mode and edit its timing; enter or the apply button applies, escape cancels.
 
     ``check``, if given, is called with the choice before it is applied; a `ValueError` it
-    raises, or a `bench.errors.GainbenchError` (e.g. `bench.mode_timing.TimingError`: a period that leaves no settled data) is
+    raises, or a `bench.errors.GainbenchError` (e.g. `bench.estimator.timing.TimingError`: a period that leaves no settled data) is
     shown on the screen and the choice is not applied.
     """
 

@@ -21,8 +21,8 @@ import numpy as np
 from textual.reactive import reactive
 from textual_plotext import PlotextPlot
 
-from bench.estimator_params import FALLBACK_PUMP_THRESHOLD_V
-from bench.pipeline import Snapshot
+from bench.estimator.params import FALLBACK_PUMP_THRESHOLD_V
+from bench.run.consumer import Snapshot
 
 #: Colours (plotext names); each series also has its own legend entry or marker.
 PROBE_COLOUR = "cyan"

@@ -18,7 +18,7 @@ from bench.dashboard.base_app import DashboardBase
 from bench.dashboard.replay_feed import ReplayFeed
 from bench.dashboard.replay_panel import ReplayPanel
 from bench.dashboard.small_screens import HelpScreen
-from bench.pipeline import Snapshot
+from bench.run.consumer import Snapshot
 
 #: (keys, action, footer word, what it does).
 KEYS = (

@@ -1,7 +1,7 @@
 """A stored run fed through the pipeline in a thread, paced by a play clock that pauses, changes
 speed and seeks.
 
-`bench.replay.replay` runs at full speed (``speed=None``) in one thread; its ``on_block``
+`bench.run.replay.replay` runs at full speed (``speed=None``) in one thread; its ``on_block``
 callback paces it against the play clock, and its ``should_stop`` ends a pass early. Seeking
 forward fast-forwards (no pacing) to the target; seeking backward starts a new pass from the
 beginning and fast-forwards to the target: simple, and exactly what a live run would have
@@ -23,9 +23,9 @@ from dataclasses import dataclass
 from pathlib import Path
 
 from bench.errors import GainbenchError
-from bench.pipeline import Consumer, Snapshot
+from bench.run.consumer import Consumer, Snapshot
 from bench.records import Block, Event
-from bench.runstore import RunReader
+from bench.store import RunReader
 
 log = logging.getLogger(__name__)
 
@@ -91,7 +91,7 @@ class ReplayFeed:
             raise ValueError(f"speed: {speed!r} is not a positive number")
         self.path = Path(path)
         self.overrides = dict(overrides or {})
-        from bench.replay import run_config
+        from bench.run.replay import run_config
 
         with RunReader(self.path) as reader:
             self.cfg = run_config(reader, self.overrides)  # the bench file as recorded
@@ -222,7 +222,7 @@ class ReplayFeed:
         return self._stop.is_set() or self._restart.is_set()
 
     def _run(self) -> None:
-        from bench.replay import replay
+        from bench.run.replay import replay
 
         while not self._stop.is_set():
             self._restart.clear()

@@ -12,7 +12,7 @@ from textual.containers import Vertical, VerticalScroll
 from textual.screen import ModalScreen
 from textual.widgets import Input, Static
 
-from bench.checklist import SECOND_LAYER_NOTICE
+from bench.safety.checklist import SECOND_LAYER_NOTICE
 
 
 class HelpScreen(ModalScreen[None]):

@@ -1,0 +1,1 @@
+"""Run reports: the report's data, its figures and the HTML page."""

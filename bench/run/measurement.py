@@ -1,0 +1,719 @@
+"""A live measurement: instruments, readers, the consumer thread, the guard, and the run.
+
+`Measurement` puts the pieces together for `gainbench record` and the dashboard:
+
+- it starts the simulated bench when the bench file says ``resource = "simulated"``;
+- it opens every configured instrument through the driver registry;
+- it creates the run file and a `GuardedPump` (which commands the pump off at once);
+- it runs one reader thread per instrument and one consumer thread (`bench.run.consumer`);
+- it offers the procedures a person runs at the bench: capture dark, capture baseline,
+  arm through the checklist, emit, set the pump current, change mode;
+- `close` commands the pump off first, then stops the threads, then closes the run. It runs on
+  normal exit, on Ctrl-C and on an exception (use the object as a context manager).
+
+Procedures block the calling thread (the command line's main thread, or a dashboard worker),
+never the consumer.
+"""
+
+from __future__ import annotations
+
+import contextlib
+import gc
+import logging
+import math
+import queue
+import random
+import sys
+import threading
+import time
+from collections.abc import Callable, Mapping
+from typing import Any
+
+import numpy as np
+
+from bench import __version__
+from bench.run import stop_signals
+from bench.run.readers import (
+    DetectorReader,
+    DropCounter,
+    GuardPumpPort,
+    PumpAccess,
+    PumpReader,
+    Reader,
+    RunClock,
+    stop_readers,
+)
+from bench.config import BenchConfig
+from bench.errors import GainbenchError, Terminated
+from bench.estimator.params import EstimatorParams
+from bench.run.consumer import Consumer, Control, Snapshot, TruthItem
+from bench.records import Event
+
+log = logging.getLogger(__name__)
+
+#: Interpreter thread switch interval during a measurement (s); see `Measurement.open`.
+SWITCH_INTERVAL = 0.0005
+
+#: At close, s the consumer may go on analysing what is queued, then s it may take to store the
+#: rest without analysing it.
+CLOSE_ANALYSE_S = 10.0
+CLOSE_STORE_S = 30.0
+
+#: Run-clock s of data one detector block spans at least (the reader waits for that much):
+#: fewer, larger blocks cost the interpreter less per sample; a detector-based trip waits at
+#: most this long for its reading.
+MIN_BLOCK = 0.01
+
+#: Queue length in blocks; at 64k sample sets per block this is several seconds of data.
+QUEUE_BLOCKS = 256
+
+#: Real s between reads of the pump driver's error queue while the pump emits: a device fault
+#: the driver reports there (and nowhere else) trips the guard.
+ERROR_POLL = 0.25
+
+#: Run-clock s of the newest pump-monitor data averaged for the power-calibration check.
+MONITOR_SPAN = 0.01
+
+
+class MeasurementError(GainbenchError):
+    """A procedure could not be carried out (e.g. no data arrived)."""
+
+
+class Measurement:
+    """One live session on a bench; see the module docstring."""
+
+    def __init__(
+        self,
+        cfg: BenchConfig,
+        *,
+        mode: str = "watch",
+        settings: Mapping[str, Any] | None = None,
+        log_dir=None,
+        speed: float = 1.0,
+        faults: tuple[str, ...] = (),
+        operator: str = "",
+        record: bool = True,
+        fetch_sets: int | None = None,
+        pump_poll: float = 0.02,
+        min_block: float = MIN_BLOCK,
+        seed: int | None = None,
+        sim_in_process: bool = False,
+    ):
+        self.cfg = cfg
+        self.mode = mode
+        self.settings = dict(settings or {})
+        self.log_dir = log_dir if log_dir is not None else cfg.run.log_dir
+        self.speed = float(speed) if cfg.simulated else 1.0
+        self.faults = tuple(faults)
+        self.operator = operator or cfg.run.operator
+        self.record = record
+        self.fetch_sets = fetch_sets
+        self.pump_poll = pump_poll
+        self.min_block = min_block
+        self.seed = seed
+        self.sim_in_process = sim_in_process
+        self.sim = None
+        self.instruments: dict[str, Any] = {}
+        self.identities: dict[str, str] = {}
+        self.store = None
+        self.guarded_pump = None
+        self.monitor = None
+        self.consumer: Consumer | None = None
+        self.clock = RunClock(self.speed)
+        self.drops = DropCounter()
+        self.data_q: queue.Queue = queue.Queue(maxsize=QUEUE_BLOCKS)
+        self.pump_q: queue.Queue = queue.Queue(maxsize=QUEUE_BLOCKS)
+        self.control_q: queue.SimpleQueue = queue.SimpleQueue()
+        self.stop_flag = threading.Event()
+        self._store_only = threading.Event()  # set at a late close: store, do not analyse
+        self.readers: list[Reader] = []
+        self._consumer_thread: threading.Thread | None = None
+        self._truth_thread: threading.Thread | None = None
+        self._consumer_error: BaseException | None = None
+        self._closed = False
+        self._started_wall = None
+        self._monitor_level: tuple[float, float] | None = None  # (run-clock t, V) of the pump monitor
+
+    # -- life cycle ---------------------------------------------------------------------------
+    def __enter__(self) -> Measurement:
+        try:
+            self.open()
+        except BaseException:
+            self.close(reason="failed to start")
+            raise
+        return self
+
+    def __exit__(self, exc_type, exc, tb) -> None:
+        if exc_type is KeyboardInterrupt:
+            reason = "interrupted (Ctrl-C)"
+        elif exc_type is not None and issubclass(exc_type, Terminated):
+            reason = f"terminated ({exc.signal_name})"
+        elif exc_type is not None:
+            reason = f"stopped by an error: {exc_type.__name__}: {exc}"
+        else:
+            reason = "stopped"
+        self.close(reason=reason)
+
+    def open(self) -> None:
+        from bench.safety.guarded_pump import GuardedPump
+        from bench.run.preflight import override_events
+        from bench.safety.conditions import POLL_SPAN, TripMonitor
+        from drivers.registry import open_instrument
+
+        cfg = self.cfg
+        # Threads waiting on an instrument's reply get the interpreter back within 0.5 ms
+        # instead of the default 5 ms: the guard's exchanges with the pump are several
+        # hand-overs each, and trip latency is what this buys (a little throughput is the cost).
+        sys.setswitchinterval(SWITCH_INTERVAL)
+        resources = {role: inst.resource for role, inst in cfg.instruments.items()}
+        if any(r == "simulated" for r in resources.values()):
+            if self.sim_in_process:
+                from simulated_instruments.bench import SimulatedBench
+
+                self.sim = SimulatedBench(cfg, speed=self.speed, faults=self.faults, seed=self.seed)
+            else:
+                from bench.run.simulator_process import SimulatorProcess
+
+                self.sim = SimulatorProcess(cfg, speed=self.speed, faults=self.faults, seed=self.seed)
+            self.sim.__enter__()
+            resources = {role: (self.sim.resources[role] if r == "simulated" else r) for role, r in resources.items()}
+        for role, inst in cfg.instruments.items():
+            if role not in resources:
+                continue
+            driver = open_instrument(role, inst.driver, resources[role], inst.profile, inst.timeout, dict(inst.options))
+            self.instruments[role] = driver
+            try:
+                self.identities[role] = str(driver.identify())
+            except GainbenchError as exc:
+                raise MeasurementError(f"{role} at {resources[role]}: no identity ({exc})") from exc
+            self._clear_error_queue(role, driver)
+        pump = self.instruments["pump"]
+        shutter = self.instruments.get("shutter")
+        self.clock = RunClock(self.speed)  # the run's time zero: instruments open, nothing read yet
+        if self.record:
+            from bench.store import RunWriter
+
+            self.store = RunWriter.from_config(cfg, mode=self.mode, instruments=self.identities,
+                                               log_dir=self.log_dir,
+                                               meta={"speed": self.speed, "faults": list(self.faults)})
+            self.store.set_meta(estimator_mode=self.mode, estimator_settings=self.settings,
+                                bench_overrides=dict(cfg.overrides))
+            if self.operator:
+                self.store.set_meta(operator=self.operator)
+        guard_cfg = cfg.guard
+        if self.speed != 1.0:
+            # Times are run-clock (simulated) seconds: an instrument silent for stale_after of
+            # real time is silent for speed times that on the run clock.
+            from dataclasses import replace
+
+            guard_cfg = replace(guard_cfg, stale_after=guard_cfg.stale_after * self.speed)
+        # Transport delays are real time too: at speed X they span X times as much run-clock time.
+        self.monitor = TripMonitor(guard_cfg, started_at=self.clock.now(), lag_allowance=POLL_SPAN * self.speed)
+        self.pump_access = PumpAccess()
+        self.guarded_pump = GuardedPump.from_config(
+            GuardPumpPort(pump, self.pump_access), cfg, shutter=shutter, clock=self.clock.now, event_sink=self.control_q.put, monitor=self.monitor,
+        )
+        self.guarded_pump.start(who="gainbench (start: pump output off)")
+        detector = self.instruments["detector"]
+        detector.configure()
+        params = EstimatorParams.from_config(cfg)
+        self.params = params
+        # The guard's checks run in the reader threads (see `_guard_block`), not in the consumer.
+        self.consumer = Consumer(
+            params, self.mode, self.settings, store=self.store, guarded_pump=self.guarded_pump,
+            now=self.clock.now, drop_totals=self.drops.totals,
+        )
+        self.consumer.extra["identities"] = dict(self.identities)
+        rate = float(detector.rate_hz)
+        # A fetch returns what is waiting, up to this: enough to catch up on a backlog at once.
+        fetch = self.fetch_sets or int(min(65536, max(1024, rate * self.speed * 0.25)))
+        det_reader = DetectorReader(detector, self.data_q, self.clock, self.drops, self.stop_flag, max_sets=fetch,
+                                    min_block=self.min_block)
+        # The pump's readings have a queue of their own, served first: a trip condition must not
+        # wait behind a backlog of detector blocks.
+        pump_reader = PumpReader(pump, self.pump_q, self.clock, self.drops, self.stop_flag,
+                                 period=self.pump_poll, access=self.pump_access)
+        self.readers = [det_reader, pump_reader]
+        for r in self.readers:
+            r.on_block = self._guard_block
+            r.on_comm = self._guard_comm
+        self._consumer_thread = threading.Thread(target=self._consume, name="consumer", daemon=True)
+        self._consumer_thread.start()
+        self.monitor.started_at = self.clock.now()  # staleness counts from here
+        det_reader.start_acquisition()
+        self.control_q.put(Event(self.clock.now(), "run", f"run started on {cfg.name}", self.operator or "gainbench",
+                                 data={"mode": self.mode, "speed": self.speed, "simulated": cfg.simulated}))
+        for event in override_events(cfg, self.clock.now(), self.operator or "gainbench"):  # --accept-lower-od
+            self.control_q.put(event)
+        for r in self.readers:
+            r.start()
+        self._watch_thread = threading.Thread(target=self._watch_stale, name="guard-watch", daemon=True)
+        self._watch_thread.start()
+        self._pump_check_thread = threading.Thread(target=self._pump_checks, name="pump-checks", daemon=True)
+        self._pump_check_thread.start()
+        # What exists now (imports, drivers, the run file) lives as long as the run: out of the
+        # collector's reach, a full collection scans only what the run makes, and no longer
+        # holds the readers up for 100 ms or more.
+        gc.freeze()
+        if self.sim is not None:
+            self._truth_thread = threading.Thread(target=self._poll_truth, name="truth", daemon=True)
+            self._truth_thread.start()
+
+    def close(self, reason: str = "stopped") -> None:
+        """Pump off first, then stop the threads, then close the run file. Safe to call twice.
+
+        Ctrl-C and termination signals arriving meanwhile are held until it has finished: they
+        must not cut off the pump-off command, its read-back or the closing of the run file.
+        """
+        if self._closed:
+            return
+        self._closed = True
+        with stop_signals.shielded("the pump is off and the run closed"):
+            self._close(reason)
+
+    def _close(self, reason: str) -> None:
+        if self.guarded_pump is not None:
+            try:
+                self.guarded_pump.shutdown(reason=reason)
+            except Exception:  # the guard logs loudly itself; closing must go on
+                log.exception("pump shutdown")
+        stop_readers(self.readers, self.stop_flag, timeout=5.0,
+                     on_stuck=lambda r: log.error("reader %s did not stop", r.name))
+        if self._truth_thread is not None:
+            self._truth_thread.join(2.0)
+        if getattr(self, "_watch_thread", None) is not None:
+            self._watch_thread.join(2.0)
+        if getattr(self, "_pump_check_thread", None) is not None:
+            self._pump_check_thread.join(2.0)
+        if self._consumer_thread is not None:
+            # The consumer finishes what the readers queued before the run file closes. If it
+            # is far behind (an accelerated bench producing estimates faster than they can be
+            # made), it stores the rest of the raw blocks without analysing them: replay
+            # analyses them later; nothing read is lost.
+            self._consumer_thread.join(CLOSE_ANALYSE_S)
+            if self._consumer_thread.is_alive():
+                self._store_only.set()
+                self._consumer_thread.join(CLOSE_STORE_S)
+            if self._consumer_thread.is_alive():
+                log.error("the consumer did not finish within %.0f s; the run file is closed without the "
+                          "blocks still queued", CLOSE_ANALYSE_S + CLOSE_STORE_S)
+        if self.store is not None:
+            try:
+                if self.consumer is not None:
+                    self.consumer.drain_events(self.control_q)
+                    if self.consumer.unanalysed_blocks:
+                        self.consumer.record_event(Event(
+                            self.clock.now(), "run",
+                            f"{self.consumer.unanalysed_blocks} detector blocks stored at close without being "
+                            "analysed (the analysis was behind); replay analyses them",
+                            data={"unanalysed_blocks": self.consumer.unanalysed_blocks}))
+                    self.consumer.record_event(Event(self.clock.now(), "run", f"run {reason}"))
+                self.store.close(reason=reason)
+            except Exception:
+                log.exception("closing the run file")
+        for role, inst in list(self.instruments.items()):
+            with contextlib.suppress(Exception):
+                if role == "detector":
+                    inst.stop()
+            with contextlib.suppress(Exception):
+                inst.close()
+        if self.sim is not None:
+            with contextlib.suppress(Exception):
+                self.sim.__exit__(None, None, None)
+
+    # -- threads --------------------------------------------------------------------------
+    def _consume(self) -> None:
+        c = self.consumer
+        assert c is not None
+        last_tick = 0.0
+        try:
+            while True:
+                c.drain_controls(self.control_q)
+                c.drain_controls(self.pump_q)
+                try:
+                    item = self.data_q.get(timeout=0.005)
+                except queue.Empty:
+                    item = None
+                    if self.stop_flag.is_set():
+                        break
+                if item is not None:
+                    if self._store_only.is_set():
+                        c.store_only(item)
+                    else:
+                        c.process(item)
+                now = time.monotonic()
+                if now - last_tick >= 0.05:
+                    last_tick = now
+                    c.tick(self.clock.now())
+            c.drain_controls(self.pump_q)
+            c.drain_controls(self.control_q)
+            c.finish()  # the stream has ended: a sweep's open step becomes its last point
+        except BaseException as exc:  # the pump goes off on any failure of the pipeline
+            self._consumer_error = exc
+            log.exception("consumer failed; switching the pump off")
+            if self.guarded_pump is not None:
+                with contextlib.suppress(Exception):
+                    self.guarded_pump.trip("the acquisition pipeline failed: " + repr(exc), "pipeline_failure",
+                                           self.clock.now())
+            self.stop_flag.set()
+
+    # -- the guard's checks, in the threads that read ------------------------------------------
+    def _guard_block(self, block) -> None:
+        gp, mon = self.guarded_pump, self.monitor
+        now = self.clock.now()
+        if block.source == "detector" and block.n and "pump_monitor" in block.channels:
+            k = max(1, min(block.n, int(round(MONITOR_SPAN / block.dt)) if block.dt > 0 else 1))
+            self._monitor_level = (block.t_end, float(np.mean(block.column("pump_monitor")[-k:])))
+        if block.source == "pump":
+            found = mon.feed_pump(block, output_off_since=gp.output_off_since,
+                                  output_on_since=gp.output_on_since, received_at=now)
+        elif block.source == "detector" and self.params.detector_range is not None:
+            found = mon.feed_detector(block, self.params.detector_range, pump_steady=self.mode == "watch",
+                                      received_at=now)
+        else:
+            return
+        if found:
+            gp.trip_on(found)
+
+    def _guard_comm(self, status) -> None:
+        found = self.monitor.comm_result(status.source, status.ok, status.t, status.detail, lost=status.lost)
+        if found:
+            self.guarded_pump.trip_on(found)
+
+    def _watch_stale(self) -> None:
+        """Trips when an instrument has given no fresh reading for too long (20 checks a second).
+
+        It never talks to an instrument: a slow or silent instrument must not hold up the very
+        check that notices it (the pump checks that do talk run in `_pump_checks`)."""
+        while not self.stop_flag.wait(0.05):
+            try:
+                found = self.monitor.check_stale(self.clock.now())
+                if found:
+                    self.guarded_pump.trip_on(found)
+            except Exception:
+                log.exception("stale-reading check failed")
+
+    def _pump_checks(self) -> None:
+        """While the pump emits, every `ERROR_POLL` s: read the pump driver's error queue and
+        compare its power reading with the bench file's calibration. These exchanges can take
+        as long as the driver's timeout, so they have this thread of their own."""
+        while not self.stop_flag.wait(ERROR_POLL):
+            try:
+                self._poll_pump_errors()
+            except Exception:
+                log.exception("reading the pump driver's error queue failed")
+            try:
+                self._check_power_calibration()
+            except Exception:
+                log.exception("the pump power calibration check failed")
+
+    def _poll_pump_errors(self) -> None:
+        from bench.safety.conditions import check_device_errors
+        from drivers.errors import InstrumentError
+
+        if self.guarded_pump.state != "emitting":
+            return
+        self.pump_access.wait_for_turn()  # the guard's own commands go first
+        try:
+            entries = self.instruments["pump"].instrument_errors()
+        except InstrumentError:  # a failed exchange: the pump reader's checks deal with those
+            return
+        if not entries:
+            return
+        now = self.clock.now()
+        found = check_device_errors("pump driver", [(e.code, e.text) for e in entries], now)
+        self.control_q.put(Event(now, "fault", found.reason, data={
+            "source": "pump", "errors": [[e.code, e.text] for e in entries]}))
+        self.guarded_pump.trip_on([found])
+
+    def _check_power_calibration(self) -> None:
+        """While the pump emits at a settled current, compare the bench file's power calibration
+        with the driver's power reading (profiles with ``power``) and, in steady modes, with the
+        pump monitor through its responsivity; a disagreement trips (`trip_conditions`)."""
+        from bench.records import PUMP_CURRENT, PUMP_SETPOINT
+        from bench.safety.conditions import check_power_calibration
+        from drivers.errors import InstrumentError
+
+        gp, mon = self.guarded_pump, self.monitor
+        on_since = gp.output_on_since
+        now = self.clock.now()
+        if gp.state != "emitting" or on_since is None or now - on_since < mon.output_grace:
+            return
+        values = mon.latest().values
+        if PUMP_CURRENT not in values or PUMP_SETPOINT not in values:
+            return
+        t_i, current = values[PUMP_CURRENT]
+        if t_i <= on_since or abs(current - values[PUMP_SETPOINT][1]) > self.cfg.guard.current_tolerance:
+            return  # not settled at its setpoint yet (or a sweep step is under way)
+        expected = self.cfg.pump.power_at(current)
+        found = []
+        pump = self.instruments["pump"]
+        changed = gp.changed_at
+        if t_i <= changed:
+            return  # the current reading is older than the last change (a sweep step)
+        if pump.session.has("power"):
+            self.pump_access.wait_for_turn()
+            try:
+                measured = pump.power()
+            except InstrumentError:  # a failed exchange: the pump reader's checks deal with those
+                measured = None
+            if gp.changed_at != changed:
+                measured = None  # the current changed while the power was read: compare next time
+            if measured is not None:
+                found.append(check_power_calibration(expected, measured, current,
+                                                     "the pump driver's power reading", now))
+        level = self._monitor_level
+        per_watt = self.params.monitor_per_watt
+        if (level is not None and per_watt and self._pump_steady() and level[0] > max(on_since, t_i)
+                and now - level[0] < 1.0):
+            found.append(check_power_calibration(
+                expected, level[1] / per_watt, current,
+                f"the pump monitor ({level[1]:.4g} V at {per_watt:.4g} V/W)", now))
+        found = [c for c in found if c is not None]
+        if found:
+            gp.trip_on(found[:1])
+
+    def _pump_steady(self) -> bool:
+        """Whether this mode keeps the pump at a steady level while it emits (watch, and a
+        sweep measured with steady steps); chopped, decay and chopped sweeps modulate it."""
+        return self.mode == "watch" or (self.mode == "sweep" and self.settings.get("method", "watch") == "watch")
+
+    def _clear_error_queue(self, role: str, driver) -> None:
+        """Empty an instrument's error queue at start: what it holds is from before this run
+        (and would otherwise be blamed on this run's first setting). Noted as a run event."""
+        try:
+            entries = driver.instrument_errors()
+        except GainbenchError as exc:
+            raise MeasurementError(f"{role}: reading its error queue at start failed ({exc})") from exc
+        if entries:
+            listed = "; ".join(f"{e.code}, {e.text!r}" for e in entries)
+            self.control_q.put(Event(0.0, "run", f"{role}: error queue at start held (from before this run, "
+                                     f"cleared): {listed}", data={"source": role,
+                                                                  "errors": [[e.code, e.text] for e in entries]}))
+
+    def _poll_truth(self) -> None:
+        """The simulator's truth about every 50 ms of real time, over a connection of its own."""
+        from drivers.registry import open_instrument
+
+        det = self.readers[0]
+        inst = self.cfg.instruments["detector"]
+        try:
+            conn = open_instrument("detector", inst.driver, self.sim.resources["detector"], inst.profile,
+                                   inst.timeout, dict(inst.options))
+        except Exception:  # no truth then; the run goes on
+            log.warning("cannot reach the simulator for its truth", exc_info=True)
+            return
+        try:
+            self._truth_loop(det, conn)
+        finally:
+            with contextlib.suppress(Exception):
+                conn.close()
+
+    def _truth_loop(self, det, conn) -> None:
+        # every 30-70 ms at random, so that the rows never lock to the phase of a chopped pump
+        jitter = random.Random()
+        warned = False
+        while not self.stop_flag.wait(jitter.uniform(0.03, 0.07)):
+            try:
+                truth = conn.sim_truth()  # t: simulated s since the digitiser's INIT
+            except Exception:  # a fault on this connection (it reconnects), or the simulator is closing
+                if not warned:
+                    log.warning("the simulator's truth query failed (further failures not logged)", exc_info=True)
+                    warned = True
+                continue
+            names = {"t": "sim_t", "pump_W": "pump_w"}
+            values = {names.get(k, k): float(v) for k, v in truth.items()}
+            self.control_q.put(TruthItem(det.t_start + values.get("sim_t", 0.0), values))
+
+    # -- state for displays -------------------------------------------------------------------
+    def snapshot(self, with_history: bool = True) -> Snapshot:
+        assert self.consumer is not None
+        return self.consumer.snapshot(with_history=with_history)
+
+    @property
+    def is_open(self) -> bool:
+        """`open` has set up the pipeline (it stays so after `close`, for the last snapshot)."""
+        return self.consumer is not None
+
+    @property
+    def run_id(self) -> str | None:
+        return getattr(self.store, "run_id", None)
+
+    @property
+    def run_path(self):
+        return getattr(self.store, "path", None)
+
+    def check_alive(self) -> None:
+        if self._consumer_error is not None:
+            raise MeasurementError(f"the acquisition pipeline failed: {self._consumer_error!r}")
+
+    # -- waiting on data time ---------------------------------------------------------------
+    def data_time(self) -> float:
+        assert self.consumer is not None
+        return self.consumer.snapshot(with_history=False).t
+
+    def wait_data_until(self, t: float, timeout: float | None = None) -> None:
+        """Block until the consumer has processed detector data up to run-clock time ``t``."""
+        limit = timeout if timeout is not None else 5.0 + max(0.0, t - self.data_time()) / self.speed * 3 + 5.0
+        deadline = time.monotonic() + limit
+        while self.data_time() < t:
+            self.check_alive()
+            if time.monotonic() > deadline:
+                raise MeasurementError(f"no detector data up to t = {t:.3f} s after {limit:.1f} s of waiting")
+            time.sleep(0.005)
+
+    def hold(self, seconds: float, should_stop: Callable[[], bool] | None = None,
+             on_tick: Callable[[], None] | None = None, tick: float = 1.0) -> None:
+        """Let data flow for ``seconds`` of run-clock time."""
+        end = self.clock.now() + seconds
+        next_tick = time.monotonic() + tick
+        while self.clock.now() < end:
+            self.check_alive()
+            if should_stop is not None and should_stop():
+                return
+            time.sleep(min(0.02, max(0.0, (end - self.clock.now()) / self.speed)))
+            if on_tick is not None and time.monotonic() >= next_tick:
+                next_tick += tick
+                on_tick()
+
+    # -- procedures -----------------------------------------------------------------------------
+    def capture_dark(self, seconds: float = 0.2, settle: float = 0.1, who: str = "gainbench") -> None:
+        """Close the probe shutter, take ``seconds`` of dark, open it again."""
+        shutter = self.instruments.get("shutter")
+        if shutter is None:
+            raise MeasurementError("capture dark: no shutter is configured to block the probe; "
+                                   "block it by hand and use a bench file with a shutter, or skip the dark")
+        shutter.close_shutter("probe")
+        try:
+            t0 = self.clock.now() + settle
+            t1 = t0 + seconds
+            self.wait_data_until(t1 + 0.01)
+            self._apply_and_wait(Control("dark", self.clock.now(), {"t_start": t0, "t_end": t1}, who))
+        finally:
+            shutter.open_shutter("probe")
+            self.hold(settle)
+
+    def capture_baseline(self, seconds: float = 0.3, who: str = "gainbench") -> None:
+        """Pump off, wait for the medium to relax (settle time), take ``seconds`` of baseline."""
+        assert self.guarded_pump is not None
+        if self.guarded_pump.state == "emitting":
+            self.guarded_pump.stop_emission(who=f"{who} (baseline needs the pump off)")
+        settle = max(self.params.settle_time, 0.03)
+        t0 = self.clock.now() + settle
+        t1 = t0 + seconds
+        self.wait_data_until(t1 + 0.01)
+        self._apply_and_wait(Control("baseline", self.clock.now(), {"t_start": t0, "t_end": t1}, who))
+
+    def _apply_and_wait(self, control: Control, timeout: float = 10.0) -> str:
+        """Hand a capture to the consumer and wait for its outcome; MeasurementError if it failed."""
+        assert self.consumer is not None
+        before = len(self.consumer.procedure_results)
+        self.control_q.put(control)
+        deadline = time.monotonic() + timeout
+        while len(self.consumer.procedure_results) <= before:
+            self.check_alive()
+            if time.monotonic() > deadline:
+                raise MeasurementError(f"{control.kind}: the pipeline did not apply it within {timeout:.0f} s")
+            time.sleep(0.005)
+        kind, ok, text = self.consumer.procedure_results[before]
+        if not ok:
+            raise MeasurementError(f"{kind} capture failed: {text}")
+        return text
+
+    def set_mode(self, mode: str, settings: Mapping[str, Any] | None = None, who: str = "gainbench") -> None:
+        self.mode = mode
+        self.settings = dict(settings or {})
+        self.control_q.put(Control("mode", self.clock.now(), {"mode": mode, "settings": dict(settings or {})}, who))
+
+    def set_current(self, current: float, who: str = "gainbench") -> None:
+        """Set the pump current through the guard (which refuses values above its limit)."""
+        assert self.guarded_pump is not None
+        self.guarded_pump.set_current(current, who=who)
+        power = self.cfg.pump.power_at(current)
+        self.control_q.put(Control("setting", self.clock.now(), {"pump_current": float(current),
+                                                                 "pump_power": float(power)}, who))
+
+    def set_modulation(self, hz: float | None, who: str = "gainbench") -> None:
+        pump = self.instruments["pump"]
+        with stop_signals.shielded():  # never a pump exchange cut in half (see GuardedPump._run)
+            pump.set_modulation(hz)
+        self.control_q.put(Event(self.clock.now(), "setting",
+                                 "pump modulation off" if hz is None else f"pump modulation {hz:g} Hz", who,
+                                 data={"modulation_hz": hz}))
+
+    def set_operator(self, name: str) -> None:
+        """The person running the measurement, once known (e.g. asked at the checklist)."""
+        name = name.strip() if isinstance(name, str) else ""
+        if not name:
+            raise MeasurementError("operator: name the person running the measurement")
+        self.operator = name
+        if self.store is not None:
+            self.store.set_meta(operator=name)
+        self.control_q.put(Event(self.clock.now(), "run", f"operator: {name}", name, data={"operator": name}))
+
+    def note(self, text: str, who: str | None = None) -> None:
+        self.control_q.put(Event(self.clock.now(), "note", text, who or self.operator or "operator"))
+
+    # -- arming ---------------------------------------------------------------------------------
+    def checklist_items(self):
+        from bench.safety.checklist import checklist_items
+
+        return checklist_items(self.cfg)
+
+    def pump_readings(self) -> dict[str, object]:
+        from bench.safety.checklist import read_pump
+
+        return read_pump(self.instruments["pump"])
+
+    def arm(self, answers, operator: str):
+        """Judge the checklist answers; arm the guard if they pass. Returns the result."""
+        from bench.safety.checklist import evaluate
+
+        assert self.guarded_pump is not None
+        result = evaluate(self.checklist_items(), answers, self.pump_readings(), operator, clock=self.clock.now)
+        for ev in result.records:
+            self.control_q.put(ev)
+        if result.passed:
+            self.guarded_pump.arm(result, who=operator)
+        return result
+
+    def emit(self, who: str) -> None:
+        assert self.guarded_pump is not None
+        self.guarded_pump.emit(who)
+
+    def stop_emission(self, who: str = "gainbench") -> None:
+        assert self.guarded_pump is not None
+        self.guarded_pump.stop_emission(who=who)
+
+    def acknowledge(self, who: str) -> None:
+        assert self.guarded_pump is not None
+        self.guarded_pump.acknowledge(who)
+
+
+def default_current(cfg: BenchConfig) -> float:
+    """80 % of the lower of the pump's and the guard's current limits."""
+    return 0.8 * min(cfg.pump.max_current, cfg.guard.max_current)
+
+
+def chop_frequency(cfg: BenchConfig, mode: str, current: float | None = None) -> float:
+    """Default pump modulation (Hz) of chopped and decay modes at ``current`` (default: the
+    default current), from the settle windows (`bench.estimator.timing.default_period`)."""
+    from bench.estimator.timing import default_period
+
+    i = default_current(cfg) if current is None else current
+    return 1.0 / default_period(EstimatorParams.from_config(cfg), mode, cfg.pump.power_at(i))
+
+
+def sweep_currents(cfg: BenchConfig, steps: int) -> list[float]:
+    """Pump currents of a sweep: from just above threshold to the default current."""
+    lo = cfg.pump.threshold_current + 0.1 * (default_current(cfg) - cfg.pump.threshold_current)
+    hi = default_current(cfg)
+    if steps < 2:
+        return [hi]
+    return [lo + (hi - lo) * k / (steps - 1) for k in range(steps)]
+
+
+def fmt_quantity(q, digits: int = 4) -> str:
+    if q is None or not math.isfinite(q.value):
+        return "-"
+    return f"{q.value:.{digits}g} ± {q.sigma:.2g}"
