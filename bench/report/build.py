@@ -220,7 +220,7 @@ def _write_text(path: Path, text: str) -> None:
 
 def draw_figures(reader: RunReader, data: ReportData, out: Path, *, buckets: int = 800) -> list[FigureFile]:
     """Draw and save every figure the run has data for."""
-    from bench.report.build import figures as rf
+    from bench.report import figures as rf
 
     written: list[FigureFile] = []
     failed: list[tuple[str, str]] = data.extra.setdefault("figure_errors", [])
@@ -315,7 +315,7 @@ def build_report(run: str | Path, out_dir: str | Path | None = None, *, analysis
     analysis : ``"live"`` (default), ``"all"``, or an analysis id.
     buckets : time buckets of the decimated signal figure.
     """
-    from bench.report.build import html as report_html
+    from bench.report import html as report_html
 
     which = parse_analysis(analysis)
     if isinstance(buckets, bool) or not isinstance(buckets, int) or buckets < 10:
