@@ -9,12 +9,13 @@ every loop checks its stop flag, so the threads end promptly when asked.
 
 from __future__ import annotations
 
+import contextlib
 import logging
 import math
 import queue
 import threading
 import time
-from collections.abc import Callable
+from collections.abc import Callable, Iterator
 from dataclasses import dataclass
 
 import numpy as np
@@ -256,21 +257,18 @@ class PumpAccess:
         self._urgent = 0
         self._idle = threading.Condition(self._lock)
 
-    def urgent(self):
-        access = self
-
-        class _Urgent:
-            def __enter__(self_inner):
-                with access._lock:
-                    access._urgent += 1
-
-            def __exit__(self_inner, *exc):
-                with access._lock:
-                    access._urgent -= 1
-                    if access._urgent == 0:
-                        access._idle.notify_all()
-
-        return _Urgent()
+    @contextlib.contextmanager
+    def urgent(self) -> Iterator[None]:
+        """While inside, the reader starts no new query (the guard's command goes first)."""
+        with self._lock:
+            self._urgent += 1
+        try:
+            yield
+        finally:
+            with self._lock:
+                self._urgent -= 1
+                if self._urgent == 0:
+                    self._idle.notify_all()
 
     def wait_for_turn(self, timeout: float = 1.0) -> None:
         """Called by the reader before each query: wait while a guard command is pending."""
@@ -286,19 +284,7 @@ class GuardPumpPort:
         self._pump = pump
         self._access = access
 
-    def __getattr__(self, name):
-        attr = getattr(self._pump, name)
-        if not callable(attr):
-            return attr
-        access = self._access
-
-        def call(*args, **kwargs):
-            with access.urgent():
-                return attr(*args, **kwargs)
-
-        return call
-
-    # the methods the guard's protocol names, so isinstance checks against it pass
+    # exactly the methods of the guard's PumpOutput protocol: nothing else reaches the driver here
     def output(self, on: bool) -> None:
         with self._access.urgent():
             self._pump.output(on)

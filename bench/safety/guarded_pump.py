@@ -218,7 +218,6 @@ class GuardedPump:
         self._on_since: float | None = None
         self._changed_at = -math.inf
         self._latencies: deque[float] = deque(maxlen=1000)
-        self._recent: deque[Event] = deque(maxlen=1000)
 
     @classmethod
     def from_config(cls, pump: PumpOutput, cfg: BenchConfig, **kwargs: object) -> GuardedPump:
@@ -245,11 +244,6 @@ class GuardedPump:
         return self._guard.trip_reason
 
     @property
-    def output_commanded_on(self) -> bool:
-        """Whether the guard last commanded the output on."""
-        return self._commanded_on
-
-    @property
     def output_off_since(self) -> float | None:
         """Run-clock time the output was last commanded off; None while commanded on.
 
@@ -273,12 +267,6 @@ class GuardedPump:
         """Latencies (s) of recent trips: seen_at to the off command completing."""
         with self._lock:
             return list(self._latencies)
-
-    @property
-    def recent_events(self) -> list[Event]:
-        """The last events recorded (at most 1000), oldest first."""
-        with self._lock:
-            return list(self._recent)
 
     # -- commands --------------------------------------------------------------------------
     def start(self, who: str = "gainbench") -> Outcome:
@@ -581,7 +569,6 @@ class GuardedPump:
         }))
 
     def _record(self, event: Event) -> None:
-        self._recent.append(event)
         if event.kind == "fault":
             log.critical("gainbench guard: %s", event.text)
         elif event.kind == "trip" or event.data.get("accepted") is False:
