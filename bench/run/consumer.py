@@ -164,7 +164,6 @@ class Consumer:
         self._t = 0.0
         self.sample_rate: float | None = None
         self.extra: dict[str, Any] = {}
-        self._last_off_retry = 0.0
         self.last_estimates: list[Estimate] = []
         #: (kind, ok, text) of each dark/baseline/mode/setting control, in order applied.
         self.procedure_results: list[tuple[str, bool, str]] = []
@@ -283,17 +282,8 @@ class Consumer:
                                       "first_index": block.first_index, "seq": block.seq}))
 
     def _pump_block(self, block: Block) -> None:
+        # (the guard judges pump readings in the reader's thread: `bench.safety.bench_checks`)
         row = block.data[-1]
-        gp = self.guarded_pump
-        if gp is not None and gp.state != "emitting" and "pump_on" in block.channels:
-            # The output reads on although the guard has not let it emit: command it off again
-            # (a failed off command is retried on every reading until the output reads off).
-            off_since = gp.output_off_since
-            taken_after_off = off_since is not None and block.t0 > off_since + 0.1
-            if (block.column("pump_on")[-1] > 0.5 and taken_after_off
-                    and time.monotonic() - self._last_off_retry > 0.1):
-                self._last_off_retry = time.monotonic()
-                gp.stop_emission(who="gainbench (output read on while not emitting)")
         with self._lock:
             self._pump = {c: float(v) for c, v in zip(block.channels, row)}
             if self.traces:

@@ -29,15 +29,11 @@ import time
 from collections.abc import Callable, Mapping
 from typing import Any
 
-import numpy as np
-
 from bench import __version__
 from bench.run import stop_signals
 from bench.run.readers import (
     DetectorReader,
     DropCounter,
-    GuardPumpPort,
-    PumpAccess,
     PumpReader,
     Reader,
     RunClock,
@@ -66,13 +62,6 @@ MIN_BLOCK = 0.01
 
 #: Queue length in blocks; at 64k sample sets per block this is several seconds of data.
 QUEUE_BLOCKS = 256
-
-#: Real s between reads of the pump driver's error queue while the pump emits: a device fault
-#: the driver reports there (and nowhere else) trips the guard.
-ERROR_POLL = 0.25
-
-#: Run-clock s of the newest pump-monitor data averaged for the power-calibration check.
-MONITOR_SPAN = 0.01
 
 
 class MeasurementError(GainbenchError):
@@ -116,6 +105,7 @@ class Measurement:
         self.instruments: dict[str, Any] = {}
         self.identities: dict[str, str] = {}
         self.store = None
+        self.checks = None  # the guard: monitor, guarded pump and checks (bench.safety.bench_checks)
         self.guarded_pump = None
         self.monitor = None
         self.consumer: Consumer | None = None
@@ -132,7 +122,6 @@ class Measurement:
         self._consumer_error: BaseException | None = None
         self._closed = False
         self._started_wall = None
-        self._monitor_level: tuple[float, float] | None = None  # (run-clock t, V) of the pump monitor
 
     # -- life cycle ---------------------------------------------------------------------------
     def __enter__(self) -> Measurement:
@@ -155,9 +144,8 @@ class Measurement:
         self.close(reason=reason)
 
     def open(self) -> None:
-        from bench.safety.guarded_pump import GuardedPump
         from bench.run.preflight import override_events
-        from bench.safety.conditions import POLL_SPAN, TripMonitor
+        from bench.safety.bench_checks import BenchChecks
         from drivers.registry import open_instrument
 
         cfg = self.cfg
@@ -200,25 +188,17 @@ class Measurement:
                                 bench_overrides=dict(cfg.overrides))
             if self.operator:
                 self.store.set_meta(operator=self.operator)
-        guard_cfg = cfg.guard
-        if self.speed != 1.0:
-            # Times are run-clock (simulated) seconds: an instrument silent for stale_after of
-            # real time is silent for speed times that on the run clock.
-            from dataclasses import replace
-
-            guard_cfg = replace(guard_cfg, stale_after=guard_cfg.stale_after * self.speed)
-        # Transport delays are real time too: at speed X they span X times as much run-clock time.
-        self.monitor = TripMonitor(guard_cfg, started_at=self.clock.now(), lag_allowance=POLL_SPAN * self.speed)
-        self.pump_access = PumpAccess()
-        self.guarded_pump = GuardedPump.from_config(
-            GuardPumpPort(pump, self.pump_access), cfg, shutter=shutter, clock=self.clock.now, event_sink=self.control_q.put, monitor=self.monitor,
-        )
-        self.guarded_pump.start(who="gainbench (start: pump output off)")
+        # the guard: commands the pump output off at once
+        self.checks = BenchChecks(cfg, pump, shutter, self.clock, speed=self.speed, event_sink=self.control_q.put,
+                                  stop=self.stop_flag, mode=lambda: (self.mode, self.settings))
+        self.monitor, self.pump_access, self.guarded_pump = (
+            self.checks.monitor, self.checks.pump_access, self.checks.guarded_pump)
         detector = self.instruments["detector"]
         detector.configure()
         params = EstimatorParams.from_config(cfg)
         self.params = params
-        # The guard's checks run in the reader threads (see `_guard_block`), not in the consumer.
+        self.checks.use_params(params)
+        # The guard's checks run in the reader threads (`BenchChecks.on_block`), not in the consumer.
         self.consumer = Consumer(
             params, self.mode, self.settings, store=self.store, guarded_pump=self.guarded_pump,
             now=self.clock.now, drop_totals=self.drops.totals,
@@ -235,8 +215,8 @@ class Measurement:
                                  period=self.pump_poll, access=self.pump_access)
         self.readers = [det_reader, pump_reader]
         for r in self.readers:
-            r.on_block = self._guard_block
-            r.on_comm = self._guard_comm
+            r.on_block = self.checks.on_block
+            r.on_comm = self.checks.on_comm
         self._consumer_thread = threading.Thread(target=self._consume, name="consumer", daemon=True)
         self._consumer_thread.start()
         self.monitor.started_at = self.clock.now()  # staleness counts from here
@@ -247,10 +227,7 @@ class Measurement:
             self.control_q.put(event)
         for r in self.readers:
             r.start()
-        self._watch_thread = threading.Thread(target=self._watch_stale, name="guard-watch", daemon=True)
-        self._watch_thread.start()
-        self._pump_check_thread = threading.Thread(target=self._pump_checks, name="pump-checks", daemon=True)
-        self._pump_check_thread.start()
+        self.checks.start_threads()  # the stale-reading watchdog and the pump checks
         # What exists now (imports, drivers, the run file) lives as long as the run: out of the
         # collector's reach, a full collection scans only what the run makes, and no longer
         # holds the readers up for 100 ms or more.
@@ -281,10 +258,8 @@ class Measurement:
                      on_stuck=lambda r: log.error("reader %s did not stop", r.name))
         if self._truth_thread is not None:
             self._truth_thread.join(2.0)
-        if getattr(self, "_watch_thread", None) is not None:
-            self._watch_thread.join(2.0)
-        if getattr(self, "_pump_check_thread", None) is not None:
-            self._pump_check_thread.join(2.0)
+        if self.checks is not None:
+            self.checks.join(2.0)
         if self._consumer_thread is not None:
             # The consumer finishes what the readers queued before the run file closes. If it
             # is far behind (an accelerated bench producing estimates faster than they can be
@@ -356,127 +331,6 @@ class Measurement:
                     self.guarded_pump.trip("the acquisition pipeline failed: " + repr(exc), "pipeline_failure",
                                            self.clock.now())
             self.stop_flag.set()
-
-    # -- the guard's checks, in the threads that read ------------------------------------------
-    def _guard_block(self, block) -> None:
-        gp, mon = self.guarded_pump, self.monitor
-        now = self.clock.now()
-        if block.source == "detector" and block.n and "pump_monitor" in block.channels:
-            k = max(1, min(block.n, int(round(MONITOR_SPAN / block.dt)) if block.dt > 0 else 1))
-            self._monitor_level = (block.t_end, float(np.mean(block.column("pump_monitor")[-k:])))
-        if block.source == "pump":
-            found = mon.feed_pump(block, output_off_since=gp.output_off_since,
-                                  output_on_since=gp.output_on_since, received_at=now)
-        elif block.source == "detector" and self.params.detector_range is not None:
-            found = mon.feed_detector(block, self.params.detector_range, pump_steady=self.mode == "watch",
-                                      received_at=now)
-        else:
-            return
-        if found:
-            gp.trip_on(found)
-
-    def _guard_comm(self, status) -> None:
-        found = self.monitor.comm_result(status.source, status.ok, status.t, status.detail, lost=status.lost)
-        if found:
-            self.guarded_pump.trip_on(found)
-
-    def _watch_stale(self) -> None:
-        """Trips when an instrument has given no fresh reading for too long (20 checks a second).
-
-        It never talks to an instrument: a slow or silent instrument must not hold up the very
-        check that notices it (the pump checks that do talk run in `_pump_checks`)."""
-        while not self.stop_flag.wait(0.05):
-            try:
-                found = self.monitor.check_stale(self.clock.now())
-                if found:
-                    self.guarded_pump.trip_on(found)
-            except Exception:
-                log.exception("stale-reading check failed")
-
-    def _pump_checks(self) -> None:
-        """While the pump emits, every `ERROR_POLL` s: read the pump driver's error queue and
-        compare its power reading with the bench file's calibration. These exchanges can take
-        as long as the driver's timeout, so they have this thread of their own."""
-        while not self.stop_flag.wait(ERROR_POLL):
-            try:
-                self._poll_pump_errors()
-            except Exception:
-                log.exception("reading the pump driver's error queue failed")
-            try:
-                self._check_power_calibration()
-            except Exception:
-                log.exception("the pump power calibration check failed")
-
-    def _poll_pump_errors(self) -> None:
-        from bench.safety.conditions import check_device_errors
-        from drivers.errors import InstrumentError
-
-        if self.guarded_pump.state != "emitting":
-            return
-        self.pump_access.wait_for_turn()  # the guard's own commands go first
-        try:
-            entries = self.instruments["pump"].instrument_errors()
-        except InstrumentError:  # a failed exchange: the pump reader's checks deal with those
-            return
-        if not entries:
-            return
-        now = self.clock.now()
-        found = check_device_errors("pump driver", [(e.code, e.text) for e in entries], now)
-        self.control_q.put(Event(now, "fault", found.reason, data={
-            "source": "pump", "errors": [[e.code, e.text] for e in entries]}))
-        self.guarded_pump.trip_on([found])
-
-    def _check_power_calibration(self) -> None:
-        """While the pump emits at a settled current, compare the bench file's power calibration
-        with the driver's power reading (profiles with ``power``) and, in steady modes, with the
-        pump monitor through its responsivity; a disagreement trips (`trip_conditions`)."""
-        from bench.records import PUMP_CURRENT, PUMP_SETPOINT
-        from bench.safety.conditions import check_power_calibration
-        from drivers.errors import InstrumentError
-
-        gp, mon = self.guarded_pump, self.monitor
-        on_since = gp.output_on_since
-        now = self.clock.now()
-        if gp.state != "emitting" or on_since is None or now - on_since < mon.output_grace:
-            return
-        values = mon.latest().values
-        if PUMP_CURRENT not in values or PUMP_SETPOINT not in values:
-            return
-        t_i, current = values[PUMP_CURRENT]
-        if t_i <= on_since or abs(current - values[PUMP_SETPOINT][1]) > self.cfg.guard.current_tolerance:
-            return  # not settled at its setpoint yet (or a sweep step is under way)
-        expected = self.cfg.pump.power_at(current)
-        found = []
-        pump = self.instruments["pump"]
-        changed = gp.changed_at
-        if t_i <= changed:
-            return  # the current reading is older than the last change (a sweep step)
-        if pump.session.has("power"):
-            self.pump_access.wait_for_turn()
-            try:
-                measured = pump.power()
-            except InstrumentError:  # a failed exchange: the pump reader's checks deal with those
-                measured = None
-            if gp.changed_at != changed:
-                measured = None  # the current changed while the power was read: compare next time
-            if measured is not None:
-                found.append(check_power_calibration(expected, measured, current,
-                                                     "the pump driver's power reading", now))
-        level = self._monitor_level
-        per_watt = self.params.monitor_per_watt
-        if (level is not None and per_watt and self._pump_steady() and level[0] > max(on_since, t_i)
-                and now - level[0] < 1.0):
-            found.append(check_power_calibration(
-                expected, level[1] / per_watt, current,
-                f"the pump monitor ({level[1]:.4g} V at {per_watt:.4g} V/W)", now))
-        found = [c for c in found if c is not None]
-        if found:
-            gp.trip_on(found[:1])
-
-    def _pump_steady(self) -> bool:
-        """Whether this mode keeps the pump at a steady level while it emits (watch, and a
-        sweep measured with steady steps); chopped, decay and chopped sweeps modulate it."""
-        return self.mode == "watch" or (self.mode == "sweep" and self.settings.get("method", "watch") == "watch")
 
     def _clear_error_queue(self, role: str, driver) -> None:
         """Empty an instrument's error queue at start: what it holds is from before this run

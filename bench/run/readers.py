@@ -27,6 +27,7 @@ from bench.records import (
     PUMP_SETPOINT,
     Block,
 )
+from bench.safety.pump_port import PumpAccess
 
 log = logging.getLogger(__name__)
 
@@ -241,91 +242,6 @@ class DetectorReader(Reader):
             self.digitiser.session.reconnect()
         except Exception as exc:  # the next read reports the failure
             log.info("detector reconnect failed: %s", exc)
-
-
-class PumpAccess:
-    """Lets the guard's pump commands go before the pump reader's polling.
-
-    The guard talks to the pump through `urgent`: while a guard command is waiting or running,
-    the reader does not start another query, so an off command waits for at most the one
-    exchange already on the wire, not for a whole poll (and not for an unfair lock).
-    """
-
-    def __init__(self) -> None:
-        self._lock = threading.Lock()
-        self._urgent = 0
-        self._idle = threading.Condition(self._lock)
-
-    def urgent(self):
-        access = self
-
-        class _Urgent:
-            def __enter__(self_inner):
-                with access._lock:
-                    access._urgent += 1
-
-            def __exit__(self_inner, *exc):
-                with access._lock:
-                    access._urgent -= 1
-                    if access._urgent == 0:
-                        access._idle.notify_all()
-
-        return _Urgent()
-
-    def wait_for_turn(self, timeout: float = 1.0) -> None:
-        """Called by the reader before each query: wait while a guard command is pending."""
-        with self._lock:
-            if self._urgent:
-                self._idle.wait_for(lambda: self._urgent == 0, timeout)
-
-
-class GuardPumpPort:
-    """The pump driver as the guard sees it: every call marked urgent (see `PumpAccess`)."""
-
-    def __init__(self, pump, access: PumpAccess):
-        self._pump = pump
-        self._access = access
-
-    def __getattr__(self, name):
-        attr = getattr(self._pump, name)
-        if not callable(attr):
-            return attr
-        access = self._access
-
-        def call(*args, **kwargs):
-            with access.urgent():
-                return attr(*args, **kwargs)
-
-        return call
-
-    # the methods the guard's protocol names, so isinstance checks against it pass
-    def output(self, on: bool) -> None:
-        with self._access.urgent():
-            self._pump.output(on)
-
-    def output_is_on(self) -> bool:
-        with self._access.urgent():
-            return self._pump.output_is_on()
-
-    def interlock_closed(self) -> bool:
-        with self._access.urgent():
-            return self._pump.interlock_closed()
-
-    def mount_temperature(self) -> float:
-        with self._access.urgent():
-            return self._pump.mount_temperature()
-
-    def measured_current(self) -> float:
-        with self._access.urgent():
-            return self._pump.measured_current()
-
-    def current_setpoint(self) -> float:
-        with self._access.urgent():
-            return self._pump.current_setpoint()
-
-    def set_current(self, current: float) -> None:
-        with self._access.urgent():
-            self._pump.set_current(current)
 
 
 class PumpReader(Reader):

@@ -661,10 +661,3 @@ def _ask(item: Item, head: str, input_fn: Callable[[str], str], print_fn: Callab
                      "this wavelength, a number such as 5.")
     return None
 
-
-def refusal_summary(result: ChecklistResult) -> str:
-    """One paragraph for the terminal: passed, or why arming is refused."""
-    if result.passed:
-        return f"Arming checklist passed ({result.operator})."
-    return "Arming refused:\n" + "\n".join(f"  - {r}" for r in result.refusals)
-

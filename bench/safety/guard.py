@@ -284,7 +284,6 @@ class Guard:
         self._reset_at = -math.inf  # last trip, disarm, acknowledgement, start or shutdown
         self._used_tokens: set[str] = set()
         self._shut_down = False
-        self._armed_by: str | None = None
 
     # -- reading ---------------------------------------------------------------------------
     @property
@@ -300,15 +299,6 @@ class Guard:
     def trip_reason(self) -> str | None:
         """The reason of the trip being held, or None when not tripped."""
         return self._trip.reason if self._trip is not None else None
-
-    @property
-    def shut_down(self) -> bool:
-        return self._shut_down
-
-    @property
-    def armed_by(self) -> str | None:
-        """Who armed it, while armed or emitting."""
-        return self._armed_by
 
     # -- handling --------------------------------------------------------------------------
     def handle(self, event: GuardEvent, now: float) -> Outcome:
@@ -333,8 +323,6 @@ class Guard:
     ) -> Outcome:
         before = self._state
         self._state = to
-        if to in (SAFE, TRIPPED):
-            self._armed_by = None
         data = {
             "from": before,
             "to": to,
@@ -373,7 +361,6 @@ class Guard:
             return self._refuse(event, now, why)
         result = event.checklist
         self._used_tokens.add(result.token)
-        self._armed_by = event.who
         return self._go(
             event, now, ARMED, (), f"armed by {event.who} after the checklist passed",
             checklist_token=result.token,

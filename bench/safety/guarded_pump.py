@@ -28,11 +28,9 @@ import threading
 import time
 from collections import deque
 from collections.abc import Callable, Iterable
-from dataclasses import dataclass, field, replace
+from dataclasses import replace
 from types import MappingProxyType, TracebackType
-from typing import Protocol, Self, runtime_checkable
-
-import numpy as np
+from typing import Self
 
 from bench.run import stop_signals
 from bench.config import BenchConfig
@@ -63,68 +61,19 @@ from bench.safety.guard import (
     StopEmission,
     Trip,
 )
-from bench.records import Event
-from bench.safety.conditions import (
-    INTERLOCK_OPEN,
-    OUTPUT_UNEXPECTED,
-    TRANSMISSION_JUMP,
-    TripCondition,
-    TripMonitor,
-)
+from bench.records import PUMP_ON, Block, Event
+from bench.safety.condition_record import TripCondition, reads_exactly
+from bench.safety.conditions import INTERLOCK_OPEN, condition_named
+from bench.safety.pump_protocols import OffReport, Performed, PumpOutput, Shutter
+from bench.safety.trip_monitor import TripMonitor
 
 log = logging.getLogger("bench.safety.guard")
 
-
-@runtime_checkable
-class PumpOutput(Protocol):
-    """What the guard needs from a pump driver (drivers.pump.PumpDriver has these)."""
-
-    def output(self, on: bool) -> None: ...
-
-    def output_is_on(self) -> bool: ...
-
-    def interlock_closed(self) -> bool: ...
-
-    def mount_temperature(self) -> float: ...
-
-    def measured_current(self) -> float: ...
-
-    def current_setpoint(self) -> float: ...
-
-    def set_current(self, current: float) -> None: ...
-
-
-@runtime_checkable
-class Shutter(Protocol):
-    """A shutter controller with named shutters (``"pump"``: the shutter in the pump beam)."""
-
-    def close_shutter(self, name: str) -> None: ...
-
-    def open_shutter(self, name: str) -> None: ...
-
-
-@dataclass(frozen=True)
-class OffReport:
-    """How one off command went: success, attempts, when it completed (run clock), errors."""
-
-    ok: bool
-    attempts: int
-    done_at: float | None
-    error: str = ""
-
-
-@dataclass
-class _Performed:
-    off: OffReport | None = None
-    faults: list[Event] = field(default_factory=list)
-    failed: tuple[str, str, float] | None = None  # (condition, reason, time) for a follow-up trip
-
-
-def _reads(value: object, state: bool) -> bool:
-    """A driver's boolean reply is exactly ``state`` (True/False or 1/0; anything else is not)."""
-    if isinstance(value, (bool, int, float, np.bool_, np.integer, np.floating)):
-        return bool(value == state)
-    return False
+#: Run-clock s after the off command before a pump reading showing the output on makes the
+#: guard command it off again (`GuardedPump.recommand_off`), and the least real time between
+#: two such commands (common practice, no source).
+RECOMMAND_AFTER = 0.1
+RECOMMAND_EVERY = 0.1
 
 
 def _who_ok(who: object) -> str:
@@ -218,7 +167,7 @@ class GuardedPump:
         self._on_since: float | None = None
         self._changed_at = -math.inf
         self._latencies: deque[float] = deque(maxlen=1000)
-        self._recent: deque[Event] = deque(maxlen=1000)
+        self._last_recommand = 0.0
 
     @classmethod
     def from_config(cls, pump: PumpOutput, cfg: BenchConfig, **kwargs: object) -> GuardedPump:
@@ -245,11 +194,6 @@ class GuardedPump:
         return self._guard.trip_reason
 
     @property
-    def output_commanded_on(self) -> bool:
-        """Whether the guard last commanded the output on."""
-        return self._commanded_on
-
-    @property
     def output_off_since(self) -> float | None:
         """Run-clock time the output was last commanded off; None while commanded on.
 
@@ -273,12 +217,6 @@ class GuardedPump:
         """Latencies (s) of recent trips: seen_at to the off command completing."""
         with self._lock:
             return list(self._latencies)
-
-    @property
-    def recent_events(self) -> list[Event]:
-        """The last events recorded (at most 1000), oldest first."""
-        with self._lock:
-            return list(self._recent)
 
     # -- commands --------------------------------------------------------------------------
     def start(self, who: str = "gainbench") -> Outcome:
@@ -411,6 +349,23 @@ class GuardedPump:
                                data=MappingProxyType({"pump_current_setpoint_a": float(current)})))
             self._note_change(now)
 
+    def recommand_off(self, block: Block) -> None:
+        """A pump reading shows the output on while the guard has not let it emit: command it off again.
+
+        Readings taken within `RECOMMAND_AFTER` s of the off command are not counted (the output
+        may not have gone off yet); a failed off command is thus retried on every such reading,
+        at most every `RECOMMAND_EVERY` s of real time, until the output reads off. Called from
+        the thread that reads the pump, with each pump block.
+        """
+        if self._guard.state == EMITTING or PUMP_ON not in block.channels:
+            return
+        off_since = self.output_off_since
+        taken_after_off = off_since is not None and block.t0 > off_since + RECOMMAND_AFTER
+        if (block.column(PUMP_ON)[-1] > 0.5 and taken_after_off
+                and time.monotonic() - self._last_recommand > RECOMMAND_EVERY):
+            self._last_recommand = time.monotonic()
+            self.stop_emission(who="gainbench (output read on while not emitting)")
+
     def shutdown(self, who: str = "gainbench", reason: str = "exit") -> Outcome:
         """Output off and shutter closed; arming is refused afterwards."""
         with self._lock:
@@ -477,8 +432,8 @@ class GuardedPump:
                     self._run(Trip(reason, condition, t))
             return outcome
 
-    def _perform(self, actions: tuple[Action, ...]) -> _Performed:
-        done = _Performed()
+    def _perform(self, actions: tuple[Action, ...]) -> Performed:
+        done = Performed()
         shutter_closed = False
         for action in actions:
             if isinstance(action, PumpOff):
@@ -539,7 +494,7 @@ class GuardedPump:
                     except Exception as exc:  # a failed read-back counts as a failed attempt
                         errors.append(f"read-back failed: {type(exc).__name__}: {exc}")
                     else:
-                        if _reads(still_on, False):
+                        if reads_exactly(still_on, False):
                             ok = True
                         else:
                             errors.append("the output still reads on after the off command")
@@ -552,7 +507,7 @@ class GuardedPump:
                 return OffReport(False, attempts, None, "; ".join(errors))
             self._sleep(self.retry_pause)
 
-    def _close_shutter(self, done: _Performed, why: str, name: str | None = None) -> bool:
+    def _close_shutter(self, done: Performed, why: str, name: str | None = None) -> bool:
         name = name or self.shutter_name
         if self._shutter is None:
             return False
@@ -581,7 +536,6 @@ class GuardedPump:
         }))
 
     def _record(self, event: Event) -> None:
-        self._recent.append(event)
         if event.kind == "fault":
             log.critical("gainbench guard: %s", event.text)
         elif event.kind == "trip" or event.data.get("accepted") is False:
@@ -606,23 +560,21 @@ class GuardedPump:
             closed = self._pump.interlock_closed()
         except Exception as exc:  # cannot read the interlock: do not switch on
             return PUMP_COMMAND_FAILED, f"could not read the hardware interlock before switching on ({type(exc).__name__}: {exc})", now
-        if not _reads(closed, True):
+        if not reads_exactly(closed, True):
             return INTERLOCK_OPEN, "the hardware interlock reads open just before switching on", now
         return None
 
     def _why_still_holds(self, condition: str, since: float, now: float) -> str | None:
         if self._monitor is not None:
             return self._monitor.why_still_holds(condition, now, since)
-        if condition in (OPERATOR_STOP, TRANSMISSION_JUMP):
-            return None
+        found = condition_named(condition)
+        record = found[0] if found is not None else None
+        if record is None or record.holds_on_driver is None:
+            return f"no trip monitor is attached to judge {condition!r}; report it cleared with clear_condition()"
         try:
-            if condition == INTERLOCK_OPEN:
-                return None if _reads(self._pump.interlock_closed(), True) else "the hardware interlock still reads open"
-            if condition in (PUMP_OFF_FAILED, PUMP_COMMAND_FAILED, OUTPUT_UNEXPECTED):
-                return None if _reads(self._pump.output_is_on(), False) else "the pump output still reads on"
+            return record.holds_on_driver(self._pump)
         except Exception as exc:  # cannot read: the condition is not known to have cleared
             return f"could not read the pump driver ({type(exc).__name__}: {exc})"
-        return f"no trip monitor is attached to judge {condition!r}; report it cleared with clear_condition()"
 
     @property
     def changed_at(self) -> float:

@@ -30,7 +30,8 @@ from bench.records import (
     PUMP_SETPOINT,
     Block,
 )
-from bench.safety.conditions import INTERLOCK_OPEN, TripMonitor
+from bench.safety.conditions import INTERLOCK_OPEN
+from bench.safety.trip_monitor import TripMonitor
 
 
 class FakeClock:

@@ -19,6 +19,7 @@ from hypothesis import strategies as st
 from scipy.constants import zero_Celsius
 
 from bench.safety import conditions as tc
+from bench.safety.trip_monitor import TripMonitor, settled_mask
 from bench.config import load_bench
 from bench.safety.guard import OPERATOR_STOP
 from bench.records import (
@@ -83,7 +84,7 @@ def feed_all(monitor, bs, **kwargs):
 
 
 def test_normal_readings_raise_nothing():
-    m = tc.TripMonitor(CFG, started_at=0.0)
+    m = TripMonitor(CFG, started_at=0.0)
     found = []
     tt, cols = detector_stream(500_000)  # 5 s of detector data, in 20 ms blocks
     detector = blocks(tt, cols, [2000] * 250)
@@ -104,7 +105,7 @@ def test_normal_readings_raise_nothing():
 
 
 def test_interlock_open_seen_at_the_first_open_sample():
-    m = tc.TripMonitor(CFG)
+    m = TripMonitor(CFG)
     il = np.ones(10)
     il[6:] = 0.0
     (c,) = m.feed_pump(pump_block(2.0, interlock=il, n=10, dt=0.01))
@@ -118,7 +119,7 @@ def test_interlock_open_seen_at_the_first_open_sample():
     [(36.0, True, "above"), (14.0, True, "below"), (34.9, False, ""), (15.1, False, ""), (float("nan"), True, "not a number")],
 )
 def test_mount_temperature_window(temp_c, trips, word):
-    m = tc.TripMonitor(CFG)
+    m = TripMonitor(CFG)
     found = m.feed_pump(pump_block(1.0, temp_c=temp_c))
     conditions = [c for c in found if c.condition == tc.MOUNT_TEMPERATURE]
     assert bool(conditions) is trips
@@ -137,13 +138,13 @@ def test_window_edges_are_the_bench_file_values():
     [(9.4, 9.0, True), (9.25, 9.0, False), (5.0, 9.1, True), (float("nan"), 5.0, True)],
 )
 def test_over_current(current, setpoint, trips):
-    m = tc.TripMonitor(CFG)
+    m = TripMonitor(CFG)
     found = m.feed_pump(pump_block(1.0, current=current, setpoint=setpoint))
     assert any(c.condition == tc.OVER_CURRENT for c in found) is trips
 
 
 def test_current_not_following_its_setpoint_after_the_settle_time():
-    m = tc.TripMonitor(CFG, settle_time=0.2)
+    m = TripMonitor(CFG, settle_time=0.2)
     assert m.feed_pump(pump_block(0.0, current=5.0, setpoint=5.0)) == []
     assert m.feed_pump(pump_block(0.5, current=5.0, setpoint=5.0)) == []
     # setpoint raised to 7 A at t=1.0: the current may lag for 0.2 s
@@ -155,7 +156,7 @@ def test_current_not_following_its_setpoint_after_the_settle_time():
 
 
 def test_current_flowing_while_the_output_reads_off():
-    m = tc.TripMonitor(CFG, settle_time=0.2)
+    m = TripMonitor(CFG, settle_time=0.2)
     m.feed_pump(pump_block(0.0, current=0.0, setpoint=5.0, on=0.0))
     (c,) = m.feed_pump(pump_block(1.0, current=1.0, setpoint=5.0, on=0.0))
     assert c.condition == tc.CURRENT_NOT_FOLLOWING and "output reads off" in c.reason
@@ -165,7 +166,7 @@ def test_not_following_inside_one_vectorised_block():
     # 1 kHz samples: setpoint step at sample 100, current stuck; trips 0.2 s after the step.
     n = 600
     setpoint = np.where(np.arange(n) < 100, 3.0, 6.0)
-    m = tc.TripMonitor(CFG, settle_time=0.2)
+    m = TripMonitor(CFG, settle_time=0.2)
     m.feed_pump(pump_block(-1.0, current=3.0, setpoint=3.0))  # history: steady before
     (c,) = m.feed_pump(pump_block(0.0, current=3.0, setpoint=setpoint, n=n, dt=1e-3))
     assert c.seen_at == pytest.approx(0.1 + 0.2)
@@ -177,7 +178,7 @@ def test_not_following_inside_one_vectorised_block():
 def test_settled_mask_matches_a_plain_loop(steps, settle):
     times = np.cumsum([s[0] for s in steps])
     target = np.array([s[1] for s in steps])
-    mask, last_target, last_change = tc.settled_mask(times, target, settle, None, -math.inf)
+    mask, last_target, last_change = settled_mask(times, target, settle, None, -math.inf)
     # slow, obvious reference
     expected, previous, changed_at = [], None, -math.inf
     for t, x in zip(times, target):
@@ -190,19 +191,19 @@ def test_settled_mask_matches_a_plain_loop(steps, settle):
 
 
 def test_output_on_after_the_guard_commanded_it_off():
-    m = tc.TripMonitor(CFG, settle_time=0.2)
+    m = TripMonitor(CFG, settle_time=0.2)
     assert m.feed_pump(pump_block(10.1, current=0.0, on=1.0), output_off_since=10.0) == []  # within grace
     (c,) = [x for x in m.feed_pump(pump_block(10.5, current=0.0, on=1.0), output_off_since=10.0)
             if x.condition == tc.OUTPUT_UNEXPECTED]
     assert c.seen_at == 10.5
-    m2 = tc.TripMonitor(CFG)
+    m2 = TripMonitor(CFG)
     found = m2.feed_pump(pump_block(10.5, on=1.0), output_off_since=None)  # commanded on
     assert not [x for x in found if x.condition == tc.OUTPUT_UNEXPECTED]
 
 
 def test_output_off_while_the_guard_commands_it_on():
     # another connection, or the driver's own protection, switched the output off
-    m = tc.TripMonitor(CFG, settle_time=0.2, lag_allowance=0.1)
+    m = TripMonitor(CFG, settle_time=0.2, lag_allowance=0.1)
     assert m.feed_pump(pump_block(10.1, current=0.0, on=0.0), output_on_since=10.0) == []  # within grace
     found = m.feed_pump(pump_block(10.5, current=0.0, on=0.0), output_on_since=10.0)
     assert [x.condition for x in found] == [tc.OUTPUT_OFF_UNEXPECTED] and found[0].seen_at == 10.5
@@ -211,7 +212,7 @@ def test_output_off_while_the_guard_commands_it_on():
     m.feed_pump(pump_block(10.6, current=0.0, on=0.0), output_off_since=10.55)
     assert tc.OUTPUT_OFF_UNEXPECTED not in m.active_conditions()
     # an open interlock explains an output that went off: that is the one condition reported
-    m2 = tc.TripMonitor(CFG, settle_time=0.2, lag_allowance=0.1)
+    m2 = TripMonitor(CFG, settle_time=0.2, lag_allowance=0.1)
     found = m2.feed_pump(pump_block(10.5, current=0.0, on=0.0, interlock=0.0), output_on_since=10.0)
     assert [x.condition for x in found] == [tc.INTERLOCK_OPEN]
 
@@ -226,7 +227,7 @@ def test_detector_near_full_scale(channel, value, trips):
     t, cols = detector_stream(3000)
     cols[channel] = cols[channel].copy()
     cols[channel][1234] = value
-    m = tc.TripMonitor(CFG)
+    m = TripMonitor(CFG)
     found = [c for c in feed_all(m, blocks(t, cols, [3000])) if c.condition == tc.NEAR_FULL_SCALE]
     assert bool(found) is trips
     if trips:
@@ -236,7 +237,7 @@ def test_detector_near_full_scale(channel, value, trips):
 
 def test_full_scale_per_channel_ranges():
     t, cols = detector_stream(100, probe=4.0)
-    m = tc.TripMonitor(CFG)
+    m = TripMonitor(CFG)
     (b,) = blocks(t, cols, [100])
     assert m.feed_detector(b, {PROBE: 5.0, REFERENCE: 2.0, PUMP_MONITOR: 1.0}) == []  # 80 % of 5 V
     with pytest.raises(ValueError, match="full_scale"):
@@ -244,7 +245,7 @@ def test_full_scale_per_channel_ranges():
 
 
 def test_comm_failures_trip_after_the_configured_count():
-    m = tc.TripMonitor(CFG)
+    m = TripMonitor(CFG)
     assert CFG.comm_failures == 3
     assert m.comm_result("pump", False, 1.0, "timeout") == []
     assert m.comm_result("pump", False, 1.1, "timeout") == []
@@ -261,13 +262,13 @@ def test_comm_failures_trip_after_the_configured_count():
 
 
 def test_lost_connection_trips_at_once():
-    m = tc.TripMonitor(CFG)
+    m = TripMonitor(CFG)
     (c,) = m.comm_result("detector", False, 3.0, "connection reset by peer", lost=True)
     assert "lost" in c.reason and c.seen_at == 3.0
 
 
 def test_stale_readings():
-    m = tc.TripMonitor(CFG)
+    m = TripMonitor(CFG)
     assert m.check_stale(5.0) == []  # nothing expected before the first reading
     m.feed_pump(pump_block(1.0))
     assert m.check_stale(1.4) == []
@@ -276,7 +277,7 @@ def test_stale_readings():
     assert m.check_stale(1.7) == []  # reported once
     m.feed_pump(pump_block(1.8))
     assert tc.stale_condition("pump") not in m.active_conditions()
-    started = tc.TripMonitor(CFG, started_at=0.0)
+    started = TripMonitor(CFG, started_at=0.0)
     assert {c.condition for c in started.check_stale(0.6)} == {"stale.pump", "stale.detector"}
 
 
@@ -293,7 +294,7 @@ def stepped(factor, at, n=10_000, **kwargs):
 @pytest.mark.parametrize("at", [5000, 5500, 5999])  # on a window boundary, and inside a window
 def test_transmission_jump_detected_wherever_the_step_falls(at):
     t, cols = stepped(1.6, at)  # S up by 60 % (parasitic lasing would show as a sudden change)
-    m = tc.TripMonitor(CFG)
+    m = TripMonitor(CFG)
     found = feed_all(m, blocks(t, cols, [2000] * 5))
     (c,) = [x for x in found if x.condition == tc.TRANSMISSION_JUMP]
     assert t[at] - 0.01 - 1e-9 <= c.seen_at <= t[at] + 0.01 + 1e-9  # within a window of the step
@@ -302,13 +303,13 @@ def test_transmission_jump_detected_wherever_the_step_falls(at):
 
 def test_transmission_drop_detected_too():
     t, cols = stepped(0.3, 5000)  # a moved optic: S down by 70 %
-    m = tc.TripMonitor(CFG)
+    m = TripMonitor(CFG)
     assert [x.condition for x in feed_all(m, blocks(t, cols, [2000] * 5))] == [tc.TRANSMISSION_JUMP]
 
 
 def test_small_change_does_not_trip():
     t, cols = stepped(1.3, 5000)  # 30 %, below the 50 % of the bench file
-    assert feed_all(tc.TripMonitor(CFG), blocks(t, cols, [2000] * 5)) == []
+    assert feed_all(TripMonitor(CFG), blocks(t, cols, [2000] * 5)) == []
 
 
 def test_no_jump_trip_when_the_pump_changed():
@@ -316,14 +317,14 @@ def test_no_jump_trip_when_the_pump_changed():
     step = np.arange(n) >= 5000
     # The pump monitor shows the pump going up at the same moment: explained, no trip.
     t, cols = stepped(1.6, 5000, pump_monitor=np.where(step, 1.0, 0.5))
-    assert feed_all(tc.TripMonitor(CFG), blocks(t, cols, [2000] * 5)) == []
+    assert feed_all(TripMonitor(CFG), blocks(t, cols, [2000] * 5)) == []
     # No pump monitor channel, but the guard said it changed the pump then.
     t, cols = stepped(1.6, 5000)
-    m = tc.TripMonitor(CFG)
+    m = TripMonitor(CFG)
     m.note_pump_change(float(t[5000]))
     assert feed_all(m, blocks(t, cols, [2000] * 5, names=(PROBE, REFERENCE))) == []
     # The pipeline says the pump is modulated on purpose (chopped mode).
-    assert feed_all(tc.TripMonitor(CFG), blocks(t, cols, [2000] * 5), pump_steady=False) == []
+    assert feed_all(TripMonitor(CFG), blocks(t, cols, [2000] * 5), pump_steady=False) == []
 
 
 @pytest.mark.parametrize("noted_at", [0.02, 0.08])  # command before the step, and after it by the readings' clock
@@ -332,31 +333,31 @@ def test_commanded_change_excuses_a_jump_within_the_lag_allowance(noted_at):
     # a command reaches the driver late, and a digitiser's time stamps can be off from the
     # guard's clock (common practice, no source). Without the allowance the step trips.
     t, cols = stepped(1.6, 5000)
-    strict = tc.TripMonitor(CFG, settle_time=0.005, lag_allowance=0.0)
+    strict = TripMonitor(CFG, settle_time=0.005, lag_allowance=0.0)
     strict.note_pump_change(noted_at)
     assert [x.condition for x in feed_all(strict, blocks(t, cols, [2000] * 5, names=(PROBE, REFERENCE)))] == [
         tc.TRANSMISSION_JUMP]
-    allowing = tc.TripMonitor(CFG, settle_time=0.005, lag_allowance=0.04)
+    allowing = TripMonitor(CFG, settle_time=0.005, lag_allowance=0.04)
     allowing.note_pump_change(noted_at)
     assert feed_all(allowing, blocks(t, cols, [2000] * 5, names=(PROBE, REFERENCE))) == []
 
 
 def test_lag_allowance_must_be_a_time():
     with pytest.raises(ValueError, match="lag_allowance"):
-        tc.TripMonitor(CFG, lag_allowance=-1.0)
+        TripMonitor(CFG, lag_allowance=-1.0)
 
 
 def test_no_jump_trip_when_the_probe_is_blocked_for_a_dark():
     n = 10_000
     blocked = np.arange(n) >= 5000
     t, cols = detector_stream(n, probe=np.where(blocked, 0.003, 0.8), reference=np.where(blocked, 0.002, 0.6))
-    assert feed_all(tc.TripMonitor(CFG), blocks(t, cols, [2000] * 5)) == []
+    assert feed_all(TripMonitor(CFG), blocks(t, cols, [2000] * 5)) == []
 
 
 def test_jump_check_off_when_not_configured():
     cfg = dataclasses.replace(CFG, transmission_jump=None)
     t, cols = stepped(1.6, 5000)
-    assert feed_all(tc.TripMonitor(cfg), blocks(t, cols, [2000] * 5)) == []
+    assert feed_all(TripMonitor(cfg), blocks(t, cols, [2000] * 5)) == []
 
 
 @settings(max_examples=40, deadline=None)
@@ -364,10 +365,10 @@ def test_jump_check_off_when_not_configured():
 def test_same_trip_whole_or_in_pieces(sizes, at):
     # As a reply parser is fed whole and in pieces, the monitor must see the same stream the same way.
     t, cols = stepped(1.6, at, n=10_000)
-    whole = feed_all(tc.TripMonitor(CFG), blocks(t, cols, [10_000]))
+    whole = feed_all(TripMonitor(CFG), blocks(t, cols, [10_000]))
     total = sum(sizes)
     sizes = sizes + [10_000] if total < 10_000 else sizes
-    pieces = feed_all(tc.TripMonitor(CFG), blocks(t, cols, sizes))
+    pieces = feed_all(TripMonitor(CFG), blocks(t, cols, sizes))
     assert [c.seen_at for c in whole] == pytest.approx([c.seen_at for c in pieces])
     assert len(whole) == 1
 
@@ -376,7 +377,7 @@ def test_a_gap_between_blocks_does_not_compare_across_it():
     t, cols = stepped(1.6, 5000)
     bs = blocks(t, cols, [2000] * 5)
     gapped = bs[:2] + bs[3:]  # block 2 (samples 4000-5999) lost
-    found = feed_all(tc.TripMonitor(CFG), gapped)
+    found = feed_all(TripMonitor(CFG), gapped)
     assert found == []  # windows across the gap are not consecutive: no comparison
 
 
@@ -385,7 +386,7 @@ def test_a_gap_between_blocks_does_not_compare_across_it():
 
 
 def test_reported_once_then_again_after_it_cleared():
-    m = tc.TripMonitor(CFG)
+    m = TripMonitor(CFG)
     assert len(m.feed_pump(pump_block(1.0, interlock=0.0))) == 1
     assert m.feed_pump(pump_block(1.1, interlock=0.0)) == []
     assert m.feed_pump(pump_block(1.2, interlock=1.0)) == []
@@ -393,7 +394,7 @@ def test_reported_once_then_again_after_it_cleared():
 
 
 def test_why_still_holds_needs_fresh_readings_after_the_trip():
-    m = tc.TripMonitor(CFG)
+    m = TripMonitor(CFG)
     (c,) = m.feed_pump(pump_block(1.0, interlock=0.0))
     assert m.why_still_holds(tc.INTERLOCK_OPEN, now=1.05, since=c.seen_at) == c.reason  # still active
     m.feed_pump(pump_block(1.2, interlock=1.0))
@@ -404,7 +405,7 @@ def test_why_still_holds_needs_fresh_readings_after_the_trip():
 
 
 def test_clearance_of_each_kind_of_condition():
-    m = tc.TripMonitor(CFG)
+    m = TripMonitor(CFG)
     m.feed_pump(pump_block(1.0, current=5.0, setpoint=5.0, on=0.0, temp_c=40.0))
     assert "above its window" in m.why_still_holds(tc.MOUNT_TEMPERATURE, 1.1, since=0.9)  # 40 degC, active
     m.feed_pump(pump_block(1.2, current=0.0, setpoint=5.0, on=0.0, temp_c=30.0))
@@ -439,6 +440,6 @@ def test_pure_check_validation_names_the_argument():
     with pytest.raises(ValueError, match="fraction"):
         tc.check_full_scale([0.0], {PROBE: [0.1]}, {PROBE: 2.0}, 1.5)
     with pytest.raises(ValueError, match="cfg"):
-        tc.TripMonitor(object())  # type: ignore[arg-type]
+        TripMonitor(object())  # type: ignore[arg-type]
     with pytest.raises(ValueError, match="block"):
-        tc.TripMonitor(CFG).feed_pump("not a block")  # type: ignore[arg-type]
+        TripMonitor(CFG).feed_pump("not a block")  # type: ignore[arg-type]
