@@ -116,7 +116,7 @@ def _pumped(cfg: BenchConfig, kind: type | None = None, *, dark: float | None = 
             **options: Any) -> Iterator[Any]:
     """An open `Measurement` (or ``kind``, e.g. `RemoteMeasurement`) on ``cfg`` with a dark of
     ``dark`` s (none if None) and a baseline of ``baseline`` s taken, armed and emitting."""
-    from bench.safety.checklist import answers_from_flags
+    from bench.safety.checklist_answers import answers_from_flags
     from bench.run.measurement import Measurement, default_current
 
     current = default_current(cfg)

@@ -19,7 +19,7 @@ from hypothesis import example, given, settings
 from hypothesis import strategies as st
 
 from bench.safety import exposure_limits as laser_safety
-from bench.safety.checklist import OD_MAX, parse_eyewear_flag, parse_eyewear_flags, parse_od
+from bench.safety.checklist_answers import OD_MAX, parse_eyewear_flag, parse_eyewear_flags, parse_od
 from bench.cli import main
 from bench.config import builtin_bench_path, load_bench, load_bench_text
 from bench.errors import ConfigError
@@ -493,7 +493,8 @@ def test_any_odd_override_is_refused_or_computes(key, value):
 
 
 def test_the_terminal_checklist_re_asks_odd_numerals():
-    from bench.safety.checklist import checklist_items, run_interactive
+    from bench.safety.checklist import checklist_items
+    from bench.safety.checklist_answers import run_interactive
 
     replies = iter(["5_0", "\u0665", "1e1", "50", "5", "2", "yes", "yes", "yes"])
     asked: list[str] = []

@@ -178,7 +178,7 @@ def _mode_period(args, cfg, current: float) -> float | None:
 
 def _flag_answers(args, cfg):
     """Checklist answers from flags, or None to ask on the terminal."""
-    from bench.safety.checklist import answers_from_flags, parse_eyewear_flags
+    from bench.safety.checklist_answers import answers_from_flags, parse_eyewear_flags
 
     operator = args.operator or cfg.run.operator or ""
     if args.eyewear_od or args.confirm_setup:
@@ -195,7 +195,7 @@ def _arm(meas, cfg, answers, operator):
     On a terminal without flags the operator's name is asked first; that person is then the
     operator of the run (stored with it) and the one named for switching the pump on.
     """
-    from bench.safety.checklist import run_interactive
+    from bench.safety.checklist_answers import run_interactive
 
     if answers is None:
         if not sys.stdin.isatty():

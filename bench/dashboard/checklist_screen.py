@@ -26,8 +26,9 @@ from textual.widgets import Button, Input, Static
 
 from bench.safety import exposure_limits as laser_safety
 from bench.safety.checklist import (
-    CHECK, CONFIRM, EYEWEAR, SECOND_LAYER_NOTICE, Answer, ChecklistResult, Item, evaluate, parse_od,
+    CHECK, CONFIRM, EYEWEAR, SECOND_LAYER_NOTICE, Answer, ChecklistResult, Item, evaluate,
 )
+from bench.safety.checklist_answers import parse_od
 from bench.errors import GainbenchError
 
 REMINDER = ("Software layer only: the hardware interlock, your laser safety officer (LSO), "

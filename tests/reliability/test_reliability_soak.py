@@ -33,7 +33,7 @@ from dataclasses import dataclass, field
 
 import pytest
 
-from bench.safety.checklist import answers_from_flags
+from bench.safety.checklist_answers import answers_from_flags
 from bench.config import builtin_bench_path, load_bench_text
 from bench.errors import GainbenchError
 from bench.run.measurement import Measurement

@@ -15,7 +15,7 @@ import time
 import pytest
 
 from bench.run.measurement_process import BenchProcessError, RemoteMeasurement
-from bench.safety.checklist import answers_from_flags
+from bench.safety.checklist_answers import answers_from_flags
 from bench.config import load_bench
 from bench.safety.guard import GuardRefused
 from bench.run.measurement import default_current
@@ -72,7 +72,7 @@ def test_procedures_run_in_the_bench_process_and_the_run_closes_complete(tmp_pat
 
 CHILD = textwrap.dedent("""
     import sys, time
-    from bench.safety.checklist import answers_from_flags
+    from bench.safety.checklist_answers import answers_from_flags
     from bench.config import load_bench
     from bench.run.measurement_process import RemoteMeasurement
     from bench.run.measurement import default_current

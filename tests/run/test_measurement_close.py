@@ -12,7 +12,7 @@ import pytest
 
 import bench.run.measurement as measurement
 import bench.run.consumer as pipeline
-from bench.safety.checklist import answers_from_flags
+from bench.safety.checklist_answers import answers_from_flags
 from bench.config import load_bench, load_bench_text
 from bench.run.measurement import Measurement, default_current
 from bench.run.replay import replay

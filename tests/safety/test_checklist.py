@@ -17,6 +17,7 @@ import pytest
 from scipy.constants import zero_Celsius
 
 from bench.safety import checklist as cl
+from bench.safety import checklist_answers as ca
 from bench.safety import guard as g
 from bench.config import load_bench, load_bench_text
 from bench.errors import ConfigError
@@ -42,7 +43,7 @@ class FakeClock:
 
 
 def good_answers():
-    return cl.answers_from_flags("ana", {940e-9: 5, 1030e-9: 2}, confirm_all=True)
+    return ca.answers_from_flags("ana", {940e-9: 5, 1030e-9: 2}, confirm_all=True)
 
 
 def run(answers, readings=GOOD_READINGS, operator="ana", items=None, clock=None):
@@ -107,7 +108,7 @@ def test_a_wavelength_the_tool_cannot_evaluate_refuses_arming():
     items = cl.checklist_items(cfg)
     eyewear = [i for i in items if i.kind == cl.EYEWEAR and i.required_od is None]
     assert eyewear and "cannot compute" in eyewear[0].prompt
-    result = cl.evaluate(items, cl.answers_from_flags("ana", {2900e-9: 7, 1030e-9: 2}, True), GOOD_READINGS, "ana",
+    result = cl.evaluate(items, ca.answers_from_flags("ana", {2900e-9: 7, 1030e-9: 2}, True), GOOD_READINGS, "ana",
                          FakeClock())
     assert not result.passed
     assert any("could not be computed" in r for r in result.refusals)
@@ -140,20 +141,20 @@ def test_passes_when_everything_is_fine_and_records_every_answer():
 
 
 def test_low_eyewear_od_refuses_arming():
-    result = run(cl.answers_from_flags("ana", {940e-9: 3, 1030e-9: 2}, True))
+    result = run(ca.answers_from_flags("ana", {940e-9: 3, 1030e-9: 2}, True))
     assert not result.passed
     (reason,) = result.refusals
     assert "OD 3" in reason and "940 nm" in reason and "OD 4 required" in reason
 
 
 def test_missing_eyewear_od_refuses_arming():
-    result = run(cl.answers_from_flags("ana", {940e-9: 5}, True))
+    result = run(ca.answers_from_flags("ana", {940e-9: 5}, True))
     assert not result.passed
     assert result.refusals == ["no eyewear OD given for 1030 nm (required: OD 0 or more)"]
 
 
 def test_missing_confirmations_refuse_arming():
-    result = run(cl.answers_from_flags("ana", {940e-9: 5, 1030e-9: 2}, confirm_all=False))
+    result = run(ca.answers_from_flags("ana", {940e-9: 5, 1030e-9: 2}, confirm_all=False))
     assert not result.passed
     assert len(result.refusals) == 3 and all(r.startswith("not answered") for r in result.refusals)
 
@@ -166,7 +167,7 @@ def test_a_no_refuses_arming():
 
 
 def test_no_operator_refuses_arming():
-    result = run(cl.answers_from_flags("", {940e-9: 5, 1030e-9: 2}, True), operator=" ")
+    result = run(ca.answers_from_flags("", {940e-9: 5, 1030e-9: 2}, True), operator=" ")
     assert not result.passed and "no operator named" in result.refusals[0]
 
 
@@ -176,7 +177,7 @@ def test_an_answer_by_someone_else_refuses_arming():
 
 
 def test_an_eyewear_od_for_a_wavelength_not_on_the_bench_is_refused():
-    result = run(cl.answers_from_flags("ana", {940e-9: 5, 1030e-9: 2, 975e-9: 6}, True))
+    result = run(ca.answers_from_flags("ana", {940e-9: 5, 1030e-9: 2, 975e-9: 6}, True))
     assert not result.passed
     assert "975nm" in result.refusals[0] and "940nm, 1030nm" in result.refusals[0]
 
@@ -241,18 +242,18 @@ def test_each_result_arms_the_guard_once():
 
 @pytest.mark.parametrize(("text", "expected"), [("976nm=5", (976e-9, 5.0)), (" 1.03 um = 2.5 ", (1030e-9, 2.5))])
 def test_parse_eyewear_flag(text, expected):
-    wavelength, od = cl.parse_eyewear_flag(text)
+    wavelength, od = ca.parse_eyewear_flag(text)
     assert wavelength == pytest.approx(expected[0]) and od == expected[1]
 
 
 @pytest.mark.parametrize("text", ["976nm", "976nm=high", "5kg=3", "=4", "976nm=-1"])
 def test_bad_eyewear_flags_name_the_option(text):
     with pytest.raises(ConfigError, match="--eyewear-od"):
-        cl.parse_eyewear_flag(text)
+        ca.parse_eyewear_flag(text)
 
 
 def test_flags_give_the_same_ids_as_the_items():
-    answers = cl.answers_from_flags("ana", {cl.parse_eyewear_flag("940nm=5")[0]: 5}, False)
+    answers = ca.answers_from_flags("ana", {ca.parse_eyewear_flag("940nm=5")[0]: 5}, False)
     assert list(answers) == ["eyewear@940nm"]
     assert answers["eyewear@940nm"].who == "ana"
 
@@ -275,7 +276,7 @@ def test_interactive_asks_one_at_a_time_and_dates_each_answer():
     input_fn, asked = scripted(["5", "2", "yes", "y", "YES"])
     shown: list[str] = []
     clock = FakeClock(step=1.0)
-    answers = cl.run_interactive(items, input_fn, shown.append, operator="ana", readings=GOOD_READINGS, clock=clock)
+    answers = ca.run_interactive(items, input_fn, shown.append, operator="ana", readings=GOOD_READINGS, clock=clock)
     assert len(asked) == 5  # the three checks are shown, not asked
     assert "940 nm" in asked[0] and "OD 4 or more" in asked[0]
     assert "1030 nm" in asked[1]
@@ -293,7 +294,7 @@ def test_interactive_re_asks_unusable_replies_and_stops_at_a_refusal():
     items = cl.checklist_items(CFG)
     input_fn, asked = scripted(["lots", "3", "yes"])
     shown: list[str] = []
-    answers = cl.run_interactive(items, input_fn, shown.append, operator="ana")
+    answers = ca.run_interactive(items, input_fn, shown.append, operator="ana")
     assert len(asked) == 2  # "lots" re-asked, then OD 3 < 4 stops the checklist
     assert any("Arming will be refused" in s and "OD 4" in s for s in shown)
     assert not cl.evaluate(items, answers, GOOD_READINGS, "ana", FakeClock()).passed
@@ -302,7 +303,7 @@ def test_interactive_re_asks_unusable_replies_and_stops_at_a_refusal():
 def test_interactive_stops_at_end_of_input():
     items = cl.checklist_items(CFG)
     input_fn, asked = scripted(["5"])
-    answers = cl.run_interactive(items, input_fn, lambda s: None, operator="ana")
+    answers = ca.run_interactive(items, input_fn, lambda s: None, operator="ana")
     assert list(answers) == ["eyewear@940nm"]
     result = cl.evaluate(items, answers, GOOD_READINGS, "ana", FakeClock())
     assert not result.passed and any("1030 nm" in r for r in result.refusals)
@@ -310,7 +311,7 @@ def test_interactive_stops_at_end_of_input():
 
 def test_interactive_needs_an_operator():
     with pytest.raises(ValueError, match="operator"):
-        cl.run_interactive(cl.checklist_items(CFG), input, print, operator="")
+        ca.run_interactive(cl.checklist_items(CFG), input, print, operator="")
 
 
 def test_evaluate_validates_its_arguments():

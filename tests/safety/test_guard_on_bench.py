@@ -14,7 +14,7 @@ import time
 
 import pytest
 
-from bench.safety.checklist import answers_from_flags
+from bench.safety.checklist_answers import answers_from_flags
 from bench.config import load_bench, load_bench_text
 from bench.errors import GainbenchError
 from bench.safety.guard import GuardRefused

@@ -17,7 +17,7 @@ import sys
 import pytest
 
 from bench.safety import conditions as tc
-from bench.safety.checklist import answers_from_flags
+from bench.safety.checklist_answers import answers_from_flags
 from bench.config import load_bench, load_bench_text
 from bench.run.measurement import Measurement
 from bench.store import RunReader
