@@ -3,7 +3,7 @@
 The figure to compare with is the acquisition rate: at 1 M sample sets per second (probe and
 reference at 1 MS/s each, plus the pump monitor) the estimator must stay well under a quarter
 of one core, i.e. under 250 ns of CPU per sample set. The measurement feeds synthetic blocks
-(made beforehand, not timed) through `bench.estimator.estimate.update` and reads the process CPU clock.
+(made beforehand, not timed) through `bench.estimator.update` and reads the process CPU clock.
 """
 
 from __future__ import annotations
@@ -13,7 +13,7 @@ import time
 import numpy as np
 
 from bench.config import BenchConfig, load_bench
-from bench.estimator.estimate import (
+from bench.estimator import (
     MODES,
     Baseline,
     Dark,
@@ -66,7 +66,7 @@ def estimator_cost_per_sample(mode: str = "watch", *, rate: float = 1e6, seconds
     Parameters
     ----------
     mode : str
-        One of `bench.estimator.estimate.MODES` (sweep runs one step, measured as in watch mode).
+        One of `bench.estimator.MODES` (sweep runs one step, measured as in watch mode).
     rate : float
         Sample sets per second of the synthetic stream (sets the batch and bin sizes).
     seconds : float
