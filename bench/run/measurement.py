@@ -45,6 +45,7 @@ from bench.run.readers import (
 )
 from bench.config import BenchConfig
 from bench.errors import GainbenchError, Terminated
+from bench.estimator.mode import mode_of
 from bench.estimator.params import EstimatorParams
 from bench.run.consumer import Consumer, Control, Snapshot, TruthItem
 from bench.records import Event
@@ -368,7 +369,9 @@ class Measurement:
             found = mon.feed_pump(block, output_off_since=gp.output_off_since,
                                   output_on_since=gp.output_on_since, received_at=now)
         elif block.source == "detector" and self.params.detector_range is not None:
-            found = mon.feed_detector(block, self.params.detector_range, pump_steady=self.mode == "watch",
+            mode = mode_of(self.mode)  # held at one level the whole run: steady and never stepped
+            found = mon.feed_detector(block, self.params.detector_range,
+                                      pump_steady=mode.pump_steady(self.settings) and not mode.steps_pump,
                                       received_at=now)
         else:
             return
@@ -476,7 +479,7 @@ class Measurement:
     def _pump_steady(self) -> bool:
         """Whether this mode keeps the pump at a steady level while it emits (watch, and a
         sweep measured with steady steps); chopped, decay and chopped sweeps modulate it."""
-        return self.mode == "watch" or (self.mode == "sweep" and self.settings.get("method", "watch") == "watch")
+        return mode_of(self.mode).pump_steady(self.settings)
 
     def _clear_error_queue(self, role: str, driver) -> None:
         """Empty an instrument's error queue at start: what it holds is from before this run
