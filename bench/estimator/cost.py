@@ -18,6 +18,7 @@ from bench.estimator import (
     Baseline,
     Dark,
     EstimatorParams,
+    mode_of,
     new_state,
     report,
     update,
@@ -34,7 +35,7 @@ def _synthetic_blocks(mode: str, rate: float, seconds: float, block_size: int, s
     rng = np.random.default_rng(seed)
     n = int(rate * seconds)
     t = np.arange(n) / rate
-    if mode in ("chopped", "decay"):
+    if not mode_of(mode).pump_steady({}):  # modulated (chopped, decay)
         on = (np.floor(t * 2 * 50.0) % 2) == 1  # 50 Hz square wave
     else:
         on = np.ones(n, dtype=bool)
@@ -90,7 +91,7 @@ def estimator_cost_per_sample(mode: str = "watch", *, rate: float = 1e6, seconds
     state = new_state(params, mode)
     state = with_dark(state, Dark(0.003, 1e-6, 0.002, 1e-6, 10_000, 0.0))
     state = with_baseline(state, Baseline(0.8 / 0.6, 1e-6, 10_000, 0.0, 0.0))
-    if mode == "sweep":
+    if mode_of(mode).steps_pump:
         state = with_setting(state, pump_power=4.4)
     start = time.process_time()
     for block in blocks:
