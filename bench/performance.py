@@ -236,7 +236,7 @@ def replay_speed(run_path: str) -> dict[str, float]:
 
 def estimator_cost(quick: bool = False) -> dict[str, float]:
     """CPU seconds per sample set of the estimator, per mode."""
-    from bench.estimator.estimate import MODES
+    from bench.estimator import MODES
     from bench.estimator.cost import estimator_cost_per_sample
 
     seconds = 0.5 if quick else 2.0

@@ -15,6 +15,7 @@ import time
 
 from bench.run import stop_signals
 from bench.errors import ConfigError, GainbenchError
+from bench.estimator.mode import MODES, mode_of
 from bench.run.preflight import add_run_options, load_for_run
 from bench.units import parse_quantity
 
@@ -39,9 +40,8 @@ def configure(parser: argparse.ArgumentParser) -> None:
     parser.formatter_class = argparse.RawDescriptionHelpFormatter
     parser.epilog = EXIT_STATUSES
     parser.add_argument("--config", metavar="FILE", help="bench file; default: the built-in simulated bench")
-    parser.add_argument("--mode", choices=("watch", "chopped", "decay", "sweep"), default="watch",
-                        help="watch: steady pump; chopped: modulated pump; decay: lifetime from pump-off "
-                             "transients; sweep: pump current steps, each chopped (default watch)")
+    parser.add_argument("--mode", choices=MODES, default="watch",
+                        help="; ".join(m.cli_words for m in MODES.values()) + " (default watch)")
     parser.add_argument("--seconds", type=float, default=5.0, metavar="N",
                         help="how long the pump program runs, in seconds of the run clock (default 5)")
     parser.add_argument("--current", metavar="I", help='pump current, e.g. "6 A" (default 80%% of the limit)')
@@ -99,9 +99,10 @@ def run(args: argparse.Namespace) -> int:
         raise ConfigError(f"--current: {current:g} A is above the guard's limit "
                           f"({min(cfg.guard.max_current, cfg.pump.max_current):g} A)")
     settings = {"pump_current": current, "pump_power": cfg.pump.power_at(current)}
-    currents = sweep_currents(cfg, args.steps) if args.mode == "sweep" else [current]
+    mode = mode_of(args.mode)
+    currents = sweep_currents(cfg, args.steps) if mode.steps_pump else [current]
     period = _mode_period(args, cfg, currents[0])
-    if args.mode == "sweep":
+    if "method" in mode.settings:
         settings = {"method": "chopped"}  # each step chopped: its ln R is immune to slow drift
     answers, operator = _flag_answers(args, cfg)
     out = sys.stdout
@@ -166,14 +167,16 @@ def _mode_period(args, cfg, current: float) -> float | None:
     """
     from bench.estimator.timing import run_period
 
-    if args.mode not in ("chopped", "decay", "sweep"):
+    if mode_of(args.mode).timing is None:
         if args.period is not None:
-            raise ConfigError(f"--period: applies to chopped, decay and sweep modes, not {args.mode}")
+            modulated = [name for name, m in MODES.items() if m.timing is not None]
+            raise ConfigError(f"--period: applies to {', '.join(modulated[:-1])} and {modulated[-1]} modes, "
+                              f"not {args.mode}")
         return None
     chosen = None if args.period is None else parse_quantity(args.period, "time", "--period")
     if chosen is not None and not (math.isfinite(chosen) and chosen > 0):
         raise ConfigError(f"--period: {args.period!r} is not a positive time")
-    return run_period(cfg, "chopped" if args.mode == "sweep" else args.mode, current, chosen)
+    return run_period(cfg, args.mode, current, chosen)  # a sweep: the chopped rule (its Mode.timing)
 
 
 def _flag_answers(args, cfg):

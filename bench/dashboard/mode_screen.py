@@ -1,9 +1,9 @@
 """The mode screen: choose the measurement mode and its timing.
 
-- watch: steady pump;
-- chopped: the pump modulated with a chopping period (the estimator takes each off/on/off);
-- decay: the pump modulated with a period long enough for the gain to decay (lifetime);
-- sweep: the pump current in steps, with a dwell time per step (the saturation curve).
+The modes and their words come from the table `bench.estimator.mode.MODES` (watch: steady
+pump; chopped: the pump modulated with a chopping period; decay: a period long enough for the
+gain to decay; sweep: the pump current in steps, with a dwell time per step, each chopped). A
+modulated mode uses the chopping or the decay period (its `Mode.period`).
 
 The choice is a `ModeChoice`; the app applies it in a thread worker.
 """
@@ -23,15 +23,13 @@ from textual.widgets import Button, Input, Label, RadioButton, RadioSet, Static
 
 from bench.config import BenchConfig
 from bench.errors import GainbenchError
-from bench.estimator.estimate import MODES
+from bench.estimator.mode import MODES, mode_of
 from bench.run.measurement import chop_frequency
 
-MODE_WORDS = {
-    "watch": "watch: steady pump",
-    "chopped": "chopped: modulated pump, off/on/off ratios",
-    "decay": "decay: gain decay after the pump switches off (lifetime)",
-    "sweep": "sweep: pump current in steps (saturation)",
-}
+
+def mode_words(mode: str) -> str:
+    """The mode screen's words for ``mode`` (its `Mode.words`)."""
+    return mode_of(mode).words
 
 
 @dataclass(frozen=True)
@@ -63,26 +61,18 @@ class ModeChoice:
     @property
     def period(self) -> float | None:
         """The pump modulation period this mode uses, s (None: steady)."""
-        return {"chopped": self.chop_period, "decay": self.decay_period, "sweep": self.chop_period}.get(self.mode)
+        # a sweep chops every step at the chopping period (drift cancels)
+        return {"chop": self.chop_period, "decay": self.decay_period}.get(mode_of(self.mode).period)
 
     @property
     def modulation_hz(self) -> float | None:
         """The pump modulation this mode needs (None: steady)."""
-        if self.mode in ("chopped", "sweep"):  # a sweep chops every step (drift cancels)
-            return 1.0 / self.chop_period
-        if self.mode == "decay":
-            return 1.0 / self.decay_period
-        return None
+        period = self.period
+        return None if period is None else 1.0 / period
 
     def describe(self) -> str:
-        if self.mode == "chopped":
-            return f"chopped, period {self.chop_period * 1e3:g} ms"
-        if self.mode == "decay":
-            return f"decay, pump period {self.decay_period * 1e3:g} ms"
-        if self.mode == "sweep":
-            return (f"sweep, {self.sweep_steps} steps of {self.sweep_dwell:g} s, "
-                    f"each chopped at {self.chop_period * 1e3:g} ms")
-        return "watch, steady pump"
+        return mode_of(self.mode).describe_choice(self.chop_period, self.decay_period, self.sweep_steps,
+                                                  self.sweep_dwell)
 
 
 class ModeButton(RadioButton):
@@ -126,7 +116,7 @@ class ModeScreen(ModalScreen[ModeChoice | None]):
             box.border_title = "mode and timing"
             with RadioSet(id="mode"):
                 for m in MODES:
-                    yield ModeButton(MODE_WORDS[m], value=(m == c.mode), id=f"mode-{m}")
+                    yield ModeButton(mode_words(m), value=(m == c.mode), id=f"mode-{m}")
             for key, label, value in (
                 ("chop", "chopping period (ms)", f"{c.chop_period * 1e3:g}"),
                 ("decay", "decay: pump period (ms)", f"{c.decay_period * 1e3:g}"),

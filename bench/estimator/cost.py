@@ -3,7 +3,7 @@
 The figure to compare with is the acquisition rate: at 1 M sample sets per second (probe and
 reference at 1 MS/s each, plus the pump monitor) the estimator must stay well under a quarter
 of one core, i.e. under 250 ns of CPU per sample set. The measurement feeds synthetic blocks
-(made beforehand, not timed) through `bench.estimator.estimate.update` and reads the process CPU clock.
+(made beforehand, not timed) through `bench.estimator.update` and reads the process CPU clock.
 """
 
 from __future__ import annotations
@@ -13,11 +13,12 @@ import time
 import numpy as np
 
 from bench.config import BenchConfig, load_bench
-from bench.estimator.estimate import (
+from bench.estimator import (
     MODES,
     Baseline,
     Dark,
     EstimatorParams,
+    mode_of,
     new_state,
     report,
     update,
@@ -34,7 +35,7 @@ def _synthetic_blocks(mode: str, rate: float, seconds: float, block_size: int, s
     rng = np.random.default_rng(seed)
     n = int(rate * seconds)
     t = np.arange(n) / rate
-    if mode in ("chopped", "decay"):
+    if not mode_of(mode).pump_steady({}):  # modulated (chopped, decay)
         on = (np.floor(t * 2 * 50.0) % 2) == 1  # 50 Hz square wave
     else:
         on = np.ones(n, dtype=bool)
@@ -66,7 +67,7 @@ def estimator_cost_per_sample(mode: str = "watch", *, rate: float = 1e6, seconds
     Parameters
     ----------
     mode : str
-        One of `bench.estimator.estimate.MODES` (sweep runs one step, measured as in watch mode).
+        One of `bench.estimator.MODES` (sweep runs one step, measured as in watch mode).
     rate : float
         Sample sets per second of the synthetic stream (sets the batch and bin sizes).
     seconds : float
@@ -90,7 +91,7 @@ def estimator_cost_per_sample(mode: str = "watch", *, rate: float = 1e6, seconds
     state = new_state(params, mode)
     state = with_dark(state, Dark(0.003, 1e-6, 0.002, 1e-6, 10_000, 0.0))
     state = with_baseline(state, Baseline(0.8 / 0.6, 1e-6, 10_000, 0.0, 0.0))
-    if mode == "sweep":
+    if mode_of(mode).steps_pump:
         state = with_setting(state, pump_power=4.4)
     start = time.process_time()
     for block in blocks:

@@ -4,7 +4,9 @@ A chopped or decay run uses each half-period of the pump modulation only after i
 window (`EstimatorParams.rise_settle` after a rising edge, `EstimatorParams.off_settle` after
 a falling one in chopped mode; a decay needs ``decay_fit_span`` after the falling edge and its
 tail up to ``decay_record``). The defaults here follow those windows; `check_timing` refuses,
-before anything starts, a period that leaves no settled data, with the figures.
+before anything starts, a period that leaves no settled data, with the figures. Each mode's
+rule (its half-periods, default and refusal) is the ``timing`` of its `bench.estimator.mode.Mode`
+record, in its own module; the functions here look it up by mode name.
 
 No I/O: pure functions of the estimator parameters.
 """
@@ -14,6 +16,7 @@ from __future__ import annotations
 import math
 
 from bench.errors import ConfigError
+from bench.estimator.mode import MODES
 from bench.estimator.params import EstimatorParams
 
 #: Each half-period of a default chopping period holds at least this many settle windows, so
@@ -49,29 +52,34 @@ def nice_ceil(x: float) -> float:
     return 10.0 ** (e + 1)  # not reached
 
 
+def _timing(mode: str):
+    """The timing rule of ``mode`` from the table of modes (None: not modulated, or unknown)."""
+    m = MODES.get(mode)
+    return None if m is None else m.timing
+
+
 def required_half_periods(params: EstimatorParams, mode: str, pump_power: float | None) -> tuple[float, float]:
     """(pump-on, pump-off) half-period lengths (s) below which a mode has no settled data."""
-    rise = params.rise_settle(pump_power)
-    if mode == "chopped":
-        return rise, params.off_settle()
-    if mode == "decay":
-        return rise, params.decay_fit_span
-    raise ValueError(f"mode: {mode!r} has no pump modulation (chopped or decay)")
+    rule = _timing(mode)
+    if rule is None:
+        raise ValueError(f"mode: {mode!r} has no pump modulation (chopped or decay)")
+    return rule.half_periods(params, pump_power)
 
 
 def default_period(params: EstimatorParams, mode: str, pump_power: float | None) -> float:
-    """Default pump modulation period (s) of chopped or decay mode, 50 % duty cycle.
+    """Default pump modulation period (s) of a modulated mode, 50 % duty cycle.
 
-    Chopped: each half-period at least `SETTLE_SHARE` times the longer settle window, rounded
-    up with `nice_ceil`. Decay: the pump-off half holds the whole decay record
-    (``decay_record``, whose late part is the unpumped reference) and the pump-on half
-    `DECAY_ON_SHARE` + 1 rise settle windows (the settled on level gives ln R(0)).
+    Each mode's timing rule gives the half-period (`bench.estimator.mode.Timing`). Chopped:
+    each half-period at least `SETTLE_SHARE` times the longer settle window. Decay: the pump-off
+    half holds the whole decay record (``decay_record``, whose late part is the unpumped
+    reference) and the pump-on half `DECAY_ON_SHARE` + 1 rise settle windows (the settled on
+    level gives ln R(0)). Sweep: as chopped (every step chopped). Rounded up with `nice_ceil`.
     """
-    rise, off = required_half_periods(params, mode, pump_power)
-    if mode == "chopped":
-        half = SETTLE_SHARE * max(rise, off)
-    else:
-        half = max(params.decay_record, (1.0 + DECAY_ON_SHARE) * rise)
+    rule = _timing(mode)
+    if rule is None:
+        raise ValueError(f"mode: {mode!r} has no pump modulation (chopped or decay)")
+    rise, off = rule.half_periods(params, pump_power)
+    half = rule.default_half(params, pump_power, rise, off)
     lo, hi = MODULATION_RANGE
     period = nice_ceil(2.0 * half)
     return min(1.0 / lo, max(1.0 / hi, period))
@@ -80,32 +88,22 @@ def default_period(params: EstimatorParams, mode: str, pump_power: float | None)
 def check_timing(params: EstimatorParams, mode: str, period: float, pump_power: float | None) -> None:
     """Raise `TimingError` naming the figures when ``period`` leaves ``mode`` no settled data.
 
-    Watch and sweep modes have no modulation and always pass.
+    Modes without modulation (watch) always pass; a sweep is judged as chopped (every step
+    chopped).
     """
-    if mode not in ("chopped", "decay"):
+    rule = _timing(mode)
+    if rule is None:
         return
     if not (math.isfinite(period) and period > 0):
         raise TimingError(f"pump period: {period!r} s is not a positive time")
-    half = 0.5 * period
-    rise, off = required_half_periods(params, mode, pump_power)
-    power = "no pump power" if not pump_power else f"{pump_power:.3g} W of pump"
-    ms = 1e3
-    if mode == "chopped" and (half <= rise or half <= off):
-        raise TimingError(
-            f"chopped mode: a pump period of {period * ms:.4g} ms has half-periods of {half * ms:.4g} ms, "
-            f"but the pump-on part is used only from {rise * ms:.3g} ms after its edge ({power}) and the "
-            f"pump-off part from {off * ms:.3g} ms after its edge: no settled data. It needs a period above "
-            f"{2 * max(rise, off) * ms:.3g} ms; the default is {default_period(params, mode, pump_power) * ms:.4g} ms")
-    if mode == "decay" and half < off:
-        raise TimingError(
-            f"decay mode: a pump period of {period * ms:.4g} ms leaves {half * ms:.4g} ms after each pump-off "
-            f"edge, shorter than the {off * ms:.3g} ms of decay that is fitted: no decay can be "
-            f"used. It needs a period of at least {2 * off * ms:.3g} ms; the default is "
-            f"{default_period(params, mode, pump_power) * ms:.4g} ms")
+    rise, off = rule.half_periods(params, pump_power)
+    message = rule.refusal(params, period, pump_power, rise, off)
+    if message is not None:
+        raise TimingError(message)
 
 
 def run_period(cfg, mode: str, current: float, period: float | None = None) -> float:
-    """The pump modulation period (s) a chopped or decay run on bench ``cfg`` at pump
+    """The pump modulation period (s) a modulated run (chopped, decay, sweep) on bench ``cfg`` at pump
     ``current`` (A) will use: ``period`` if given, else `default_period`; `TimingError` (with
     the figures) if it leaves no settled data. Cheap and without I/O: call it before anything
     is opened."""

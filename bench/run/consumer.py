@@ -35,7 +35,7 @@ from typing import Any
 
 import numpy as np
 
-from bench.estimator import estimate as est
+import bench.estimator as est
 from bench.run.readers import CommStatus
 from bench.run.history import EstimateHistory, EstimateView, TraceHistory, TraceView
 from bench.records import PROBE, PUMP_MONITOR, REFERENCE, Block, Estimate, Event
@@ -204,7 +204,7 @@ class Consumer:
 
         A sweep's last step is otherwise never closed into a point (steps close when the next
         setting arrives), so its point, and the fit with it, would be missing.
-        `bench.estimator.estimate.report` closes it; its cumulative estimate is stored as the run's last
+        `bench.estimator.report` closes it; its cumulative estimate is stored as the run's last
         one (what `gainbench summary` reports). Other modes need nothing (their last
         cumulative estimate already holds every finished window). Nothing is done after a
         late close that stored blocks without analysing them (`store_only`): the analysis is
@@ -212,7 +212,7 @@ class Consumer:
         """
         while self._pending:  # settings timed after the last sample: applied now, in order
             self._apply_now(self._pending.popleft())
-        if self.state.mode != "sweep" or self.unanalysed_blocks:
+        if not est.mode_of(self.state.mode).closes_steps or self.unanalysed_blocks:
             return []
         estimates = [dataclasses.replace(e, extra=MappingProxyType({**e.extra, "final": True}))
                      for e in est.report(self.state)]

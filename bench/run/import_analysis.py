@@ -14,7 +14,7 @@ procedures a live run carries out on the bench are taken from the data:
   data (`bench.run.consumer.RECENT_SECONDS`, or its last `bench.run.consumer.RECENT_MIN_BLOCKS`
   blocks).
 
-The analysis ends with the estimator's report of everything (`bench.estimator.estimate.report`), which
+The analysis ends with the estimator's report of everything (`bench.estimator.report`), which
 counts the samples after the last complete window; the run's meta ``final_report`` tells a
 replay to do the same.
 """
@@ -28,13 +28,13 @@ from typing import Any
 
 import numpy as np
 
-from bench.estimator import estimate as est
+import bench.estimator as est
 from bench.errors import ConfigError
 from bench.estimator.params import EstimatorParams
 from bench.run.consumer import Consumer, Control
 from bench.records import Block, Estimate, Event
 
-#: Meta key: the analysis ends with `bench.estimator.estimate.report` (replay does the same).
+#: Meta key: the analysis ends with `bench.estimator.report` (replay does the same).
 FINAL_REPORT = "final_report"
 
 #: Threshold (V) on the stored 0/1 V pump channel of an imported run.

@@ -29,7 +29,6 @@ import time
 from collections.abc import Callable, Mapping
 from typing import Any
 
-from bench import __version__
 from bench.run import stop_signals
 from bench.run.readers import (
     DetectorReader,

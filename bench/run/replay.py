@@ -17,7 +17,7 @@ from dataclasses import dataclass, field
 from pathlib import Path
 from typing import Any
 
-from bench.estimator import estimate as est
+import bench.estimator as est
 from bench.config import BenchConfig, load_bench_text
 from bench.errors import RunStoreError
 from bench.estimator.params import EstimatorParams

@@ -28,6 +28,7 @@ from typing import Any
 import numpy as np
 
 from bench.config import BenchConfig
+from bench.estimator.mode import mode_of
 from bench.records import PUMP_CURRENT, PUMP_MONITOR, PUMP_SETPOINT, Block, Event
 from bench.safety.guard import EMITTING
 from bench.safety.guarded_pump import GuardedPump
@@ -116,7 +117,9 @@ class BenchChecks:
             found = mon.feed_pump(block, output_off_since=gp.output_off_since,
                                   output_on_since=gp.output_on_since, received_at=now)
         elif block.source == "detector" and self.detector_range is not None:
-            found = mon.feed_detector(block, self.detector_range, pump_steady=self.mode()[0] == "watch",
+            mode = mode_of(self.mode()[0])  # held at one level the whole run: steady and never stepped
+            found = mon.feed_detector(block, self.detector_range,
+                                      pump_steady=mode.pump_steady(self.mode()[1]) and not mode.steps_pump,
                                       received_at=now)
         else:
             return
@@ -231,7 +234,7 @@ class BenchChecks:
             gp.trip_on(found[:1])
 
     def _pump_steady(self) -> bool:
-        """Whether this mode keeps the pump at a steady level while it emits (watch, and a
-        sweep measured with steady steps); chopped, decay and chopped sweeps modulate it."""
+        """Whether this mode keeps the pump at a steady level while it emits (the mode table's
+        `pump_steady`: watch, and a sweep measured with steady steps)."""
         mode, settings = self.mode()
-        return mode == "watch" or (mode == "sweep" and settings.get("method", "watch") == "watch")
+        return mode_of(mode).pump_steady(settings)

@@ -25,7 +25,7 @@ import numpy as np
 import pytest
 
 from bench.config import load_bench
-from bench.estimator.estimate import EstimatorParams, capture_baseline, capture_dark, new_state, report, update, with_baseline, with_dark
+from bench.estimator import EstimatorParams, capture_baseline, capture_dark, new_state, report, update, with_baseline, with_dark
 from sim_blocks import model_blocks
 
 BenchModel = pytest.importorskip("simulated_instruments.bench_model").BenchModel

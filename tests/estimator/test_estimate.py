@@ -22,7 +22,7 @@ from scipy.integrate import solve_ivp
 from bench import physics
 from bench.physics import fitting
 from bench.config import load_bench
-from bench.estimator.estimate import (
+from bench.estimator import (
     Baseline,
     Dark,
     EstimatorParams,

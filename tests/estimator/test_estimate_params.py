@@ -17,7 +17,7 @@ import pytest
 from scipy import constants, integrate
 
 from bench.config import load_bench
-from bench.estimator.estimate import (
+from bench.estimator import (
     Baseline,
     Dark,
     EstimatorParams,

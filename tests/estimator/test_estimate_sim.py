@@ -16,7 +16,7 @@ import pytest
 from scipy import constants
 
 from bench.config import load_bench
-from bench.estimator.estimate import (
+from bench.estimator import (
     EstimatorParams,
     capture_baseline,
     capture_dark,

@@ -11,7 +11,7 @@ from __future__ import annotations
 import numpy as np
 import pytest
 
-from bench.estimator import estimate as est
+import bench.estimator as est
 from bench.config import load_bench
 from bench.run.consumer import Consumer, Control
 from bench.records import Block

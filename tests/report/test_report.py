@@ -30,8 +30,8 @@ from bench.physics import fitting
 from bench.cli import main
 from bench.config import builtin_bench_path, load_bench
 from bench.errors import RunStoreError
-from bench.estimator.estimate import Baseline, Dark, EstimatorParams, new_state, report, update, with_baseline, with_dark
-from bench.estimator.estimate import with_setting
+from bench.estimator import Baseline, Dark, EstimatorParams, new_state, report, update, with_baseline, with_dark
+from bench.estimator import with_setting
 from bench.records import Block, Event
 from bench.report.build import ReportError, build_report, parse_analysis
 from bench.report.figures import MinMaxDecimator, guard_segments, pump_intervals, spectrum_curve
@@ -289,7 +289,7 @@ def test_a_reanalysis_shows_its_overrides_and_both_estimates(runs, reports):
     # the pumped rise (so the settle window, so which samples are used) depends on the pump
     # absorbance sigma_ap N L
     from bench.config import load_bench
-    from bench.estimator.estimate import EstimatorParams, probe_terms
+    from bench.estimator import EstimatorParams, probe_terms
 
     held = probe_terms(EstimatorParams.from_config(load_bench()))[2]
     assert (b2.value - held) / (b1.value - held) == pytest.approx(5.0 / 5.1, rel=1e-6)

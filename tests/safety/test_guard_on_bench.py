@@ -101,7 +101,7 @@ def test_lost_pump_communication_trips(emitting):
 
 def test_injected_exception_in_the_pipeline_switches_the_pump_off(emitting, monkeypatch):
     m = emitting
-    import bench.estimator.estimate as est
+    import bench.estimator as est
 
     def broken(state, block):
         raise RuntimeError("injected failure")

@@ -1,0 +1,136 @@
+"""Dark and baseline: the two procedures before a measurement, and their records.
+
+`capture_dark` takes the detector readings with the probe blocked, `capture_baseline` the
+pump-off normalised transmission ``S_off = (V_probe - dark_p) / (V_ref - dark_r)``. Both give
+standard errors from the scatter of contiguous batch means (Flyvbjerg and Petersen). No I/O.
+"""
+
+from __future__ import annotations
+
+import math
+from collections.abc import Iterable
+from dataclasses import dataclass
+
+import numpy as np
+
+from bench.records import PROBE, PUMP_MONITOR, REFERENCE, Block
+
+__all__ = ["Dark", "Baseline", "capture_dark", "capture_baseline"]
+
+
+@dataclass(frozen=True)
+class Dark:
+    """Detector readings with the probe blocked (V), with their standard errors.
+
+    ``t`` is the run-clock time of the last sample used.
+    """
+
+    probe: float
+    probe_sigma: float
+    reference: float
+    reference_sigma: float
+    n_samples: int
+    t: float
+
+
+@dataclass(frozen=True)
+class Baseline:
+    """Pump-off normalised transmission ``S_off`` and its standard error.
+
+    ``t`` is the run-clock time of the last sample used (its age is measured from there),
+    ``t_start`` that of the first.
+    """
+
+    value: float
+    sigma: float
+    n_samples: int
+    t: float
+    t_start: float
+
+
+def _columns(blocks: Iterable[Block], names: tuple[str, ...], what: str):
+    parts: dict[str, list[np.ndarray]] = {n: [] for n in names}
+    t_first = t_last = None
+    for block in blocks:
+        if not isinstance(block, Block):
+            raise ValueError(f"blocks: expected Block objects, got {type(block).__name__}")
+        if block.n == 0:
+            continue
+        for n in names:
+            if n not in block.channels:
+                raise ValueError(f"blocks: block {block.seq} from {block.source} has no {n!r} channel for the {what}")
+            parts[n].append(block.column(n))
+        t_first = block.t0 if t_first is None else t_first
+        t_last = block.t_end
+    if t_first is None:
+        raise ValueError(f"blocks: no samples to take the {what} from")
+    return {n: np.concatenate(v) for n, v in parts.items()}, float(t_first), float(t_last)
+
+
+def _mean_and_error(x: np.ndarray, batches: int) -> tuple[float, float]:
+    """Mean of a time series and its standard error from ``batches`` contiguous batch means."""
+    n = x.size
+    k = min(batches, n)
+    if k < 2:
+        raise ValueError(f"blocks: need at least 2 samples, got {n}")
+    edges = (np.arange(k + 1) * n) // k
+    sums = np.add.reduceat(x, edges[:-1])
+    counts = np.diff(edges).astype(np.float64)
+    mean = float(np.sum(sums) / n)
+    dev = sums / counts - mean
+    var = float(np.sum(counts**2 * dev**2)) / n**2 * k / (k - 1)
+    return mean, math.sqrt(var)
+
+
+def capture_dark(blocks: Iterable[Block], *, batches: int = 20) -> Dark:
+    """Dark levels from blocks taken with the probe blocked.
+
+    The standard errors come from the scatter of ``batches`` contiguous batch means.
+
+    References
+    ----------
+    .. [1] H. Flyvbjerg and H. G. Petersen, J. Chem. Phys. 91, 461 (1989).
+    """
+    if not (isinstance(batches, int) and batches >= 2):
+        raise ValueError(f"batches: must be a whole number of at least 2, got {batches!r}")
+    cols, _, t_last = _columns(blocks, (PROBE, REFERENCE), "dark")
+    p, sp = _mean_and_error(cols[PROBE], batches)
+    r, sr = _mean_and_error(cols[REFERENCE], batches)
+    return Dark(p, sp, r, sr, int(cols[PROBE].size), t_last)
+
+
+def capture_baseline(blocks: Iterable[Block], dark: Dark | None = None, *, batches: int = 20,
+                     pump_threshold_v: float | None = None) -> Baseline:
+    """Pump-off baseline ``S_off = (V_probe - dark_p) / (V_ref - dark_r)`` from blocks.
+
+    Parameters
+    ----------
+    blocks : iterable of Block
+        Detector blocks taken with the pump off.
+    dark : Dark, optional
+        Subtracted from every sample (zero volts if None).
+    batches : int, optional
+        Number of contiguous batches for the standard error (default 20).
+    pump_threshold_v : float, optional
+        If given, samples whose ``pump_monitor`` is above it are left out.
+
+    References
+    ----------
+    .. [1] H. Flyvbjerg and H. G. Petersen, J. Chem. Phys. 91, 461 (1989).
+    """
+    if not (isinstance(batches, int) and batches >= 2):
+        raise ValueError(f"batches: must be a whole number of at least 2, got {batches!r}")
+    blocks = list(blocks)
+    names = (PROBE, REFERENCE) + ((PUMP_MONITOR,) if pump_threshold_v is not None else ())
+    cols, t_first, t_last = _columns(blocks, names, "baseline")
+    dp, dr = (dark.probe, dark.reference) if dark is not None else (0.0, 0.0)
+    den = cols[REFERENCE] - dr
+    if np.any(den <= 0):
+        raise ValueError("blocks: the reference is at or below its dark level; no baseline can be taken")
+    s = (cols[PROBE] - dp) / den
+    if pump_threshold_v is not None:
+        s = s[cols[PUMP_MONITOR] <= pump_threshold_v]
+    m, sm = _mean_and_error(s, batches)
+    if not m > 0:
+        raise ValueError("blocks: the probe is at or below its dark level; no baseline can be taken")
+    return Baseline(m, sm, int(s.size), t_last, t_first)
