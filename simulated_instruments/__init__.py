@@ -8,10 +8,10 @@ numbers come from the bench file); see COMMANDS.md for the instruments' command 
 * `parse_fault`, `Fault` - fault specs ``KIND[:ROLE][@TIME][+DURATION]``.
 """
 
-from simulated_instruments.bench import SimulatedBench
-from simulated_instruments.bench_model import BenchModel, TruthBlock
 from simulated_instruments.clock import SimClock
 from simulated_instruments.device_errors import DeviceError
 from simulated_instruments.faults import Fault, parse_fault
+from simulated_instruments.instrument_servers import SimulatedBench
+from simulated_instruments.optical_setup import BenchModel, TruthBlock
 
 __all__ = ["BenchModel", "DeviceError", "Fault", "SimClock", "SimulatedBench", "TruthBlock", "parse_fault"]
