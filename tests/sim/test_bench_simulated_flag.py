@@ -7,9 +7,8 @@ from __future__ import annotations
 import subprocess
 import sys
 
-from cli_flags import ARM
-
 from bench.config import builtin_bench_path
+from cli_flags import ARM
 
 
 def _real_bench_naming_the_simulator(tmp_path):
