@@ -610,7 +610,3 @@ class BenchModel:
     def medium_regime(self) -> str:
         """How the medium is being computed: ``"steady"``, ``"periodic"`` or ``"stepping"``."""
         return self._timeline.regime
-
-    @property
-    def medium_steps(self) -> int:
-        return self._timeline.steps

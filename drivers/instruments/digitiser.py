@@ -103,10 +103,6 @@ class Digitiser(Driver):
         """Names of the columns of `FetchResult.data`, in scan order."""
         return tuple(self.names_by_channel.get(c, f"ch{c}") for c in self.channels)
 
-    @property
-    def has_sim_truth(self) -> bool:
-        return self.session.has("sim_truth")
-
     def configure(
         self,
         rate_hz: float | None = None,
