@@ -11,7 +11,15 @@ from __future__ import annotations
 from bench.errors import ConfigError
 from drivers.units import KIND_WORDS, SI_UNITS, clean_unit_text, odd_numeral, parse_quantity, registry
 
-__all__ = ["KIND_WORDS", "SI_UNITS", "clean_unit_text", "odd_numeral", "parse_quantity", "parse_relative", "registry"]
+__all__ = [
+    "KIND_WORDS",
+    "SI_UNITS",
+    "clean_unit_text",
+    "odd_numeral",
+    "parse_quantity",
+    "parse_relative",
+    "registry",
+]
 
 
 def parse_relative(text: object, where: str) -> float:

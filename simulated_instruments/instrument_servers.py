@@ -129,7 +129,7 @@ class SimulatedBench:
     def _check_role(self, fault: Fault) -> None:
         if fault.role not in self.roles:
             raise SimulatorSetupError(f"fault {fault.spec()!r}: this bench has no {fault.role} instrument "
-                              f"(it has: {', '.join(self.roles)})")
+                                      f"(it has: {', '.join(self.roles)})")
 
     def inject(self, fault: Fault | str) -> None:
         """Schedule a fault at its time (simulated s since start; no time: now)."""

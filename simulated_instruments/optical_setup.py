@@ -34,12 +34,12 @@ from scipy import constants
 
 from drivers.errors import DriverConfigError
 from drivers.units import parse_quantity
-from simulated_instruments import lineshape
 from simulated_instruments.detectors import CLIP_HOLD, DetectorModel
 from simulated_instruments.device_errors import ILLEGAL_VALUE, INPUT_OVER_RANGE, OUT_OF_RANGE, DeviceError
 from simulated_instruments.diode_driver_model import RAMP_TIME, DiodeDriverModel
 from simulated_instruments.drive import Drive, Gate, SquareWave
 from simulated_instruments.faults import MODEL_KINDS, Fault
+from simulated_instruments.lineshape import probe_cross_sections, tuning_range
 from simulated_instruments.medium import GainMedium
 from simulated_instruments.medium_timeline import MediumTimeline
 from simulated_instruments.setup_config import BenchSetup, SimulatorSetupError
@@ -163,8 +163,8 @@ class BenchModel:
         """(sigma_as, sigma_es, sigma_as Phi_s, (sigma_as + sigma_es) Phi_s) at ``wavelength``."""
         cfg = self.cfg
         sig = cfg.sample.sigma
-        sa, se = lineshape.probe_cross_sections(wavelength, cfg.probe.wavelength, sig.probe_absorption,
-                                                sig.probe_emission)
+        sa, se = probe_cross_sections(wavelength, cfg.probe.wavelength, sig.probe_absorption,
+                                      sig.probe_emission)
         flux = cfg.probe.power / (_top_hat_area(cfg.probe.beam_diameter) * _photon_energy(wavelength))
         return sa, se, sa * flux, (sa + se) * flux
 
@@ -300,7 +300,7 @@ class BenchModel:
         return self._wavelength
 
     def wavelength_range(self) -> tuple[float, float]:
-        return lineshape.tuning_range(self.cfg.probe.wavelength)
+        return tuning_range(self.cfg.probe.wavelength)
 
     def set_probe_wavelength(self, wavelength: float) -> None:
         lo, hi = self.wavelength_range()

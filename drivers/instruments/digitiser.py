@@ -63,8 +63,8 @@ class Digitiser(Driver):
                 raise DriverConfigError(f"{self._where(name)}: {self.options[name]!r} is not positive")
         if self.data_format == "ascii" and not self.session.has("fetch_ascii") \
                 and self.session.profile.command("fetch").reply != "csv_floats":
-            raise DriverConfigError(f"{self._where('format')}: profile {self.profile_name} has no ASCII fetch "
-                              "(commands.fetch_ascii); use format = \"binary\"")
+            raise DriverConfigError(f"{self._where('format')}: profile {self.profile_name} has no ASCII "
+                                    "fetch (commands.fetch_ascii); use format = \"binary\"")
 
     # -- options -----------------------------------------------------------------------
 
