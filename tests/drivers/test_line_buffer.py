@@ -123,7 +123,8 @@ def test_an_over_long_line_is_refused_with_a_clear_error():
     buf.feed(b"x" * 16)
     assert buf.next_line() is None  # 16 bytes may still become a line
     buf.feed(b"x")
-    with pytest.raises(LineTooLong, match=r"more than 16 bytes arrived without the line terminator b'\\n'") as err:
+    expected = r"more than 16 bytes arrived without the line terminator b'\\n'"
+    with pytest.raises(LineTooLong, match=expected) as err:
         buf.next_line()
     assert isinstance(err.value, ReplyError)  # the session treats it as a bad reply
     buf.clear()
