@@ -6,7 +6,7 @@ import math
 from collections.abc import Mapping
 from typing import Any, ClassVar
 
-from bench.errors import ConfigError
+from drivers.errors import DriverConfigError
 from drivers.ieee488 import ErrorEntry, Identity
 from drivers.session import InstrumentStats, Session
 
@@ -15,7 +15,7 @@ COMMON_OPTIONS = frozenset({"visa_backend"})
 
 
 class Driver:
-    """Base of the role drivers; subclasses set ``ROLE`` and ``OPTIONS``.
+    """Base of the role drivers; subclasses set ``DRIVER_NAME``, ``ROLE`` and ``OPTIONS``.
 
     Parameters
     ----------
@@ -27,7 +27,8 @@ class Driver:
 
     #: Profile role this driver needs.
     ROLE: ClassVar[str] = ""
-    #: Name it is registered under (set by `drivers.registry.register`).
+    #: Name it is registered under (a driver in ``drivers/instruments/`` sets it; the
+    #: `drivers.registry.register` decorator sets it for a driver defined elsewhere).
     DRIVER_NAME: ClassVar[str] = ""
     #: Option names this driver understands.
     OPTIONS: ClassVar[frozenset[str]] = frozenset()
@@ -38,7 +39,7 @@ class Driver:
         known = self.OPTIONS | COMMON_OPTIONS
         for name in self.options:
             if name not in known:
-                raise ConfigError(
+                raise DriverConfigError(
                     f"{self._where(name)}: unknown option for the {self.DRIVER_NAME or self.ROLE} "
                     f"driver; expected one of {sorted(known)}"
                 )
@@ -101,15 +102,15 @@ class Driver:
             return default
         value = self.options[name]
         if isinstance(value, bool):
-            raise ConfigError(f"{self._where(name)}: {value!r} is not a number")
+            raise DriverConfigError(f"{self._where(name)}: {value!r} is not a number")
         if isinstance(value, (int, float)):
             number = float(value)
         else:
-            from bench.units import parse_quantity
+            from drivers.units import parse_quantity  # pint is imported only when a unit is read
 
             number = parse_quantity(value, kind, self._where(name))
         if not math.isfinite(number):
-            raise ConfigError(f"{self._where(name)}: {value!r} is not a finite number")
+            raise DriverConfigError(f"{self._where(name)}: {value!r} is not a finite number")
         return number
 
 

@@ -1,4 +1,10 @@
-"""Typed instrument errors, and the one function that turns transport exceptions into them.
+"""The drivers' errors, and the one function that turns transport exceptions into them.
+
+`DriverError` is the root of every error the drivers raise; `DriverConfigError` is a profile,
+driver option or quantity that is not what was expected; `InstrumentError` and its subclasses
+are instruments that did not do what was asked. An application that uses the drivers builds its
+own errors on these (gainbench's ``GainbenchError`` and ``ConfigError`` are these two classes),
+so that one ``except`` catches both its own errors and the drivers'.
 
 Every error names the instrument (role and resource), the command that was sent and what came
 back (as a ``repr`` cut to about 80 characters), so the message printed by the command line is
@@ -9,8 +15,6 @@ pyserial and socket exceptions pass through it and nowhere else.
 from __future__ import annotations
 
 import socket
-
-from bench.errors import GainbenchError
 
 #: How many characters of a command or reply an error message shows.
 SHOWN_CHARS = 80
@@ -34,7 +38,18 @@ def shorten(data: bytes | str | None, limit: int = SHOWN_CHARS) -> str:
     return repr(data)
 
 
-class InstrumentError(GainbenchError):
+class DriverError(Exception):
+    """An error with a message meant for the person at the bench."""
+
+
+class DriverConfigError(DriverError):
+    """A command profile, a driver option or a quantity written as text is not what was expected.
+
+    The message names where the value came from (a file and key, an option) and what was expected.
+    """
+
+
+class InstrumentError(DriverError):
     """An instrument did not do what was asked, or its reply could not be understood.
 
     Parameters

@@ -46,7 +46,7 @@ from pathlib import Path
 from types import MappingProxyType
 from typing import Any
 
-from drivers.errors import ProfileError
+from drivers.errors import DriverConfigError, ProfileError
 from drivers.roles import PLACEHOLDER_SAMPLES, ROLES, Operation
 
 #: The folder of built-in profiles.
@@ -344,12 +344,11 @@ def _seconds(value: Any, path: str, key: str) -> float:
     if isinstance(value, (int, float)):
         seconds = float(value)
     elif isinstance(value, str):
-        from bench.errors import ConfigError
-        from bench.units import parse_quantity
+        from drivers.units import parse_quantity  # pint is imported only when a unit is read
 
         try:
             seconds = parse_quantity(value, "time", f"{path}: {key}")
-        except ConfigError as exc:
+        except DriverConfigError as exc:
             raise ProfileError(path, key, f"expected a time such as \"2 s\" ({exc})") from None
     else:
         raise ProfileError(path, key, f"expected a time such as \"2 s\", got {value!r}")
@@ -410,7 +409,7 @@ def _unit_conversion(unit: Any, kind: str | None, path: str, key: str) -> tuple[
         raise ProfileError(path, key, "this operation has no quantity, so it takes no unit")
     import pint
 
-    from bench.units import SI_UNITS, clean_unit_text, odd_numeral, registry
+    from drivers.units import SI_UNITS, clean_unit_text, odd_numeral, registry
 
     ureg = registry()
     target = SI_UNITS[kind]

@@ -1,30 +1,33 @@
-"""Drivers register by name; `open_instrument` builds one from a bench file's instrument entry.
+"""The drivers, found by scanning `drivers.instruments`; `open_instrument` builds one from a
+bench file's instrument entry.
 
-::
+Every module in ``drivers/instruments/`` is a driver module: each `Driver` subclass defined in
+it with a ``DRIVER_NAME`` is registered under that name, for its ``ROLE``::
 
-    @register("pump-driver")
     class PumpDriver(Driver):
+        DRIVER_NAME = "pump-driver"
         ROLE = "pump"
 
-A driver whose optional dependency is missing registers as unavailable, with a message that
-says what to install; asking for it raises `InterfaceUnavailable` with that message.
+so adding a driver is adding a file. A driver defined elsewhere (a lab's own script) registers
+with the `register` decorator. A driver module whose optional dependency is missing registers
+as unavailable, with a message that says what to install; asking for it raises
+`InterfaceUnavailable` with that message.
 """
 
 from __future__ import annotations
 
 import importlib
+import pkgutil
 from collections.abc import Callable, Mapping
 from dataclasses import dataclass
 from typing import Any, TypeVar
 
+import drivers.instruments
 from drivers.base import Driver
 from drivers.errors import InstrumentError, InterfaceUnavailable
 from drivers.profile import load_profile
 from drivers.session import Session
-from drivers.transport import TransportSpec, open_transport
-
-#: The built-in driver modules, imported on first use so that they register themselves.
-BUILTIN_DRIVER_MODULES = ("drivers.digitiser", "drivers.pump", "drivers.shutter", "drivers.wavelength")
+from drivers.transports.base import TransportSpec, open_transport
 
 #: The resource string that stands for "start the simulated bench and use its resources".
 SIMULATED = "simulated"
@@ -47,15 +50,19 @@ _loaded = False
 D = TypeVar("D", bound=type[Driver])
 
 
+def _add(name: str, cls: type[Driver]) -> None:
+    if not cls.ROLE:
+        raise ValueError(f"name: driver class {cls.__name__} registered as {name!r} has no ROLE")
+    summary = (cls.__doc__ or "").strip().splitlines()[0] if cls.__doc__ else ""
+    _DRIVERS[name] = DriverInfo(name, cls.ROLE, cls, summary=summary)
+
+
 def register(name: str) -> Callable[[D], D]:
     """Class decorator: register a `Driver` subclass under ``name`` (its ``ROLE`` must be set)."""
 
     def decorate(cls: D) -> D:
-        if not cls.ROLE:
-            raise ValueError(f"name: driver class {cls.__name__} registered as {name!r} has no ROLE")
         cls.DRIVER_NAME = name
-        summary = (cls.__doc__ or "").strip().splitlines()[0] if cls.__doc__ else ""
-        _DRIVERS[name] = DriverInfo(name, cls.ROLE, cls, summary=summary)
+        _add(name, cls)
         return cls
 
     return decorate
@@ -66,19 +73,31 @@ def register_unavailable(name: str, role: str, message: str) -> None:
     _DRIVERS[name] = DriverInfo(name, role, None, unavailable=message)
 
 
+def builtin_driver_modules() -> list[str]:
+    """The modules of ``drivers/instruments/`` (``"drivers.instruments.pump"``, ...), sorted."""
+    package = drivers.instruments
+    return sorted(f"{package.__name__}.{info.name}" for info in pkgutil.iter_modules(package.__path__)
+                  if not info.name.startswith("_"))
+
+
 def _load_builtin() -> None:
     global _loaded
     if _loaded:
         return
     _loaded = True
-    for module in BUILTIN_DRIVER_MODULES:
+    for module_name in builtin_driver_modules():
         try:
-            importlib.import_module(module)
+            module = importlib.import_module(module_name)
         except ImportError as exc:
-            name = module.rsplit(".", 1)[-1]
+            name = module_name.rsplit(".", 1)[-1]
             register_unavailable(
                 name, "", f"the {name} driver needs {exc.name or exc}: install it with `pip install {exc.name}`"
             )
+            continue
+        for value in vars(module).values():
+            if (isinstance(value, type) and issubclass(value, Driver) and value.__module__ == module_name
+                    and value.DRIVER_NAME):
+                _add(value.DRIVER_NAME, value)
 
 
 def known_drivers() -> dict[str, DriverInfo]:
@@ -128,7 +147,7 @@ def check_instrument(role: str, driver: str, profile: str, options: Mapping[str,
         An unknown or unavailable driver, or a driver for another role (``detail`` says which).
     ProfileError
         The profile cannot be found or is wrong (names its file and key).
-    bench.errors.ConfigError
+    DriverConfigError
         An option the driver does not take, or a value it cannot use (names the option).
     """
     cls = driver_class(driver, role=role)

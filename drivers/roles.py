@@ -19,7 +19,7 @@ class Operation:
     placeholders: frozenset[str] = frozenset()
     #: Allowed reply formats; ``None`` in the set means "no reply expected" is allowed.
     replies: frozenset[str | None] = frozenset({None, "ok"})
-    #: Quantity kind of the ``{value}`` sent or the number read (a key of bench.units.SI_UNITS).
+    #: Quantity kind of the ``{value}`` sent or the number read (a key of drivers.units.SI_UNITS).
     kind: str | None = None
     #: Whether sending it again after a lost reply is harmless.
     idempotent: bool = True

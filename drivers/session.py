@@ -30,7 +30,7 @@ from drivers.errors import (
 )
 from drivers.ieee488 import NEED_DATA, BlockParser, ErrorEntry, parse_error_reply
 from drivers.profile import Command, Profile
-from drivers.transport import Transport
+from drivers.transports.base import Transport
 
 
 @dataclass(frozen=True)

@@ -6,10 +6,8 @@ from collections.abc import Callable
 
 import numpy as np
 
-from bench.errors import ConfigError
-from simulated_instruments.bench_core import BenchCore
-from simulated_instruments.bench_model import DEFAULT_RANGE, DEFAULT_SAMPLE_RATE, RATE_RANGE, TRUTH_FIELDS
 from simulated_instruments.device_errors import ILLEGAL_VALUE, OUT_OF_RANGE, SETTINGS_CONFLICT, DeviceError
+from simulated_instruments.optical_setup import DEFAULT_RANGE, DEFAULT_SAMPLE_RATE, RATE_RANGE, TRUTH_FIELDS
 from simulated_instruments.ring_buffer import CAPACITY
 from simulated_instruments.scpi import (
     Command,
@@ -24,6 +22,8 @@ from simulated_instruments.scpi import (
     number,
     unquote,
 )
+from simulated_instruments.setup_config import SimulatorSetupError
+from simulated_instruments.shared_state import BenchCore
 
 IDENTITY = "Quillmoor Instruments,QD-2,QD2S0417,1.3.0"
 CHANNELS = 3
@@ -154,6 +154,6 @@ class Digitiser:
         spec = unquote(",".join(params))
         try:
             self._inject(spec)
-        except ConfigError as exc:
+        except SimulatorSetupError as exc:
             raise DeviceError(ILLEGAL_VALUE, str(exc)) from None
 

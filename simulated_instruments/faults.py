@@ -27,7 +27,7 @@ import math
 import re
 from dataclasses import dataclass
 
-from bench.errors import ConfigError
+from simulated_instruments.setup_config import SimulatorSetupError
 
 ROLES = ("detector", "pump", "shutter", "wavelength")
 SCPI_ROLES = ("detector", "pump", "wavelength")
@@ -84,7 +84,7 @@ class Fault:
 def _seconds(text: str, spec: str, what: str) -> float:
     m = _TIME.match(text.strip())
     if not m:
-        raise ConfigError(
+        raise SimulatorSetupError(
             f"fault {spec!r}: {what} {text!r} is not a time; expected a number with an optional unit "
             f"s or ms (3s, 500ms); syntax {SYNTAX}"
         )
@@ -92,38 +92,38 @@ def _seconds(text: str, spec: str, what: str) -> float:
     if m.group("unit") == "ms":
         value /= 1000.0
     if not math.isfinite(value):
-        raise ConfigError(f"fault {spec!r}: {what} {text!r} is not finite")
+        raise SimulatorSetupError(f"fault {spec!r}: {what} {text!r} is not finite")
     return value
 
 
 def parse_fault(spec: str) -> Fault:
-    """Read a fault spec (see the module docstring); a bad one raises ConfigError naming it."""
+    """Read a fault spec (see the module docstring); a bad one raises SimulatorSetupError naming it."""
     if not isinstance(spec, str):
-        raise ConfigError(f"fault {spec!r}: expected text of the form {SYNTAX}")
+        raise SimulatorSetupError(f"fault {spec!r}: expected text of the form {SYNTAX}")
     text = spec.strip().lower()
     m = _SPEC.match(text)
     if not m:
-        raise ConfigError(f"fault {spec!r}: not understood; expected {SYNTAX}")
+        raise SimulatorSetupError(f"fault {spec!r}: not understood; expected {SYNTAX}")
     kind = m.group("kind")
     if kind not in KINDS:
-        raise ConfigError(f"fault {spec!r}: unknown kind {kind!r}; expected one of: {', '.join(KINDS)}")
+        raise SimulatorSetupError(f"fault {spec!r}: unknown kind {kind!r}; expected one of: {', '.join(KINDS)}")
     allowed, default, takes_duration = KINDS[kind]
     role = m.group("role") or default
     if role is None:
-        raise ConfigError(
+        raise SimulatorSetupError(
             f"fault {spec!r}: {kind} needs the instrument's role, e.g. {kind}:pump@3s "
             f"(one of: {', '.join(allowed)})"
         )
     if role not in allowed:
-        raise ConfigError(f"fault {spec!r}: {kind} cannot apply to {role!r}; expected one of: {', '.join(allowed)}")
+        raise SimulatorSetupError(f"fault {spec!r}: {kind} cannot apply to {role!r}; expected one of: {', '.join(allowed)}")
     time = _seconds(m.group("time"), spec, "time") if m.group("time") is not None else None
     duration = None
     if m.group("duration") is not None:
         if not takes_duration:
-            raise ConfigError(f"fault {spec!r}: {kind} takes no +DURATION; expected {kind}:{role}@TIME")
+            raise SimulatorSetupError(f"fault {spec!r}: {kind} takes no +DURATION; expected {kind}:{role}@TIME")
         duration = _seconds(m.group("duration"), spec, "duration")
         if duration <= 0:
-            raise ConfigError(f"fault {spec!r}: the duration must be positive")
+            raise SimulatorSetupError(f"fault {spec!r}: the duration must be positive")
     return Fault(kind=kind, role=role, time=time, duration=duration)
 
 

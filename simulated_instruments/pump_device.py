@@ -2,7 +2,6 @@
 
 from __future__ import annotations
 
-from simulated_instruments.bench_core import BenchCore
 from simulated_instruments.scpi import (
     Command,
     CommandTable,
@@ -14,6 +13,7 @@ from simulated_instruments.scpi import (
     fmt_bool,
     number,
 )
+from simulated_instruments.shared_state import BenchCore
 
 IDENTITY = "Quillmoor Instruments,QP-40,QP40S1123,2.1.4"
 KELVIN = 273.15

@@ -2,7 +2,7 @@
 
 from __future__ import annotations
 
-from simulated_instruments.bench_core import BenchCore
+from simulated_instruments.shared_state import BenchCore
 from simulated_instruments.shutter_protocol import ShutterSession
 
 

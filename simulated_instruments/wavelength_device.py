@@ -2,8 +2,17 @@
 
 from __future__ import annotations
 
-from simulated_instruments.bench_core import BenchCore
-from simulated_instruments.scpi import Command, CommandTable, ScpiSession, common_commands, expect, fmt, fmt_bool, number
+from simulated_instruments.scpi import (
+    Command,
+    CommandTable,
+    ScpiSession,
+    common_commands,
+    expect,
+    fmt,
+    fmt_bool,
+    number,
+)
+from simulated_instruments.shared_state import BenchCore
 
 IDENTITY = "Quillmoor Instruments,QW-1,QW1S0042,1.0.7"
 

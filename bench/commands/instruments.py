@@ -8,7 +8,7 @@ import contextlib
 import warnings
 from collections.abc import Iterator, Mapping
 
-from bench.errors import GainbenchError
+from bench.errors import ConfigError, GainbenchError
 
 NAME = "instruments"
 HELP = "list VISA resources and serial ports, and identify each configured instrument"
@@ -99,13 +99,18 @@ def resolved_resources(cfg) -> Iterator[tuple[Mapping[str, str], str]]:
         yield resources, ""
         return
     try:
-        from simulated_instruments.bench import SimulatedBench
+        from simulated_instruments.instrument_servers import SimulatedBench
+        from simulated_instruments.setup_config import SimulatorSetupError
     except ImportError as exc:
         if exc.name and exc.name.startswith("simulated_instruments"):
             yield resources, f"the simulated bench cannot be started here ({exc})"
             return
         raise
-    with SimulatedBench(cfg) as sim:
+    try:
+        sim_bench = SimulatedBench(cfg)
+    except SimulatorSetupError as exc:
+        raise ConfigError(str(exc)) from None
+    with sim_bench as sim:
         served = dict(sim.resources)
         out = {role: served.get(role, r) if r.lower() == "simulated" else r for role, r in resources.items()}
         yield out, ""

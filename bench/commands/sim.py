@@ -53,8 +53,9 @@ def run(args: argparse.Namespace) -> int:
     if getattr(args, "sim_command", None) != "serve":
         print("gainbench sim: expected an action: serve (see gainbench sim serve --help)", file=sys.stderr)
         return 2
-    from simulated_instruments.bench import SimulatedBench
+    from simulated_instruments.instrument_servers import SimulatedBench
     from simulated_instruments.faults import parse_fault
+    from simulated_instruments.setup_config import SimulatorSetupError
 
     if not (math.isfinite(args.speed) and args.speed > 0):
         raise ConfigError(f"--speed {args.speed!r}: expected a positive number of simulated seconds per second")
@@ -64,7 +65,10 @@ def run(args: argparse.Namespace) -> int:
     check_instruments(cfg)  # the bench file's instrument mistakes, before the simulator trips on them
     if cfg.simulation is None:
         raise ConfigError(f"{cfg.source}: no [simulation] table; `gainbench sim serve` needs a simulated bench file")
-    faults = [parse_fault(spec) for spec in args.fault]
+    try:
+        faults = [parse_fault(spec) for spec in args.fault]
+    except SimulatorSetupError as exc:
+        raise ConfigError(str(exc)) from None
     stop = threading.Event()
 
     def on_signal(signum, frame) -> None:
@@ -83,6 +87,8 @@ def run(args: argparse.Namespace) -> int:
         bench = SimulatedBench(cfg, speed=args.speed, faults=faults, seed=args.seed)
     except DeviceError as exc:  # a value the simulated instruments cannot take (e.g. their sample rates)
         raise ConfigError(f"{cfg.source}: the simulated bench cannot take this bench file: {exc.detail or exc}") from None
+    except SimulatorSetupError as exc:
+        raise ConfigError(str(exc)) from None
     try:
         with bench as sim:
             for role, resource in sim.resources.items():

@@ -39,7 +39,7 @@ from bench.run.readers import (
     stop_readers,
 )
 from bench.config import BenchConfig
-from bench.errors import GainbenchError, Terminated
+from bench.errors import ConfigError, GainbenchError, Terminated
 from bench.estimator.params import EstimatorParams
 from bench.run.consumer import Consumer, Control, Snapshot, TruthItem
 from bench.records import Event
@@ -155,9 +155,13 @@ class Measurement:
         resources = {role: inst.resource for role, inst in cfg.instruments.items()}
         if any(r == "simulated" for r in resources.values()):
             if self.sim_in_process:
-                from simulated_instruments.bench import SimulatedBench
+                from simulated_instruments.instrument_servers import SimulatedBench
+                from simulated_instruments.setup_config import SimulatorSetupError
 
-                self.sim = SimulatedBench(cfg, speed=self.speed, faults=self.faults, seed=self.seed)
+                try:
+                    self.sim = SimulatedBench(cfg, speed=self.speed, faults=self.faults, seed=self.seed)
+                except SimulatorSetupError as exc:
+                    raise ConfigError(str(exc)) from None
             else:
                 from bench.run.simulator_process import SimulatorProcess
 

@@ -14,7 +14,7 @@ from bench.records import Event
 
 @runtime_checkable
 class PumpOutput(Protocol):
-    """What the guard needs from a pump driver (drivers.pump.PumpDriver has these)."""
+    """What the guard needs from a pump driver (drivers.instruments.pump.PumpDriver has these)."""
 
     def output(self, on: bool) -> None: ...
 

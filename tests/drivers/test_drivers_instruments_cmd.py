@@ -118,6 +118,6 @@ def test_listing_failures_are_reported_not_raised():
 
 
 def test_simulated_bench_when_it_exists(capsys):
-    pytest.importorskip("simulated_instruments.bench")
+    pytest.importorskip("simulated_instruments.instrument_servers")
     assert cmd.run(args_for(builtin_bench_path(), no_scan=True)) == 0
     assert "Quillmoor Instruments" in capsys.readouterr().out

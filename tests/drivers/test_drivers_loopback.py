@@ -29,8 +29,8 @@ from drivers.errors import (
     ReplyError,
 )
 from drivers.registry import open_instrument
-from drivers.transport_serial import SerialTransport
-from drivers.transport_visa import VisaTransport
+from drivers.transports.serial import SerialTransport
+from drivers.transports.visa import VisaTransport
 
 # -- a throwaway instrument on 127.0.0.1 --------------------------------------------------
 

@@ -15,7 +15,7 @@ import pytest
 from bench.config import load_bench, load_bench_text
 from drivers.errors import ConnectionLost, InstrumentReportedError, InstrumentTimeout, ReplyError
 from drivers.registry import open_instrument
-from simulated_instruments.bench import SimulatedBench
+from simulated_instruments.instrument_servers import SimulatedBench
 
 
 @pytest.fixture(scope="module")

@@ -18,7 +18,7 @@ from scipy import constants
 from drivers.deadline import Deadline
 from drivers.errors import InstrumentReportedError, ProfileError, ReplyError
 from drivers.registry import open_instrument
-from drivers.transport_visa import VisaTransport
+from drivers.transports.visa import VisaTransport
 
 pytest.importorskip("pyvisa_sim")
 

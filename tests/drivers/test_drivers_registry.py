@@ -22,7 +22,7 @@ from drivers.errors import (
     translate_transport_error,
 )
 from drivers.registry import known_drivers, open_instrument, register_unavailable
-from drivers.transport import available_transports, transport_kind
+from drivers.transports.base import available_transports, transport_kind
 
 
 def test_builtin_drivers_are_registered_with_their_roles():

@@ -2,7 +2,7 @@
 
 Each run draws the sample's TRUE parameters (length, density, all four cross-sections,
 lifetime) from normal distributions with the bench file's configured standard uncertainties,
-simulates that sample (simulated_instruments.bench_model.BenchModel, no sockets, 20 kHz, a
+simulates that sample (simulated_instruments.optical_setup.BenchModel, no sockets, 20 kHz, a
 fraction of a second), and scores the estimator, which is given the NOMINAL bench file, against
 the simulator's truth. So the systematic part of each sigma is tested as honestly as the noise
 part.
@@ -28,7 +28,7 @@ from bench.config import load_bench
 from bench.estimator import EstimatorParams, capture_baseline, capture_dark, new_state, report, update, with_baseline, with_dark
 from sim_blocks import model_blocks
 
-BenchModel = pytest.importorskip("simulated_instruments.bench_model").BenchModel
+BenchModel = pytest.importorskip("simulated_instruments.optical_setup").BenchModel
 
 RATE = 20e3  # Hz
 SECONDS = {"watch": 0.3, "chopped": 1.5, "decay": 1.0}  # s of data behind each estimate

@@ -35,7 +35,7 @@ from bench.estimator import (
 )
 from sim_blocks import model_blocks
 
-BenchModel = pytest.importorskip("simulated_instruments.bench_model").BenchModel
+BenchModel = pytest.importorskip("simulated_instruments.optical_setup").BenchModel
 
 RATE = 50e3
 

@@ -56,7 +56,7 @@ def test_the_slowest_slice_of_the_simulated_medium_settles_within_the_rise_windo
     # a modulation edge after a long pump-off half, every slice (the weakly pumped back one
     # included) must be within 2e-5 of its whole rise from its final level once the rise
     # settle window has passed, and still visibly short of it at a third of the window.
-    from simulated_instruments.bench_model import BenchModel
+    from simulated_instruments.optical_setup import BenchModel
 
     current = default_current(cfg)
     power = cfg.pump.power_at(current)

@@ -74,3 +74,14 @@ def test_bad_fault_spec_is_a_clear_error():
     assert proc.returncode == 2
     assert b"fault 'meteor@3s'" in err and b"unknown kind" in err
     assert out == b""
+
+
+def test_fault_for_an_instrument_the_bench_lacks_is_a_clear_error():
+    # The simulator refuses it (SimulatorSetupError); the command reports it as a bench-file
+    # mistake: exit status 2 and the simulator's own words, no traceback.
+    proc = start("--fault", "drop:wavelength@1s")
+    out, err = proc.communicate(timeout=20)
+    assert proc.returncode == 2
+    assert b"fault 'drop:wavelength@1s': this bench has no wavelength instrument" in err
+    assert b"Traceback" not in err
+    assert out == b""

@@ -16,9 +16,9 @@ import numpy as np
 import pytest
 
 from bench.config import load_bench
-from simulated_instruments.bench_model import BenchModel
 from simulated_instruments.detectors import SHOT_COEFFICIENT, SourceDrift, adc
 from simulated_instruments.faults import Fault
+from simulated_instruments.optical_setup import BenchModel
 
 QUIET = {"simulation.drift_per_hour": "0.0"}
 

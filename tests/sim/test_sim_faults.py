@@ -1,12 +1,12 @@
 """Fault specs of the simulated bench: KIND[:ROLE][@TIME][+DURATION] (the simulator's own
-syntax, simulated_instruments/COMMANDS.md); bad specs are ConfigErrors that name the spec."""
+syntax, simulated_instruments/COMMANDS.md); bad specs are SimulatorSetupErrors that name the spec."""
 
 from __future__ import annotations
 
 import pytest
 
-from bench.errors import ConfigError
 from simulated_instruments.faults import Fault, parse_fault
+from simulated_instruments.setup_config import SimulatorSetupError
 
 
 @pytest.mark.parametrize(
@@ -44,7 +44,7 @@ def test_good_specs(spec, fault):
     ],
 )
 def test_bad_specs_name_the_spec(spec, words):
-    with pytest.raises(ConfigError) as err:
+    with pytest.raises(SimulatorSetupError) as err:
         parse_fault(spec)
     message = str(err.value)
     assert f"fault {spec!r}" in message

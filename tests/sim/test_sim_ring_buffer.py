@@ -11,9 +11,9 @@ import numpy as np
 import pytest
 
 from bench.config import load_bench
-from simulated_instruments.bench_core import BenchCore
-from simulated_instruments.bench_model import BenchModel
+from simulated_instruments.optical_setup import BenchModel
 from simulated_instruments.ring_buffer import SampleRing
+from simulated_instruments.shared_state import BenchCore
 
 
 class ManualClock:

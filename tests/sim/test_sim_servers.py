@@ -18,8 +18,8 @@ import pyvisa
 import serial
 
 from bench.config import load_bench, load_bench_text
-from bench.errors import ConfigError
-from simulated_instruments.bench import SimulatedBench
+from simulated_instruments.instrument_servers import SimulatedBench
+from simulated_instruments.setup_config import SimulatorSetupError
 
 CFG = load_bench()
 
@@ -337,7 +337,7 @@ def test_close_switches_the_pump_off(rm):
 
 
 def test_fault_on_a_missing_instrument_is_refused():
-    with pytest.raises(ConfigError, match="wavelength"):
+    with pytest.raises(SimulatorSetupError, match="wavelength"):
         SimulatedBench(CFG, faults=["drop:wavelength@1s"])
-    with pytest.raises(ConfigError, match="meteor"):
+    with pytest.raises(SimulatorSetupError, match="meteor"):
         SimulatedBench(CFG, faults=["meteor"])

@@ -1,7 +1,7 @@
 """The whole simulated bench as one deterministic model: sources, sample, detectors, truth.
 
-`BenchModel` joins the gain medium (`medium`, `medium_timeline`), the pump driver
-(`pump_driver`), the two shutters, the optional tunable probe (`lineshape`) and the detectors
+`BenchModel` joins the gain medium (`medium`, `medium_timeline`), the pump diode driver
+(`diode_driver_model`), the two shutters, the optional tunable probe (`lineshape`) and the detectors
 (`detectors`). It has its own simulated time ``t`` (s); settings take effect at ``t``, and
 `generate` / `advance_to` move time on. It is used directly, without sockets, e.g. to score
 the estimator over many seeds, and it is what the served instruments talk to.
@@ -32,17 +32,17 @@ from dataclasses import dataclass
 import numpy as np
 from scipy import constants
 
-from bench.config import BenchConfig
-from bench.errors import ConfigError
-from bench.units import parse_quantity
-from simulated_instruments import lineshape
+from drivers.errors import DriverConfigError
+from drivers.units import parse_quantity
 from simulated_instruments.detectors import CLIP_HOLD, DetectorModel
 from simulated_instruments.device_errors import ILLEGAL_VALUE, INPUT_OVER_RANGE, OUT_OF_RANGE, DeviceError
+from simulated_instruments.diode_driver_model import RAMP_TIME, DiodeDriverModel
 from simulated_instruments.drive import Drive, Gate, SquareWave
 from simulated_instruments.faults import MODEL_KINDS, Fault
+from simulated_instruments.lineshape import probe_cross_sections, tuning_range
 from simulated_instruments.medium import GainMedium
 from simulated_instruments.medium_timeline import MediumTimeline
-from simulated_instruments.pump_driver import RAMP_TIME, PumpDriver
+from simulated_instruments.setup_config import BenchSetup, SimulatorSetupError
 
 DEFAULT_SAMPLE_RATE = 100e3  # Hz
 RATE_RANGE = (1.0, 2e6)  # Hz
@@ -81,7 +81,7 @@ def _photon_energy(wavelength: float) -> float:
     return constants.h * constants.c / wavelength
 
 
-def _option(cfg: BenchConfig, key: str, kind: str):
+def _option(cfg: BenchSetup, key: str, kind: str):
     inst = cfg.instruments.get("detector")
     if inst is None or key not in inst.options:
         return None
@@ -89,7 +89,10 @@ def _option(cfg: BenchConfig, key: str, kind: str):
     value = inst.options[key]
     if isinstance(value, (int, float)) and not isinstance(value, bool):
         return float(value)
-    return parse_quantity(value, kind, where)
+    try:
+        return parse_quantity(value, kind, where)
+    except DriverConfigError as exc:
+        raise SimulatorSetupError(str(exc)) from None
 
 
 def _flat(values: np.ndarray):
@@ -104,8 +107,8 @@ class BenchModel:
 
     Parameters
     ----------
-    cfg : BenchConfig
-        A bench file with a ``[simulation]`` table (e.g. ``load_bench()``).
+    cfg : BenchSetup
+        A bench file with a ``[simulation]`` table (e.g. gainbench's ``load_bench()``).
     seed : int, optional
         Random seed; default ``cfg.simulation.seed``.
     sample_rate : float, optional
@@ -115,10 +118,10 @@ class BenchModel:
         10 V.
     """
 
-    def __init__(self, cfg: BenchConfig, *, seed: int | None = None, sample_rate: float | None = None,
+    def __init__(self, cfg: BenchSetup, *, seed: int | None = None, sample_rate: float | None = None,
                  voltage_range: float | None = None):
         if cfg.simulation is None:
-            raise ConfigError(f"{cfg.source}: no [simulation] table, so there is nothing to simulate")
+            raise SimulatorSetupError(f"{cfg.source}: no [simulation] table, so there is nothing to simulate")
         sim = cfg.simulation
         self.cfg = cfg
         self.seed = sim.seed if seed is None else int(seed)
@@ -128,7 +131,7 @@ class BenchModel:
         s = cfg.sample
         self.medium = GainMedium(s.length, s.n_total, s.upper_state_lifetime, s.sigma.pump_absorption,
                                  s.sigma.pump_emission, sim.slices)
-        self.pump = PumpDriver(cfg.pump, sim)
+        self.pump = DiodeDriverModel(cfg.pump, sim)
         self._gates = {1: Gate(), 2: Gate()}
         self._flux_per_watt = 1.0 / (_top_hat_area(cfg.pump.beam_diameter) * _photon_energy(cfg.pump.wavelength))
         self._ramp_piece = min(s.upper_state_lifetime / 4.0, RAMP_TIME / 50.0)
@@ -160,8 +163,8 @@ class BenchModel:
         """(sigma_as, sigma_es, sigma_as Phi_s, (sigma_as + sigma_es) Phi_s) at ``wavelength``."""
         cfg = self.cfg
         sig = cfg.sample.sigma
-        sa, se = lineshape.probe_cross_sections(wavelength, cfg.probe.wavelength, sig.probe_absorption,
-                                                sig.probe_emission)
+        sa, se = probe_cross_sections(wavelength, cfg.probe.wavelength, sig.probe_absorption,
+                                      sig.probe_emission)
         flux = cfg.probe.power / (_top_hat_area(cfg.probe.beam_diameter) * _photon_energy(wavelength))
         return sa, se, sa * flux, (sa + se) * flux
 
@@ -297,7 +300,7 @@ class BenchModel:
         return self._wavelength
 
     def wavelength_range(self) -> tuple[float, float]:
-        return lineshape.tuning_range(self.cfg.probe.wavelength)
+        return tuning_range(self.cfg.probe.wavelength)
 
     def set_probe_wavelength(self, wavelength: float) -> None:
         lo, hi = self.wavelength_range()
@@ -607,7 +610,3 @@ class BenchModel:
     def medium_regime(self) -> str:
         """How the medium is being computed: ``"steady"``, ``"periodic"`` or ``"stepping"``."""
         return self._timeline.regime
-
-    @property
-    def medium_steps(self) -> int:
-        return self._timeline.steps

@@ -12,10 +12,8 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from bench.errors import ConfigError
 from drivers.base import Driver, check_finite
-from drivers.errors import ReplyError
-from drivers.registry import register
+from drivers.errors import DriverConfigError, ReplyError
 
 #: Channel number -> channel name, unless the options say otherwise.
 DEFAULT_CHANNEL_NAMES = {1: "probe", 2: "reference", 3: "pump_monitor"}
@@ -46,10 +44,10 @@ class FetchResult:
     lost: int
 
 
-@register("digitiser")
 class Digitiser(Driver):
     """Multi-channel digitiser (probe, reference, pump monitor) read in sample sets."""
 
+    DRIVER_NAME = "digitiser"
     ROLE = "detector"
     OPTIONS = frozenset({"sample_rate", "range", "format", "channels", "channel_names"})
 
@@ -62,18 +60,18 @@ class Digitiser(Driver):
         self.names_by_channel: dict[int, str] = self._option_names()
         for name, value in (("sample_rate", self.rate_hz), ("range", self.range_v)):
             if value is not None and not value > 0:
-                raise ConfigError(f"{self._where(name)}: {self.options[name]!r} is not positive")
+                raise DriverConfigError(f"{self._where(name)}: {self.options[name]!r} is not positive")
         if self.data_format == "ascii" and not self.session.has("fetch_ascii") \
                 and self.session.profile.command("fetch").reply != "csv_floats":
-            raise ConfigError(f"{self._where('format')}: profile {self.profile_name} has no ASCII fetch "
-                              "(commands.fetch_ascii); use format = \"binary\"")
+            raise DriverConfigError(f"{self._where('format')}: profile {self.profile_name} has no ASCII "
+                                    "fetch (commands.fetch_ascii); use format = \"binary\"")
 
     # -- options -----------------------------------------------------------------------
 
     def _option_format(self) -> str:
         value = self.options.get("format", "binary")
         if value not in DATA_FORMATS:
-            raise ConfigError(f"{self._where('format')}: {value!r} is not one of {list(DATA_FORMATS)}")
+            raise DriverConfigError(f"{self._where('format')}: {value!r} is not one of {list(DATA_FORMATS)}")
         return value
 
     def _option_channels(self) -> tuple[int, ...]:
@@ -81,20 +79,20 @@ class Digitiser(Driver):
         try:
             return _check_channels(value)
         except ValueError as exc:
-            raise ConfigError(f"{self._where('channels')}: {exc}") from None
+            raise DriverConfigError(f"{self._where('channels')}: {exc}") from None
 
     def _option_names(self) -> dict[int, str]:
         value = self.options.get("channel_names", DEFAULT_CHANNEL_NAMES)
         if not isinstance(value, dict):
-            raise ConfigError(f"{self._where('channel_names')}: expected a table such as {{ 1 = \"probe\" }}")
+            raise DriverConfigError(f"{self._where('channel_names')}: expected a table such as {{ 1 = \"probe\" }}")
         names: dict[int, str] = {}
         for key, name in value.items():
             try:
                 number = int(key)
             except (TypeError, ValueError):
-                raise ConfigError(f"{self._where('channel_names')}.{key}: expected a channel number") from None
+                raise DriverConfigError(f"{self._where('channel_names')}.{key}: expected a channel number") from None
             if not isinstance(name, str) or not name.strip():
-                raise ConfigError(f"{self._where('channel_names')}.{key}: expected a channel name")
+                raise DriverConfigError(f"{self._where('channel_names')}.{key}: expected a channel name")
             names[number] = name.strip()
         return names
 
@@ -104,10 +102,6 @@ class Digitiser(Driver):
     def channel_names(self) -> tuple[str, ...]:
         """Names of the columns of `FetchResult.data`, in scan order."""
         return tuple(self.names_by_channel.get(c, f"ch{c}") for c in self.channels)
-
-    @property
-    def has_sim_truth(self) -> bool:
-        return self.session.has("sim_truth")
 
     def configure(
         self,

@@ -10,13 +10,12 @@ from __future__ import annotations
 from typing import Any
 
 from drivers.base import Driver, check_finite
-from drivers.registry import register
 
 
-@register("pump-driver")
 class PumpDriver(Driver):
     """Laser-diode current driver with output switch, hardware interlock and mount temperature."""
 
+    DRIVER_NAME = "pump-driver"
     ROLE = "pump"
     OPTIONS = frozenset({"compound_queries"})
 

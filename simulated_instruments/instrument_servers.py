@@ -1,8 +1,9 @@
 """The simulated bench served on loopback: model, clock, instruments, servers, faults.
 
->>> from bench.config import load_bench
->>> with SimulatedBench(load_bench(), speed=10) as sim:   # doctest: +SKIP
-...     sim.resources["detector"]                          # 'TCPIP::127.0.0.1::40123::SOCKET'
+``cfg`` is a parsed bench file (gainbench's ``bench.config.load_bench()`` gives one)::
+
+    with SimulatedBench(cfg, speed=10) as sim:
+        sim.resources["detector"]                          # 'TCPIP::127.0.0.1::40123::SOCKET'
 
 Instruments are served for the roles the bench file lists: the SCPI ones (detector, pump,
 wavelength) as VISA ``TCPIP::127.0.0.1::PORT::SOCKET`` resources, the shutter controller as a
@@ -22,16 +23,15 @@ import heapq
 import threading
 from collections.abc import Iterable
 
-from bench.config import BenchConfig
-from bench.errors import ConfigError
-from simulated_instruments.bench_core import BenchCore
-from simulated_instruments.bench_model import BenchModel
 from simulated_instruments.clock import SimClock
 from simulated_instruments.device_errors import DEVICE_FAULT, DeviceError
 from simulated_instruments.digitiser_device import Digitiser
 from simulated_instruments.faults import MODEL_KINDS, Fault, as_fault
+from simulated_instruments.optical_setup import BenchModel
 from simulated_instruments.pump_device import PumpDriverDevice
 from simulated_instruments.server import HOST, InstrumentServer, ReplyFaults
+from simulated_instruments.setup_config import BenchSetup, SimulatorSetupError
+from simulated_instruments.shared_state import BenchCore
 from simulated_instruments.shutter_device import ShutterController
 from simulated_instruments.wavelength_device import WavelengthSource
 
@@ -46,8 +46,9 @@ class SimulatedBench:
 
     Parameters
     ----------
-    cfg : BenchConfig
-        A bench file with a ``[simulation]`` table (``load_bench()`` gives the built-in one).
+    cfg : BenchSetup
+        A bench file with a ``[simulation]`` table (gainbench's ``load_bench()`` gives the
+        built-in one).
     speed : float
         Simulated seconds per real second.
     faults : iterable of Fault or str
@@ -56,10 +57,10 @@ class SimulatedBench:
         Random seed (default: the bench file's ``simulation.seed``).
     """
 
-    def __init__(self, cfg: BenchConfig, *, speed: float = 1.0, faults: Iterable[Fault | str] = (),
+    def __init__(self, cfg: BenchSetup, *, speed: float = 1.0, faults: Iterable[Fault | str] = (),
                  seed: int | None = None):
         if cfg.simulation is None:
-            raise ConfigError(f"{cfg.source}: no [simulation] table, so there is nothing to simulate")
+            raise SimulatorSetupError(f"{cfg.source}: no [simulation] table, so there is nothing to simulate")
         parsed = [as_fault(f) for f in faults]  # bad specs fail before anything starts
         self.cfg = cfg
         self.clock = SimClock(speed)
@@ -127,8 +128,8 @@ class SimulatedBench:
     # -- faults ---------------------------------------------------------------------------------
     def _check_role(self, fault: Fault) -> None:
         if fault.role not in self.roles:
-            raise ConfigError(f"fault {fault.spec()!r}: this bench has no {fault.role} instrument "
-                              f"(it has: {', '.join(self.roles)})")
+            raise SimulatorSetupError(f"fault {fault.spec()!r}: this bench has no {fault.role} instrument "
+                                      f"(it has: {', '.join(self.roles)})")
 
     def inject(self, fault: Fault | str) -> None:
         """Schedule a fault at its time (simulated s since start; no time: now)."""

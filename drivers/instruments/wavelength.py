@@ -7,13 +7,12 @@ import time
 from drivers.base import Driver, check_finite
 from drivers.deadline import Deadline
 from drivers.errors import InstrumentTimeout, ReplyError
-from drivers.registry import register
 
 
-@register("wavelength-source")
 class WavelengthSource(Driver):
     """Tunable probe source: set and read the wavelength, wait until it has settled."""
 
+    DRIVER_NAME = "wavelength-source"
     ROLE = "wavelength"
     OPTIONS = frozenset()
 

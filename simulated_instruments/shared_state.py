@@ -11,10 +11,10 @@ from __future__ import annotations
 
 import threading
 
-from simulated_instruments.bench_model import BenchModel
 from simulated_instruments.clock import SimClock
 from simulated_instruments.device_errors import ErrorQueue
 from simulated_instruments.faults import ROLES
+from simulated_instruments.optical_setup import BenchModel
 from simulated_instruments.ring_buffer import CAPACITY, SampleRing
 
 

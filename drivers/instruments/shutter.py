@@ -8,14 +8,12 @@ A closed pump shutter is a second layer only; it never replaces the hardware int
 
 from __future__ import annotations
 
-from bench.errors import ConfigError
 from drivers.base import Driver, check_finite
-from drivers.registry import register
+from drivers.errors import DriverConfigError
 
 DEFAULT_SHUTTERS = {"probe": 1, "pump": 2}
 
 
-@register("shutter")
 class ShutterController(Driver):
     """Controller of named shutters (probe, pump), with optional chopping.
 
@@ -23,6 +21,7 @@ class ShutterController(Driver):
     releases the connection only, as for every driver.
     """
 
+    DRIVER_NAME = "shutter"
     ROLE = "shutter"
     OPTIONS = frozenset({"shutters"})
 
@@ -30,11 +29,11 @@ class ShutterController(Driver):
         super().__init__(session, options)
         table = self.options.get("shutters", DEFAULT_SHUTTERS)
         if not isinstance(table, dict) or not table:
-            raise ConfigError(f"{self._where('shutters')}: expected a table such as {{ probe = 1, pump = 2 }}")
+            raise DriverConfigError(f"{self._where('shutters')}: expected a table such as {{ probe = 1, pump = 2 }}")
         numbers: dict[str, int] = {}
         for name, number in table.items():
             if isinstance(number, bool) or not isinstance(number, int) or number < 0:
-                raise ConfigError(f"{self._where('shutters')}.{name}: expected a shutter number, got {number!r}")
+                raise DriverConfigError(f"{self._where('shutters')}.{name}: expected a shutter number, got {number!r}")
             numbers[str(name)] = number
         self.shutters: dict[str, int] = numbers
 

@@ -15,11 +15,11 @@ import numpy as np
 import pytest
 
 from bench.config import load_bench
-from bench.errors import ConfigError
-from simulated_instruments.bench_model import BenchModel
 from simulated_instruments.device_errors import DeviceError
+from simulated_instruments.diode_driver_model import TRIP_TEMPERATURE
 from simulated_instruments.faults import Fault
-from simulated_instruments.pump_driver import TRIP_TEMPERATURE
+from simulated_instruments.optical_setup import BenchModel
+from simulated_instruments.setup_config import SimulatorSetupError
 
 CFG = load_bench()
 
@@ -73,7 +73,7 @@ def test_needs_a_simulation_table():
     from bench.config import load_bench_text
 
     real = load_bench_text(text, "real.toml")
-    with pytest.raises(ConfigError, match="real.toml.*simulation"):
+    with pytest.raises(SimulatorSetupError, match="real.toml.*simulation"):
         BenchModel(real)
 
 

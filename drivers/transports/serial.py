@@ -3,7 +3,8 @@
 pyserial's ``serial_for_url`` opens every kind. Two of its habits are handled here: a read
 that times out returns short data instead of raising (so every length is checked, and a short
 read is an `InstrumentTimeout`), and ``readline`` keeps waiting as long as bytes trickle in
-(so lines are assembled here, against one `Deadline` on the monotonic clock).
+(so lines are cut by a `LineBuffer` from what the port gives, against one `Deadline` on the
+monotonic clock).
 """
 
 from __future__ import annotations
@@ -14,7 +15,8 @@ import serial
 
 from drivers.deadline import Deadline
 from drivers.errors import ConnectionLost, InstrumentTimeout, translate_transport_error
-from drivers.transport import TransportSpec, register_transport
+from drivers.transports.base import TransportSpec, register_transport
+from drivers.transports.line_buffer import LineBuffer, LineTooLong
 
 #: Bytes taken per non-blocking read while assembling a line.
 _LINE_CHUNK = 4096
@@ -65,7 +67,7 @@ class SerialTransport:
         self.read_termination = bytes(read_termination)
         self.write_termination = bytes(write_termination)
         self.chunk_size = chunk_size
-        self._buffer = bytearray()
+        self._lines = LineBuffer(self.read_termination)
         self._port: serial.SerialBase | None = None
         self._open()
 
@@ -85,7 +87,7 @@ class SerialTransport:
             err = translate_transport_error(exc, role=self.role, resource=self.resource)
             err.detail = f"could not open the port: {err.detail}"
             raise err from exc
-        self._buffer.clear()
+        self._lines.clear()
         self._no_delay()
 
     def _no_delay(self) -> None:
@@ -129,46 +131,56 @@ class SerialTransport:
                 resource=self.resource, command=data,
             )
 
+    def _next_line(self) -> bytes | None:
+        try:
+            return self._lines.next_line()
+        except LineTooLong as exc:
+            raise exc.with_context(role=self.role, resource=self.resource) from None
+
     def read_line(self, deadline: Deadline) -> bytes:
         """One reply line, without its termination, however slowly its bytes arrive."""
-        term = self.read_termination
         while True:
-            end = self._buffer.find(term)
-            if end >= 0:
-                line = bytes(self._buffer[:end])
-                del self._buffer[: end + len(term)]
+            line = self._next_line()
+            if line is not None:
                 return line
             # take whatever has arrived without waiting, then wait for one more byte
-            self._buffer += self._read(_LINE_CHUNK, 0)
-            if self._buffer.find(term) >= 0:
-                continue
+            self._lines.feed(self._read(_LINE_CHUNK, 0))
+            line = self._next_line()
+            if line is not None:
+                return line
             left = deadline.time_left()
             if left <= 0:
                 raise InstrumentTimeout(
                     "no complete reply line before the timeout", role=self.role,
-                    resource=self.resource, reply=bytes(self._buffer),
+                    resource=self.resource, reply=self._lines.pending(),
                 )
-            self._buffer += self._read(1, left)
+            self._lines.feed(self._read(1, left))
 
     def read_exact(self, n: int, deadline: Deadline) -> bytes:
-        """Exactly ``n`` bytes (a short read is a timeout, never data)."""
+        """Exactly ``n`` bytes (a short read is a timeout, never data; its bytes are dropped)."""
         if n < 0:
             raise ValueError(f"n: expected >= 0, got {n!r}")
-        out = bytearray(self._buffer[:n])
-        del self._buffer[:n]
-        while len(out) < n:
-            left = deadline.time_left()
-            if left <= 0:
-                raise InstrumentTimeout(
-                    f"only {len(out)} of {n} bytes arrived before the timeout", role=self.role,
-                    resource=self.resource, reply=bytes(out),
-                )
-            out += self._read(min(self.chunk_size, n - len(out)), left)
-        return bytes(out)
+        lines = self._lines
+        try:
+            while lines.missing(n):
+                left = deadline.time_left()
+                if left <= 0:
+                    partial = lines.take_all()
+                    raise InstrumentTimeout(
+                        f"only {len(partial)} of {n} bytes arrived before the timeout", role=self.role,
+                        resource=self.resource, reply=partial,
+                    )
+                lines.feed(self._read(min(self.chunk_size, lines.missing(n)), left))
+        except BaseException:
+            lines.clear()
+            raise
+        block = lines.take(n)
+        assert block is not None  # nothing is missing
+        return block
 
     def discard_input(self) -> None:
         """Drop unread bytes (after a garbled or late reply)."""
-        self._buffer.clear()
+        self._lines.clear()
         if self._port is not None and self._port.is_open:
             try:
                 self._port.reset_input_buffer()
@@ -182,7 +194,7 @@ class SerialTransport:
 
     def close(self) -> None:
         port, self._port = self._port, None
-        self._buffer.clear()
+        self._lines.clear()
         if port is not None:
             try:
                 port.close()

@@ -34,7 +34,8 @@ from drivers.errors import (
     InterfaceUnavailable,
     translate_transport_error,
 )
-from drivers.transport import TransportSpec, register_transport
+from drivers.transports.base import TransportSpec, register_transport
+from drivers.transports.line_buffer import LineBuffer, LineTooLong
 
 #: Shortest timeout handed to the VISA library (ms); 0 would mean "do not wait at all".
 _MIN_TIMEOUT_MS = 1
@@ -91,7 +92,7 @@ class VisaTransport:
         self.backend = backend
         self.chunk_size = chunk_size
         self.baudrate = baudrate
-        self._buffer = bytearray()  # bytes read past a line's termination
+        self._lines = LineBuffer(self.read_termination)  # bytes read past a line's termination
         self._is_serial = resource.strip().upper().startswith("ASRL")
         self._termchar_on: bool | None = None
         self._res = None
@@ -138,7 +139,7 @@ class VisaTransport:
             raise self._error(exc, "could not open the resource") from exc
         self._res = res
         self._termchar_on = True
-        self._buffer.clear()
+        self._lines.clear()
         self._no_delay()
         problem = self._socket_problem()
         if problem:
@@ -258,41 +259,46 @@ class VisaTransport:
 
     def read_line(self, deadline: Deadline) -> bytes:
         """One reply line, without its termination."""
-        term = self.read_termination
         self._set_termchar(True)
         while True:
-            end = self._buffer.find(term)
-            if end >= 0:
-                line = bytes(self._buffer[:end])
-                del self._buffer[: end + len(term)]
+            try:
+                line = self._lines.next_line()
+            except LineTooLong as exc:
+                raise exc.with_context(role=self.role, resource=self.resource) from None
+            if line is not None:
                 return line
             data, _status = self._read_call(self.chunk_size, deadline)
-            self._buffer += data
+            self._lines.feed(data)
 
     def read_exact(self, n: int, deadline: Deadline) -> bytes:
-        """Exactly ``n`` bytes (a short read is a timeout, never data)."""
+        """Exactly ``n`` bytes (a short read is a timeout, never data; its bytes are dropped)."""
         if n < 0:
             raise ValueError(f"n: expected >= 0, got {n!r}")
-        out = bytearray(self._buffer[:n])
-        del self._buffer[:n]
-        if len(out) < n:
+        lines = self._lines
+        if lines.missing(n):
             self._set_termchar(False)
         try:
-            while len(out) < n:
+            while lines.missing(n):
                 try:
-                    data, _status = self._read_call(min(self.chunk_size, n - len(out)), deadline)
+                    data, _status = self._read_call(min(self.chunk_size, lines.missing(n)), deadline)
                 except InstrumentTimeout as exc:
+                    partial = lines.take_all()
                     exc.detail = (
-                        f"only {len(out)} of {n} bytes arrived before the timeout (bytes of an "
+                        f"only {len(partial)} of {n} bytes arrived before the timeout (bytes of an "
                         "unfinished library read are dropped by the VISA library and not counted)"
                     )
-                    exc.reply = bytes(out)
+                    exc.reply = partial
                     raise
-                out += data
+                lines.feed(data)
+        except BaseException:
+            lines.clear()
+            raise
         finally:
             if self._res is not None:
                 self._set_termchar(True)
-        return bytes(out)
+        block = lines.take(n)
+        assert block is not None  # nothing is missing
+        return block
 
     def discard_input(self) -> None:
         """Drop unread bytes (after a garbled or late reply), including any still arriving.
@@ -300,7 +306,7 @@ class VisaTransport:
         pyvisa-py drains its socket until it has been quiet for 0.1 s; other libraries empty
         their read buffer.
         """
-        self._buffer.clear()
+        self._lines.clear()
         res = self._res
         if res is None:
             return
@@ -317,7 +323,7 @@ class VisaTransport:
     def close(self) -> None:
         """Close the resource (the shared resource manager stays open for other transports)."""
         res, self._res = self._res, None
-        self._buffer.clear()
+        self._lines.clear()
         if res is not None:
             try:
                 res.close()

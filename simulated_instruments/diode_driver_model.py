@@ -20,7 +20,6 @@ from __future__ import annotations
 
 import math
 
-from bench.config import PumpConfig, SimulationConfig
 from simulated_instruments.device_errors import (
     INTERLOCK_OPEN,
     OUT_OF_RANGE,
@@ -28,6 +27,7 @@ from simulated_instruments.device_errors import (
     DeviceError,
 )
 from simulated_instruments.drive import Envelope, SquareWave
+from simulated_instruments.setup_config import PumpSetup, SimulationSetup
 
 RAMP_TIME = 20e-3  # s
 TRIP_TEMPERATURE = 273.15 + 45.0  # K
@@ -38,10 +38,10 @@ SETPOINT_RANGE = (273.15 + 10.0, 273.15 + 40.0)  # K, mount temperature setpoint
 POWER_ON_MODULATION = 1e3  # Hz
 
 
-class PumpDriver:
+class DiodeDriverModel:
     """State of the diode driver (see module docstring); every method takes the time now."""
 
-    def __init__(self, pump: PumpConfig, sim: SimulationConfig):
+    def __init__(self, pump: PumpSetup, sim: SimulationSetup):
         self.slope = pump.slope_efficiency
         self.threshold = pump.threshold_current
         self.rating = pump.diode_current_rating

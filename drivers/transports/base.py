@@ -1,10 +1,12 @@
-"""Transports move bytes; this module picks one from the resource string.
+"""Transports move bytes; this module holds their interface and registry, and picks one from
+the resource string.
 
 A transport is the only code that touches I/O. Every transport has the same small interface
 (`Transport`): ``write(bytes)``, ``read_line(deadline) -> bytes`` (termination removed),
 ``read_exact(n, deadline) -> bytes``, ``discard_input()``, ``reconnect()`` and ``close()``.
-Each kind registers a factory here by name; a kind whose library is missing registers as
-unavailable with a message saying what to install.
+Each kind registers a factory here by name (`register_transport`); the built-in kinds are the
+modules named in `BUILTIN_TRANSPORTS`, imported on first use. A kind whose library is missing
+registers as unavailable with a message saying what to install.
 
 Resource strings:
 
@@ -110,22 +112,24 @@ def transport_kind(resource: str) -> str:
     )
 
 
+#: Built-in kind -> (the module that registers it, what a missing library means: ``{exc}`` is
+#: the ImportError).
+BUILTIN_TRANSPORTS: dict[str, tuple[str, str]] = {
+    "visa": ("drivers.transports.visa",
+             "VISA resources need pyvisa and pyvisa-py ({exc}); install them with `pip install pyvisa pyvisa-py`"),
+    "serial": ("drivers.transports.serial",
+               "serial ports need pyserial ({exc}); install it with `pip install pyserial`"),
+}
+
+
 def _load_builtin_transports() -> None:
-    if "visa" not in _REGISTRY:
+    for kind, (module, missing) in BUILTIN_TRANSPORTS.items():
+        if kind in _REGISTRY:
+            continue
         try:
-            importlib.import_module("drivers.transport_visa")  # registers "visa"
+            importlib.import_module(module)  # registers ``kind``
         except ImportError as exc:
-            register_unavailable(
-                "visa", f"VISA resources need pyvisa and pyvisa-py ({exc}); "
-                "install them with `pip install pyvisa pyvisa-py`",
-            )
-    if "serial" not in _REGISTRY:
-        try:
-            importlib.import_module("drivers.transport_serial")  # registers "serial"
-        except ImportError as exc:
-            register_unavailable(
-                "serial", f"serial ports need pyserial ({exc}); install it with `pip install pyserial`"
-            )
+            register_unavailable(kind, missing.format(exc=exc))
 
 
 def available_transports() -> dict[str, str]:
