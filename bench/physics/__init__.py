@@ -24,6 +24,7 @@ lifetimes, densities) are checked and a ``ValueError`` names the argument that i
 Every public formula is importable from `bench.physics` itself (scripts do so).
 """
 
+from bench.physics.beam import gaussian_peak
 from bench.physics.constants import (
     K_B,
     C,
@@ -82,6 +83,7 @@ __all__ = [
     "fresnel_reflectance",
     "fuchtbauer_ladenburg",
     "full_inversion_gain",
+    "gaussian_peak",
     "gain_coefficient",
     "gain_db",
     "ln_gain_to_db",
