@@ -14,82 +14,32 @@ from __future__ import annotations
 
 import os
 import tomllib
-from datetime import datetime, timezone
 from collections.abc import Mapping, Sequence
-from dataclasses import dataclass, field
+from dataclasses import dataclass
+from datetime import datetime, timezone
 from pathlib import Path
 from typing import Any
 
-from bench import __version__
-from bench.config import BenchConfig
 from bench.errors import GainbenchError
-from bench.records import Estimate, Event
+from bench.report import figures as rf
+from bench.report import html as report_html
+from bench.report.data import (
+    ALL,
+    LIVE,
+    AnalysisData,
+    FigureFile,
+    ReportData,
+    parse_analysis,
+)
 from bench.run.replay import run_config
-from bench.store.summary import summary, trips
 from bench.store import RunReader, resolve_run
+from bench.store.summary import summary, trips
 
 HTML_NAME = "report.html"
-
-#: ``analysis`` choices besides an analysis id.
-LIVE = "live"
-ALL = "all"
 
 
 class ReportError(GainbenchError):
     """The report cannot be written (output directory is a file, not writable, ...)."""
-
-
-@dataclass(frozen=True)
-class FigureFile:
-    """One figure written for the report."""
-
-    key: str  # "signals", "estimates", "decay-a1", ...
-    path: Path
-    title: str
-    caption: str
-
-
-@dataclass
-class AnalysisData:
-    """One analysis of the run: its row of `RunReader.analyses`, estimates and summary."""
-
-    id: int
-    kind: str
-    info: Mapping[str, Any]
-    overrides: Mapping[str, str]
-    overridden: list[tuple[str, str, str]]  # (key, as recorded, override)
-    estimates: list[Estimate]
-    final: Estimate | None
-    summary: Mapping[str, Any]
-
-    @property
-    def label(self) -> str:
-        return f"analysis {self.id} ({self.kind})"
-
-
-@dataclass
-class ReportData:
-    """Everything the page shows, read from one run."""
-
-    run_path: Path
-    run_id: str
-    status: str
-    meta: Mapping[str, Any]
-    cfg: BenchConfig
-    duration_s: float | None
-    block_count: int
-    all_analyses: list[Mapping[str, Any]]
-    analyses: list[AnalysisData]
-    events: list[Event]
-    truth: list[Mapping[str, Any]]
-    trips: list[Mapping[str, Any]]
-    software_version: str = __version__
-    generated_at: str = ""
-    extra: dict[str, Any] = field(default_factory=dict)
-
-    @property
-    def simulated(self) -> bool:
-        return bool(self.meta.get("simulated"))
 
 
 @dataclass(frozen=True)
@@ -102,26 +52,6 @@ class ReportResult:
 
 # --------------------------------------------------------------------------------------------
 # Choosing analyses
-
-
-def parse_analysis(text: str | int | None) -> str | int:
-    """``"live"`` / None, ``"all"``, or an analysis id (``"2"``); ValueError otherwise."""
-    if text is None:
-        return LIVE
-    if isinstance(text, bool):
-        raise ValueError(f"analysis: expected an analysis id, 'live' or 'all', got {text!r}")
-    if isinstance(text, int):
-        if text < 1:
-            raise ValueError(f"analysis: analysis ids start at 1, got {text}")
-        return text
-    t = str(text).strip().lower()
-    if t in (LIVE, ALL):
-        return t
-    try:
-        n = int(t)
-    except ValueError:
-        raise ValueError(f"analysis: expected an analysis id, 'live' or 'all', got {text!r}") from None
-    return parse_analysis(n)
 
 
 def select_analyses(analyses: Sequence[Mapping[str, Any]], which: str | int, path: Path) -> list[int]:
@@ -220,8 +150,6 @@ def _write_text(path: Path, text: str) -> None:
 
 def draw_figures(reader: RunReader, data: ReportData, out: Path, *, buckets: int = 800) -> list[FigureFile]:
     """Draw and save every figure the run has data for."""
-    from bench.report.build import figures as rf
-
     written: list[FigureFile] = []
     failed: list[tuple[str, str]] = data.extra.setdefault("figure_errors", [])
 
@@ -315,8 +243,6 @@ def build_report(run: str | Path, out_dir: str | Path | None = None, *, analysis
     analysis : ``"live"`` (default), ``"all"``, or an analysis id.
     buckets : time buckets of the decimated signal figure.
     """
-    from bench.report.build import html as report_html
-
     which = parse_analysis(analysis)
     if isinstance(buckets, bool) or not isinstance(buckets, int) or buckets < 10:
         raise ValueError(f"buckets: expected a whole number of at least 10, got {buckets!r}")
