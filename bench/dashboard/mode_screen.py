@@ -24,7 +24,7 @@ from textual.widgets import Button, Input, Label, RadioButton, RadioSet, Static
 from bench.config import BenchConfig
 from bench.errors import GainbenchError
 from bench.estimator.estimate import MODES
-from bench.run.measurement import chop_frequency
+from bench.run.pump_program import chop_frequency
 
 MODE_WORDS = {
     "watch": "watch: steady pump",
