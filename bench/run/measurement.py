@@ -2,10 +2,11 @@
 
 `Measurement` puts the pieces together for `gainbench record` and the dashboard:
 
-- it starts the simulated bench when the bench file says ``resource = "simulated"``;
-- it opens every configured instrument through the driver registry;
+- it starts the simulated bench when the bench file says ``resource = "simulated"`` and opens
+  every configured instrument through the driver registry (`bench.run.instrument_setup`);
 - it creates the run file and a `GuardedPump` (which commands the pump off at once);
 - it runs one reader thread per instrument and one consumer thread (`bench.run.consumer`);
+- on the simulated bench, a thread polls the simulator's truth (`bench.run.truth_poller`);
 - it offers the procedures a person runs at the bench: capture dark, capture baseline,
   arm through the checklist, emit, set the pump current, change mode;
 - `close` commands the pump off first, then stops the threads, then closes the run. It runs on
@@ -21,7 +22,6 @@ import contextlib
 import gc
 import logging
 import queue
-import random
 import sys
 import threading
 import time
@@ -46,7 +46,7 @@ from bench.config import BenchConfig
 from bench.errors import Terminated
 from bench.estimator.params import EstimatorParams
 from bench.records import Event
-from bench.run.consumer import Consumer, Control, Snapshot, TruthItem
+from bench.run.consumer import Consumer, Control, Snapshot
 from bench.run.errors import MeasurementError
 from bench.run.instrument_setup import (
     close_instruments,
@@ -54,10 +54,10 @@ from bench.run.instrument_setup import (
     make_simulator,
     needs_simulator,
     open_instruments,
-    open_truth_connection,
     simulated_resources,
 )
 from bench.run.preflight import override_events
+from bench.run.truth_poller import poll_truth
 from bench.safety import checklist
 from bench.safety.conditions import POLL_SPAN, TripMonitor
 from bench.safety.guarded_pump import GuardedPump
@@ -243,7 +243,9 @@ class Measurement:
         # holds the readers up for 100 ms or more.
         gc.freeze()
         if self.sim is not None:
-            self._truth_thread = threading.Thread(target=self._poll_truth, name="truth", daemon=True)
+            self._truth_thread = threading.Thread(
+                target=poll_truth, name="truth", daemon=True,
+                args=(self.cfg, self.sim, self.readers[0], self.stop_flag, self.control_q.put))
             self._truth_thread.start()
 
     def close(self, reason: str = "stopped") -> None:
@@ -456,36 +458,6 @@ class Measurement:
         """Whether this mode keeps the pump at a steady level while it emits (watch, and a
         sweep measured with steady steps); chopped, decay and chopped sweeps modulate it."""
         return self.mode == "watch" or (self.mode == "sweep" and self.settings.get("method", "watch") == "watch")
-
-    def _poll_truth(self) -> None:
-        """The simulator's truth about every 50 ms of real time, over a connection of its own."""
-        det = self.readers[0]
-        try:
-            conn = open_truth_connection(self.cfg, self.sim)
-        except Exception:  # no truth then; the run goes on
-            log.warning("cannot reach the simulator for its truth", exc_info=True)
-            return
-        try:
-            self._truth_loop(det, conn)
-        finally:
-            with contextlib.suppress(Exception):
-                conn.close()
-
-    def _truth_loop(self, det, conn) -> None:
-        # every 30-70 ms at random, so that the rows never lock to the phase of a chopped pump
-        jitter = random.Random()
-        warned = False
-        while not self.stop_flag.wait(jitter.uniform(0.03, 0.07)):
-            try:
-                truth = conn.sim_truth()  # t: simulated s since the digitiser's INIT
-            except Exception:  # a fault on this connection (it reconnects), or the simulator is closing
-                if not warned:
-                    log.warning("the simulator's truth query failed (further failures not logged)", exc_info=True)
-                    warned = True
-                continue
-            names = {"t": "sim_t", "pump_W": "pump_w"}
-            values = {names.get(k, k): float(v) for k, v in truth.items()}
-            self.control_q.put(TruthItem(det.t_start + values.get("sim_t", 0.0), values))
 
     # -- state for displays -------------------------------------------------------------------
     def snapshot(self, with_history: bool = True) -> Snapshot:
