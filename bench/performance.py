@@ -117,7 +117,8 @@ def _pumped(cfg: BenchConfig, kind: type | None = None, *, dark: float | None = 
     """An open `Measurement` (or ``kind``, e.g. `RemoteMeasurement`) on ``cfg`` with a dark of
     ``dark`` s (none if None) and a baseline of ``baseline`` s taken, armed and emitting."""
     from bench.safety.checklist_answers import answers_from_flags
-    from bench.run.measurement import Measurement, default_current
+    from bench.run.measurement import Measurement
+    from bench.run.pump_program import default_current
 
     current = default_current(cfg)
     settings = {"pump_current": current, "pump_power": cfg.pump.power_at(current)}

@@ -45,7 +45,8 @@ def configure(parser: argparse.ArgumentParser) -> None:
 def run(args: argparse.Namespace) -> int:
     from bench.run.measurement_process import RemoteMeasurement
     from bench.dashboard.live_app import LiveDashboard
-    from bench.run.measurement import Measurement, default_current
+    from bench.run.measurement import Measurement
+    from bench.run.pump_program import default_current
 
     cfg = load_for_run(args)  # instruments checked, overrides lowering the eyewear OD refused
     if not 0 < args.speed < float("inf"):

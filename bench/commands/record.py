@@ -79,11 +79,8 @@ def run(args: argparse.Namespace) -> int:
         import bench.run.simulator_process  # noqa: F401
         import bench.safety.conditions  # noqa: F401
         import drivers.registry  # noqa: F401
-        from bench.run.measurement import (
-            Measurement,
-            default_current,
-            sweep_currents,
-        )
+        from bench.run.measurement import Measurement
+        from bench.run.pump_program import default_current, sweep_currents
 
     cfg = load_for_run(args)  # instruments checked, overrides lowering the eyewear OD refused
     if args.seconds <= 0 or not math.isfinite(args.seconds):

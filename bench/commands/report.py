@@ -9,7 +9,7 @@ HELP = "write a run's figures (PNG) and an HTML report page (estimates, figures,
 
 
 def _analysis(text: str):
-    from bench.report.build import parse_analysis
+    from bench.report.data import parse_analysis
 
     try:
         return parse_analysis(text)

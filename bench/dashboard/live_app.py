@@ -30,7 +30,8 @@ from bench.dashboard.small_screens import HelpScreen, NoteScreen, QuitScreen
 from bench.dashboard.stats_poller import StatsPoller
 from bench.dashboard.trip_screen import TripScreen
 from bench.errors import GainbenchError
-from bench.run.measurement import Measurement, default_current
+from bench.run.measurement import Measurement
+from bench.run.pump_program import default_current
 from bench.run.consumer import Snapshot
 
 log = logging.getLogger(__name__)

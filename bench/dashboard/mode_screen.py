@@ -24,7 +24,7 @@ from textual.widgets import Button, Input, Label, RadioButton, RadioSet, Static
 from bench.config import BenchConfig
 from bench.errors import GainbenchError
 from bench.estimator.mode import MODES, mode_of
-from bench.run.measurement import chop_frequency
+from bench.run.pump_program import chop_frequency
 
 
 def mode_words(mode: str) -> str:

@@ -22,7 +22,7 @@ from bench.safety.checklist import ChecklistResult
 from bench.dashboard.checklist_screen import ChecklistScreen
 from bench.dashboard.mode_screen import ModeChoice, ModeScreen
 from bench.errors import GainbenchError
-from bench.run.measurement import sweep_currents
+from bench.run.pump_program import sweep_currents
 
 
 class BenchActions:

@@ -52,23 +52,6 @@ def back_face_pump_rate(sigma_ap: float, sigma_ep: float, wavelength: float, bea
     return (sigma_ap + sigma_ep) * flux_per_watt * math.exp(-absorbance)
 
 
-def gaussian_peak(total: float, beam_diameter: float) -> float:
-    """Peak (on-axis) intensity or fluence of a Gaussian beam, ``2 P / (pi w^2)``, ``w = D/2``.
-
-    ``total`` is the power (W) or pulse energy (J); ``beam_diameter`` the 1/e^2 diameter (m).
-
-    References
-    ----------
-    .. [1] A. E. Siegman, *Lasers*, University Science Books, 1986, sec. 17.1 (Gaussian beams).
-    """
-    if not (math.isfinite(total) and total >= 0):
-        raise ValueError(f"total: must be zero or positive, got {total!r}")
-    if not (math.isfinite(beam_diameter) and beam_diameter > 0):
-        raise ValueError(f"beam_diameter: must be a positive length in m, got {beam_diameter!r}")
-    w = 0.5 * beam_diameter
-    return 2.0 * total / (math.pi * w * w)
-
-
 @dataclass(frozen=True)
 class EstimatorParams:
     """Fixed inputs of the estimator (SI units). Build with `from_config`.
@@ -307,7 +290,7 @@ class EstimatorParams:
             tau=s.upper_state_lifetime,
             u_tau=s.uncertainty.upper_state_lifetime,
             probe_kind=cfg.probe.kind,
-            probe_peak=gaussian_peak(
+            probe_peak=physics.gaussian_peak(
                 cfg.probe.pulse_energy if cfg.probe.kind == "pulsed" else cfg.probe.power,
                 cfg.probe.beam_diameter),
             weak_fraction=cfg.probe.weak_fraction,

@@ -42,8 +42,8 @@ from typing import Any
 import numpy as np
 
 from bench import physics
-from bench.physics import formulas
 from bench.errors import ConfigError
+from bench.physics.arguments import check_positive
 from bench.units import parse_quantity
 
 #: Column names a spectrum file may use, and the kind of unit each takes.
@@ -124,7 +124,7 @@ class CrossSectionSpectrum:
         ConfigError
             If ``wavelength`` is outside the data, naming the file and its range.
         """
-        lam = float(formulas._positive(wavelength, "wavelength", " (a wavelength in m)"))
+        lam = float(check_positive(wavelength, "wavelength", " (a wavelength in m)"))
         lo, hi = self.wavelength_range
         if not lo <= lam <= hi:
             raise ConfigError(

@@ -1,1 +1,3 @@
-"""Run reports: the report's data, its figures and the HTML page."""
+"""Run reports: `data` (what the report shows), `build` (reading a run, writing the report),
+the figures (`figure_style`, `signal_data`, `signal_figure`, `estimate_figures`,
+`timeline_figure`) and `html` (the page)."""

@@ -3,9 +3,10 @@
 `build_report` reads a stored run (never writing it), gathers what a reviewer needs (the run's
 meta, the bench file as recorded, the estimates of one or more analyses with the simulator's
 truth beside them, the arming checklist, the guard's trips, the events) into a `ReportData`,
-draws the figures (`bench.report.figures`), and writes ``report.html`` (`bench.report.html`)
-with the figures beside it. The page embeds each figure as a base64 PNG, so ``report.html``
-alone is complete; the same PNG files stay in the directory for reuse.
+draws the figures (`bench.report.signal_figure`, `estimate_figures`, `timeline_figure`), and
+writes ``report.html`` (`bench.report.html`) with the figures beside it. The page embeds each
+figure as a base64 PNG, so ``report.html`` alone is complete; the same PNG files stay in the
+directory for reuse.
 
 Default output directory: ``<directory of the run file>/<run_id>-report/``.
 """
@@ -14,82 +15,42 @@ from __future__ import annotations
 
 import os
 import tomllib
-from datetime import datetime, timezone
 from collections.abc import Mapping, Sequence
-from dataclasses import dataclass, field
+from dataclasses import dataclass
+from datetime import datetime, timezone
 from pathlib import Path
 from typing import Any
 
-from bench import __version__
-from bench.config import BenchConfig
 from bench.errors import GainbenchError
-from bench.records import Estimate, Event
+from bench.report import html as report_html
+from bench.report.data import (
+    ALL,
+    LIVE,
+    AnalysisData,
+    FigureFile,
+    ReportData,
+    parse_analysis,
+)
+from bench.report.estimate_figures import (
+    decay_figure,
+    estimates_figure,
+    saturation_figure,
+    spectrum_figure,
+    truth_series,
+)
+from bench.report.figure_style import save_png
+from bench.report.signal_data import signal_trace
+from bench.report.signal_figure import signals_figure
+from bench.report.timeline_figure import timeline_figure
 from bench.run.replay import run_config
-from bench.store.summary import summary, trips
 from bench.store import RunReader, resolve_run
+from bench.store.summary import summary, trips
 
 HTML_NAME = "report.html"
-
-#: ``analysis`` choices besides an analysis id.
-LIVE = "live"
-ALL = "all"
 
 
 class ReportError(GainbenchError):
     """The report cannot be written (output directory is a file, not writable, ...)."""
-
-
-@dataclass(frozen=True)
-class FigureFile:
-    """One figure written for the report."""
-
-    key: str  # "signals", "estimates", "decay-a1", ...
-    path: Path
-    title: str
-    caption: str
-
-
-@dataclass
-class AnalysisData:
-    """One analysis of the run: its row of `RunReader.analyses`, estimates and summary."""
-
-    id: int
-    kind: str
-    info: Mapping[str, Any]
-    overrides: Mapping[str, str]
-    overridden: list[tuple[str, str, str]]  # (key, as recorded, override)
-    estimates: list[Estimate]
-    final: Estimate | None
-    summary: Mapping[str, Any]
-
-    @property
-    def label(self) -> str:
-        return f"analysis {self.id} ({self.kind})"
-
-
-@dataclass
-class ReportData:
-    """Everything the page shows, read from one run."""
-
-    run_path: Path
-    run_id: str
-    status: str
-    meta: Mapping[str, Any]
-    cfg: BenchConfig
-    duration_s: float | None
-    block_count: int
-    all_analyses: list[Mapping[str, Any]]
-    analyses: list[AnalysisData]
-    events: list[Event]
-    truth: list[Mapping[str, Any]]
-    trips: list[Mapping[str, Any]]
-    software_version: str = __version__
-    generated_at: str = ""
-    extra: dict[str, Any] = field(default_factory=dict)
-
-    @property
-    def simulated(self) -> bool:
-        return bool(self.meta.get("simulated"))
 
 
 @dataclass(frozen=True)
@@ -102,26 +63,6 @@ class ReportResult:
 
 # --------------------------------------------------------------------------------------------
 # Choosing analyses
-
-
-def parse_analysis(text: str | int | None) -> str | int:
-    """``"live"`` / None, ``"all"``, or an analysis id (``"2"``); ValueError otherwise."""
-    if text is None:
-        return LIVE
-    if isinstance(text, bool):
-        raise ValueError(f"analysis: expected an analysis id, 'live' or 'all', got {text!r}")
-    if isinstance(text, int):
-        if text < 1:
-            raise ValueError(f"analysis: analysis ids start at 1, got {text}")
-        return text
-    t = str(text).strip().lower()
-    if t in (LIVE, ALL):
-        return t
-    try:
-        n = int(t)
-    except ValueError:
-        raise ValueError(f"analysis: expected an analysis id, 'live' or 'all', got {text!r}") from None
-    return parse_analysis(n)
 
 
 def select_analyses(analyses: Sequence[Mapping[str, Any]], which: str | int, path: Path) -> list[int]:
@@ -220,8 +161,6 @@ def _write_text(path: Path, text: str) -> None:
 
 def draw_figures(reader: RunReader, data: ReportData, out: Path, *, buckets: int = 800) -> list[FigureFile]:
     """Draw and save every figure the run has data for."""
-    from bench.report import figures as rf
-
     written: list[FigureFile] = []
     failed: list[tuple[str, str]] = data.extra.setdefault("figure_errors", [])
 
@@ -237,7 +176,7 @@ def draw_figures(reader: RunReader, data: ReportData, out: Path, *, buckets: int
             return
         path = out / f"fig-{key}.png"
         try:
-            rf.save_png(fig, path)
+            save_png(fig, path)
         except OSError as exc:
             raise ReportError(f"{path}: cannot write the figure ({exc.strerror or exc})") from None
         finally:
@@ -245,14 +184,14 @@ def draw_figures(reader: RunReader, data: ReportData, out: Path, *, buckets: int
         written.append(FigureFile(key, path, title, caption))
 
     rid = data.run_id
-    sig = rf.signal_trace(reader, data.events, buckets=buckets, duration=data.duration_s)
+    sig = signal_trace(reader, data.events, buckets=buckets, duration=data.duration_s)
     data.extra["signal_samples"] = sig.trace.samples
     data.extra["signal_bucket_s"] = sig.trace.width
     pump_text = ("Grey: the pump driver reported its output on." if sig.pump_on is not None
                  else "The pump driver's output state was not recorded.")
     dark_text = ("S uses the dark captured in the run (dotted boxes: the dark captures, where S is not "
                  "defined)." if sig.darks else "No dark was captured: S assumes zero volts of dark.")
-    save("signals", lambda: rf.signals_figure(sig, title=rid), "Signals",
+    save("signals", lambda: signals_figure(sig, title=rid), "Signals",
          f"Probe and reference detector voltages, the normalised transmission S and the pump monitor over "
          f"the whole run, decimated to {sig.trace.edges.size - 1} time buckets of "
          f"{sig.trace.width * 1e3:.3g} ms: the band spans each bucket's lowest to highest sample, the line is "
@@ -260,11 +199,11 @@ def draw_figures(reader: RunReader, data: ReportData, out: Path, *, buckets: int
 
     truth = None
     if data.simulated and data.truth:
-        truth = rf.truth_series(data.truth, data.cfg.sample.sigma.probe_absorption)
+        truth = truth_series(data.truth, data.cfg.sample.sigma.probe_absorption)
     truth_text = (" Black crosses: the simulator's truth, sampled at instants while the pump was on."
                   if truth is not None else "")
     series = [(a.label, a.estimates) for a in data.analyses]
-    save("estimates", lambda: rf.estimates_figure(series, truth, title=rid,
+    save("estimates", lambda: estimates_figure(series, truth, title=rid,
                                                      trips=[float(t["t"]) for t in data.trips]), "Estimates over time",
          "Excited fraction β and single-pass net gain (ln R where neither is known): the cumulative "
          "estimate (everything since the mode or setting last changed) with its ±2σ band (combined: noise "
@@ -276,24 +215,24 @@ def draw_figures(reader: RunReader, data: ReportData, out: Path, *, buckets: int
         name = f" ({a.label})" if len(data.analyses) > 1 or a.kind != "live" else ""
         truth_rows = data.truth if data.simulated else None
         save(f"decay-a{a.id}",
-             lambda: rf.decay_figure(final, title=rid) if final is not None and final.mode == "decay" else None,
+             lambda: decay_figure(final, title=rid) if final is not None and final.mode == "decay" else None,
              f"Lifetime fit{name}",
              "ln R(t) after each pump-off edge, averaged over the decays and binned, with the fitted "
              "exponential ln R(0) exp(−t/τ_d); lower panel: each bin's residual divided by its standard "
              "uncertainty (dotted: ±2). The lifetime τ removes the probe's own stimulated rate from τ_d.")
         save(f"saturation-a{a.id}",
-             lambda: (rf.saturation_figure(final, truth_rows, title=rid)
+             lambda: (saturation_figure(final, truth_rows, title=rid)
                       if final is not None and final.mode == "sweep" else None),
              f"Pump saturation{name}",
              "Excited fraction β at each pump-power step (error bars: ±1σ noise, the weights of the fit) "
              "and the fitted saturation curve.")
-        save(f"spectrum-a{a.id}", lambda: rf.spectrum_figure(final, title=rid) if final is not None else None,
+        save(f"spectrum-a{a.id}", lambda: spectrum_figure(final, title=rid) if final is not None else None,
              f"Gain spectrum{name}",
              "Pump-induced gain change ln R / L at each probe wavelength (±1σ noise) with the fitted Voigt "
              "line (in optical frequency).")
 
     t_end = float(data.duration_s or 0.0)
-    save("events", lambda: rf.timeline_figure(data.events, t_end, data.trips, title=rid), "Events",
+    save("events", lambda: timeline_figure(data.events, t_end, data.trips, title=rid), "Events",
          "Every recorded event on the run's time axis, one row per kind; top: the guard's state from its "
          "accepted transitions. A dashed line marks each trip, with the time from the failing reading to "
          "the pump-off command (latency).")
@@ -315,8 +254,6 @@ def build_report(run: str | Path, out_dir: str | Path | None = None, *, analysis
     analysis : ``"live"`` (default), ``"all"``, or an analysis id.
     buckets : time buckets of the decimated signal figure.
     """
-    from bench.report import html as report_html
-
     which = parse_analysis(analysis)
     if isinstance(buckets, bool) or not isinstance(buckets, int) or buckets < 10:
         raise ValueError(f"buckets: expected a whole number of at least 10, got {buckets!r}")

@@ -1,6 +1,6 @@
 """The report page: one HTML file, plain CSS, no JavaScript, no external resources.
 
-`render` turns a `bench.report.build.ReportData` and its figures into the page's text. Every piece of
+`render` turns a `bench.report.data.ReportData` and its figures into the page's text. Every piece of
 text that comes from the run file (labels, names, notes, reasons, overrides, meta) is untrusted
 and passes through `esc` (``html.escape``) before it reaches the page; numbers are formatted
 here. Figures are embedded as base64 PNG ``data:`` URIs, so the page needs no other file.
@@ -12,13 +12,11 @@ import base64
 import html
 import math
 from collections.abc import Mapping, Sequence
-from typing import TYPE_CHECKING, Any
+from typing import Any
 
+from bench.report.data import AnalysisData, FigureFile, ReportData
 from bench.safety.checklist import SECOND_LAYER_NOTICE
 from bench.safety.exposure_limits import caution_text
-
-if TYPE_CHECKING:
-    from bench.report.build import AnalysisData, FigureFile, ReportData
 
 #: Estimate names shown, in order: (key, label, scale to the display unit, display unit).
 QUANTITIES = (

@@ -85,9 +85,6 @@ class TraceHistory:
             return
         self.add(block.times(), block.data[:, cols])
 
-    def add_columns(self, t: np.ndarray, columns: dict[str, np.ndarray]) -> None:
-        self.add(t, np.column_stack([columns[c] for c in self.channels]))
-
     def view(self) -> TraceView:
         n = min(self._written, self.capacity)
         if n == 0 or self._last_bucket is None:

@@ -2,10 +2,11 @@
 
 `Measurement` puts the pieces together for `gainbench record` and the dashboard:
 
-- it starts the simulated bench when the bench file says ``resource = "simulated"``;
-- it opens every configured instrument through the driver registry;
+- it starts the simulated bench when the bench file says ``resource = "simulated"`` and opens
+  every configured instrument through the driver registry (`bench.run.instrument_setup`);
 - it creates the run file and a `GuardedPump` (which commands the pump off at once);
 - it runs one reader thread per instrument and one consumer thread (`bench.run.consumer`);
+- on the simulated bench, a thread polls the simulator's truth (`bench.run.truth_poller`);
 - it offers the procedures a person runs at the bench: capture dark, capture baseline,
   arm through the checklist, emit, set the pump current, change mode;
 - `close` commands the pump off first, then stops the threads, then closes the run. It runs on
@@ -20,14 +21,13 @@ from __future__ import annotations
 import contextlib
 import gc
 import logging
-import math
 import queue
-import random
 import sys
 import threading
 import time
 from collections.abc import Callable, Mapping
 from typing import Any
+
 
 from bench.run import stop_signals
 from bench.run.readers import (
@@ -39,10 +39,24 @@ from bench.run.readers import (
     stop_readers,
 )
 from bench.config import BenchConfig
-from bench.errors import ConfigError, GainbenchError, Terminated
+from bench.errors import Terminated
 from bench.estimator.params import EstimatorParams
-from bench.run.consumer import Consumer, Control, Snapshot, TruthItem
 from bench.records import Event
+from bench.run.consumer import Consumer, Control, Snapshot
+from bench.run.errors import MeasurementError
+from bench.run.instrument_setup import (
+    close_instruments,
+    configured_resources,
+    make_simulator,
+    needs_simulator,
+    open_instruments,
+    simulated_resources,
+)
+from bench.run.preflight import override_events
+from bench.run.truth_poller import poll_truth
+from bench.safety import checklist
+from bench.safety.bench_checks import BenchChecks
+from bench.store import RunWriter
 
 log = logging.getLogger(__name__)
 
@@ -63,8 +77,6 @@ MIN_BLOCK = 0.01
 QUEUE_BLOCKS = 256
 
 
-class MeasurementError(GainbenchError):
-    """A procedure could not be carried out (e.g. no data arrived)."""
 
 
 class Measurement:
@@ -143,47 +155,23 @@ class Measurement:
         self.close(reason=reason)
 
     def open(self) -> None:
-        from bench.run.preflight import override_events
-        from bench.safety.bench_checks import BenchChecks
-        from drivers.registry import open_instrument
-
         cfg = self.cfg
         # Threads waiting on an instrument's reply get the interpreter back within 0.5 ms
         # instead of the default 5 ms: the guard's exchanges with the pump are several
         # hand-overs each, and trip latency is what this buys (a little throughput is the cost).
         sys.setswitchinterval(SWITCH_INTERVAL)
-        resources = {role: inst.resource for role, inst in cfg.instruments.items()}
-        if any(r == "simulated" for r in resources.values()):
-            if self.sim_in_process:
-                from simulated_instruments.instrument_servers import SimulatedBench
-                from simulated_instruments.setup_config import SimulatorSetupError
-
-                try:
-                    self.sim = SimulatedBench(cfg, speed=self.speed, faults=self.faults, seed=self.seed)
-                except SimulatorSetupError as exc:
-                    raise ConfigError(str(exc)) from None
-            else:
-                from bench.run.simulator_process import SimulatorProcess
-
-                self.sim = SimulatorProcess(cfg, speed=self.speed, faults=self.faults, seed=self.seed)
+        resources = configured_resources(cfg)
+        if needs_simulator(resources):
+            self.sim = make_simulator(cfg, speed=self.speed, faults=self.faults, seed=self.seed,
+                                      in_process=self.sim_in_process)
             self.sim.__enter__()
-            resources = {role: (self.sim.resources[role] if r == "simulated" else r) for role, r in resources.items()}
-        for role, inst in cfg.instruments.items():
-            if role not in resources:
-                continue
-            driver = open_instrument(role, inst.driver, resources[role], inst.profile, inst.timeout, dict(inst.options))
-            self.instruments[role] = driver
-            try:
-                self.identities[role] = str(driver.identify())
-            except GainbenchError as exc:
-                raise MeasurementError(f"{role} at {resources[role]}: no identity ({exc})") from exc
-            self._clear_error_queue(role, driver)
+            resources = simulated_resources(resources, self.sim)
+        # filled as they open: what opened before a failure is closed by `close`
+        open_instruments(cfg, resources, self.instruments, self.identities, on_event=self.control_q.put)
         pump = self.instruments["pump"]
         shutter = self.instruments.get("shutter")
         self.clock = RunClock(self.speed)  # the run's time zero: instruments open, nothing read yet
         if self.record:
-            from bench.store import RunWriter
-
             self.store = RunWriter.from_config(cfg, mode=self.mode, instruments=self.identities,
                                                log_dir=self.log_dir,
                                                meta={"speed": self.speed, "faults": list(self.faults)})
@@ -236,7 +224,9 @@ class Measurement:
         # holds the readers up for 100 ms or more.
         gc.freeze()
         if self.sim is not None:
-            self._truth_thread = threading.Thread(target=self._poll_truth, name="truth", daemon=True)
+            self._truth_thread = threading.Thread(
+                target=poll_truth, name="truth", daemon=True,
+                args=(self.cfg, self.sim, self.readers[0], self.stop_flag, self.control_q.put))
             self._truth_thread.start()
 
     def close(self, reason: str = "stopped") -> None:
@@ -289,15 +279,7 @@ class Measurement:
                 self.store.close(reason=reason)
             except Exception:
                 log.exception("closing the run file")
-        for role, inst in list(self.instruments.items()):
-            with contextlib.suppress(Exception):
-                if role == "detector":
-                    inst.stop()
-            with contextlib.suppress(Exception):
-                inst.close()
-        if self.sim is not None:
-            with contextlib.suppress(Exception):
-                self.sim.__exit__(None, None, None)
+        close_instruments(self.instruments, self.sim)
 
     # -- threads --------------------------------------------------------------------------
     def _consume(self) -> None:
@@ -334,53 +316,6 @@ class Measurement:
                     self.guarded_pump.trip("the acquisition pipeline failed: " + repr(exc), "pipeline_failure",
                                            self.clock.now())
             self.stop_flag.set()
-
-    def _clear_error_queue(self, role: str, driver) -> None:
-        """Empty an instrument's error queue at start: what it holds is from before this run
-        (and would otherwise be blamed on this run's first setting). Noted as a run event."""
-        try:
-            entries = driver.instrument_errors()
-        except GainbenchError as exc:
-            raise MeasurementError(f"{role}: reading its error queue at start failed ({exc})") from exc
-        if entries:
-            listed = "; ".join(f"{e.code}, {e.text!r}" for e in entries)
-            self.control_q.put(Event(0.0, "run", f"{role}: error queue at start held (from before this run, "
-                                     f"cleared): {listed}", data={"source": role,
-                                                                  "errors": [[e.code, e.text] for e in entries]}))
-
-    def _poll_truth(self) -> None:
-        """The simulator's truth about every 50 ms of real time, over a connection of its own."""
-        from drivers.registry import open_instrument
-
-        det = self.readers[0]
-        inst = self.cfg.instruments["detector"]
-        try:
-            conn = open_instrument("detector", inst.driver, self.sim.resources["detector"], inst.profile,
-                                   inst.timeout, dict(inst.options))
-        except Exception:  # no truth then; the run goes on
-            log.warning("cannot reach the simulator for its truth", exc_info=True)
-            return
-        try:
-            self._truth_loop(det, conn)
-        finally:
-            with contextlib.suppress(Exception):
-                conn.close()
-
-    def _truth_loop(self, det, conn) -> None:
-        # every 30-70 ms at random, so that the rows never lock to the phase of a chopped pump
-        jitter = random.Random()
-        warned = False
-        while not self.stop_flag.wait(jitter.uniform(0.03, 0.07)):
-            try:
-                truth = conn.sim_truth()  # t: simulated s since the digitiser's INIT
-            except Exception:  # a fault on this connection (it reconnects), or the simulator is closing
-                if not warned:
-                    log.warning("the simulator's truth query failed (further failures not logged)", exc_info=True)
-                    warned = True
-                continue
-            names = {"t": "sim_t", "pump_W": "pump_w"}
-            values = {names.get(k, k): float(v) for k, v in truth.items()}
-            self.control_q.put(TruthItem(det.t_start + values.get("sim_t", 0.0), values))
 
     # -- state for displays -------------------------------------------------------------------
     def snapshot(self, with_history: bool = True) -> Snapshot:
@@ -513,21 +448,15 @@ class Measurement:
 
     # -- arming ---------------------------------------------------------------------------------
     def checklist_items(self):
-        from bench.safety.checklist import checklist_items
-
-        return checklist_items(self.cfg)
+        return checklist.checklist_items(self.cfg)
 
     def pump_readings(self) -> dict[str, object]:
-        from bench.safety.checklist import read_pump
-
-        return read_pump(self.instruments["pump"])
+        return checklist.read_pump(self.instruments["pump"])
 
     def arm(self, answers, operator: str):
         """Judge the checklist answers; arm the guard if they pass. Returns the result."""
-        from bench.safety.checklist import evaluate
-
         assert self.guarded_pump is not None
-        result = evaluate(self.checklist_items(), answers, self.pump_readings(), operator, clock=self.clock.now)
+        result = checklist.evaluate(self.checklist_items(), answers, self.pump_readings(), operator, clock=self.clock.now)
         for ev in result.records:
             self.control_q.put(ev)
         if result.passed:
@@ -546,31 +475,3 @@ class Measurement:
         assert self.guarded_pump is not None
         self.guarded_pump.acknowledge(who)
 
-
-def default_current(cfg: BenchConfig) -> float:
-    """80 % of the lower of the pump's and the guard's current limits."""
-    return 0.8 * min(cfg.pump.max_current, cfg.guard.max_current)
-
-
-def chop_frequency(cfg: BenchConfig, mode: str, current: float | None = None) -> float:
-    """Default pump modulation (Hz) of chopped and decay modes at ``current`` (default: the
-    default current), from the settle windows (`bench.estimator.timing.default_period`)."""
-    from bench.estimator.timing import default_period
-
-    i = default_current(cfg) if current is None else current
-    return 1.0 / default_period(EstimatorParams.from_config(cfg), mode, cfg.pump.power_at(i))
-
-
-def sweep_currents(cfg: BenchConfig, steps: int) -> list[float]:
-    """Pump currents of a sweep: from just above threshold to the default current."""
-    lo = cfg.pump.threshold_current + 0.1 * (default_current(cfg) - cfg.pump.threshold_current)
-    hi = default_current(cfg)
-    if steps < 2:
-        return [hi]
-    return [lo + (hi - lo) * k / (steps - 1) for k in range(steps)]
-
-
-def fmt_quantity(q, digits: int = 4) -> str:
-    if q is None or not math.isfinite(q.value):
-        return "-"
-    return f"{q.value:.{digits}g} ± {q.sigma:.2g}"

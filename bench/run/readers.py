@@ -287,11 +287,6 @@ class PumpReader(Reader):
             log.info("pump reconnect failed: %s", exc)
 
 
-def start_readers(readers: list[Reader]) -> None:
-    for r in readers:
-        r.start()
-
-
 def stop_readers(readers: list[Reader], stop: threading.Event, timeout: float = 5.0,
                  on_stuck: Callable[[Reader], None] | None = None) -> None:
     stop.set()

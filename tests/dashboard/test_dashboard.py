@@ -20,7 +20,8 @@ from textual import events
 
 from bench.config import load_bench
 from bench.errors import GainbenchError
-from bench.run.measurement import Measurement, default_current
+from bench.run.measurement import Measurement
+from bench.run.pump_program import default_current
 from bench.store import RunReader
 
 SNAPSHOTS = Path(__file__).parent / "snapshots"

@@ -25,7 +25,7 @@ from bench.dashboard.replay_app import KEYS as REPLAY_KEYS
 from bench.dashboard.replay_app import ReplayDashboard
 from bench.dashboard.replay_feed import SPEEDS, guard_at, jump_targets
 from bench.dashboard.replay_panel import play_state, position_bar
-from bench.run.measurement import chop_frequency
+from bench.run.pump_program import chop_frequency
 from bench.records import Event, Quantity
 
 
@@ -350,7 +350,7 @@ def test_mode_screen_refuses_a_chopping_period_with_no_settled_data():
     from textual.app import App
 
     from bench.dashboard.mode_screen import ModeScreen
-    from bench.run.measurement import default_current
+    from bench.run.pump_program import default_current
     from bench.estimator.timing import run_period
 
     cfg = load_bench()

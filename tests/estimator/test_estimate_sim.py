@@ -118,7 +118,7 @@ def test_default_timing_gives_noise_limited_estimates(cfg, params, mode):
     # settle windows at the default current, the estimator's own settle windows. Scored
     # against the simulator's truth within 4 sigma_noise (no parameter error here). The
     # former defaults (half-period and rise settle window both 10 tau) gave no cycle at all.
-    from bench.run.measurement import chop_frequency, default_current
+    from bench.run.pump_program import chop_frequency, default_current
 
     current = default_current(cfg)
     settings = {"pump_current": current, "pump_power": cfg.pump.power_at(current)}

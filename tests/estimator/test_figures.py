@@ -165,7 +165,7 @@ def test_truth_rows_without_the_medium_transmission_fall_back_and_say_so(cfg):
 
 
 def test_the_report_draws_the_medium_own_gain_as_truth(cfg):
-    from bench.report.figures import truth_series
+    from bench.report.estimate_figures import truth_series
 
     s = cfg.sample
     row = {"t": 1.0, "pump_w": 5.0, "beta": 0.2, "ln_ratio": 0.46, "n_total": s.n_total, "length": s.length,

@@ -34,7 +34,9 @@ from bench.estimator import Baseline, Dark, EstimatorParams, new_state, report, 
 from bench.estimator import with_setting
 from bench.records import Block, Event
 from bench.report.build import ReportError, build_report, parse_analysis
-from bench.report.figures import MinMaxDecimator, guard_segments, pump_intervals, spectrum_curve
+from bench.report.estimate_figures import spectrum_curve
+from bench.report.signal_data import MinMaxDecimator, pump_intervals
+from bench.report.timeline_figure import guard_segments
 from bench.store import RunReader, RunWriter
 
 ARM = ["--eyewear-od", "940nm=5", "--eyewear-od", "1030nm=2", "--confirm-setup"]

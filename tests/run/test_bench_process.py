@@ -18,7 +18,7 @@ from bench.run.measurement_process import BenchProcessError, RemoteMeasurement
 from bench.safety.checklist_answers import answers_from_flags
 from bench.config import load_bench
 from bench.safety.guard import GuardRefused
-from bench.run.measurement import default_current
+from bench.run.pump_program import default_current
 from bench.store import RunReader
 
 ODS = {940e-9: 5.0, 1030e-9: 2.0}
@@ -75,7 +75,7 @@ CHILD = textwrap.dedent("""
     from bench.safety.checklist_answers import answers_from_flags
     from bench.config import load_bench
     from bench.run.measurement_process import RemoteMeasurement
-    from bench.run.measurement import default_current
+    from bench.run.pump_program import default_current
 
     def main():
         cfg = load_bench(overrides={"guard.stale_after": "3 s"})

@@ -14,7 +14,8 @@ import bench.run.measurement as measurement
 import bench.run.consumer as pipeline
 from bench.safety.checklist_answers import answers_from_flags
 from bench.config import load_bench, load_bench_text
-from bench.run.measurement import Measurement, default_current
+from bench.run.measurement import Measurement
+from bench.run.pump_program import default_current
 from bench.run.replay import replay
 from bench.store import RunReader
 
