@@ -99,8 +99,8 @@ def run(args: argparse.Namespace) -> int:
     mode = mode_of(args.mode)
     currents = sweep_currents(cfg, args.steps) if mode.steps_pump else [current]
     period = _mode_period(args, cfg, currents[0])
-    if "method" in mode.settings:
-        settings = {"method": "chopped"}  # each step chopped: its ln R is immune to slow drift
+    if mode.steps_pump:
+        settings = dict(mode.run_settings)  # a sweep: each step chopped (`Mode.run_settings`)
     answers, operator = _flag_answers(args, cfg)
     out = sys.stdout
     meas = Measurement(cfg, mode=args.mode, settings=settings, log_dir=args.logs, speed=args.speed,

@@ -22,6 +22,7 @@ from bench.safety.checklist import ChecklistResult
 from bench.dashboard.checklist_screen import ChecklistScreen
 from bench.dashboard.mode_screen import ModeChoice, ModeScreen
 from bench.errors import GainbenchError
+from bench.estimator.mode import mode_of
 from bench.run.pump_program import sweep_currents
 
 
@@ -92,7 +93,7 @@ class BenchActions:
         """Refuse a pump period that leaves the mode no settled data (`bench.estimator.timing`)."""
         from bench.estimator.timing import run_period
 
-        if choice.mode == "sweep":  # every step chopped: judged at the lowest step (slowest rise)
+        if mode_of(choice.mode).steps_pump:  # every step chopped: judged at the lowest step (slowest rise)
             lowest = sweep_currents(self.meas.cfg, choice.sweep_steps)[0]
             run_period(self.meas.cfg, "chopped", lowest, choice.chop_period)
         elif choice.period is not None:
@@ -109,7 +110,8 @@ class BenchActions:
     def _mode_worker(self, choice: ModeChoice) -> None:
         def change() -> str:
             cfg = self.meas.cfg
-            settings = {"method": "chopped"} if choice.mode == "sweep" else {
+            mode = mode_of(choice.mode)
+            settings = dict(mode.run_settings) if mode.steps_pump else {
                 "pump_current": self.setpoint, "pump_power": cfg.pump.power_at(self.setpoint)}
             self.meas.set_modulation(choice.modulation_hz, who=self.who)
             self.meas.set_mode(choice.mode, settings, who=self.who)
@@ -152,7 +154,7 @@ class BenchActions:
         if self.busy is not None:
             self.say(f"wait: {self.busy} is still running", "refused")
             return
-        if self.choice.mode == "sweep":
+        if mode_of(self.choice.mode).steps_pump:
             if self._start("sweep", "sweep: pump on, stepping the current…"):
                 self._sweep_worker(self.choice)
             return

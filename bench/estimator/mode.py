@@ -42,7 +42,7 @@ measured as in this mode gives) and its words for ``record --help`` and the dash
 from __future__ import annotations
 
 from collections.abc import Callable, Mapping
-from dataclasses import dataclass
+from dataclasses import dataclass, field
 from typing import Any, NamedTuple
 
 __all__ = ["Mode", "Timing", "Skipped", "MODES", "register_mode", "unregister_mode", "mode_of", "modulated"]
@@ -100,6 +100,9 @@ class Mode:
     period: str | None = None
     steps_pump: bool = False
     settings: tuple[str, ...] = ()
+    #: The settings a run of this mode starts with when it steps the pump itself (a sweep's
+    #: ``method``); a steady or modulated mode starts with the pump current and power instead.
+    run_settings: Mapping[str, Any] = field(default_factory=dict)
     restart: Callable[[Any], Any] | None = None
     close_step: Callable[[Any], Any] = _no_close
     step_figure: Callable[[Any, Any], tuple[float, float, int, float] | None] | None = None

@@ -330,6 +330,7 @@ MODE = Mode(
     period="chop",
     steps_pump=True,
     settings=("method",),
+    run_settings={"method": "chopped"},  # each step chopped: its ln R is immune to slow drift
     restart=restart,
     close_step=close_step,
 )
