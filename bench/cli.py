@@ -10,8 +10,8 @@ import sys
 from collections.abc import Sequence
 
 from bench import __version__
-from bench.run import stop_signals
 from bench.errors import GainbenchError, Terminated
+from bench.run import stop_signals
 
 #: Modules of `bench.commands`, in the order `gainbench --help` lists them.
 COMMAND_MODULES = (

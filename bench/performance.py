@@ -116,9 +116,9 @@ def _pumped(cfg: BenchConfig, kind: type | None = None, *, dark: float | None = 
             **options: Any) -> Iterator[Any]:
     """An open `Measurement` (or ``kind``, e.g. `RemoteMeasurement`) on ``cfg`` with a dark of
     ``dark`` s (none if None) and a baseline of ``baseline`` s taken, armed and emitting."""
-    from bench.safety.checklist_answers import answers_from_flags
     from bench.run.measurement import Measurement
     from bench.run.pump_program import default_current
+    from bench.safety.checklist_answers import answers_from_flags
 
     current = default_current(cfg)
     settings = {"pump_current": current, "pump_power": cfg.pump.power_at(current)}
@@ -163,8 +163,8 @@ def dashboard_run(rate_hz: float, seconds: float, log_dir: Path, *, size: tuple[
     """
     import asyncio
 
-    from bench.run.measurement_process import RemoteMeasurement
     from bench.dashboard.live_app import LiveDashboard
+    from bench.run.measurement_process import RemoteMeasurement
 
     out: dict[str, Any] = {"rate_hz": rate_hz, "seconds": seconds, "size": list(size)}
     with _pumped(bench_at(rate_hz), kind=RemoteMeasurement, log_dir=log_dir) as m:

@@ -63,7 +63,7 @@ class Envelope:
     i1: float
 
     @staticmethod
-    def constant(current: float, t: float = 0.0) -> "Envelope":
+    def constant(current: float, t: float = 0.0) -> Envelope:
         return Envelope(t, current, t, current)
 
     def ramping_at(self, t: float) -> bool:

@@ -210,7 +210,7 @@ class SimulatedBench:
         if self._scheduler.is_alive():
             self._scheduler.join(JOIN_TIMEOUT)
 
-    def __enter__(self) -> "SimulatedBench":
+    def __enter__(self) -> SimulatedBench:
         return self
 
     def __exit__(self, *exc) -> None:

@@ -229,7 +229,7 @@ class GainMedium:
         flux_in = inputs.pump_flux
         nt = self.n_total
         for i in range(self.slices):
-            def gap(x: float) -> float:
+            def gap(x: float, flux_in: float = flux_in) -> float:
                 od = (self._sap_n - self._sab * x) * self.dz
                 avg = (-math.expm1(-od) / od) if abs(od) > 1e-12 else 1.0
                 phi = flux_in * avg

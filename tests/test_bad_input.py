@@ -18,12 +18,12 @@ import pytest
 from hypothesis import example, given, settings
 from hypothesis import strategies as st
 
-from bench.safety import exposure_limits as laser_safety
-from bench.safety.checklist_answers import OD_MAX, parse_eyewear_flag, parse_eyewear_flags, parse_od
 from bench.cli import main
 from bench.config import builtin_bench_path, load_bench, load_bench_text
 from bench.errors import ConfigError
 from bench.run.preflight import check_instruments, lowered_eyewear
+from bench.safety import exposure_limits as laser_safety
+from bench.safety.checklist_answers import OD_MAX, parse_eyewear_flag, parse_eyewear_flags, parse_od
 from bench.store import RunReader, resolve_run
 from bench.units import parse_quantity
 
@@ -377,8 +377,8 @@ def test_every_bench_that_passes_check_gives_its_figures(length, n_total, sigma_
                                                          tau, probe_d, pump_d, probe_power, slope):
     import math
 
-    from bench.safety.checklist import checklist_items
     from bench.commands.sample import figures
+    from bench.safety.checklist import checklist_items
 
     text = builtin_bench_path().read_text(encoding="utf-8")
     for old, new in (
@@ -479,8 +479,8 @@ ODD_VALUES = ["0", "-1", "-0", "nan", "inf", "1e308", "1e400 m", "2**64", "5_0",
 def test_any_odd_override_is_refused_or_computes(key, value):
     import math
 
-    from bench.safety.checklist import checklist_items
     from bench.commands.sample import figures
+    from bench.safety.checklist import checklist_items
 
     try:
         cfg = load_bench(overrides={key: value})

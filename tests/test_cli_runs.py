@@ -8,10 +8,9 @@ from contextlib import redirect_stdout
 
 import pandas as pd
 import pytest
-
-from bench.cli import main
 from cli_flags import ARM
 
+from bench.cli import main
 
 
 def _record(logs, *extra):

@@ -84,8 +84,8 @@ def parse_dark(dark: str | None, window: str | None):
 
 
 def run(args: argparse.Namespace) -> int:
-    from bench.store.csv_import import import_csv
     from bench.store import RunReader
+    from bench.store.csv_import import import_csv
 
     columns = parse_columns(args.columns)
     dark = parse_dark(args.dark, args.dark_window)

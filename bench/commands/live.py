@@ -43,9 +43,9 @@ def configure(parser: argparse.ArgumentParser) -> None:
 
 
 def run(args: argparse.Namespace) -> int:
-    from bench.run.measurement_process import RemoteMeasurement
     from bench.dashboard.live_app import LiveDashboard
     from bench.run.measurement import Measurement
+    from bench.run.measurement_process import RemoteMeasurement
     from bench.run.pump_program import default_current
 
     cfg = load_for_run(args)  # instruments checked, overrides lowering the eyewear OD refused

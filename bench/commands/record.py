@@ -13,9 +13,9 @@ import shutil
 import sys
 import time
 
-from bench.run import stop_signals
 from bench.errors import ConfigError, GainbenchError
 from bench.estimator.mode import MODES, mode_of
+from bench.run import stop_signals
 from bench.run.preflight import add_run_options, load_for_run
 from bench.units import parse_quantity
 
@@ -73,11 +73,11 @@ def configure(parser: argparse.ArgumentParser) -> None:
 
 def run(args: argparse.Namespace) -> int:
     with stop_signals.shielded():  # a Ctrl-C acts once the imports are done (see bench.run.stop_signals)
+        import bench.run.simulator_process  # noqa: F401
         import bench.safety.checklist  # noqa: F401 - imported here, not halfway through the run
+        import bench.safety.conditions  # noqa: F401
         import bench.safety.guarded_pump  # noqa: F401
         import bench.store  # noqa: F401
-        import bench.run.simulator_process  # noqa: F401
-        import bench.safety.conditions  # noqa: F401
         import drivers.registry  # noqa: F401
         from bench.run.measurement import Measurement
         from bench.run.pump_program import default_current, sweep_currents

@@ -9,8 +9,8 @@ from __future__ import annotations
 import argparse
 import json
 
-from bench.safety import exposure_limits as laser_safety
 from bench.errors import ConfigError
+from bench.safety import exposure_limits as laser_safety
 from bench.units import parse_quantity
 
 NAME = "safety"

@@ -14,8 +14,8 @@ import argparse
 import json
 import math
 
-from bench.config import BenchConfig, load_bench
 from bench import physics
+from bench.config import BenchConfig, load_bench
 
 NAME = "sample"
 HELP = "figures of the configured sample and lasers to know before measuring (table or --json)"

@@ -53,8 +53,8 @@ def run(args: argparse.Namespace) -> int:
     if getattr(args, "sim_command", None) != "serve":
         print("gainbench sim: expected an action: serve (see gainbench sim serve --help)", file=sys.stderr)
         return 2
-    from simulated_instruments.instrument_servers import SimulatedBench
     from simulated_instruments.faults import parse_fault
+    from simulated_instruments.instrument_servers import SimulatedBench
     from simulated_instruments.setup_config import SimulatorSetupError
 
     if not (math.isfinite(args.speed) and args.speed > 0):

@@ -7,8 +7,8 @@ import json
 import math
 
 from bench.run.replay import run_config
-from bench.store.summary import summary
 from bench.store import RunReader, resolve_run
+from bench.store.summary import summary
 
 NAME = "summary"
 HELP = "final estimates of a run with uncertainties (and the simulator's truth), trips, events"

@@ -24,12 +24,19 @@ from textual.containers import Horizontal, Vertical, VerticalScroll
 from textual.screen import ModalScreen
 from textual.widgets import Button, Input, Static
 
+from bench.errors import GainbenchError
 from bench.safety import exposure_limits as laser_safety
 from bench.safety.checklist import (
-    CHECK, CONFIRM, EYEWEAR, SECOND_LAYER_NOTICE, Answer, ChecklistResult, Item, evaluate,
+    CHECK,
+    CONFIRM,
+    EYEWEAR,
+    SECOND_LAYER_NOTICE,
+    Answer,
+    ChecklistResult,
+    Item,
+    evaluate,
 )
 from bench.safety.checklist_answers import parse_od
-from bench.errors import GainbenchError
 
 REMINDER = ("Software layer only: the hardware interlock, your laser safety officer (LSO), "
             "ANSI Z136.1 / IEC 60825-1 and local rules come first.")

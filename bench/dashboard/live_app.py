@@ -22,17 +22,17 @@ from textual.app import ComposeResult
 from textual.binding import Binding
 
 from bench.dashboard.base_app import DashboardBase
-from bench.dashboard.pump_actions import BenchActions
 from bench.dashboard.guard_panel import GuardPanel
 from bench.dashboard.health_panel import HealthPanel
 from bench.dashboard.mode_screen import ModeChoice
+from bench.dashboard.pump_actions import BenchActions
 from bench.dashboard.small_screens import HelpScreen, NoteScreen, QuitScreen
 from bench.dashboard.stats_poller import StatsPoller
 from bench.dashboard.trip_screen import TripScreen
 from bench.errors import GainbenchError
+from bench.run.consumer import Snapshot
 from bench.run.measurement import Measurement
 from bench.run.pump_program import default_current
-from bench.run.consumer import Snapshot
 
 log = logging.getLogger(__name__)
 

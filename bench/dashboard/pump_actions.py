@@ -18,12 +18,12 @@ from collections.abc import Callable
 from textual import work
 from textual.worker import get_current_worker
 
-from bench.safety.checklist import ChecklistResult
 from bench.dashboard.checklist_screen import ChecklistScreen
 from bench.dashboard.mode_screen import ModeChoice, ModeScreen
 from bench.errors import GainbenchError
 from bench.estimator.mode import mode_of
 from bench.run.pump_program import sweep_currents
+from bench.safety.checklist import ChecklistResult
 
 
 class BenchActions:

@@ -23,8 +23,8 @@ from dataclasses import dataclass
 from pathlib import Path
 
 from bench.errors import GainbenchError
-from bench.run.consumer import Consumer, Snapshot
 from bench.records import Block, Event
+from bench.run.consumer import Consumer, Snapshot
 from bench.store import RunReader
 
 log = logging.getLogger(__name__)

@@ -17,7 +17,7 @@ import os
 import tomllib
 from collections.abc import Mapping, Sequence
 from dataclasses import dataclass
-from datetime import datetime, timezone
+from datetime import UTC, datetime
 from pathlib import Path
 from typing import Any
 
@@ -120,7 +120,7 @@ def collect(reader: RunReader, which: str | int = LIVE) -> ReportData:
         run_path=reader.path, run_id=reader.run_id, status=reader.status, meta=dict(reader.meta), cfg=cfg,
         duration_s=reader.duration(), block_count=reader.block_count(), all_analyses=all_analyses,
         analyses=chosen, events=events, truth=reader.truth(), trips=trips(events),
-        generated_at=datetime.now(timezone.utc).isoformat(timespec="seconds"))
+        generated_at=datetime.now(UTC).isoformat(timespec="seconds"))
 
 
 # --------------------------------------------------------------------------------------------
@@ -215,18 +215,18 @@ def draw_figures(reader: RunReader, data: ReportData, out: Path, *, buckets: int
         name = f" ({a.label})" if len(data.analyses) > 1 or a.kind != "live" else ""
         truth_rows = data.truth if data.simulated else None
         save(f"decay-a{a.id}",
-             lambda: decay_figure(final, title=rid) if final is not None and final.mode == "decay" else None,
+             lambda final=final: decay_figure(final, title=rid) if final is not None and final.mode == "decay" else None,
              f"Lifetime fit{name}",
              "ln R(t) after each pump-off edge, averaged over the decays and binned, with the fitted "
              "exponential ln R(0) exp(−t/τ_d); lower panel: each bin's residual divided by its standard "
              "uncertainty (dotted: ±2). The lifetime τ removes the probe's own stimulated rate from τ_d.")
         save(f"saturation-a{a.id}",
-             lambda: (saturation_figure(final, truth_rows, title=rid)
+             lambda final=final, truth_rows=truth_rows: (saturation_figure(final, truth_rows, title=rid)
                       if final is not None and final.mode == "sweep" else None),
              f"Pump saturation{name}",
              "Excited fraction β at each pump-power step (error bars: ±1σ noise, the weights of the fit) "
              "and the fitted saturation curve.")
-        save(f"spectrum-a{a.id}", lambda: spectrum_figure(final, title=rid) if final is not None else None,
+        save(f"spectrum-a{a.id}", lambda final=final: spectrum_figure(final, title=rid) if final is not None else None,
              f"Gain spectrum{name}",
              "Pump-induced gain change ln R / L at each probe wavelength (±1σ noise) with the fitted Voigt "
              "line (in optical frequency).")

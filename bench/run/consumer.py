@@ -36,9 +36,9 @@ from typing import Any
 import numpy as np
 
 import bench.estimator as est
-from bench.run.readers import CommStatus
-from bench.run.history import EstimateHistory, EstimateView, TraceHistory, TraceView
 from bench.records import PROBE, PUMP_MONITOR, REFERENCE, Block, Estimate, Event
+from bench.run.history import EstimateHistory, EstimateView, TraceHistory, TraceView
+from bench.run.readers import CommStatus
 
 log = logging.getLogger(__name__)
 

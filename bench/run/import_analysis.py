@@ -31,8 +31,8 @@ import numpy as np
 import bench.estimator as est
 from bench.errors import ConfigError
 from bench.estimator.params import EstimatorParams
-from bench.run.consumer import Consumer, Control
 from bench.records import Block, Estimate, Event
+from bench.run.consumer import Consumer, Control
 
 #: Meta key: the analysis ends with `bench.estimator.report` (replay does the same).
 FINAL_REPORT = "final_report"

@@ -28,20 +28,11 @@ import time
 from collections.abc import Callable, Mapping
 from typing import Any
 
-
-from bench.run import stop_signals
-from bench.run.readers import (
-    DetectorReader,
-    DropCounter,
-    PumpReader,
-    Reader,
-    RunClock,
-    stop_readers,
-)
 from bench.config import BenchConfig
 from bench.errors import Terminated
 from bench.estimator.params import EstimatorParams
 from bench.records import Event
+from bench.run import stop_signals
 from bench.run.consumer import Consumer, Control, Snapshot
 from bench.run.errors import MeasurementError
 from bench.run.instrument_setup import (
@@ -53,6 +44,14 @@ from bench.run.instrument_setup import (
     simulated_resources,
 )
 from bench.run.preflight import override_events
+from bench.run.readers import (
+    DetectorReader,
+    DropCounter,
+    PumpReader,
+    Reader,
+    RunClock,
+    stop_readers,
+)
 from bench.run.truth_poller import poll_truth
 from bench.safety import checklist
 from bench.safety.bench_checks import BenchChecks

@@ -40,9 +40,9 @@ from pathlib import Path
 from types import MappingProxyType
 from typing import Any
 
-from bench.run.readers import RunClock
 from bench.config import BenchConfig, load_bench_text
 from bench.errors import GainbenchError
+from bench.run.readers import RunClock
 
 log = logging.getLogger(__name__)
 

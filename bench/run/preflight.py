@@ -59,8 +59,8 @@ def check_instruments(cfg: BenchConfig) -> None:
 
 def _check_simulated_instruments(cfg: BenchConfig) -> None:
     """The simulated instruments' own limits (e.g. their sample rates), met without serving them."""
-    from simulated_instruments.optical_setup import BenchModel
     from simulated_instruments.device_errors import DeviceError
+    from simulated_instruments.optical_setup import BenchModel
     from simulated_instruments.setup_config import SimulatorSetupError
 
     try:

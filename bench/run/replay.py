@@ -21,11 +21,11 @@ import bench.estimator as est
 from bench.config import BenchConfig, load_bench_text
 from bench.errors import RunStoreError
 from bench.estimator.params import EstimatorParams
-from bench.run.import_analysis import FINAL_REPORT
-from bench.run.consumer import Consumer, Control
-from bench.records import Block, Estimate, Event
-from bench.store import RunReader, open_for_analysis
 from bench.physics.spectra import StoredSpectrum, using_stored
+from bench.records import Block, Estimate, Event
+from bench.run.consumer import Consumer, Control
+from bench.run.import_analysis import FINAL_REPORT
+from bench.store import RunReader, open_for_analysis
 
 
 @dataclass

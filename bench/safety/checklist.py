@@ -41,9 +41,9 @@ from dataclasses import dataclass, field
 from types import MappingProxyType
 from typing import Any
 
-from bench.safety import exposure_limits as laser_safety
 from bench.config import BenchConfig
 from bench.records import Event
+from bench.safety import exposure_limits as laser_safety
 
 CHECK = "check"
 CONFIRM = "confirm"

@@ -26,6 +26,7 @@ from bench.safety.checklist import (
 )
 from bench.units import parse_quantity
 
+
 def answers_from_flags(
     operator: str,
     eyewear_ods: Mapping[float, float],

@@ -121,14 +121,14 @@ from bench.safety.exposure_bands import (  # noqa: F401 - the tables' public nam
     IRRADIANCE,
     RADIANT_EXPOSURE,
     OutOfRangeError,
-    correction_c_a,
-    correction_c_b,
-    correction_c_c,
     _band,
     _edge_note,
     _positive,
     _time,
     _wavelength_nm,
+    correction_c_a,
+    correction_c_b,
+    correction_c_c,
 )
 
 #: Implemented wavelength range, m: WAVELENGTH_MIN < wavelength <= WAVELENGTH_MAX (400 nm itself

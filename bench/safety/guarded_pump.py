@@ -32,8 +32,11 @@ from dataclasses import replace
 from types import MappingProxyType, TracebackType
 from typing import Self
 
-from bench.run import stop_signals
 from bench.config import BenchConfig
+from bench.records import PUMP_ON, Block, Event
+from bench.run import stop_signals
+from bench.safety.condition_record import TripCondition, reads_exactly
+from bench.safety.conditions import INTERLOCK_OPEN, condition_named
 from bench.safety.guard import (
     ARMED,
     EMITTING,
@@ -61,9 +64,6 @@ from bench.safety.guard import (
     StopEmission,
     Trip,
 )
-from bench.records import PUMP_ON, Block, Event
-from bench.safety.condition_record import TripCondition, reads_exactly
-from bench.safety.conditions import INTERLOCK_OPEN, condition_named
 from bench.safety.pump_protocols import OffReport, Performed, PumpOutput, Shutter
 from bench.safety.trip_monitor import TripMonitor
 

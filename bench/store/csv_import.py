@@ -45,8 +45,8 @@ import numpy as np
 from bench.config import BenchConfig
 from bench.errors import ConfigError
 from bench.estimator.params import EstimatorParams
-from bench.run.import_analysis import FINAL_REPORT, PUMP_THRESHOLD_V, DarkGiven, analyse
 from bench.records import PROBE, PUMP_MONITOR, REFERENCE, Block, Event
+from bench.run.import_analysis import FINAL_REPORT, PUMP_THRESHOLD_V, DarkGiven, analyse
 from bench.store import RunReader, RunWriter
 from bench.store.schema import SIDE_FILES
 from bench.store.writer import config_meta

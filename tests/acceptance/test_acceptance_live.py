@@ -17,7 +17,6 @@ import sys
 import time
 
 import pytest
-
 from tmux_session import Tmux, arm_through_checklist, bench_file
 
 pytestmark = [pytest.mark.skipif(shutil.which("tmux") is None, reason="tmux is not installed")]

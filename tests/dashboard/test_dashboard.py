@@ -380,8 +380,8 @@ async def test_quit_switches_the_pump_off_then_asks_then_closes_the_run(own_meas
 @pilot_test
 async def test_dashboard_on_a_bench_process_arms_emits_and_quits(tmp_path):
     # As `gainbench live` runs it: the bench (instruments, guard, run file) in a process of its own.
-    from bench.run.measurement_process import RemoteMeasurement
     from bench.dashboard.small_screens import QuitScreen
+    from bench.run.measurement_process import RemoteMeasurement
 
     cfg = load_bench(overrides=BENCH_OVERRIDES)
     current = default_current(cfg)

@@ -12,7 +12,6 @@ import math
 import numpy as np
 import pytest
 
-from bench.safety.checklist import checklist_items
 from bench.config import load_bench
 from bench.dashboard import format as fmt
 from bench.dashboard.checklist_screen import verdict_of
@@ -25,8 +24,9 @@ from bench.dashboard.replay_app import KEYS as REPLAY_KEYS
 from bench.dashboard.replay_app import ReplayDashboard
 from bench.dashboard.replay_feed import SPEEDS, guard_at, jump_targets
 from bench.dashboard.replay_panel import play_state, position_bar
-from bench.run.pump_program import chop_frequency
 from bench.records import Event, Quantity
+from bench.run.pump_program import chop_frequency
+from bench.safety.checklist import checklist_items
 
 
 def guard_event(t, before, after, kind="guard", accepted=True, reason="r"):
@@ -267,8 +267,8 @@ def test_no_key_is_bound_twice():
 def snapshot(mode="watch", estimate=None, t=1.0, n=400):
     from types import MappingProxyType
 
-    from bench.run.history import EstimateView, TraceView
     from bench.run.consumer import Snapshot
+    from bench.run.history import EstimateView, TraceView
 
     tt = np.linspace(t - 2.0, t, n)
     on = (np.floor(tt / 0.2) % 2).astype(float)  # pump on every other 0.2 s
@@ -350,8 +350,8 @@ def test_mode_screen_refuses_a_chopping_period_with_no_settled_data():
     from textual.app import App
 
     from bench.dashboard.mode_screen import ModeScreen
-    from bench.run.pump_program import default_current
     from bench.estimator.timing import run_period
+    from bench.run.pump_program import default_current
 
     cfg = load_bench()
     results = []

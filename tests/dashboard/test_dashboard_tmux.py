@@ -14,9 +14,9 @@ import time
 from pathlib import Path
 
 import pytest
+from tmux_session import Tmux, arm_through_checklist, bench_file
 
 from bench.store import RunReader
-from tmux_session import Tmux, arm_through_checklist, bench_file
 
 pytestmark = [
     pytest.mark.skipif(shutil.which("tmux") is None, reason="tmux is not installed"),

@@ -23,10 +23,19 @@ import math
 
 import numpy as np
 import pytest
+from sim_blocks import model_blocks
 
 from bench.config import load_bench
-from bench.estimator import EstimatorParams, capture_baseline, capture_dark, new_state, report, update, with_baseline, with_dark
-from sim_blocks import model_blocks
+from bench.estimator import (
+    EstimatorParams,
+    capture_baseline,
+    capture_dark,
+    new_state,
+    report,
+    update,
+    with_baseline,
+    with_dark,
+)
 
 BenchModel = pytest.importorskip("simulated_instruments.optical_setup").BenchModel
 

@@ -16,11 +16,11 @@ import math
 
 import numpy as np
 import pytest
+from pumped_sample import pumped
 from scipy import constants, signal, special
 from scipy.integrate import solve_ivp
 
 from bench import physics
-from bench.physics import fitting
 from bench.config import load_bench
 from bench.estimator import (
     Baseline,
@@ -33,9 +33,8 @@ from bench.estimator import (
     with_dark,
     with_setting,
 )
+from bench.physics import fitting
 from bench.records import ESTIMATE_KEYS, FLAGS, Block
-
-from pumped_sample import pumped
 
 CHANNELS = ("probe", "reference", "pump_monitor")
 RATE = 20e3

@@ -14,6 +14,7 @@ import math
 
 import pytest
 from scipy import constants
+from sim_blocks import model_blocks
 
 from bench.config import load_bench
 from bench.estimator import (
@@ -27,7 +28,6 @@ from bench.estimator import (
     with_dark,
     with_setting,
 )
-from sim_blocks import model_blocks
 
 BenchModel = pytest.importorskip("simulated_instruments.optical_setup").BenchModel
 

@@ -19,6 +19,7 @@ from decimal import Decimal, getcontext
 import numpy as np
 import pytest
 from scipy import constants, integrate
+from sim_blocks import model_blocks
 
 from bench.config import load_bench
 from bench.estimator import (
@@ -33,7 +34,6 @@ from bench.estimator import (
     with_baseline,
     with_dark,
 )
-from sim_blocks import model_blocks
 
 BenchModel = pytest.importorskip("simulated_instruments.optical_setup").BenchModel
 

@@ -21,6 +21,7 @@ from typing import NamedTuple
 
 import numpy as np
 import pytest
+from cli_flags import ARM
 
 import bench.estimator as est
 from bench.cli import main
@@ -29,7 +30,6 @@ from bench.estimator.mode import MODES, Mode, register_mode, unregister_mode
 from bench.records import Block, Estimate, Quantity
 from bench.run.replay import replay
 from bench.store import RunReader
-from cli_flags import ARM
 
 HOLD_BLOCK = 200  # samples per block of the hold mode
 

@@ -21,8 +21,8 @@ from scipy import constants
 from bench.config import load_bench
 from bench.errors import GainbenchError
 from bench.estimator.params import EstimatorParams
-from bench.run.pump_program import chop_frequency, default_current
 from bench.estimator.timing import TimingError, check_timing, default_period, nice_ceil, run_period
+from bench.run.pump_program import chop_frequency, default_current
 
 
 @pytest.fixture(scope="module")

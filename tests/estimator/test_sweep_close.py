@@ -13,8 +13,8 @@ import pytest
 
 import bench.estimator as est
 from bench.config import load_bench
-from bench.run.consumer import Consumer, Control
 from bench.records import Block
+from bench.run.consumer import Consumer, Control
 
 RATE = 20e3
 DT = 1.0 / RATE

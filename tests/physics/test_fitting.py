@@ -111,7 +111,7 @@ def _thin_sample_beta(p):
     for power in np.atleast_1d(p):
         phi = power / (AREA * H_NU)
         sol = integrate.solve_ivp(
-            lambda t, b: (SIGMA_AP * (1 - b) - SIGMA_EP * b) * phi - b / TAU,
+            lambda t, b, phi=phi: (SIGMA_AP * (1 - b) - SIGMA_EP * b) * phi - b / TAU,
             (0.0, 40 * TAU), [0.0], method="LSODA", rtol=1e-12, atol=1e-15)
         out.append(sol.y[0, -1])
     return np.array(out)
@@ -128,7 +128,7 @@ def _thick_sample_beta(p, absorbance, slices=100):
     for power in np.atleast_1d(p):
         phi0 = power / (AREA * H_NU)
 
-        def rhs(t, b):
+        def rhs(t, b, phi0=phi0):
             alpha_dz = n_dz * (SIGMA_AP * (1 - b) - SIGMA_EP * b)
             phi_in = phi0 * np.exp(-np.concatenate(([0.0], np.cumsum(alpha_dz)[:-1])))
             return phi_in * -np.expm1(-alpha_dz) / n_dz - b / TAU

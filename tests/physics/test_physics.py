@@ -4,12 +4,12 @@ import math
 
 import numpy as np
 import pytest
+import stark_model
 from scipy import constants
 from scipy.integrate import solve_ivp, trapezoid
 from scipy.optimize import brentq
 
 from bench import physics
-import stark_model
 
 H, C, K_B, EV = constants.h, constants.c, constants.k, constants.eV
 CM2 = 1e-4  # m² per cm²

@@ -6,13 +6,13 @@ from pathlib import Path
 
 import numpy as np
 import pytest
+import stark_model
 from hypothesis import given, settings
 from hypothesis import strategies as st
-import stark_model
 from scipy import constants, integrate
 
-from bench.physics import fitting
 from bench.errors import ConfigError
+from bench.physics import fitting
 from bench.physics.spectra import CrossSectionSpectrum, load_spectrum, parse_spectrum_text
 
 DATA = Path(__file__).parents[1] / "data" / "spectra"

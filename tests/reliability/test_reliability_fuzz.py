@@ -39,13 +39,19 @@ from hypothesis import HealthCheck, example, given, settings
 from hypothesis import strategies as st
 
 from bench.config import BenchConfig, builtin_bench_path, load_bench
-from bench.store.csv_import import import_csv
 from bench.errors import ConfigError, RunStoreError
 from bench.records import Block, Event
 from bench.store import RunReader, RunWriter
+from bench.store.csv_import import import_csv
 from drivers import codec
 from drivers.deadline import Deadline
-from drivers.errors import InstrumentError, InstrumentReportedError, InstrumentTimeout, ProfileError, ReplyError
+from drivers.errors import (
+    InstrumentError,
+    InstrumentReportedError,
+    InstrumentTimeout,
+    ProfileError,
+    ReplyError,
+)
 from drivers.ieee488 import (
     IDN_FIELDS,
     NEED_DATA,

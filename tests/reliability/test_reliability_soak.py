@@ -33,10 +33,10 @@ from dataclasses import dataclass, field
 
 import pytest
 
-from bench.safety.checklist_answers import answers_from_flags
 from bench.config import builtin_bench_path, load_bench_text
 from bench.errors import GainbenchError
 from bench.run.measurement import Measurement
+from bench.safety.checklist_answers import answers_from_flags
 from bench.store import RunReader
 
 #: Real seconds a reading of "on" may lag the guard leaving ``emitting``.

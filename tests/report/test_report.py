@@ -26,12 +26,21 @@ import numpy as np
 import pytest
 from scipy import constants
 
-from bench.physics import fitting
 from bench.cli import main
 from bench.config import builtin_bench_path, load_bench
 from bench.errors import RunStoreError
-from bench.estimator import Baseline, Dark, EstimatorParams, new_state, report, update, with_baseline, with_dark
-from bench.estimator import with_setting
+from bench.estimator import (
+    Baseline,
+    Dark,
+    EstimatorParams,
+    new_state,
+    report,
+    update,
+    with_baseline,
+    with_dark,
+    with_setting,
+)
+from bench.physics import fitting
 from bench.records import Block, Event
 from bench.report.build import ReportError, build_report, parse_analysis
 from bench.report.estimate_figures import spectrum_curve

@@ -9,8 +9,8 @@ import threading
 import numpy as np
 import pytest
 
-from bench.run.readers import DetectorReader, DropCounter, RunClock
 from bench.records import Block
+from bench.run.readers import DetectorReader, DropCounter, RunClock
 
 
 class FakeDigitiser:

@@ -14,11 +14,11 @@ import time
 
 import pytest
 
-from bench.run.measurement_process import BenchProcessError, RemoteMeasurement
-from bench.safety.checklist_answers import answers_from_flags
 from bench.config import load_bench
-from bench.safety.guard import GuardRefused
+from bench.run.measurement_process import BenchProcessError, RemoteMeasurement
 from bench.run.pump_program import default_current
+from bench.safety.checklist_answers import answers_from_flags
+from bench.safety.guard import GuardRefused
 from bench.store import RunReader
 
 ODS = {940e-9: 5.0, 1030e-9: 2.0}

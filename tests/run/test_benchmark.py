@@ -25,9 +25,9 @@ def test_highest_rate_stops_at_the_first_rate_that_does_not_keep_up(tmp_path):
 
 
 def test_replay_speed_counts_samples_of_every_channel(tmp_path):
-    from bench.cli import main
-
     from cli_flags import ARM
+
+    from bench.cli import main
 
     assert main(["record", "--seconds", "0.5", "--quiet", "--logs", str(tmp_path), *ARM]) == 0
     (path,) = tmp_path.glob("*.gbrun")

@@ -5,8 +5,8 @@ from __future__ import annotations
 
 import numpy as np
 
-from bench.run.history import EstimateHistory, TraceHistory
 from bench.records import Estimate, Quantity
+from bench.run.history import EstimateHistory, TraceHistory
 
 
 def _reference(t, v, bucket):

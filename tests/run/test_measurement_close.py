@@ -10,13 +10,13 @@ import time
 
 import pytest
 
-import bench.run.measurement as measurement
 import bench.run.consumer as pipeline
-from bench.safety.checklist_answers import answers_from_flags
+import bench.run.measurement as measurement
 from bench.config import load_bench, load_bench_text
 from bench.run.measurement import Measurement
 from bench.run.pump_program import default_current
 from bench.run.replay import replay
+from bench.safety.checklist_answers import answers_from_flags
 from bench.store import RunReader
 
 ODS = {940e-9: 5.0, 1030e-9: 2.0}

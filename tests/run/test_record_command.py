@@ -17,9 +17,9 @@ import sys
 import time
 
 import pytest
+from cli_flags import ARM
 
 from bench.store import RunReader
-from cli_flags import ARM
 
 
 def _gainbench(*args: str) -> list[str]:

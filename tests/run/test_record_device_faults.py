@@ -17,9 +17,10 @@ from __future__ import annotations
 import subprocess
 import sys
 
-from bench.store import RunReader
 from cli_flags import ARM
 from test_record_signals import _read_until, plain_query, serve_external
+
+from bench.store import RunReader
 
 
 def _record(*args: str, timeout: float = 120) -> subprocess.CompletedProcess:

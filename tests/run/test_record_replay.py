@@ -9,11 +9,10 @@ from __future__ import annotations
 import json
 
 import pytest
+from cli_flags import ARM
 
 from bench.cli import main
 from bench.store import RunReader
-from cli_flags import ARM
-
 
 
 @pytest.fixture(scope="module")

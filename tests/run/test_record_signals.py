@@ -18,11 +18,10 @@ import sys
 import time
 
 import pytest
+from cli_flags import ARM
 
 from bench.config import builtin_bench_path
 from bench.store import RunReader
-from cli_flags import ARM
-
 
 
 def _gainbench(*args: str) -> list[str]:

@@ -20,12 +20,12 @@ from pathlib import Path
 
 import numpy as np
 import pytest
+from cli_flags import ARM
 
 from bench.cli import main
 from bench.config import builtin_bench_path, load_bench
 from bench.run.replay import replay, run_config
 from bench.store import RunReader, RunWriter
-from cli_flags import ARM
 
 # INVENTED spectrum, magnitudes of a Yb-doped crystal (as the demo bench); not a measurement.
 SPECTRUM = """# invented test spectrum

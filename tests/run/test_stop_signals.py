@@ -12,8 +12,8 @@ import time
 
 import pytest
 
-from bench.run import stop_signals
 from bench.errors import Terminated
+from bench.run import stop_signals
 
 
 def _deliver_now(sig: int) -> None:

@@ -29,11 +29,11 @@ import json
 import math
 
 import pytest
+from cli_flags import ARM
 from scipy import constants
 
 from bench.cli import main
 from bench.config import load_bench
-from cli_flags import ARM
 
 
 def _thin_sample_p_sat(cfg) -> float:

@@ -16,11 +16,11 @@ import uuid
 import pytest
 from scipy.constants import zero_Celsius
 
+from bench.config import load_bench, load_bench_text
+from bench.errors import ConfigError
 from bench.safety import checklist as cl
 from bench.safety import checklist_answers as ca
 from bench.safety import guard as g
-from bench.config import load_bench, load_bench_text
-from bench.errors import ConfigError
 from bench.safety.exposure_limits import caution_text
 
 CFG = load_bench()

@@ -17,9 +17,9 @@ from dataclasses import dataclass, field
 
 import pytest
 
+from bench.records import EVENT_KINDS
 from bench.safety import guard as g
 from bench.safety.checklist import ChecklistResult
-from bench.records import EVENT_KINDS
 
 OFF = {g.PumpOff()}
 OFF_SHUTTER = {g.PumpOff(), g.CloseShutter("pump")}
@@ -148,7 +148,7 @@ def test_every_state_event_pair(state, kind):
     assert ev.data["from"] == state and ev.data["to"] == after
     assert ev.data["reason"]
     assert ev.data["accepted"] is accepted
-    assert ev.who == getattr(event, "who")
+    assert ev.who == event.who
 
 
 @pytest.mark.parametrize("state", g.STATES)

@@ -13,14 +13,14 @@ from __future__ import annotations
 import time
 
 import pytest
+from waiting import wait_until
 
-from bench.safety.checklist_answers import answers_from_flags
 from bench.config import load_bench, load_bench_text
 from bench.errors import GainbenchError
-from bench.safety.guard import GuardRefused
 from bench.run.measurement import Measurement
+from bench.safety.checklist_answers import answers_from_flags
+from bench.safety.guard import GuardRefused
 from bench.store import RunReader
-from waiting import wait_until
 
 LATENCY_BOUND = 0.100
 

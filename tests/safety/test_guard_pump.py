@@ -18,10 +18,7 @@ import pytest
 from hypothesis import given, settings
 from hypothesis import strategies as st
 
-from bench.safety import guard as g
-from bench.safety.checklist import ChecklistResult
 from bench.config import load_bench
-from bench.safety.guarded_pump import GuardedPump
 from bench.records import (
     INTERLOCK,
     MOUNT_TEMP,
@@ -30,7 +27,10 @@ from bench.records import (
     PUMP_SETPOINT,
     Block,
 )
+from bench.safety import guard as g
+from bench.safety.checklist import ChecklistResult
 from bench.safety.conditions import INTERLOCK_OPEN
+from bench.safety.guarded_pump import GuardedPump
 from bench.safety.trip_monitor import TripMonitor
 
 
@@ -162,7 +162,7 @@ def test_context_manager_switches_off_on_exception_and_lets_it_through():
     with pytest.raises(ZeroDivisionError):
         with gp:
             arm_and_emit(gp, clock)
-            1 / 0
+            _ = 1 / 0
     assert not pump.on
     assert "ZeroDivisionError" in events[-1].text
 

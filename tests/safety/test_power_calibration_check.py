@@ -15,14 +15,14 @@ import subprocess
 import sys
 
 import pytest
-
-from bench.safety import conditions as tc
-from bench.safety.checklist_answers import answers_from_flags
-from bench.config import load_bench, load_bench_text
-from bench.run.measurement import Measurement
-from bench.store import RunReader
 from cli_flags import ARM
 from waiting import wait_until
+
+from bench.config import load_bench, load_bench_text
+from bench.run.measurement import Measurement
+from bench.safety import conditions as tc
+from bench.safety.checklist_answers import answers_from_flags
+from bench.store import RunReader
 
 
 def test_the_check_passes_within_the_factor_and_names_both_figures_outside_it():

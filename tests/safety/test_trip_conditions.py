@@ -18,10 +18,7 @@ from hypothesis import given, settings
 from hypothesis import strategies as st
 from scipy.constants import zero_Celsius
 
-from bench.safety import conditions as tc
-from bench.safety.trip_monitor import TripMonitor, settled_mask
 from bench.config import load_bench
-from bench.safety.guard import OPERATOR_STOP
 from bench.records import (
     INTERLOCK,
     MOUNT_TEMP,
@@ -33,6 +30,9 @@ from bench.records import (
     REFERENCE,
     Block,
 )
+from bench.safety import conditions as tc
+from bench.safety.guard import OPERATOR_STOP
+from bench.safety.trip_monitor import TripMonitor, settled_mask
 
 CFG = load_bench().guard
 PUMP_CHANNELS = (PUMP_CURRENT, PUMP_SETPOINT, PUMP_ON, MOUNT_TEMP, INTERLOCK)

@@ -7,8 +7,9 @@ from __future__ import annotations
 import subprocess
 import sys
 
-from bench.config import builtin_bench_path
 from cli_flags import ARM
+
+from bench.config import builtin_bench_path
 
 
 def _real_bench_naming_the_simulator(tmp_path):

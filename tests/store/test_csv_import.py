@@ -18,9 +18,9 @@ import pandas as pd
 import pytest
 
 from bench.config import load_bench
-from bench.store.csv_import import import_csv
 from bench.errors import ConfigError
 from bench.store import RunReader
+from bench.store.csv_import import import_csv
 
 COLUMNS = {"time": "Time (s)", "probe": "CH1 (V)", "reference": "CH2 (V)", "pump_on": "TTL"}
 DT = 2e-6

@@ -17,9 +17,9 @@ import pyarrow.parquet as pq
 import pytest
 
 from bench.errors import RunStoreError
-from bench.store.export import export_run
 from bench.records import Block, Estimate, Event, Quantity
 from bench.store import RunReader, RunWriter, open_for_analysis
+from bench.store.export import export_run
 
 
 @pytest.fixture

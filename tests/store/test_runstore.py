@@ -15,7 +15,7 @@ import subprocess
 import sys
 import textwrap
 from contextlib import closing
-from datetime import datetime, timedelta, timezone
+from datetime import UTC, datetime, timedelta, timezone
 from pathlib import Path
 
 import numpy as np
@@ -486,7 +486,7 @@ def test_a_creation_killed_before_the_rename_leaves_no_run(tmp_path, capsys):
     assert capsys.readouterr().out.strip() == f"no runs in {logs}"
     # The leftover keeps its id taken; the next run of that second gets the next id.
     with RunWriter.create(logs, bench_text="[bench]\n", sample_id="S1",
-                          start_time=datetime(2026, 3, 4, 5, 6, 7, tzinfo=timezone.utc)) as w:
+                          start_time=datetime(2026, 3, 4, 5, 6, 7, tzinfo=UTC)) as w:
         assert w.run_id == "20260304-050607-S1-2"
     (row,) = list_runs(logs)
     assert row["id"] == "20260304-050607-S1-2" and row["status"] == "complete"
