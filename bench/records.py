@@ -82,7 +82,9 @@ class Block:
         try:
             return self.data[:, self.channels.index(name)]
         except ValueError:
-            raise KeyError(f"block from {self.source} has no channel {name!r} (has {', '.join(self.channels)})") from None
+            raise KeyError(
+                f"block from {self.source} has no channel {name!r} (has {', '.join(self.channels)})"
+            ) from None
 
     def times(self) -> np.ndarray:
         return self.t0 + self.dt * np.arange(self.n)

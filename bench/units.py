@@ -30,9 +30,9 @@ def parse_relative(text: object, where: str) -> float:
         try:
             value = float(text.strip()[:-1]) / 100.0
         except ValueError:
-            raise ConfigError(f"{where}: {text!r} is not a percentage such as \"5 %\"") from None
+            raise ConfigError(f'{where}: {text!r} is not a percentage such as "5 %"') from None
     else:
-        raise ConfigError(f"{where}: {text!r} is not a relative uncertainty (\"5 %\" or 0.05)")
+        raise ConfigError(f'{where}: {text!r} is not a relative uncertainty ("5 %" or 0.05)')
     if not 0.0 <= value < 1.0:
         raise ConfigError(f"{where}: {text!r} must be between 0 % and 100 %")
     return value

@@ -58,7 +58,7 @@ def check_inline_error(policy: ErrorPolicy, line: bytes) -> None:
     text = line.decode("ascii", errors="replace").strip()
     if not text.upper().startswith(prefix.upper()):
         return
-    rest = text[len(prefix):].strip()
+    rest = text[len(prefix) :].strip()
     head, _, tail = rest.partition(" ")
     try:
         code = int(head)

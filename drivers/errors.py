@@ -238,7 +238,7 @@ def translate_transport_error(
     if isinstance(exc, visa_library):
         return InterfaceUnavailable(
             f"the VISA library could not be loaded ({exc}); install pyvisa-py "
-            "(`pip install pyvisa-py`) and use backend \"@py\", or install a vendor VISA library",
+            '(`pip install pyvisa-py`) and use backend "@py", or install a vendor VISA library',
             **ctx,
         )
     if isinstance(exc, visa_io):

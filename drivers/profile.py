@@ -78,8 +78,18 @@ BLOCK_DTYPES: dict[str, str] = {
     "block_i16be": ">i2",
 }
 
-_COMMAND_KEYS = {"send", "reply", "unit", "scale", "token", "count", "fields", "values",
-                 "idempotent", "check_errors"}
+_COMMAND_KEYS = {
+    "send",
+    "reply",
+    "unit",
+    "scale",
+    "token",
+    "count",
+    "fields",
+    "values",
+    "idempotent",
+    "check_errors",
+}
 _SECTIONS = {"profile", "transport", "errors", "commands", "options"}
 _PLACEHOLDERS_REQUIRED = {"value", "n", "hz", "channels", "spec"}
 _ESCAPES = {"n": "\n", "r": "\r", "t": "\t", "\\": "\\", "0": "\0"}
@@ -163,7 +173,8 @@ class Profile:
             return self.commands[op]
         except KeyError:
             raise ProfileError(
-                self.path, f"commands.{op}",
+                self.path,
+                f"commands.{op}",
                 f"operation {op!r} is not defined; add it to [commands] to use this function",
             ) from None
 
@@ -191,7 +202,8 @@ def resolve_profile_path(name_or_path: str | Path) -> Path:
     if builtin.is_file():
         return builtin
     raise ProfileError(
-        text, "",
+        text,
+        "",
         f"no built-in profile of that name (built-in: {', '.join(builtin_profiles())}); "
         "or give the path of a .toml file",
     )
@@ -236,7 +248,8 @@ def _build(doc: dict[str, Any], path: str, want_role: str | None) -> Profile:
         raise ProfileError(path, "profile.role", f"unknown role {role!r}; expected one of {sorted(ROLES)}")
     if want_role is not None and role != want_role:
         raise ProfileError(
-            path, "profile.role",
+            path,
+            "profile.role",
             f"this profile is for the {role!r} role but is used for the {want_role!r} role",
         )
     description = _string(head, "description", path, "profile") or ""
@@ -248,14 +261,16 @@ def _build(doc: dict[str, Any], path: str, want_role: str | None) -> Profile:
     for op, entry in raw_commands.items():
         if op not in operations:
             raise ProfileError(
-                path, f"commands.{op}",
+                path,
+                f"commands.{op}",
                 f"not an operation of the {role!r} role; expected one of {sorted(operations)}",
             )
         commands[op] = _command(op, entry, operations[op], errors, path)
     missing = [op for op, spec in operations.items() if spec.required and op not in commands]
     if missing:
         raise ProfileError(
-            path, f"commands.{missing[0]}",
+            path,
+            f"commands.{missing[0]}",
             f"missing; the {role!r} role needs {', '.join(missing)}",
         )
     options = _table(doc, "options", path)
@@ -328,10 +343,10 @@ def decode_escapes(text: str, path: str, key: str) -> bytes:
             try:
                 out.append(chr(int(text[i + 2 : i + 4], 16)))
             except ValueError:
-                raise ProfileError(path, key, f"bad escape {text[i:i + 4]!r}; expected \\xHH") from None
+                raise ProfileError(path, key, f"bad escape {text[i : i + 4]!r}; expected \\xHH") from None
             i += 4
         else:
-            raise ProfileError(path, key, f"bad escape {text[i:i + 2]!r}; expected \\n, \\r, \\t or \\xHH")
+            raise ProfileError(path, key, f"bad escape {text[i : i + 2]!r}; expected \\n, \\r, \\t or \\xHH")
     try:
         return "".join(out).encode("latin-1")
     except UnicodeEncodeError:
@@ -340,7 +355,7 @@ def decode_escapes(text: str, path: str, key: str) -> bytes:
 
 def _seconds(value: Any, path: str, key: str) -> float:
     if isinstance(value, bool):
-        raise ProfileError(path, key, f"expected a time such as \"2 s\", got {value!r}")
+        raise ProfileError(path, key, f'expected a time such as "2 s", got {value!r}')
     if isinstance(value, (int, float)):
         seconds = float(value)
     elif isinstance(value, str):
@@ -349,17 +364,21 @@ def _seconds(value: Any, path: str, key: str) -> float:
         try:
             seconds = parse_quantity(value, "time", f"{path}: {key}")
         except DriverConfigError as exc:
-            raise ProfileError(path, key, f"expected a time such as \"2 s\" ({exc})") from None
+            raise ProfileError(path, key, f'expected a time such as "2 s" ({exc})') from None
     else:
-        raise ProfileError(path, key, f"expected a time such as \"2 s\", got {value!r}")
+        raise ProfileError(path, key, f'expected a time such as "2 s", got {value!r}')
     if not math.isfinite(seconds) or seconds <= 0:
         raise ProfileError(path, key, f"expected a time > 0, got {value!r}")
     return seconds
 
 
 def _transport(table: dict[str, Any], path: str) -> TransportSettings:
-    _only_keys(table, {"read_termination", "write_termination", "timeout", "baudrate", "chunk_size"},
-               path, "transport")
+    _only_keys(
+        table,
+        {"read_termination", "write_termination", "timeout", "baudrate", "chunk_size"},
+        path,
+        "transport",
+    )
     defaults = TransportSettings()
     terms = {}
     for key in ("read_termination", "write_termination"):
@@ -368,21 +387,32 @@ def _transport(table: dict[str, Any], path: str) -> TransportSettings:
             terms[key] = getattr(defaults, key)
             continue
         if not isinstance(value, str):
-            raise ProfileError(path, f"transport.{key}", f"expected a string such as \"\\n\", got {value!r}")
+            raise ProfileError(path, f"transport.{key}", f'expected a string such as "\\n", got {value!r}')
         term = decode_escapes(value, path, f"transport.{key}")
         if not term or not term.isascii():
             # IEEE 488.2 and line protocols end messages with ASCII (LF, CR LF): a byte above
             # 0x7f would go out with every command and never match a reply
-            raise ProfileError(path, f"transport.{key}", f"expected one or more ASCII characters such as \"\\n\", "
-                               f"got {value!r}")
+            raise ProfileError(
+                path,
+                f"transport.{key}",
+                f'expected one or more ASCII characters such as "\\n", got {value!r}',
+            )
         terms[key] = term
-    timeout = _seconds(table["timeout"], path, "transport.timeout") if "timeout" in table else defaults.timeout_s
+    timeout = (
+        _seconds(table["timeout"], path, "transport.timeout") if "timeout" in table else defaults.timeout_s
+    )
     baudrate = table.get("baudrate")
-    if baudrate is not None and (not isinstance(baudrate, int) or isinstance(baudrate, bool) or baudrate <= 0):
-        raise ProfileError(path, "transport.baudrate", f"expected a positive integer such as 9600, got {baudrate!r}")
+    if baudrate is not None and (
+        not isinstance(baudrate, int) or isinstance(baudrate, bool) or baudrate <= 0
+    ):
+        raise ProfileError(
+            path, "transport.baudrate", f"expected a positive integer such as 9600, got {baudrate!r}"
+        )
     chunk = table.get("chunk_size", defaults.chunk_size)
     if not isinstance(chunk, int) or isinstance(chunk, bool) or chunk < 1:
-        raise ProfileError(path, "transport.chunk_size", f"expected a positive number of bytes, got {chunk!r}")
+        raise ProfileError(
+            path, "transport.chunk_size", f"expected a positive number of bytes, got {chunk!r}"
+        )
     return TransportSettings(terms["read_termination"], terms["write_termination"], timeout, baudrate, chunk)
 
 
@@ -404,7 +434,7 @@ def _errors(table: dict[str, Any], path: str) -> ErrorPolicy:
 def _unit_conversion(unit: Any, kind: str | None, path: str, key: str) -> tuple[float, float]:
     """(factor, offset) taking a value in ``unit`` to SI."""
     if not isinstance(unit, str) or not unit.strip():
-        raise ProfileError(path, key, f"expected a unit such as \"degC\" or \"mA\", got {unit!r}")
+        raise ProfileError(path, key, f'expected a unit such as "degC" or "mA", got {unit!r}')
     if kind is None:
         raise ProfileError(path, key, "this operation has no quantity, so it takes no unit")
     import pint
@@ -418,15 +448,23 @@ def _unit_conversion(unit: Any, kind: str | None, path: str, key: str) -> tuple[
         raise ProfileError(path, key, f"{unit!r} {odd}")
     cleaned = clean_unit_text(unit)
     if cleaned is None:  # pint evaluates powers exactly: "9**9**9 A" would never return
-        raise ProfileError(path, key, f"{unit!r} is not a unit this tool reads (expected a unit such as \"degC\" "
-                                      "or \"mA\"; powers may only be small whole numbers)")
+        raise ProfileError(
+            path,
+            key,
+            f'{unit!r} is not a unit this tool reads (expected a unit such as "degC" '
+            'or "mA"; powers may only be small whole numbers)',
+        )
     try:
         zero = float(ureg.Quantity(0.0, cleaned).to(target).magnitude)
         one = float(ureg.Quantity(1.0, cleaned).to(target).magnitude)
     except pint.DimensionalityError:
-        raise ProfileError(path, key, f"{unit!r} is not a unit of {kind} (expected one convertible to {target})") from None
+        raise ProfileError(
+            path, key, f"{unit!r} is not a unit of {kind} (expected one convertible to {target})"
+        ) from None
     except Exception:  # pint raises several unrelated types for unknown unit text
-        raise ProfileError(path, key, f"{unit!r} is not a unit pint knows (expected one convertible to {target})") from None
+        raise ProfileError(
+            path, key, f"{unit!r} is not a unit pint knows (expected one convertible to {target})"
+        ) from None
     factor = one - zero
     if not math.isfinite(factor) or factor == 0:
         raise ProfileError(path, key, f"{unit!r} cannot be converted to {target}")
@@ -438,23 +476,37 @@ def _check_template(send: str, spec: Operation, path: str, key: str) -> frozense
     try:
         parsed = list(string.Formatter().parse(send))
     except ValueError as exc:
-        raise ProfileError(path, key, f"bad placeholder in {send!r} ({exc}); write a literal brace as {{{{ or }}}}") from None
+        raise ProfileError(
+            path, key, f"bad placeholder in {send!r} ({exc}); write a literal brace as {{{{ or }}}}"
+        ) from None
     for _literal, name, format_spec, conversion in parsed:
         if name is None:
             continue
         if format_spec and ("{" in format_spec or re.search(r"\d{4,}", format_spec)):
             # "{value:999999999}" would build a string of a gigabyte at every command
-            raise ProfileError(path, key, f"format spec {format_spec!r} in {send!r}: widths and precisions "
-                                          "are at most 999 and cannot be placeholders")
+            raise ProfileError(
+                path,
+                key,
+                f"format spec {format_spec!r} in {send!r}: widths and precisions "
+                "are at most 999 and cannot be placeholders",
+            )
         if name not in spec.placeholders:
             allowed = ", ".join("{" + p + "}" for p in sorted(spec.placeholders)) or "none"
-            raise ProfileError(path, key, f"unknown placeholder {{{name}}} in {send!r}; allowed here: {allowed}")
+            raise ProfileError(
+                path, key, f"unknown placeholder {{{name}}} in {send!r}; allowed here: {allowed}"
+            )
         if conversion:
-            raise ProfileError(path, key, f"placeholder {{{name}!{conversion}}} in {send!r}: conversions are not allowed")
+            raise ProfileError(
+                path, key, f"placeholder {{{name}!{conversion}}} in {send!r}: conversions are not allowed"
+            )
         names.add(name)
     missing = (spec.placeholders & _PLACEHOLDERS_REQUIRED) - names
     if missing:
-        raise ProfileError(path, key, f"{send!r} lacks the placeholder(s) {', '.join('{' + m + '}' for m in sorted(missing))}")
+        raise ProfileError(
+            path,
+            key,
+            f"{send!r} lacks the placeholder(s) {', '.join('{' + m + '}' for m in sorted(missing))}",
+        )
     samples = {p: PLACEHOLDER_SAMPLES[p] for p in spec.placeholders}
     try:
         send.format(**samples)
@@ -468,7 +520,7 @@ def _command(op: str, entry: Any, spec: Operation, errors: ErrorPolicy, path: st
     if isinstance(entry, str):
         entry = {"send": entry}
     if not isinstance(entry, dict):
-        raise ProfileError(path, key, f"expected a table such as {{ send = \"...\" }}, got {entry!r}")
+        raise ProfileError(path, key, f'expected a table such as {{ send = "..." }}, got {entry!r}')
     _only_keys(entry, _COMMAND_KEYS, path, key)
     send = _string(entry, "send", path, key, required=True)
     assert send is not None
@@ -480,19 +532,31 @@ def _command(op: str, entry: Any, spec: Operation, errors: ErrorPolicy, path: st
     values: dict[str, bool] = {}
     if isinstance(reply_raw, dict):  # an enum written as a table
         if "values" in entry:
-            raise ProfileError(path, f"{key}.values", "give the enum table either as reply = {...} or as values, not both")
+            raise ProfileError(
+                path, f"{key}.values", "give the enum table either as reply = {...} or as values, not both"
+            )
         values_raw, reply = reply_raw, "enum"
     else:
         reply = reply_raw
         values_raw = entry.get("values")
     if reply is not None and (not isinstance(reply, str) or reply not in REPLY_FORMATS):
-        raise ProfileError(path, f"{key}.reply", f"unknown reply format {reply!r}; expected one of {sorted(REPLY_FORMATS)}")
+        raise ProfileError(
+            path, f"{key}.reply", f"unknown reply format {reply!r}; expected one of {sorted(REPLY_FORMATS)}"
+        )
     if reply not in spec.replies:
         allowed = sorted("(no reply)" if r is None else r for r in spec.replies)
-        raise ProfileError(path, f"{key}.reply", f"{reply or '(no reply)'!r} does not fit this operation; expected one of {allowed}")
+        raise ProfileError(
+            path,
+            f"{key}.reply",
+            f"{reply or '(no reply)'!r} does not fit this operation; expected one of {allowed}",
+        )
     if reply == "enum":
         if not isinstance(values_raw, dict) or not values_raw:
-            raise ProfileError(path, f"{key}.reply", "an enum reply needs a table of words, e.g. { OPEN = true, SHUT = false }")
+            raise ProfileError(
+                path,
+                f"{key}.reply",
+                "an enum reply needs a table of words, e.g. { OPEN = true, SHUT = false }",
+            )
         for word, value in values_raw.items():
             if not isinstance(value, bool):
                 raise ProfileError(path, f"{key}.reply.{word}", f"expected true or false, got {value!r}")
@@ -506,23 +570,44 @@ def _command(op: str, entry: Any, spec: Operation, errors: ErrorPolicy, path: st
     scale = entry.get("scale", 1.0)
     if "scale" in entry:
         if reply not in ("block_i16le", "block_i16be"):
-            raise ProfileError(path, f"{key}.scale", "only int16 block replies take a scale (volts per count)")
-        if isinstance(scale, bool) or not isinstance(scale, (int, float)) or not math.isfinite(scale) or scale == 0:
-            raise ProfileError(path, f"{key}.scale", f"expected a non-zero number (volts per count), got {scale!r}")
+            raise ProfileError(
+                path, f"{key}.scale", "only int16 block replies take a scale (volts per count)"
+            )
+        if (
+            isinstance(scale, bool)
+            or not isinstance(scale, (int, float))
+            or not math.isfinite(scale)
+            or scale == 0
+        ):
+            raise ProfileError(
+                path, f"{key}.scale", f"expected a non-zero number (volts per count), got {scale!r}"
+            )
     token = entry.get("token", "OK")
     if "token" in entry and (reply != "ok" or not isinstance(token, str) or not token.strip()):
-        raise ProfileError(path, f"{key}.token", "only an 'ok' reply takes a token, a non-empty string such as \"OK\"")
+        raise ProfileError(
+            path, f"{key}.token", "only an 'ok' reply takes a token, a non-empty string such as \"OK\""
+        )
     count = entry.get("count")
-    if count is not None and (reply != "csv_floats" or not isinstance(count, int) or isinstance(count, bool) or count < 1):
+    if count is not None and (
+        reply != "csv_floats" or not isinstance(count, int) or isinstance(count, bool) or count < 1
+    ):
         raise ProfileError(path, f"{key}.count", "only a csv_floats reply takes a count, a positive integer")
     fields = entry.get("fields", ["maker", "model", "serial", "firmware"])
     if "fields" in entry:
         from drivers.ieee488 import IDN_FIELDS
 
-        if reply != "idn" or not isinstance(fields, list) or not fields or any(f not in IDN_FIELDS for f in fields) \
-                or len(set(fields)) != len(fields):
-            raise ProfileError(path, f"{key}.fields",
-                               f"only an idn reply takes fields: a list of distinct names from {list(IDN_FIELDS)}")
+        if (
+            reply != "idn"
+            or not isinstance(fields, list)
+            or not fields
+            or any(f not in IDN_FIELDS for f in fields)
+            or len(set(fields)) != len(fields)
+        ):
+            raise ProfileError(
+                path,
+                f"{key}.fields",
+                f"only an idn reply takes fields: a list of distinct names from {list(IDN_FIELDS)}",
+            )
     idempotent = _bool(entry, "idempotent", path, key, default=spec.idempotent)
     default_check = spec.sets and errors.drain_after_set
     check = _bool(entry, "check_errors", path, key, default=default_check)

@@ -76,8 +76,11 @@ def register_unavailable(name: str, role: str, message: str) -> None:
 def builtin_driver_modules() -> list[str]:
     """The modules of ``drivers/instruments/`` (``"drivers.instruments.pump"``, ...), sorted."""
     package = drivers.instruments
-    return sorted(f"{package.__name__}.{info.name}" for info in pkgutil.iter_modules(package.__path__)
-                  if not info.name.startswith("_"))
+    return sorted(
+        f"{package.__name__}.{info.name}"
+        for info in pkgutil.iter_modules(package.__path__)
+        if not info.name.startswith("_")
+    )
 
 
 def _load_builtin() -> None:
@@ -91,12 +94,18 @@ def _load_builtin() -> None:
         except ImportError as exc:
             name = module_name.rsplit(".", 1)[-1]
             register_unavailable(
-                name, "", f"the {name} driver needs {exc.name or exc}: install it with `pip install {exc.name}`"
+                name,
+                "",
+                f"the {name} driver needs {exc.name or exc}: install it with `pip install {exc.name}`",
             )
             continue
         for value in vars(module).values():
-            if (isinstance(value, type) and issubclass(value, Driver) and value.__module__ == module_name
-                    and value.DRIVER_NAME):
+            if (
+                isinstance(value, type)
+                and issubclass(value, Driver)
+                and value.__module__ == module_name
+                and value.DRIVER_NAME
+            ):
                 _add(value.DRIVER_NAME, value)
 
 
@@ -113,7 +122,8 @@ def driver_class(name: str, *, role: str = "", resource: str = "") -> type[Drive
     if info is None:
         raise InstrumentError(
             f"unknown driver {name!r}; known drivers: {', '.join(drivers) or '(none)'}",
-            role=role, resource=resource,
+            role=role,
+            resource=resource,
         )
     if info.cls is None:
         raise InterfaceUnavailable(info.unavailable, role=role, resource=resource)
@@ -152,13 +162,17 @@ def check_instrument(role: str, driver: str, profile: str, options: Mapping[str,
     """
     cls = driver_class(driver, role=role)
     if cls.ROLE != role:
-        raise InstrumentError(f"driver {driver!r} is for the {cls.ROLE!r} role, not {role!r}; drivers for "
-                              f"{role!r}: {', '.join(n for n, i in known_drivers().items() if i.role == role) or '(none)'}",
-                              role=role)
+        raise InstrumentError(
+            f"driver {driver!r} is for the {cls.ROLE!r} role, not {role!r}; drivers for "
+            f"{role!r}: {', '.join(n for n, i in known_drivers().items() if i.role == role) or '(none)'}",
+            role=role,
+        )
     prof = load_profile(profile, role=cls.ROLE)
     merged: dict[str, Any] = {**prof.options, **(options or {})}
     transport = _Unconnected()
-    session = Session(prof, transport, role=role, resource=transport.resource, timeout_s=prof.transport.timeout_s)
+    session = Session(
+        prof, transport, role=role, resource=transport.resource, timeout_s=prof.transport.timeout_s
+    )
     cls(session, merged)
 
 
@@ -199,7 +213,8 @@ def open_instrument(
         raise InstrumentError(
             "resource 'simulated' stands for the simulated bench: start it first and use the "
             "resource it gives for this role",
-            role=role, resource=resource,
+            role=role,
+            resource=resource,
         )
     cls = driver_class(driver, role=role, resource=resource)
     prof = load_profile(profile, role=cls.ROLE)

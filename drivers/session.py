@@ -138,10 +138,17 @@ class Session:
         line = self._run(joined, {}, data=data)
         parts = line.split(";")
         if len(parts) != len(commands):
-            raise ReplyError(f"expected {len(commands)} replies separated by ';', got {len(parts)}",
-                             reply=line.encode("ascii", "replace"), role=self.role, resource=self.resource,
-                             command=data)
-        return [codec.decode_line(c, part.encode("ascii"), self.profile.errors) for c, part in zip(commands, parts)]
+            raise ReplyError(
+                f"expected {len(commands)} replies separated by ';', got {len(parts)}",
+                reply=line.encode("ascii", "replace"),
+                role=self.role,
+                resource=self.resource,
+                command=data,
+            )
+        return [
+            codec.decode_line(c, part.encode("ascii"), self.profile.errors)
+            for c, part in zip(commands, parts)
+        ]
 
     def drain_errors(self) -> list[ErrorEntry]:
         """Drain the error queue and return its entries (empty if the profile has no query)."""
@@ -174,7 +181,9 @@ class Session:
             data = codec.encode(command, params, self.profile.transport.write_termination)
         with self._lock:
             if self._closed:
-                raise ConnectionLost("the session is closed", role=self.role, resource=self.resource, command=data)
+                raise ConnectionLost(
+                    "the session is closed", role=self.role, resource=self.resource, command=data
+                )
             t0 = time.perf_counter()
             try:
                 result = self._exchange_with_retry(command, data)
@@ -242,8 +251,12 @@ class Session:
             if entries:
                 first, *others = entries
                 raise InstrumentReportedError(
-                    first.code, first.text, others=tuple((e.code, e.text) for e in others),
-                    role=self.role, resource=self.resource, command=data,
+                    first.code,
+                    first.text,
+                    others=tuple((e.code, e.text) for e in others),
+                    role=self.role,
+                    resource=self.resource,
+                    command=data,
                 )
         return result
 

@@ -124,26 +124,26 @@ def parse_quantity(text: object, kind: str, where: str) -> float:
         if kind == "dimensionless":
             return float(text)
         raise DriverConfigError(
-            f"{where}: {text!r} has no unit; write it with one, e.g. \"{text} {_example_unit(kind)}\""
+            f'{where}: {text!r} has no unit; write it with one, e.g. "{text} {_example_unit(kind)}"'
         )
     if not isinstance(text, str) or not text.strip():
         raise DriverConfigError(f"{where}: {text!r} is not {KIND_WORDS[kind]}")
     ureg = registry()
     odd = odd_numeral(text)
     if odd:
-        raise DriverConfigError(f"{where}: \"{text}\" {odd}")
+        raise DriverConfigError(f'{where}: "{text}" {odd}')
     cleaned = clean_unit_text(text)
     if cleaned is None:
         # pint evaluates powers exactly: "9**9**9 m" would never return
         raise DriverConfigError(
-            f"{where}: \"{text}\" is not {KIND_WORDS[kind]} (write a number and a unit, e.g. "
-            f"\"5 {_example_unit(kind)}\"; unit powers may only be small whole numbers)"
+            f'{where}: "{text}" is not {KIND_WORDS[kind]} (write a number and a unit, e.g. '
+            f'"5 {_example_unit(kind)}"; unit powers may only be small whole numbers)'
         )
     try:
         q = ureg.Quantity(cleaned)
     except Exception:  # pint raises several unrelated types for unparsable text
         raise DriverConfigError(
-            f"{where}: \"{text}\" is not {KIND_WORDS[kind]} (could not read it as a number with a unit)"
+            f'{where}: "{text}" is not {KIND_WORDS[kind]} (could not read it as a number with a unit)'
         ) from None
     if not isinstance(q, pint.Quantity):  # a bare number
         q = ureg.Quantity(float(q), "dimensionless")
@@ -151,10 +151,10 @@ def parse_quantity(text: object, kind: str, where: str) -> float:
         value = float(q.to(target).magnitude)
     except (pint.DimensionalityError, ArithmeticError):
         raise DriverConfigError(
-            f"{where}: \"{text}\" is not {KIND_WORDS[kind]} (expected units such as {_example_unit(kind)})"
+            f'{where}: "{text}" is not {KIND_WORDS[kind]} (expected units such as {_example_unit(kind)})'
         ) from None
     if not math.isfinite(value):
-        raise DriverConfigError(f"{where}: \"{text}\" is not a finite number")
+        raise DriverConfigError(f'{where}: "{text}" is not a finite number')
     return value
 
 

@@ -14,7 +14,12 @@ class SimClock:
     """Monotonic clock running ``speed`` times faster than real time, from 0 at creation."""
 
     def __init__(self, speed: float = 1.0):
-        if isinstance(speed, bool) or not isinstance(speed, (int, float)) or not math.isfinite(speed) or speed <= 0:
+        if (
+            isinstance(speed, bool)
+            or not isinstance(speed, (int, float))
+            or not math.isfinite(speed)
+            or speed <= 0
+        ):
             raise ValueError(f"speed: expected a positive number (1 = real time), got {speed!r}")
         self.speed = float(speed)
         self._start = time.monotonic()

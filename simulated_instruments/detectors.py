@@ -60,8 +60,10 @@ class SourceDrift:
 
     def exact(self, t: np.ndarray) -> np.ndarray:
         t = np.asarray(t, dtype=float)
-        wander = sum(a * (np.sin(2 * math.pi * t / p + ph) - math.sin(ph))
-                     for a, p, ph in zip(self.amplitudes, self.periods, self.phases))
+        wander = sum(
+            a * (np.sin(2 * math.pi * t / p + ph) - math.sin(ph))
+            for a, p, ph in zip(self.amplitudes, self.periods, self.phases)
+        )
         return 1.0 + self.per_hour * (self.trend * t / 3600.0 + wander)
 
     def factor(self, times: np.ndarray) -> np.ndarray:
@@ -134,8 +136,9 @@ class DetectorModel:
         self.common = SourceDrift(sim.drift_per_hour, drift_rng)
         self.differential = SourceDrift(DIFFERENTIAL_DRIFT * sim.drift_per_hour, drift_rng)
 
-    def volts(self, times: np.ndarray, ln_rel, probe_open, pump_w, stray: np.ndarray | None,
-              full_scale: float) -> tuple[np.ndarray, np.ndarray | None]:
+    def volts(
+        self, times: np.ndarray, ln_rel, probe_open, pump_w, stray: np.ndarray | None, full_scale: float
+    ) -> tuple[np.ndarray, np.ndarray | None]:
         """(volts (n, 3) float64 after the ADC, clipped (n, 3) bool or None if nothing clipped).
 
         ``ln_rel`` is ln(T / T_unpumped) of the probe at each sample; ``probe_open`` 1 where
@@ -154,7 +157,7 @@ class DetectorModel:
         source *= rin
         if np.ndim(probe_open) or not probe_open:
             source *= probe_open
-        noise2 = sim.detector_noise ** 2
+        noise2 = sim.detector_noise**2
         # probe: transmission relative to the unpumped sample, differential drift
         if np.ndim(ln_rel):
             probe = np.exp(ln_rel)
@@ -169,8 +172,11 @@ class DetectorModel:
         _photodiode(out[1], source, sim.dark_reference, z[:, 2], noise2)
         monitor = out[2]
         np.multiply(z[:, 3], sim.detector_noise, out=monitor)
-        monitor += np.asarray(pump_w) * sim.pump_monitor_per_watt if np.ndim(pump_w) else \
-            float(pump_w) * sim.pump_monitor_per_watt
+        monitor += (
+            np.asarray(pump_w) * sim.pump_monitor_per_watt
+            if np.ndim(pump_w)
+            else float(pump_w) * sim.pump_monitor_per_watt
+        )
         if stray is not None:
             out[0] += stray
         clipped = None

@@ -38,20 +38,23 @@ class Digitiser:
         self._inject = inject
         self.errors = core.errors["detector"]
         self._power_on()
-        self.table = CommandTable(common_commands(IDENTITY, self._reset, self.errors) + [
-            Command("CONFigure:RATE", set=self._set_rate, query=self._rate),
-            Command("ROUTe:SCAN", set=self._set_scan, query=self._scan),
-            Command("SENSe:VOLTage:RANGe", set=self._set_range, query=self._range),
-            Command("FORMat[:DATA]", set=self._set_format, query=self._format),
-            Command("INITiate[:IMMediate]", set=self._init),
-            Command("ABORt", set=self._abort),
-            Command("FETCh:POSition", query=self._position),
-            Command("FETCh:DATA", query=self._fetch),
-            Command("FETCh:LOST", query=self._lost),
-            Command("SYSTem:TIME", query=self._time),
-            Command("SIMulation:TRUTh", query=self._truth),
-            Command("SIMulation:FAULt", set=self._fault),
-        ])
+        self.table = CommandTable(
+            common_commands(IDENTITY, self._reset, self.errors)
+            + [
+                Command("CONFigure:RATE", set=self._set_rate, query=self._rate),
+                Command("ROUTe:SCAN", set=self._set_scan, query=self._scan),
+                Command("SENSe:VOLTage:RANGe", set=self._set_range, query=self._range),
+                Command("FORMat[:DATA]", set=self._set_format, query=self._format),
+                Command("INITiate[:IMMediate]", set=self._init),
+                Command("ABORt", set=self._abort),
+                Command("FETCh:POSition", query=self._position),
+                Command("FETCh:DATA", query=self._fetch),
+                Command("FETCh:LOST", query=self._lost),
+                Command("SYSTem:TIME", query=self._time),
+                Command("SIMulation:TRUTh", query=self._truth),
+                Command("SIMulation:FAULt", set=self._fault),
+            ]
+        )
 
     def _power_on(self) -> None:
         self.rate = DEFAULT_SAMPLE_RATE
@@ -156,4 +159,3 @@ class Digitiser:
             self._inject(spec)
         except SimulatorSetupError as exc:
             raise DeviceError(ILLEGAL_VALUE, str(exc)) from None
-

@@ -73,12 +73,15 @@ class DiodeDriverModel:
     # -- current ---------------------------------------------------------------------------
     def _ramp_to(self, t: float, target: float) -> None:
         present = float(self.envelope.at(t))
-        self.envelope = Envelope(t, present, t + RAMP_TIME, target) if present != target \
-            else Envelope.constant(target, t)
+        self.envelope = (
+            Envelope(t, present, t + RAMP_TIME, target) if present != target else Envelope.constant(target, t)
+        )
 
     def set_setpoint(self, t: float, amps: float) -> None:
         if not (math.isfinite(amps) and 0.0 <= amps <= self.limit):
-            raise DeviceError(OUT_OF_RANGE, f"current: setpoint {amps!r} A is not within 0 ... {self.limit:g} A (the limit)")
+            raise DeviceError(
+                OUT_OF_RANGE, f"current: setpoint {amps!r} A is not within 0 ... {self.limit:g} A (the limit)"
+            )
         self.advance_thermal(t)
         self.setpoint = float(amps)
         if self.output:
@@ -177,7 +180,9 @@ class DiodeDriverModel:
     def set_temperature_setpoint(self, t: float, kelvin: float) -> None:
         lo, hi = SETPOINT_RANGE
         if not (math.isfinite(kelvin) and lo <= kelvin <= hi):
-            raise DeviceError(OUT_OF_RANGE, f"kelvin: mount setpoint {kelvin!r} K is not within {lo:g} ... {hi:g} K")
+            raise DeviceError(
+                OUT_OF_RANGE, f"kelvin: mount setpoint {kelvin!r} K is not within {lo:g} ... {hi:g} K"
+            )
         self.advance_thermal(t)
         self.temp_setpoint = float(kelvin)
 

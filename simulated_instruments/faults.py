@@ -51,9 +51,7 @@ MODEL_KINDS = ("interlock", "overtemp", "saturate")
 
 SYNTAX = "KIND[:ROLE][@TIME][+DURATION], e.g. interlock@3s or garble:detector@2s+0.5s"
 
-_SPEC = re.compile(
-    r"^(?P<kind>[a-z]+)(?::(?P<role>[a-z]+))?(?:@(?P<time>[^+@]+))?(?:\+(?P<duration>.+))?$"
-)
+_SPEC = re.compile(r"^(?P<kind>[a-z]+)(?::(?P<role>[a-z]+))?(?:@(?P<time>[^+@]+))?(?:\+(?P<duration>.+))?$")
 _TIME = re.compile(r"^(?P<value>[0-9]*\.?[0-9]+(?:[eE][-+]?[0-9]+)?)\s*(?P<unit>s|ms)?$")
 
 
@@ -106,7 +104,9 @@ def parse_fault(spec: str) -> Fault:
         raise SimulatorSetupError(f"fault {spec!r}: not understood; expected {SYNTAX}")
     kind = m.group("kind")
     if kind not in KINDS:
-        raise SimulatorSetupError(f"fault {spec!r}: unknown kind {kind!r}; expected one of: {', '.join(KINDS)}")
+        raise SimulatorSetupError(
+            f"fault {spec!r}: unknown kind {kind!r}; expected one of: {', '.join(KINDS)}"
+        )
     allowed, default, takes_duration = KINDS[kind]
     role = m.group("role") or default
     if role is None:
@@ -115,12 +115,16 @@ def parse_fault(spec: str) -> Fault:
             f"(one of: {', '.join(allowed)})"
         )
     if role not in allowed:
-        raise SimulatorSetupError(f"fault {spec!r}: {kind} cannot apply to {role!r}; expected one of: {', '.join(allowed)}")
+        raise SimulatorSetupError(
+            f"fault {spec!r}: {kind} cannot apply to {role!r}; expected one of: {', '.join(allowed)}"
+        )
     time = _seconds(m.group("time"), spec, "time") if m.group("time") is not None else None
     duration = None
     if m.group("duration") is not None:
         if not takes_duration:
-            raise SimulatorSetupError(f"fault {spec!r}: {kind} takes no +DURATION; expected {kind}:{role}@TIME")
+            raise SimulatorSetupError(
+                f"fault {spec!r}: {kind} takes no +DURATION; expected {kind}:{role}@TIME"
+            )
         duration = _seconds(m.group("duration"), spec, "duration")
         if duration <= 0:
             raise SimulatorSetupError(f"fault {spec!r}: the duration must be positive")

@@ -57,8 +57,14 @@ class SimulatedBench:
         Random seed (default: the bench file's ``simulation.seed``).
     """
 
-    def __init__(self, cfg: BenchSetup, *, speed: float = 1.0, faults: Iterable[Fault | str] = (),
-                 seed: int | None = None):
+    def __init__(
+        self,
+        cfg: BenchSetup,
+        *,
+        speed: float = 1.0,
+        faults: Iterable[Fault | str] = (),
+        seed: int | None = None,
+    ):
         if cfg.simulation is None:
             raise SimulatorSetupError(f"{cfg.source}: no [simulation] table, so there is nothing to simulate")
         parsed = [as_fault(f) for f in faults]  # bad specs fail before anything starts
@@ -67,7 +73,9 @@ class SimulatedBench:
         self.model = BenchModel(cfg, seed=seed)
         self.core = BenchCore(self.model, self.clock)
         self.lock = self.core.lock
-        self.roles = tuple(role for role in ("detector", "pump", "shutter", "wavelength") if role in cfg.instruments)
+        self.roles = tuple(
+            role for role in ("detector", "pump", "shutter", "wavelength") if role in cfg.instruments
+        )
         for f in parsed:
             self._check_role(f)
         devices = {
@@ -86,7 +94,9 @@ class SimulatedBench:
         try:
             for role in self.roles:
                 device = devices[role]()
-                self._servers[role] = InstrumentServer(role, device.session, self.lock, self._reply_faults[role])
+                self._servers[role] = InstrumentServer(
+                    role, device.session, self.lock, self._reply_faults[role]
+                )
             self._scheduler.start()
             for f in parsed:
                 self.inject(f)
@@ -128,8 +138,10 @@ class SimulatedBench:
     # -- faults ---------------------------------------------------------------------------------
     def _check_role(self, fault: Fault) -> None:
         if fault.role not in self.roles:
-            raise SimulatorSetupError(f"fault {fault.spec()!r}: this bench has no {fault.role} instrument "
-                                      f"(it has: {', '.join(self.roles)})")
+            raise SimulatorSetupError(
+                f"fault {fault.spec()!r}: this bench has no {fault.role} instrument "
+                f"(it has: {', '.join(self.roles)})"
+            )
 
     def inject(self, fault: Fault | str) -> None:
         """Schedule a fault at its time (simulated s since start; no time: now)."""

@@ -26,14 +26,19 @@ def tuning_range(reference_wavelength: float) -> tuple[float, float]:
     return reference_wavelength - TUNING_HALF_RANGE, reference_wavelength + TUNING_HALF_RANGE
 
 
-def probe_cross_sections(wavelength: float, reference_wavelength: float, sigma_a_ref: float,
-                         sigma_e_ref: float) -> tuple[float, float]:
+def probe_cross_sections(
+    wavelength: float, reference_wavelength: float, sigma_a_ref: float, sigma_e_ref: float
+) -> tuple[float, float]:
     """(sigma_a, sigma_e) in m² at ``wavelength``, equal to the references at lambda_0."""
     for name, value in (("wavelength", wavelength), ("reference_wavelength", reference_wavelength)):
         if not (math.isfinite(value) and value > 0):
             raise ValueError(f"{name}: expected a positive wavelength in m, got {value!r}")
     e_centre = reference_wavelength + EMISSION_SHIFT
     a_centre = reference_wavelength + ABSORPTION_SHIFT
-    scale_e = _band(wavelength, e_centre, EMISSION_FWHM) / _band(reference_wavelength, e_centre, EMISSION_FWHM)
-    scale_a = _band(wavelength, a_centre, ABSORPTION_FWHM) / _band(reference_wavelength, a_centre, ABSORPTION_FWHM)
+    scale_e = _band(wavelength, e_centre, EMISSION_FWHM) / _band(
+        reference_wavelength, e_centre, EMISSION_FWHM
+    )
+    scale_a = _band(wavelength, a_centre, ABSORPTION_FWHM) / _band(
+        reference_wavelength, a_centre, ABSORPTION_FWHM
+    )
     return sigma_a_ref * scale_a, sigma_e_ref * scale_e

@@ -70,8 +70,16 @@ class Piece:
 
     __slots__ = ("t0", "dt", "end", "n2_0", "n2ss", "k", "coefs", "constant", "end_state", "error")
 
-    def __init__(self, t0: float, dt: float, n2_0: np.ndarray, n2ss: np.ndarray, k: np.ndarray,
-                 coefs: np.ndarray, constant: bool):
+    def __init__(
+        self,
+        t0: float,
+        dt: float,
+        n2_0: np.ndarray,
+        n2ss: np.ndarray,
+        k: np.ndarray,
+        coefs: np.ndarray,
+        constant: bool,
+    ):
         self.t0 = t0
         self.dt = dt
         self.end = t0 + dt  # the owner may set it to an exact edge time
@@ -111,10 +119,10 @@ class GainMedium:
         Number of slices along the length (1 or more).
     """
 
-    def __init__(self, length: float, n_total: float, tau: float, sigma_ap: float, sigma_ep: float,
-                 slices: int):
-        for name, value in (("length", length), ("n_total", n_total), ("tau", tau),
-                            ("sigma_ap", sigma_ap)):
+    def __init__(
+        self, length: float, n_total: float, tau: float, sigma_ap: float, sigma_ep: float, slices: int
+    ):
+        for name, value in (("length", length), ("n_total", n_total), ("tau", tau), ("sigma_ap", sigma_ap)):
             if not (isinstance(value, (int, float)) and math.isfinite(value) and value > 0):
                 raise ValueError(f"{name}: expected a positive finite number, got {value!r}")
         if not (math.isfinite(sigma_ep) and sigma_ep >= 0):
@@ -229,6 +237,7 @@ class GainMedium:
         flux_in = inputs.pump_flux
         nt = self.n_total
         for i in range(self.slices):
+
             def gap(x: float, flux_in: float = flux_in) -> float:
                 od = (self._sap_n - self._sab * x) * self.dz
                 avg = (-math.expm1(-od) / od) if abs(od) > 1e-12 else 1.0
@@ -251,7 +260,9 @@ class GainMedium:
         return n2
 
 
-def evaluate_pieces(starts: np.ndarray, dts: np.ndarray, coefs_t: np.ndarray, times: np.ndarray) -> np.ndarray:
+def evaluate_pieces(
+    starts: np.ndarray, dts: np.ndarray, coefs_t: np.ndarray, times: np.ndarray
+) -> np.ndarray:
     """Slice-averaged N2 at sorted ``times`` from pieces sorted by start (vectorised).
 
     ``coefs_t`` is (NODES, n_pieces): the pieces' polynomial coefficients, one row per power;

@@ -104,8 +104,15 @@ class MediumTimeline:
         Starting slice densities (m⁻³); zero (unpumped) by default.
     """
 
-    def __init__(self, medium: GainMedium, drive: Drive, *, model_step: float, t: float = 0.0,
-                 n2: np.ndarray | None = None):
+    def __init__(
+        self,
+        medium: GainMedium,
+        drive: Drive,
+        *,
+        model_step: float,
+        t: float = 0.0,
+        n2: np.ndarray | None = None,
+    ):
         if not (math.isfinite(model_step) and model_step > 0):
             raise ValueError(f"model_step: expected a positive time step, got {model_step!r}")
         self.medium = medium
@@ -159,8 +166,9 @@ class MediumTimeline:
         self._reset(drive)
 
     # -- time ---------------------------------------------------------------------------------
-    def advance(self, t_end: float, times: np.ndarray | None = None, step: float | None = None
-                ) -> np.ndarray | None:
+    def advance(
+        self, t_end: float, times: np.ndarray | None = None, step: float | None = None
+    ) -> np.ndarray | None:
         """Move to ``t_end``; return <N2> at ``times`` (sorted, within [now, t_end)) if given.
 
         ``step`` may say that ``times`` are uniformly spaced by that much (a sample grid), which
@@ -191,7 +199,9 @@ class MediumTimeline:
             return None
         times = np.asarray(times, dtype=float)
         out = np.empty(times.size)
-        split = int(np.searchsorted(times, orbit_from, side="left")) if math.isfinite(orbit_from) else times.size
+        split = (
+            int(np.searchsorted(times, orbit_from, side="left")) if math.isfinite(orbit_from) else times.size
+        )
         if split:
             if pieces:
                 starts = np.array([p.t0 for p in pieces])
@@ -268,4 +278,3 @@ class MediumTimeline:
                 return
         self._boundary = (m, self._n2.copy())
         self._boundary_pieces = []
-

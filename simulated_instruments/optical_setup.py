@@ -58,8 +58,21 @@ CHUNK = 1 << 16
 SHUTTERS = {"probe": 1, "pump": 2, 1: 1, 2: 2}
 
 #: The fields of `BenchModel.truth`, in the order of the ``SIM:TRUTH?`` reply (COMMANDS.md).
-TRUTH_FIELDS = ("t", "n2_avg", "beta", "tau", "pump_w", "ln_ratio", "n_total", "length",
-                "ln_t_pumped", "ln_t_unpumped", "gain_per_m", "n2_probe_only", "inputs_steady_s")
+TRUTH_FIELDS = (
+    "t",
+    "n2_avg",
+    "beta",
+    "tau",
+    "pump_w",
+    "ln_ratio",
+    "n_total",
+    "length",
+    "ln_t_pumped",
+    "ln_t_unpumped",
+    "gain_per_m",
+    "n2_probe_only",
+    "inputs_steady_s",
+)
 
 
 @dataclass(frozen=True)
@@ -73,7 +86,7 @@ class TruthBlock:
 
 
 def _top_hat_area(diameter: float) -> float:
-    return math.pi * diameter ** 2 / 4.0
+    return math.pi * diameter**2 / 4.0
 
 
 def _photon_energy(wavelength: float) -> float:
@@ -118,22 +131,37 @@ class BenchModel:
         10 V.
     """
 
-    def __init__(self, cfg: BenchSetup, *, seed: int | None = None, sample_rate: float | None = None,
-                 voltage_range: float | None = None):
+    def __init__(
+        self,
+        cfg: BenchSetup,
+        *,
+        seed: int | None = None,
+        sample_rate: float | None = None,
+        voltage_range: float | None = None,
+    ):
         if cfg.simulation is None:
             raise SimulatorSetupError(f"{cfg.source}: no [simulation] table, so there is nothing to simulate")
         sim = cfg.simulation
         self.cfg = cfg
         self.seed = sim.seed if seed is None else int(seed)
         noise_seq, drift_seq = np.random.SeedSequence(self.seed).spawn(2)
-        self._detectors = DetectorModel(sim, np.random.Generator(np.random.SFC64(noise_seq)),
-                                        np.random.default_rng(drift_seq))
+        self._detectors = DetectorModel(
+            sim, np.random.Generator(np.random.SFC64(noise_seq)), np.random.default_rng(drift_seq)
+        )
         s = cfg.sample
-        self.medium = GainMedium(s.length, s.n_total, s.upper_state_lifetime, s.sigma.pump_absorption,
-                                 s.sigma.pump_emission, sim.slices)
+        self.medium = GainMedium(
+            s.length,
+            s.n_total,
+            s.upper_state_lifetime,
+            s.sigma.pump_absorption,
+            s.sigma.pump_emission,
+            sim.slices,
+        )
         self.pump = DiodeDriverModel(cfg.pump, sim)
         self._gates = {1: Gate(), 2: Gate()}
-        self._flux_per_watt = 1.0 / (_top_hat_area(cfg.pump.beam_diameter) * _photon_energy(cfg.pump.wavelength))
+        self._flux_per_watt = 1.0 / (
+            _top_hat_area(cfg.pump.beam_diameter) * _photon_energy(cfg.pump.wavelength)
+        )
         self._ramp_piece = min(s.upper_state_lifetime / 4.0, RAMP_TIME / 50.0)
         self.t = 0.0
         self._drive_since = 0.0  # when the drive last changed (`truth`'s inputs_steady_s)
@@ -141,8 +169,9 @@ class BenchModel:
         self._wavelength_changed = -math.inf
         self._update_probe()
         # the sample has been sitting in the probe beam with the pump off
-        self._timeline = MediumTimeline(self.medium, self._drive(), model_step=sim.model_step,
-                                        n2=np.full(sim.slices, self._n2_off))
+        self._timeline = MediumTimeline(
+            self.medium, self._drive(), model_step=sim.model_step, n2=np.full(sim.slices, self._n2_off)
+        )
         self._events: list[tuple[float, int, str]] = []
         self._event_seq = 0
         self._saturation: list[tuple[float, float]] = []
@@ -163,8 +192,9 @@ class BenchModel:
         """(sigma_as, sigma_es, sigma_as Phi_s, (sigma_as + sigma_es) Phi_s) at ``wavelength``."""
         cfg = self.cfg
         sig = cfg.sample.sigma
-        sa, se = probe_cross_sections(wavelength, cfg.probe.wavelength, sig.probe_absorption,
-                                      sig.probe_emission)
+        sa, se = probe_cross_sections(
+            wavelength, cfg.probe.wavelength, sig.probe_absorption, sig.probe_emission
+        )
         flux = cfg.probe.power / (_top_hat_area(cfg.probe.beam_diameter) * _photon_energy(wavelength))
         return sa, se, sa * flux, (sa + se) * flux
 
@@ -206,7 +236,9 @@ class BenchModel:
         self._timeline.set_drive(self._drive())
 
     # -- pump driver -------------------------------------------------------------------------------
-    def set_pump(self, *, current: float | None = None, on: bool | None = None, limit: float | None = None) -> None:
+    def set_pump(
+        self, *, current: float | None = None, on: bool | None = None, limit: float | None = None
+    ) -> None:
         """Change the pump driver's limit, setpoint and/or output (in that order), now.
 
         Raises `DeviceError` (a ValueError) when refused: setpoint above the limit (-222),
@@ -399,8 +431,16 @@ class BenchModel:
         data = np.concatenate(parts)
         if not want_truth:
             return data, first, None
-        return data, first, TruthBlock(*(np.concatenate([getattr(tb, f) for tb in truths])
-                                         for f in ("t", "n2_avg", "ln_ratio", "pump_w")))
+        return (
+            data,
+            first,
+            TruthBlock(
+                *(
+                    np.concatenate([getattr(tb, f) for tb in truths])
+                    for f in ("t", "n2_avg", "ln_ratio", "pump_w")
+                )
+            ),
+        )
 
     def _block(self, n: int, want_truth: bool):
         i0 = self._next_index
@@ -417,8 +457,9 @@ class BenchModel:
             ln_rel = n2 * self._ln_ratio_per_n2
             ln_rel += self._ln_t_offset
         stray = self._stray(times)
-        volts, clipped = self._detectors.volts(times, ln_rel, _flat(probe_open), _flat(pump_w), stray,
-                                               self.full_scale)
+        volts, clipped = self._detectors.volts(
+            times, ln_rel, _flat(probe_open), _flat(pump_w), stray, self.full_scale
+        )
         self._track_clipping(times, clipped)
         truth = None
         if want_truth:
@@ -459,7 +500,9 @@ class BenchModel:
             hit = times[clipped[:, c]]
             if hit.size == 0:
                 continue
-            starts = int(hit[0] - self._clip_last[c] > CLIP_HOLD) + int(np.count_nonzero(np.diff(hit) > CLIP_HOLD))
+            starts = int(hit[0] - self._clip_last[c] > CLIP_HOLD) + int(
+                np.count_nonzero(np.diff(hit) > CLIP_HOLD)
+            )
             for _ in range(starts):
                 self._device_errors.append(("detector", INPUT_OVER_RANGE))
             self._clip_last[c] = hit[-1]
@@ -518,15 +561,19 @@ class BenchModel:
     def schedule(self, fault: Fault) -> None:
         """Schedule a physical fault (interlock, overtemp, saturate) at its time (None: now)."""
         if fault.kind not in MODEL_KINDS:
-            raise ValueError(f"fault: {fault.kind!r} is not a fault of the physical bench "
-                             f"(expected one of: {', '.join(MODEL_KINDS)})")
+            raise ValueError(
+                f"fault: {fault.kind!r} is not a fault of the physical bench "
+                f"(expected one of: {', '.join(MODEL_KINDS)})"
+            )
         start = self.t if fault.time is None else max(fault.time, self.t)
         end = start + fault.duration if fault.duration is not None else math.inf
         if fault.kind == "saturate":
             self._saturation.append((start, end))
             return
-        begin, finish = {"interlock": ("interlock_open", "interlock_close"),
-                         "overtemp": ("tec_fail", "tec_restore")}[fault.kind]
+        begin, finish = {
+            "interlock": ("interlock_open", "interlock_close"),
+            "overtemp": ("tec_fail", "tec_restore"),
+        }[fault.kind]
         self._push_event(start, begin)
         if math.isfinite(end):
             self._push_event(end, finish)
@@ -579,8 +626,9 @@ class BenchModel:
         s = self.cfg.sample
         pump_w = float(self._timeline.drive.pump_power(np.array([self.t]))[0])
         ln_on = self.medium.probe_ln_transmission(slices, self._sigma_as, self._sigma_es)
-        ln_off = self.medium.probe_ln_transmission(np.full(self.medium.slices, self._n2_off), self._sigma_as,
-                                                   self._sigma_es)
+        ln_off = self.medium.probe_ln_transmission(
+            np.full(self.medium.slices, self._n2_off), self._sigma_as, self._sigma_es
+        )
         return {
             "t": self.t,
             "n2_avg": n2,

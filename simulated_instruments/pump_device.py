@@ -26,18 +26,21 @@ class PumpDriverDevice:
         self.core = core
         self.errors = core.errors["pump"]
         model = core.model
-        self.table = CommandTable(common_commands(IDENTITY, model.reset_pump, self.errors) + [
-            Command("[SOURce]:CURRent:LIMit", set=self._set_limit, query=self._limit),
-            Command("[SOURce]:CURRent[:LEVel]", set=self._set_current, query=self._setpoint),
-            Command("MEASure:CURRent", query=self._measured_current),
-            Command("MEASure:POWer", query=self._power),
-            Command("MEASure:TEMPerature", query=self._temperature),
-            Command("OUTPut:INTLock", query=self._interlock),
-            Command("OUTPut[:STATe]", set=self._set_output, query=self._output),
-            Command("[SOURce]:MODulation:FREQuency", set=self._set_mod_freq, query=self._mod_freq),
-            Command("[SOURce]:MODulation[:STATe]", set=self._set_mod, query=self._mod),
-            Command("[SOURce]:TEMPerature", set=self._set_temp, query=self._temp_setpoint),
-        ])
+        self.table = CommandTable(
+            common_commands(IDENTITY, model.reset_pump, self.errors)
+            + [
+                Command("[SOURce]:CURRent:LIMit", set=self._set_limit, query=self._limit),
+                Command("[SOURce]:CURRent[:LEVel]", set=self._set_current, query=self._setpoint),
+                Command("MEASure:CURRent", query=self._measured_current),
+                Command("MEASure:POWer", query=self._power),
+                Command("MEASure:TEMPerature", query=self._temperature),
+                Command("OUTPut:INTLock", query=self._interlock),
+                Command("OUTPut[:STATe]", set=self._set_output, query=self._output),
+                Command("[SOURce]:MODulation:FREQuency", set=self._set_mod_freq, query=self._mod_freq),
+                Command("[SOURce]:MODulation[:STATe]", set=self._set_mod, query=self._mod),
+                Command("[SOURce]:TEMPerature", set=self._set_temp, query=self._temp_setpoint),
+            ]
+        )
 
     def session(self) -> ScpiSession:
         return ScpiSession(self.table, self.errors, before=self.core.sync)

@@ -48,11 +48,11 @@ class SampleRing:
             self._data = np.empty((self.capacity, self.channels), dtype=np.float32)
         if n > self.capacity:
             self.skip_to(self.write_index + n - self.capacity)
-            block = block[n - self.capacity:]
+            block = block[n - self.capacity :]
             n = self.capacity
         start = self.write_index % self.capacity
         first = min(n, self.capacity - start)
-        self._data[start:start + first] = block[:first]
+        self._data[start : start + first] = block[:first]
         if first < n:
             self._data[: n - first] = block[first:]
         self.write_index += n
@@ -69,7 +69,7 @@ class SampleRing:
         if k:
             start = self.read_index % self.capacity
             first = min(k, self.capacity - start)
-            out[:first] = self._data[start:start + first]
+            out[:first] = self._data[start : start + first]
             if first < k:
                 out[first:] = self._data[: k - first]
         self.read_index += k

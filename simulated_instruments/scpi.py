@@ -78,7 +78,9 @@ _PART = re.compile(r"\[:?[A-Za-z]+\]|:?[A-Za-z]+")
 def _compile(pattern: str) -> tuple[_Node, ...]:
     parts = _PART.findall(pattern)
     if not parts or "".join(parts) != pattern or parts[0].startswith(":"):
-        raise ValueError(f"pattern: {pattern!r} is not a SCPI header pattern such as 'SOURce:CURRent[:LEVel]'")
+        raise ValueError(
+            f"pattern: {pattern!r} is not a SCPI header pattern such as 'SOURce:CURRent[:LEVel]'"
+        )
     nodes = []
     for part in parts:
         word = part.strip("[]:")
@@ -337,7 +339,7 @@ def definite_block(payload) -> bytes:
     header = b"#" + str(len(length)).encode() + length
     out = bytearray(len(header) + view.nbytes)
     out[: len(header)] = header
-    out[len(header):] = view
+    out[len(header) :] = view
     return bytes(out)
 
 

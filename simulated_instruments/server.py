@@ -81,8 +81,9 @@ class ReplyFaults:
 class InstrumentServer:
     """Serve one instrument on loopback TCP (see module docstring)."""
 
-    def __init__(self, role: str, new_session: Callable[[], Session], lock: threading.RLock,
-                 faults: ReplyFaults):
+    def __init__(
+        self, role: str, new_session: Callable[[], Session], lock: threading.RLock, faults: ReplyFaults
+    ):
         self.role = role
         self._new_session = new_session
         self._lock = lock
@@ -95,7 +96,9 @@ class InstrumentServer:
         self._listener.bind((HOST, 0))
         self._listener.listen(8)
         self.port = self._listener.getsockname()[1]
-        self._accept_thread = threading.Thread(target=self._accept_loop, name=f"sim-{role}-accept", daemon=True)
+        self._accept_thread = threading.Thread(
+            target=self._accept_loop, name=f"sim-{role}-accept", daemon=True
+        )
         self._accept_thread.start()
 
     # -- threads ---------------------------------------------------------------------------------
@@ -114,8 +117,9 @@ class InstrumentServer:
                     conn.close()
                     break
                 self._clients.add(conn)
-                thread = threading.Thread(target=self._client_loop, args=(conn,),
-                                          name=f"sim-{self.role}-client", daemon=True)
+                thread = threading.Thread(
+                    target=self._client_loop, args=(conn,), name=f"sim-{self.role}-client", daemon=True
+                )
                 self._threads = [t for t in self._threads if t.is_alive()] + [thread]
             thread.start()
 

@@ -23,11 +23,14 @@ class WavelengthSource:
     def __init__(self, core: BenchCore):
         self.core = core
         self.errors = core.errors["wavelength"]
-        self.table = CommandTable(common_commands(IDENTITY, self._reset, self.errors) + [
-            Command("[SOURce]:WAVelength:RANGe", query=self._range),
-            Command("[SOURce]:WAVelength", set=self._set, query=self._get),
-            Command("STATus:SETTled", query=self._settled),
-        ])
+        self.table = CommandTable(
+            common_commands(IDENTITY, self._reset, self.errors)
+            + [
+                Command("[SOURce]:WAVelength:RANGe", query=self._range),
+                Command("[SOURce]:WAVelength", set=self._set, query=self._get),
+                Command("STATus:SETTled", query=self._settled),
+            ]
+        )
 
     def session(self) -> ScpiSession:
         return ScpiSession(self.table, self.errors, before=self.core.sync)

@@ -17,8 +17,17 @@ import math
 import numpy as np
 
 
-def pumped(n: int, hz: float, a_on: float, tau_fall: float, *, tau_rise: float, dt: float,
-           edge_phase: float = 0.37, start_on: bool = False) -> tuple[np.ndarray, np.ndarray]:
+def pumped(
+    n: int,
+    hz: float,
+    a_on: float,
+    tau_fall: float,
+    *,
+    tau_rise: float,
+    dt: float,
+    edge_phase: float = 0.37,
+    start_on: bool = False,
+) -> tuple[np.ndarray, np.ndarray]:
     """(ln R, pump on) at ``t_i = i dt``, i < n, for a pump square wave of ``hz``.
 
     The first edge after t = 0 is at ``edge_phase * dt`` (0 <= edge_phase < 1), later ones

@@ -14,6 +14,13 @@ def model_blocks(model, n: int, size: int = 2500):
     while n > 0:
         k = min(n, size)
         data, first = model.generate(k)
-        yield Block("detector", first // size, model.acquisition_start + first / model.sample_rate,
-                    1.0 / model.sample_rate, first, CHANNELS, data)
+        yield Block(
+            "detector",
+            first // size,
+            model.acquisition_start + first / model.sample_rate,
+            1.0 / model.sample_rate,
+            first,
+            CHANNELS,
+            data,
+        )
         n -= k

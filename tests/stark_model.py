@@ -31,12 +31,17 @@ LOWER_CM = (0.0, 560.0, 615.0, 790.0)  # invented, cm^-1 above the lowest lower 
 UPPER_CM = (0.0, 290.0, 355.0)  # invented, cm^-1 above the lowest upper level
 ZERO_LINE_CM = 10320.0  # invented: lowest lower -> lowest upper level, about 969 nm
 #: Invented line strengths S_ij (rows: lower level i, columns: upper level j), m^2.
-STRENGTH = np.array([
-    [1.0, 0.6, 0.3],
-    [0.5, 0.8, 0.4],
-    [0.7, 0.2, 0.9],
-    [0.3, 0.5, 0.6],
-]) * 1e-24
+STRENGTH = (
+    np.array(
+        [
+            [1.0, 0.6, 0.3],
+            [0.5, 0.8, 0.4],
+            [0.7, 0.2, 0.9],
+            [0.3, 0.5, 0.6],
+        ]
+    )
+    * 1e-24
+)
 
 
 @dataclass(frozen=True)
@@ -49,9 +54,15 @@ class StarkSpectra:
     min_separation: float  # smallest distance between two line centres, in line widths (sigma)
 
 
-def spectra(temperature: float, *, lower_cm=LOWER_CM, upper_cm=UPPER_CM,
-            zero_line_cm: float = ZERO_LINE_CM, strength=STRENGTH,
-            width_cm: float = 0.2) -> StarkSpectra:
+def spectra(
+    temperature: float,
+    *,
+    lower_cm=LOWER_CM,
+    upper_cm=UPPER_CM,
+    zero_line_cm: float = ZERO_LINE_CM,
+    strength=STRENGTH,
+    width_cm: float = 0.2,
+) -> StarkSpectra:
     """Absorption and emission cross-sections at every line centre, at ``temperature``."""
     kt = constants.k * temperature
     lower = np.asarray(lower_cm, dtype=float) * WAVENUMBER

@@ -75,10 +75,18 @@ def test_record_refuses_out_of_bound_overrides_before_anything_starts(override, 
     [
         ('stale_after = "0.5 s"', 'stale_after = "1e9 s"', "guard.stale_after (line 78)", "above 5 s"),
         ("comm_failures = 3", "comm_failures = 100", "guard.comm_failures (line 79)", "outside 1 ... 10"),
-        ('mount_temperature_max = "35 degC"', 'mount_temperature_max = "5000 degC"',
-         "guard.mount_temperature_max (line 76)", "outside -10 degC ... 60 degC"),
-        ('upper_state_lifetime = "0.6 ms"', 'upper_state_lifetime = "600 s"',
-         "sample.upper_state_lifetime (line 22)", "above 0.1 s"),
+        (
+            'mount_temperature_max = "35 degC"',
+            'mount_temperature_max = "5000 degC"',
+            "guard.mount_temperature_max (line 76)",
+            "outside -10 degC ... 60 degC",
+        ),
+        (
+            'upper_state_lifetime = "0.6 ms"',
+            'upper_state_lifetime = "600 s"',
+            "sample.upper_state_lifetime (line 22)",
+            "above 0.1 s",
+        ),
     ],
 )
 def test_the_file_gets_the_same_bounds_as_set(demo_text, old, new, key, expected):
@@ -91,11 +99,13 @@ def test_the_file_gets_the_same_bounds_as_set(demo_text, old, new, key, expected
 def test_the_demo_values_and_the_test_suites_overrides_stay_within_the_bounds():
     for stale in ("0.5 s", "2 s", "3 s"):  # what the other tests of this suite use
         assert load_bench(overrides={"guard.stale_after": stale}).guard.stale_after == pytest.approx(
-            float(stale.split()[0]))
+            float(stale.split()[0])
+        )
 
 
 # --------------------------------------------------------------------------------------------
 # Overrides that lower the eyewear OD
+
 
 def _od(wavelength, power, diameter) -> int:
     return laser_safety.required_od(wavelength, power, diameter).od_required
@@ -106,8 +116,23 @@ def _od(wavelength, power, diameter) -> int:
     ["pump.slope_efficiency=1e-6W/A", "pump.beam_diameter=0.09m", "pump.max_current=1A"],
 )
 def test_overrides_that_lower_the_required_od_are_refused(override, tmp_path, capsys):
-    code, err = _run([*RECORD, "--operator", "tester", "--eyewear-od", "940nm=0", "--eyewear-od", "1030nm=2",
-                      "--confirm-setup", "--logs", str(tmp_path), "--set", override], capsys)
+    code, err = _run(
+        [
+            *RECORD,
+            "--operator",
+            "tester",
+            "--eyewear-od",
+            "940nm=0",
+            "--eyewear-od",
+            "1030nm=2",
+            "--confirm-setup",
+            "--logs",
+            str(tmp_path),
+            "--set",
+            override,
+        ],
+        capsys,
+    )
     assert code == 2
     assert f"--set {override} lowers the eyewear OD required against the pump from OD 4 at 940 nm" in err
     assert "--accept-lower-od" in err
@@ -126,24 +151,46 @@ def test_the_od_compared_is_the_checklists_own():
 
 @pytest.mark.parametrize(
     "overrides",
-    [{}, {"guard.stale_after": "2 s"}, {"pump.slope_efficiency": "1.1 W/A"}, {"pump.beam_diameter": "0.1 mm"},
-     {"probe.power": "0.5 mW"}],  # the probe's OD at 1030 nm is 0 already: nothing can lower it
+    [
+        {},
+        {"guard.stale_after": "2 s"},
+        {"pump.slope_efficiency": "1.1 W/A"},
+        {"pump.beam_diameter": "0.1 mm"},
+        {"probe.power": "0.5 mW"},
+    ],  # the probe's OD at 1030 nm is 0 already: nothing can lower it
 )
 def test_overrides_that_keep_or_raise_the_od_pass(overrides):
     assert lowered_eyewear(load_bench(overrides=overrides)) == []
 
 
 def test_accepted_lower_od_is_loud_and_recorded(tmp_path, capsys):
-    code = main([*RECORD, "--operator", "tester", "--eyewear-od", "940nm=0", "--eyewear-od", "1030nm=2",
-                 "--confirm-setup", "--logs", str(tmp_path), "--set", "guard.stale_after=3s",
-                 "--set", "pump.slope_efficiency=1e-6W/A", "--accept-lower-od"])
+    code = main(
+        [
+            *RECORD,
+            "--operator",
+            "tester",
+            "--eyewear-od",
+            "940nm=0",
+            "--eyewear-od",
+            "1030nm=2",
+            "--confirm-setup",
+            "--logs",
+            str(tmp_path),
+            "--set",
+            "guard.stale_after=3s",
+            "--set",
+            "pump.slope_efficiency=1e-6W/A",
+            "--accept-lower-od",
+        ]
+    )
     out = capsys.readouterr()
     assert code == 0, out.err
-    assert "gainbench: WARNING: --set pump.slope_efficiency=1e-6W/A lowers the eyewear OD" \
-        in out.err
+    assert "gainbench: WARNING: --set pump.slope_efficiency=1e-6W/A lowers the eyewear OD" in out.err
     run_id = out.out.strip().splitlines()[-1]
     with RunReader(resolve_run(run_id, tmp_path)) as reader:
-        settings_events = [e for e in reader.events() if e.kind == "setting" and "--accept-lower-od" in e.text]
+        settings_events = [
+            e for e in reader.events() if e.kind == "setting" and "--accept-lower-od" in e.text
+        ]
     assert len(settings_events) == 1
     assert settings_events[0].who == "tester"
     assert "from OD 4 at 940 nm" in settings_events[0].text
@@ -151,6 +198,7 @@ def test_accepted_lower_od_is_loud_and_recorded(tmp_path, capsys):
 
 # --------------------------------------------------------------------------------------------
 # Eyewear answers
+
 
 @pytest.mark.parametrize(
     ("flags", "expected"),
@@ -200,8 +248,9 @@ def test_an_accepted_od_is_written_in_ascii_digits_and_one_point(text):
 
 
 @settings(max_examples=100, deadline=None)
-@given(st.integers(min_value=1, max_value=9), st.integers(min_value=0, max_value=9),
-       st.sampled_from(["_", "__"]))
+@given(
+    st.integers(min_value=1, max_value=9), st.integers(min_value=0, max_value=9), st.sampled_from(["_", "__"])
+)
 def test_underscores_in_numerals_are_refused_everywhere(a, b, sep):
     numeral = f"{a}{sep}{b}"
     with pytest.raises(ValueError):
@@ -229,6 +278,7 @@ def test_distinct_wavelengths_are_kept():
 # --------------------------------------------------------------------------------------------
 # Tracebacks and hangs that were
 
+
 def test_safety_bounds_the_beam_diameter_and_power(capsys):
     for option, value, expected in (
         ("--beam-diameter", "1e-300m", "outside 1e-06 m ... 1 m"),
@@ -248,8 +298,11 @@ def test_safety_bounds_the_beam_diameter_and_power(capsys):
         ('n_total = "2.0e20 cm^-3"', 'n_total = "2.0e20 mm^-3"', "sample.n_total (line 21)"),
         ('length = "5 mm"', 'length = "5 m"', "sample.length (line 20)"),
         ('beam_diameter = "0.1 mm"', 'beam_diameter = "1e-200 m"', "probe.beam_diameter (line 41)"),
-        ('probe_emission = "2.2e-20 cm^2"', 'probe_emission = "2.2e-2 cm^2"',
-         "sample.cross_sections.probe_emission (line 27)"),
+        (
+            'probe_emission = "2.2e-20 cm^2"',
+            'probe_emission = "2.2e-2 cm^2"',
+            "sample.cross_sections.probe_emission (line 27)",
+        ),
     ],
 )
 def test_check_refuses_what_sample_cannot_compute(old, new, key, tmp_path, demo_text, capsys):
@@ -285,8 +338,9 @@ def test_a_runaway_unit_power_in_a_profile_is_refused_at_once(tmp_path, demo_tex
     profile.write_text(text.replace('unit = "degC"', 'unit = "9**9**9 A"', 1), encoding="utf-8")
     bench = _bench(tmp_path, demo_text, 'profile = "generic-pump"', f'profile = "{profile.as_posix()}"')
     # in a child process: before the fix pint evaluated 9**9**9 and never returned
-    proc = subprocess.run([sys.executable, "-P", "-m", "bench", "check", str(bench)], capture_output=True, text=True,
-                          timeout=60)
+    proc = subprocess.run(
+        [sys.executable, "-P", "-m", "bench", "check", str(bench)], capture_output=True, text=True, timeout=60
+    )
     assert proc.returncode == 2, proc.stderr
     assert "Traceback" not in proc.stderr
     assert "instruments.pump.profile (line 63)" in proc.stderr
@@ -297,28 +351,62 @@ def test_a_runaway_unit_power_in_a_profile_is_refused_at_once(tmp_path, demo_tex
 # check refuses every instrument mistake record would
 
 INSTRUMENT_MISTAKES = [
-    ('driver = "digitiser"', 'driver = "digitizer"', "instruments.detector.driver (line 54)",
-     "unknown driver 'digitizer'"),
-    ('driver = "pump-driver"', 'driver = "shutter"', "instruments.pump.driver (line 61)",
-     "driver 'shutter' is for the 'shutter' role, not 'pump'"),
-    ('profile = "generic-pump"', 'profile = "generic-pmp"', "instruments.pump.profile (line 63)",
-     "no built-in profile of that name"),
-    ('profile = "generic-pump"', 'profile = "qs2-shutter"', "instruments.pump.profile (line 63)",
-     "this profile is for the 'shutter' role but is used for the 'pump' role"),
-    ('sample_rate = "100 kHz"', 'sample_rate = "-5 Hz"', "instruments.detector.options.sample_rate (line 58)",
-     "'-5 Hz' is not positive"),
-    ('sample_rate = "100 kHz"', 'sample_rate = "5 MHz"', "instruments.detector.options.sample_rate (line 58)",
-     "expected 1 Hz ... 2 MHz"),  # the simulated digitiser's own limit
+    (
+        'driver = "digitiser"',
+        'driver = "digitizer"',
+        "instruments.detector.driver (line 54)",
+        "unknown driver 'digitizer'",
+    ),
+    (
+        'driver = "pump-driver"',
+        'driver = "shutter"',
+        "instruments.pump.driver (line 61)",
+        "driver 'shutter' is for the 'shutter' role, not 'pump'",
+    ),
+    (
+        'profile = "generic-pump"',
+        'profile = "generic-pmp"',
+        "instruments.pump.profile (line 63)",
+        "no built-in profile of that name",
+    ),
+    (
+        'profile = "generic-pump"',
+        'profile = "qs2-shutter"',
+        "instruments.pump.profile (line 63)",
+        "this profile is for the 'shutter' role but is used for the 'pump' role",
+    ),
+    (
+        'sample_rate = "100 kHz"',
+        'sample_rate = "-5 Hz"',
+        "instruments.detector.options.sample_rate (line 58)",
+        "'-5 Hz' is not positive",
+    ),
+    (
+        'sample_rate = "100 kHz"',
+        'sample_rate = "5 MHz"',
+        "instruments.detector.options.sample_rate (line 58)",
+        "expected 1 Hz ... 2 MHz",
+    ),  # the simulated digitiser's own limit
     ('range = "2 V"', 'range = "0 V"', "instruments.detector.options.range (line 58)", "is not positive"),
-    ('format = "binary"', 'format = "hex"', "instruments.detector.options.format (line 58)",
-     "'hex' is not one of ['binary', 'ascii']"),
-    ('format = "binary"', 'format = "binary", colour = 1', "instruments.detector.options.colour (line 58)",
-     "unknown option for the digitiser driver"),
+    (
+        'format = "binary"',
+        'format = "hex"',
+        "instruments.detector.options.format (line 58)",
+        "'hex' is not one of ['binary', 'ascii']",
+    ),
+    (
+        'format = "binary"',
+        'format = "binary", colour = 1',
+        "instruments.detector.options.colour (line 58)",
+        "unknown option for the digitiser driver",
+    ),
 ]
 
 
 @pytest.mark.parametrize(("old", "new", "key", "expected"), INSTRUMENT_MISTAKES)
-def test_check_and_record_refuse_instrument_mistakes_alike(old, new, key, expected, tmp_path, demo_text, capsys):
+def test_check_and_record_refuse_instrument_mistakes_alike(
+    old, new, key, expected, tmp_path, demo_text, capsys
+):
     path = _bench(tmp_path, demo_text, old, new)
     logs = tmp_path / "logs"
     for argv in (["check", str(path)], [*RECORD, "--config", str(path), *ARM, "--logs", str(logs)]):
@@ -335,6 +423,7 @@ def test_the_demo_bench_passes_the_instrument_check():
 # --------------------------------------------------------------------------------------------
 # A folder named "bench" in the current directory
 
+
 def test_record_in_a_folder_holding_a_decoy_bench_package(tmp_path):
     decoy = tmp_path / "bench"
     decoy.mkdir()
@@ -344,7 +433,10 @@ def test_record_in_a_folder_holding_a_decoy_bench_package(tmp_path):
     assert gainbench.exists(), "test setup: the gainbench script is installed beside the interpreter"
     proc = subprocess.run(
         [str(gainbench), *RECORD, *ARM, "--set", "guard.stale_after=3s", "--logs", str(tmp_path / "logs")],
-        cwd=tmp_path, capture_output=True, text=True, timeout=120,
+        cwd=tmp_path,
+        capture_output=True,
+        text=True,
+        timeout=120,
     )
     assert proc.returncode == 0, proc.stderr
     assert "decoy" not in proc.stderr
@@ -354,10 +446,11 @@ def test_record_in_a_folder_holding_a_decoy_bench_package(tmp_path):
 # --------------------------------------------------------------------------------------------
 # Whatever passes check, sample and the checklist can compute
 
+
 def _log_uniform(lo: float, hi: float):
     import math
 
-    return st.floats(math.log10(lo), math.log10(hi)).map(lambda e: 10.0 ** e)
+    return st.floats(math.log10(lo), math.log10(hi)).map(lambda e: 10.0**e)
 
 
 @settings(max_examples=150, deadline=None)
@@ -373,8 +466,9 @@ def _log_uniform(lo: float, hi: float):
     probe_power=_log_uniform(1e-9, 10.0),
     slope=_log_uniform(1e-6, 100.0),
 )
-def test_every_bench_that_passes_check_gives_its_figures(length, n_total, sigma_e, sigma_a, sigma_pump,
-                                                         tau, probe_d, pump_d, probe_power, slope):
+def test_every_bench_that_passes_check_gives_its_figures(
+    length, n_total, sigma_e, sigma_a, sigma_pump, tau, probe_d, pump_d, probe_power, slope
+):
     import math
 
     from bench.commands.sample import figures
@@ -420,12 +514,21 @@ def test_live_refuses_the_same_before_the_dashboard_starts(tmp_path, demo_text, 
     logs = ["--logs", str(tmp_path / "logs")]
     for argv, expected in (
         (["live", *logs, "--set", "pump.slope_efficiency=1e-6W/A"], "lowers the eyewear OD required"),
-        (["live", *logs, "--set", "guard.comm_failures=100"], "--set guard.comm_failures (over <built-in demo "
-                                                              "bench>): 100 is outside 1 ... 10"),
+        (
+            ["live", *logs, "--set", "guard.comm_failures=100"],
+            "--set guard.comm_failures (over <built-in demo bench>): 100 is outside 1 ... 10",
+        ),
         (["live", *logs, "--speed", "nan"], "--speed: nan"),
         (["live", *logs, "--current-step", "inf"], "--current-step: inf"),
-        (["live", *logs, "--config", str(_bench(tmp_path, demo_text, 'driver = "digitiser"', 'driver = "x"'))],
-         "instruments.detector.driver (line 54): unknown driver 'x'"),
+        (
+            [
+                "live",
+                *logs,
+                "--config",
+                str(_bench(tmp_path, demo_text, 'driver = "digitiser"', 'driver = "x"')),
+            ],
+            "instruments.detector.driver (line 54): unknown driver 'x'",
+        ),
     ):
         code, err = _run(argv, capsys)
         assert code == 2, argv
@@ -467,15 +570,49 @@ def _demo_keys() -> list[str]:
 
 
 #: Values at the edges of floats and of units, typed as a user might through --set.
-ODD_VALUES = ["0", "-1", "-0", "nan", "inf", "1e308", "1e400 m", "2**64", "5_0", "", "abc", "true", "0 s",
-              "1e-30 s", "5 kg", "1e300 W", "1e300 A", "1e300 W/A", "1e300 m", "1e300 m^-3", "1e300 m^2",
-              "1e-300 m", "1e-300 m^2", "1e-300 W", "1e-300 A", "1e300 Hz", "1e300 V", "1e6 K", "-40 degC",
-              "0 degC", "1e-9 s", "30 um", "100 m", "0.1 s"]
+ODD_VALUES = [
+    "0",
+    "-1",
+    "-0",
+    "nan",
+    "inf",
+    "1e308",
+    "1e400 m",
+    "2**64",
+    "5_0",
+    "",
+    "abc",
+    "true",
+    "0 s",
+    "1e-30 s",
+    "5 kg",
+    "1e300 W",
+    "1e300 A",
+    "1e300 W/A",
+    "1e300 m",
+    "1e300 m^-3",
+    "1e300 m^2",
+    "1e-300 m",
+    "1e-300 m^2",
+    "1e-300 W",
+    "1e-300 A",
+    "1e300 Hz",
+    "1e300 V",
+    "1e6 K",
+    "-40 degC",
+    "0 degC",
+    "1e-9 s",
+    "30 um",
+    "100 m",
+    "0.1 s",
+]
 
 
 @settings(max_examples=300, deadline=None)
 @given(st.sampled_from(_demo_keys()), st.sampled_from(ODD_VALUES))
 @example("pump.slope_efficiency", "1e300 W/A")
+@example("probe.power", "1e300 W")  # once an overflowing photon flux in `gainbench sample`
+@example("pump.max_current", "1e300 A")
 def test_any_odd_override_is_refused_or_computes(key, value):
     import math
 
@@ -518,8 +655,12 @@ def test_check_refuses_ascii_data_from_a_profile_without_an_ascii_fetch(tmp_path
     line = next(x for x in text.splitlines(keepends=True) if x.startswith("fetch_ascii = "))
     profile = tmp_path / "no-ascii.toml"
     profile.write_text(text.replace(line, "", 1), encoding="utf-8")
-    path = _bench(tmp_path, demo_text.replace('profile = "generic-digitiser"', f'profile = "{profile.as_posix()}"', 1),
-                  'format = "binary"', 'format = "ascii"')
+    path = _bench(
+        tmp_path,
+        demo_text.replace('profile = "generic-digitiser"', f'profile = "{profile.as_posix()}"', 1),
+        'format = "binary"',
+        'format = "ascii"',
+    )
     code, err = _run(["check", str(path)], capsys)
     assert code == 2
     assert f"{path}: instruments.detector.options.format (line 58): profile " in err
@@ -530,10 +671,14 @@ def test_the_refusal_names_the_overrides_that_lower_the_od():
     # OD exact from bench.safety.exposure_limits.required_od at 940 nm, 7 mm aperture: 8.82 W in 0.2 mm 3.88
     # (OD 4); in 40 mm 2.65 (OD 3); 4.2 W in 0.2 mm 3.56 (OD 4); 8.82 W in 20 mm 3.22 (OD 4);
     # 4.2 W in 20 mm 2.90 (OD 3)
-    cfg = load_bench(overrides={"guard.stale_after": "2 s", "pump.beam_diameter": "40 mm", "probe.power": "2 mW"})
+    cfg = load_bench(
+        overrides={"guard.stale_after": "2 s", "pump.beam_diameter": "40 mm", "probe.power": "2 mW"}
+    )
     (text,) = lowered_eyewear(cfg)
-    assert text.startswith("--set pump.beam_diameter=40 mm lowers the eyewear OD required against the pump "
-                           "from OD 4 at 940 nm (the bench file as written) to OD 3 at 940 nm")
+    assert text.startswith(
+        "--set pump.beam_diameter=40 mm lowers the eyewear OD required against the pump "
+        "from OD 4 at 940 nm (the bench file as written) to OD 3 at 940 nm"
+    )
     # neither lowers it alone, both together do
     cfg = load_bench(overrides={"pump.slope_efficiency": "0.5 W/A", "pump.beam_diameter": "20 mm"})
     (text,) = lowered_eyewear(cfg)

@@ -64,7 +64,7 @@ def find_circle(graph: dict[str, set[str]]) -> list[str] | None:
         path.append(node)
         for nxt in sorted(graph[node]):
             if state.get(nxt) == 1:
-                return path[path.index(nxt):] + [nxt]
+                return path[path.index(nxt) :] + [nxt]
             if nxt not in state:
                 found = visit(nxt)
                 if found:

@@ -27,8 +27,12 @@ class Tmux:
         return out.stdout
 
     def start(self, command: str) -> None:
-        self.run("new-session", "-d", "-s", self.session, "-x", str(self.width), "-y", str(self.height), command)
-        self.run("resize-window", "-t", self.session, "-x", str(self.width), "-y", str(self.height), check=False)
+        self.run(
+            "new-session", "-d", "-s", self.session, "-x", str(self.width), "-y", str(self.height), command
+        )
+        self.run(
+            "resize-window", "-t", self.session, "-x", str(self.width), "-y", str(self.height), check=False
+        )
 
     def screen(self) -> str:
         return self.run("capture-pane", "-p", "-t", self.session, check=False)
@@ -43,7 +47,9 @@ class Tmux:
             if text in screen:
                 return screen
             if time.monotonic() > deadline:
-                raise AssertionError(f"timed out after {timeout} s waiting for {text!r} on the screen:\n{screen}")
+                raise AssertionError(
+                    f"timed out after {timeout} s waiting for {text!r} on the screen:\n{screen}"
+                )
             time.sleep(0.2)
 
     def kill(self) -> None:

@@ -15,9 +15,12 @@ HELP = "measure disk, acquisition rate, estimator, replay, trip latency and memo
 def configure(parser: argparse.ArgumentParser) -> None:
     parser.add_argument("--quick", action="store_true", help="shorter runs (about a minute)")
     parser.add_argument("--json", action="store_true", help="print the figures as JSON")
-    parser.add_argument("--logs", metavar="DIR",
-                        help="directory on the disk to measure (default: a temporary directory; runs made "
-                             "by the benchmark are deleted afterwards)")
+    parser.add_argument(
+        "--logs",
+        metavar="DIR",
+        help="directory on the disk to measure (default: a temporary directory; runs made "
+        "by the benchmark are deleted afterwards)",
+    )
 
 
 def run(args: argparse.Namespace) -> int:
@@ -29,8 +32,23 @@ def run(args: argparse.Namespace) -> int:
     with tempfile.TemporaryDirectory(prefix="gainbench-benchmark-", dir=args.logs) as tmp:
         figures = run_benchmark(Path(tmp), quick=args.quick, report=report)
     if args.json:
-        print(json.dumps([{"name": f.name, "value": f.value, "unit": f.unit, "reference": f.reference,
-                           "detail": f.detail, "extra": f.extra} for f in figures], indent=2, default=str))
+        print(
+            json.dumps(
+                [
+                    {
+                        "name": f.name,
+                        "value": f.value,
+                        "unit": f.unit,
+                        "reference": f.reference,
+                        "detail": f.detail,
+                        "extra": f.extra,
+                    }
+                    for f in figures
+                ],
+                indent=2,
+                default=str,
+            )
+        )
         return 0
     width = max(len(f.name) for f in figures)
     for f in figures:

@@ -21,8 +21,10 @@ def run(args: argparse.Namespace) -> int:
     s, p, q = cfg.sample, cfg.probe, cfg.pump
     print(f"{cfg.source}: ok")
     print(f"  bench       {cfg.name}{'  [SIMULATED]' if cfg.simulated else ''}")
-    print(f"  sample      {s.label}, {s.length * 1e3:g} mm, N_total {s.n_total * 1e-6:.3g} cm^-3, "
-          f"tau {s.upper_state_lifetime * 1e3:g} ms")
+    print(
+        f"  sample      {s.label}, {s.length * 1e3:g} mm, N_total {s.n_total * 1e-6:.3g} cm^-3, "
+        f"tau {s.upper_state_lifetime * 1e3:g} ms"
+    )
     print(f"  probe       {p.wavelength * 1e9:g} nm, {p.power * 1e3:g} mW, {p.kind}")
     print(f"  pump        {q.wavelength * 1e9:g} nm, up to {q.max_current:g} A ({q.max_power:.3g} W)")
     for role, inst in cfg.instruments.items():

@@ -27,7 +27,8 @@ def run(args: argparse.Namespace) -> int:
 
     path = resolve_run(args.run, args.logs)
     out = Path(args.out) if args.out else path.with_name(f"{path.stem}-{args.what}.{args.fmt}")
-    written = export_run(path, args.fmt, args.what, out, source=args.source, analysis_id=args.analysis,
-                         overwrite=args.force)
+    written = export_run(
+        path, args.fmt, args.what, out, source=args.source, analysis_id=args.analysis, overwrite=args.force
+    )
     print(written)
     return 0

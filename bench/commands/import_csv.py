@@ -19,21 +19,37 @@ SHOWN = ("ln_ratio", "gain_db", "gain_coefficient_per_cm", "n2_per_m3", "beta", 
 
 def configure(parser: argparse.ArgumentParser) -> None:
     parser.add_argument("file", help="CSV file with a header row")
-    parser.add_argument("--columns", required=True, metavar="time=COL,probe=COL,reference=COL,pump_on=COL",
-                        help="which CSV column holds each signal (time in s, probe and reference in V, "
-                             "pump_on 0/1)")
-    parser.add_argument("--config", metavar="FILE", help="bench file describing the sample (default: built-in)")
-    parser.add_argument("--logs", metavar="DIR", help="run store directory (default: the bench file's run.log_dir)")
-    parser.add_argument("--mode", choices=("watch", "chopped", "decay", "sweep"),
-                        help="analysis mode; default: chopped when the pump column switches on more than "
-                             "once, else watch (the baseline is the pump-off data before the pump first "
-                             "switches on)")
+    parser.add_argument(
+        "--columns",
+        required=True,
+        metavar="time=COL,probe=COL,reference=COL,pump_on=COL",
+        help="which CSV column holds each signal (time in s, probe and reference in V, pump_on 0/1)",
+    )
+    parser.add_argument(
+        "--config", metavar="FILE", help="bench file describing the sample (default: built-in)"
+    )
+    parser.add_argument(
+        "--logs", metavar="DIR", help="run store directory (default: the bench file's run.log_dir)"
+    )
+    parser.add_argument(
+        "--mode",
+        choices=("watch", "chopped", "decay", "sweep"),
+        help="analysis mode; default: chopped when the pump column switches on more than "
+        "once, else watch (the baseline is the pump-off data before the pump first "
+        "switches on)",
+    )
     dark = parser.add_mutually_exclusive_group()
-    dark.add_argument("--dark", metavar="probe=V,reference=V",
-                      help="dark levels measured with the probe blocked, e.g. probe=2mV,reference=3mV")
-    dark.add_argument("--dark-window", metavar="START:END",
-                      help="a stretch of the file recorded with the probe blocked, in the file's time "
-                           "column, e.g. 0s:0.01s; its mean is the dark")
+    dark.add_argument(
+        "--dark",
+        metavar="probe=V,reference=V",
+        help="dark levels measured with the probe blocked, e.g. probe=2mV,reference=3mV",
+    )
+    dark.add_argument(
+        "--dark-window",
+        metavar="START:END",
+        help="a stretch of the file recorded with the probe blocked, in the file's time "
+        "column, e.g. 0s:0.01s; its mean is the dark",
+    )
 
 
 def parse_columns(text: str) -> dict[str, str]:
@@ -72,8 +88,10 @@ def parse_dark(dark: str | None, window: str | None):
         key, sep, value = part.partition("=")
         key, value = key.strip(), value.strip()
         if not sep or key not in ("probe", "reference") or not value:
-            raise ConfigError(f"--dark: {part.strip()!r} is not probe=VOLTAGE or reference=VOLTAGE "
-                              "(e.g. --dark probe=2mV,reference=3mV)")
+            raise ConfigError(
+                f"--dark: {part.strip()!r} is not probe=VOLTAGE or reference=VOLTAGE "
+                "(e.g. --dark probe=2mV,reference=3mV)"
+            )
         if key in levels:
             raise ConfigError(f"--dark: {key} is given twice")
         levels[key] = parse_quantity(value, "voltage", f"--dark {key}")
@@ -96,16 +114,20 @@ def run(args: argparse.Namespace) -> int:
         final = reader.final_estimate()
         events = reader.events()
         mode = reader.meta.get("mode")
-    print(f"imported {info.get('samples')} samples from {args.file} as a {mode} run "
-          f"(sample interval {info.get('dt_s', 0):.6g} s)")
+    print(
+        f"imported {info.get('samples')} samples from {args.file} as a {mode} run "
+        f"(sample interval {info.get('dt_s', 0):.6g} s)"
+    )
     if dark is None:
         print("  no dark given (--dark or --dark-window): the probe and reference are taken as 0 V dark")
     for ev in events:
         if ev.kind == "procedure":
             print(f"  {ev.text}")
     if final is None or not any(k in final.values for k in SHOWN):
-        print("  no estimate: " + (", ".join(sorted(final.flags)) if final is not None and final.flags
-                                   else "the data give none"))
+        print(
+            "  no estimate: "
+            + (", ".join(sorted(final.flags)) if final is not None and final.flags else "the data give none")
+        )
     else:
         print(f"  estimates of all the data (t = {final.t:.4g} s, {final.n_samples} samples):")
         for key in SHOWN:

@@ -16,16 +16,21 @@ HELP = "list VISA resources and serial ports, and identify each configured instr
 
 def configure(parser: argparse.ArgumentParser) -> None:
     parser.add_argument(
-        "--config", metavar="FILE", default=None,
+        "--config",
+        metavar="FILE",
+        default=None,
         help="bench file (TOML); default: the built-in simulated bench",
     )
     parser.add_argument(
-        "--visa-backend", metavar="LIB", default=None,
+        "--visa-backend",
+        metavar="LIB",
+        default=None,
         help='VISA library for listing and opening VISA resources: "@py" (pyvisa-py, the '
         'default), "" (an installed vendor library) or its path',
     )
     parser.add_argument(
-        "--no-scan", action="store_true",
+        "--no-scan",
+        action="store_true",
         help="do not list VISA resources and serial ports; only identify the configured instruments",
     )
 
@@ -125,13 +130,16 @@ def identify_all(cfg, resources: Mapping[str, str], note: str, backend: str | No
         resource = resources.get(role, inst.resource)
         head = f"  {role:<11} {inst.driver} via {resource} (profile {inst.profile})"
         if resource.lower() == "simulated":
-            print(f"{head}\n      not reached: {note or 'the simulated bench gave no resource for this role'}")
+            print(
+                f"{head}\n      not reached: {note or 'the simulated bench gave no resource for this role'}"
+            )
             failed += 1
             continue
         options = dict(inst.options)
         try:
-            with open_instrument(role, inst.driver, resource, inst.profile, inst.timeout, options,
-                                 backend=backend) as drv:
+            with open_instrument(
+                role, inst.driver, resource, inst.profile, inst.timeout, options, backend=backend
+            ) as drv:
                 identity = drv.identify()
                 latency = drv.stats.last_latency_s
             print(f"{head}\n      {identity}  (reply in {latency * 1e3:.1f} ms)")

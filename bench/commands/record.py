@@ -40,31 +40,70 @@ def configure(parser: argparse.ArgumentParser) -> None:
     parser.formatter_class = argparse.RawDescriptionHelpFormatter
     parser.epilog = EXIT_STATUSES
     parser.add_argument("--config", metavar="FILE", help="bench file; default: the built-in simulated bench")
-    parser.add_argument("--mode", choices=MODES, default="watch",
-                        help="; ".join(m.cli_words for m in MODES.values()) + " (default watch)")
-    parser.add_argument("--seconds", type=float, default=5.0, metavar="N",
-                        help="how long the pump program runs, in seconds of the run clock (default 5)")
+    parser.add_argument(
+        "--mode",
+        choices=MODES,
+        default="watch",
+        help="; ".join(m.cli_words for m in MODES.values()) + " (default watch)",
+    )
+    parser.add_argument(
+        "--seconds",
+        type=float,
+        default=5.0,
+        metavar="N",
+        help="how long the pump program runs, in seconds of the run clock (default 5)",
+    )
     parser.add_argument("--current", metavar="I", help='pump current, e.g. "6 A" (default 80%% of the limit)')
     parser.add_argument("--steps", type=int, default=6, help="pump current steps in sweep mode (default 6)")
-    parser.add_argument("--period", metavar="T",
-                        help='pump modulation period in chopped, decay and sweep modes (a sweep chops every step), '
-                             'e.g. "50 ms" (default: from the settle windows at the pump current, for a sweep at '
-                             "its lowest step; a period that leaves no settled data is refused)")
-    parser.add_argument("--logs", metavar="DIR", help="run store directory (default: the bench file's run.log_dir)")
-    parser.add_argument("--speed", type=float, default=1.0,
-                        help="simulated bench only: simulated seconds per real second (default 1)")
-    parser.add_argument("--fault", action="append", default=[], metavar="SPEC",
-                        help="simulated bench only: inject a fault, e.g. interlock@3s (repeatable; "
-                             "see `gainbench sim serve --help`)")
-    parser.add_argument("--operator", metavar="NAME", help="who runs the measurement (recorded with every answer)")
-    parser.add_argument("--eyewear-od", action="append", default=[], metavar="WAVELENGTH=OD",
-                        help="OD of the eyewear worn, per laser wavelength, e.g. 940nm=5 (repeatable)")
-    parser.add_argument("--confirm-setup", action="store_true",
-                        help="confirm that the beam path is enclosed, beam dumps are in place and the "
-                             "warning sign or light is on (otherwise asked on the terminal)")
-    parser.add_argument("--set", action="append", default=[], metavar="KEY=VALUE", dest="overrides",
-                        help="change a bench-file value for this run, e.g. guard.stale_after=1s (repeatable; "
-                             "the run stores the bench file as used)")
+    parser.add_argument(
+        "--period",
+        metavar="T",
+        help="pump modulation period in chopped, decay and sweep modes (a sweep chops every step), "
+        'e.g. "50 ms" (default: from the settle windows at the pump current, for a sweep at '
+        "its lowest step; a period that leaves no settled data is refused)",
+    )
+    parser.add_argument(
+        "--logs", metavar="DIR", help="run store directory (default: the bench file's run.log_dir)"
+    )
+    parser.add_argument(
+        "--speed",
+        type=float,
+        default=1.0,
+        help="simulated bench only: simulated seconds per real second (default 1)",
+    )
+    parser.add_argument(
+        "--fault",
+        action="append",
+        default=[],
+        metavar="SPEC",
+        help="simulated bench only: inject a fault, e.g. interlock@3s (repeatable; "
+        "see `gainbench sim serve --help`)",
+    )
+    parser.add_argument(
+        "--operator", metavar="NAME", help="who runs the measurement (recorded with every answer)"
+    )
+    parser.add_argument(
+        "--eyewear-od",
+        action="append",
+        default=[],
+        metavar="WAVELENGTH=OD",
+        help="OD of the eyewear worn, per laser wavelength, e.g. 940nm=5 (repeatable)",
+    )
+    parser.add_argument(
+        "--confirm-setup",
+        action="store_true",
+        help="confirm that the beam path is enclosed, beam dumps are in place and the "
+        "warning sign or light is on (otherwise asked on the terminal)",
+    )
+    parser.add_argument(
+        "--set",
+        action="append",
+        default=[],
+        metavar="KEY=VALUE",
+        dest="overrides",
+        help="change a bench-file value for this run, e.g. guard.stale_after=1s (repeatable; "
+        "the run stores the bench file as used)",
+    )
     add_run_options(parser)  # --accept-lower-od
     parser.add_argument("--no-dark", action="store_true", help="skip the dark capture")
     parser.add_argument("--seed", type=int, help="simulated bench only: random seed")
@@ -89,12 +128,16 @@ def run(args: argparse.Namespace) -> int:
         raise ConfigError(f"--speed: {args.speed} is not a positive number")
     if not cfg.simulated and (args.fault or args.speed != 1.0 or args.seed is not None):
         raise ConfigError("--fault, --speed and --seed apply to the simulated bench only")
-    current = default_current(cfg) if args.current is None else parse_quantity(args.current, "current", "--current")
+    current = (
+        default_current(cfg) if args.current is None else parse_quantity(args.current, "current", "--current")
+    )
     if not (math.isfinite(current) and current >= 0):
         raise ConfigError(f"--current: {args.current!r} is not a pump current of 0 A or more")
     if current > min(cfg.guard.max_current, cfg.pump.max_current):
-        raise ConfigError(f"--current: {current:g} A is above the guard's limit "
-                          f"({min(cfg.guard.max_current, cfg.pump.max_current):g} A)")
+        raise ConfigError(
+            f"--current: {current:g} A is above the guard's limit "
+            f"({min(cfg.guard.max_current, cfg.pump.max_current):g} A)"
+        )
     settings = {"pump_current": current, "pump_power": cfg.pump.power_at(current)}
     mode = mode_of(args.mode)
     currents = sweep_currents(cfg, args.steps) if mode.steps_pump else [current]
@@ -103,11 +146,21 @@ def run(args: argparse.Namespace) -> int:
         settings = dict(mode.run_settings)  # a sweep: each step chopped (`Mode.run_settings`)
     answers, operator = _flag_answers(args, cfg)
     out = sys.stdout
-    meas = Measurement(cfg, mode=args.mode, settings=settings, log_dir=args.logs, speed=args.speed,
-                       faults=tuple(args.fault), operator=operator or "", seed=args.seed)
+    meas = Measurement(
+        cfg,
+        mode=args.mode,
+        settings=settings,
+        log_dir=args.logs,
+        speed=args.speed,
+        faults=tuple(args.fault),
+        operator=operator or "",
+        seed=args.seed,
+    )
     status = _Status(meas, quiet=args.quiet)
     with meas:
-        print(f"gainbench: run {meas.run_id} on {cfg.name}{'  [SIMULATED]' if cfg.simulated else ''}", file=out)
+        print(
+            f"gainbench: run {meas.run_id} on {cfg.name}{'  [SIMULATED]' if cfg.simulated else ''}", file=out
+        )
         if "shutter" in meas.instruments and not args.no_dark:
             print("capturing dark (probe shutter closed) ...", file=out)
             meas.capture_dark()
@@ -148,8 +201,11 @@ def run(args: argparse.Namespace) -> int:
         status.line(final=True)
     print(f"\n{meas.run_id}", file=out)
     if tripped and not acknowledged:
-        print(f"gainbench: the guard tripped and the trip is not acknowledged (exit status "
-              f"{TRIP_NOT_ACKNOWLEDGED}); run {meas.run_id}", file=sys.stderr)
+        print(
+            f"gainbench: the guard tripped and the trip is not acknowledged (exit status "
+            f"{TRIP_NOT_ACKNOWLEDGED}); run {meas.run_id}",
+            file=sys.stderr,
+        )
         return TRIP_NOT_ACKNOWLEDGED
     return 0
 
@@ -167,8 +223,9 @@ def _mode_period(args, cfg, current: float) -> float | None:
     if mode_of(args.mode).timing is None:
         if args.period is not None:
             modulated = [name for name, m in MODES.items() if m.timing is not None]
-            raise ConfigError(f"--period: applies to {', '.join(modulated[:-1])} and {modulated[-1]} modes, "
-                              f"not {args.mode}")
+            raise ConfigError(
+                f"--period: applies to {', '.join(modulated[:-1])} and {modulated[-1]} modes, not {args.mode}"
+            )
         return None
     chosen = None if args.period is None else parse_quantity(args.period, "time", "--period")
     if chosen is not None and not (math.isfinite(chosen) and chosen > 0):
@@ -199,8 +256,11 @@ def _arm(meas, cfg, answers, operator):
 
     if answers is None:
         if not sys.stdin.isatty():
-            print("gainbench: the arming checklist needs answers: run on a terminal, or give --operator NAME, "
-                  "--eyewear-od WAVELENGTH=OD for each laser wavelength and --confirm-setup", file=sys.stderr)
+            print(
+                "gainbench: the arming checklist needs answers: run on a terminal, or give --operator NAME, "
+                "--eyewear-od WAVELENGTH=OD for each laser wavelength and --confirm-setup",
+                file=sys.stderr,
+            )
             return None, operator
         while not operator:
             try:
@@ -208,8 +268,9 @@ def _arm(meas, cfg, answers, operator):
             except EOFError:
                 return None, operator
         meas.set_operator(operator)
-        answers = run_interactive(meas.checklist_items(), operator=operator, readings=meas.pump_readings(),
-                                  clock=meas.clock.now)
+        answers = run_interactive(
+            meas.checklist_items(), operator=operator, readings=meas.pump_readings(), clock=meas.clock.now
+        )
     return meas.arm(answers, operator), operator
 
 
@@ -252,8 +313,10 @@ class _Status:
         tau = est.values.get("tau_s") if est is not None else None
         tt = "" if tau is None else f" | tau {tau.value * 1e3:.4g} ± {tau.sigma * 1e3:.2g} ms"
         flags = f" | flags {','.join(sorted(est.flags))}" if est is not None and est.flags else ""
-        text = (f"t {snap.t:7.2f} s | {rate / 1e3:7.1f} k samples/s | drops {snap.drops} | "
-                f"guard {snap.guard_state} | {b}{g}{tt}{flags}")
+        text = (
+            f"t {snap.t:7.2f} s | {rate / 1e3:7.1f} k samples/s | drops {snap.drops} | "
+            f"guard {snap.guard_state} | {b}{g}{tt}{flags}"
+        )
         if self.quiet and not final:
             return
         end = "\n" if final or not sys.stdout.isatty() else "\r"

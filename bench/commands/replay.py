@@ -19,11 +19,21 @@ def configure(parser: argparse.ArgumentParser) -> None:
     parser.add_argument("run", help="run id (or a unique prefix of one) or run file path")
     parser.add_argument("--logs", metavar="DIR", default="logs", help="run store directory (default logs)")
     parser.add_argument("--headless", action="store_true", help="no dashboard: print the result")
-    parser.add_argument("--speed", default="max", metavar="X|max",
-                        help="replay speed as a multiple of real time, or max (default max)")
-    parser.add_argument("--set", action="append", default=[], metavar="KEY=VALUE", dest="overrides",
-                        help="re-analyse with a bench-file value changed, e.g. sample.length=5.1mm (repeatable); "
-                             "the result is stored beside the original estimates")
+    parser.add_argument(
+        "--speed",
+        default="max",
+        metavar="X|max",
+        help="replay speed as a multiple of real time, or max (default max)",
+    )
+    parser.add_argument(
+        "--set",
+        action="append",
+        default=[],
+        metavar="KEY=VALUE",
+        dest="overrides",
+        help="re-analyse with a bench-file value changed, e.g. sample.length=5.1mm (repeatable); "
+        "the result is stored beside the original estimates",
+    )
     parser.add_argument("--store", action="store_true", help="store the estimates of a plain replay too")
     parser.add_argument("--json", action="store_true", help="print the result as JSON")
 
@@ -72,13 +82,22 @@ def run(args: argparse.Namespace) -> int:
         }
         print(json.dumps(out, indent=2, default=lambda o: None))
         return 0
-    print(f"replayed {result.run_id}: {result.blocks} blocks, {result.samples} samples in {result.seconds:.2f} s "
-          f"({result.samples_per_second / 1e6:.1f} M samples/s)")
+    print(
+        f"replayed {result.run_id}: {result.blocks} blocks, {result.samples} samples in {result.seconds:.2f} s "
+        f"({result.samples_per_second / 1e6:.1f} M samples/s)"
+    )
     if result.overrides:
-        print("re-analysis with " + ", ".join(f"{k}={v}" for k, v in result.overrides.items())
-              + f"; stored as analysis {result.analysis_id} beside the original")
+        print(
+            "re-analysis with "
+            + ", ".join(f"{k}={v}" for k, v in result.overrides.items())
+            + f"; stored as analysis {result.analysis_id} beside the original"
+        )
     elif result.max_relative_difference is not None:
-        same = "identical" if result.max_relative_difference == 0 else f"max relative difference {result.max_relative_difference:.2g}"
+        same = (
+            "identical"
+            if result.max_relative_difference == 0
+            else f"max relative difference {result.max_relative_difference:.2g}"
+        )
         print(f"compared with the stored estimates: {result.compared} values, {same}")
     if final is not None:
         for key in ("ln_ratio", "gain_db", "gain_coefficient_per_cm", "n2_per_m3", "beta", "tau_s"):

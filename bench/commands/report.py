@@ -20,13 +20,24 @@ def _analysis(text: str):
 def configure(parser: argparse.ArgumentParser) -> None:
     parser.add_argument("run", help="run id (or a unique prefix of one) or run file path")
     parser.add_argument("--logs", metavar="DIR", default="logs", help="run store directory (default logs)")
-    parser.add_argument("--out", metavar="DIR",
-                        help="output directory (default: RUN_ID-report beside the run file)")
-    parser.add_argument("--analysis", metavar="N", type=_analysis, default="live",
-                        help="analysis id, 'live' (default: the estimates computed while recording) or 'all' "
-                             "(every analysis side by side)")
-    parser.add_argument("--buckets", type=int, default=800, metavar="N",
-                        help="time buckets of the decimated signal figure (default 800)")
+    parser.add_argument(
+        "--out", metavar="DIR", help="output directory (default: RUN_ID-report beside the run file)"
+    )
+    parser.add_argument(
+        "--analysis",
+        metavar="N",
+        type=_analysis,
+        default="live",
+        help="analysis id, 'live' (default: the estimates computed while recording) or 'all' "
+        "(every analysis side by side)",
+    )
+    parser.add_argument(
+        "--buckets",
+        type=int,
+        default=800,
+        metavar="N",
+        help="time buckets of the decimated signal figure (default 800)",
+    )
 
 
 def run(args: argparse.Namespace) -> int:

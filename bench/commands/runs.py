@@ -25,7 +25,9 @@ def run(args: argparse.Namespace) -> int:
     if not rows:
         print(f"no runs in {args.logs}")
         return 0
-    print(f"{'run id':<34} {'start (UTC)':<19} {'duration':>9} {'sample':<16} {'mode':<8} {'size':>9}  final beta")
+    print(
+        f"{'run id':<34} {'start (UTC)':<19} {'duration':>9} {'sample':<16} {'mode':<8} {'size':>9}  final beta"
+    )
     for r in rows:
         if r.get("status") == "unreadable":
             print(f"{r['id']:<34} UNREADABLE: {r.get('error')}")
@@ -36,8 +38,10 @@ def run(args: argparse.Namespace) -> int:
         beta = "-" if r.get("beta") is None else f"{r['beta']:.4f} ± {r['beta_sigma']:.4f}"
         state = "" if r.get("status") == "complete" else f"  ({r.get('status')})"
         sim = " [sim]" if r.get("simulated") else ""
-        print(f"{r['id']:<34} {start:<19} {dur:>9} {str(r.get('sample') or '-')[:16]:<16} "
-              f"{str(r.get('mode') or '-'):<8} {size:>9}  {beta}{sim}{state}")
+        print(
+            f"{r['id']:<34} {start:<19} {dur:>9} {str(r.get('sample') or '-')[:16]:<16} "
+            f"{str(r.get('mode') or '-'):<8} {size:>9}  {beta}{sim}{state}"
+        )
     return 0
 
 

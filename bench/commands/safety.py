@@ -38,22 +38,34 @@ POWER_MAX = 1e6
 
 def _within(option: str, value: float, lo: float, hi: float, unit: str, text: str) -> float:
     if not lo <= value <= hi:
-        raise ConfigError(f"{option}: {text!r} is outside {lo:g} {unit} ... {hi:g} {unit}, the range this "
-                          "calculation takes")
+        raise ConfigError(
+            f"{option}: {text!r} is outside {lo:g} {unit} ... {hi:g} {unit}, the range this calculation takes"
+        )
     return value
 
 
 def configure(parser: argparse.ArgumentParser) -> None:
-    parser.add_argument("--wavelength", required=True, metavar="QUANTITY",
-                        help='laser wavelength, above 400 nm up to 2600 nm, e.g. "976nm"')
-    parser.add_argument("--power", required=True, metavar="QUANTITY",
-                        help='CW beam power, e.g. "10W" or "250 mW"')
-    parser.add_argument("--beam-diameter", required=True, metavar="QUANTITY",
-                        help="1/e^2 beam diameter where a person could meet the beam, "
-                        'e.g. "2mm" (use the smallest)')
-    parser.add_argument("--exposure", metavar="QUANTITY", default=None,
-                        help="exposure duration (default 0.25 s for 400-700 nm, the aversion "
-                        "response; 10 s elsewhere)")
+    parser.add_argument(
+        "--wavelength",
+        required=True,
+        metavar="QUANTITY",
+        help='laser wavelength, above 400 nm up to 2600 nm, e.g. "976nm"',
+    )
+    parser.add_argument(
+        "--power", required=True, metavar="QUANTITY", help='CW beam power, e.g. "10W" or "250 mW"'
+    )
+    parser.add_argument(
+        "--beam-diameter",
+        required=True,
+        metavar="QUANTITY",
+        help='1/e^2 beam diameter where a person could meet the beam, e.g. "2mm" (use the smallest)',
+    )
+    parser.add_argument(
+        "--exposure",
+        metavar="QUANTITY",
+        default=None,
+        help="exposure duration (default 0.25 s for 400-700 nm, the aversion response; 10 s elsewhere)",
+    )
     parser.add_argument("--json", action="store_true", help="print the result as JSON")
 
 
@@ -61,9 +73,16 @@ def run(args: argparse.Namespace) -> int:
     wavelength = parse_quantity(args.wavelength, "length", "--wavelength")
     power = parse_quantity(args.power, "power", "--power")
     if power > POWER_MAX:
-        raise ConfigError(f"--power: {args.power!r} is above {POWER_MAX:g} W, more than any CW laser on a bench")
-    beam_diameter = _within("--beam-diameter", parse_quantity(args.beam_diameter, "length", "--beam-diameter"),
-                            *BEAM_DIAMETER_RANGE, "m", args.beam_diameter)
+        raise ConfigError(
+            f"--power: {args.power!r} is above {POWER_MAX:g} W, more than any CW laser on a bench"
+        )
+    beam_diameter = _within(
+        "--beam-diameter",
+        parse_quantity(args.beam_diameter, "length", "--beam-diameter"),
+        *BEAM_DIAMETER_RANGE,
+        "m",
+        args.beam_diameter,
+    )
     exposure = None if args.exposure is None else parse_quantity(args.exposure, "time", "--exposure")
     try:
         result = laser_safety.required_od(wavelength, power, beam_diameter, exposure)
@@ -71,8 +90,10 @@ def run(args: argparse.Namespace) -> int:
         option = _OPTION_OF.get(exc.argument, exc.argument)
         raise ConfigError(f"{option}: {exc.detail}") from None
     except ArithmeticError:  # a combination the bounds above let through and the formulas cannot take
-        raise ConfigError(f"the eyewear OD for --wavelength {args.wavelength} --power {args.power} --beam-diameter "
-                          f"{args.beam_diameter} cannot be computed (the numbers overflow); check them") from None
+        raise ConfigError(
+            f"the eyewear OD for --wavelength {args.wavelength} --power {args.power} --beam-diameter "
+            f"{args.beam_diameter} cannot be computed (the numbers overflow); check them"
+        ) from None
     if args.json:
         print(json.dumps(as_json(result), indent=2))
     else:
@@ -103,15 +124,20 @@ def as_json(r: laser_safety.EyewearRequirement) -> dict[str, object]:
 def as_text(r: laser_safety.EyewearRequirement, *, default_exposure: bool) -> str:
     """A plain report for the terminal."""
     if default_exposure:
-        why = ("default: aversion response to visible light" if r.wavelength < 700e-9
-               else "default: no aversion response outside 400-700 nm")
+        why = (
+            "default: aversion response to visible light"
+            if r.wavelength < 700e-9
+            else "default: no aversion response outside 400-700 nm"
+        )
         exposure = f"{r.exposure_time:g} s ({why})"
     else:
         exposure = f"{r.exposure_time:g} s"
     mpe = f"{r.mpe_irradiance:.4g} W/m^2 ({r.mpe_irradiance * 0.1:.4g} mW/cm^2)"
     if r.mpe_defined_as == laser_safety.RADIANT_EXPOSURE:
-        mpe += (f"; stated as radiant exposure {r.mpe_radiant_exposure:.4g} J/m^2 "
-                f"({r.mpe_radiant_exposure * 0.1:.4g} mJ/cm^2)")
+        mpe += (
+            f"; stated as radiant exposure {r.mpe_radiant_exposure:.4g} J/m^2 "
+            f"({r.mpe_radiant_exposure * 0.1:.4g} mJ/cm^2)"
+        )
     exposure_line = f"{r.exposure_irradiance:.4g} W/m^2 ({r.exposure_irradiance * 0.1:.4g} mW/cm^2)"
     if r.mpe_defined_as == laser_safety.RADIANT_EXPOSURE:
         exposure_line += f"; H = E t = {r.exposure_radiant_exposure:.4g} J/m^2"

@@ -34,8 +34,11 @@ def figures(cfg: BenchConfig) -> dict[str, float]:
     beta_tr = float(physics.transparency_fraction(sig.probe_emission, sig.probe_absorption))
     t0 = float(physics.unpumped_transmission(sig.probe_absorption, s.n_total, s.length))
     g_full = float(physics.full_inversion_gain(sig.probe_emission, s.n_total, s.length))
-    i_sat = float(physics.saturation_intensity(p.wavelength, sig.probe_emission, sig.probe_absorption,
-                                               s.upper_state_lifetime))
+    i_sat = float(
+        physics.saturation_intensity(
+            p.wavelength, sig.probe_emission, sig.probe_absorption, s.upper_state_lifetime
+        )
+    )
     f_sat = float(physics.saturation_fluence(p.wavelength, sig.probe_emission, sig.probe_absorption))
     probe_area = math.pi * (p.beam_diameter / 2) ** 2
     pump_area = math.pi * (q.beam_diameter / 2) ** 2
@@ -43,16 +46,26 @@ def figures(cfg: BenchConfig) -> dict[str, float]:
     # definition gainbench uses (`EstimatorParams.probe_mean`, the weak-probe flag)
     i_probe = p.power / probe_area
     phi_probe = float(physics.photon_flux(i_probe, p.wavelength))
-    held = float(physics.probe_held_fraction(phi_probe, sig.probe_emission, sig.probe_absorption,
-                                             s.upper_state_lifetime))
-    _, i_sat_pump = physics.pump_saturation_parameters(q.wavelength, sig.pump_absorption, sig.pump_emission,
-                                                       s.upper_state_lifetime)
+    held = float(
+        physics.probe_held_fraction(
+            phi_probe, sig.probe_emission, sig.probe_absorption, s.upper_state_lifetime
+        )
+    )
+    _, i_sat_pump = physics.pump_saturation_parameters(
+        q.wavelength, sig.pump_absorption, sig.pump_emission, s.upper_state_lifetime
+    )
     fresnel = float(physics.fresnel_reflectance(s.refractive_index))
-    i_tr = float(physics.transparency_pump_intensity(q.wavelength, sig.pump_absorption, sig.pump_emission,
-                                                     s.upper_state_lifetime, beta_tr))
+    i_tr = float(
+        physics.transparency_pump_intensity(
+            q.wavelength, sig.pump_absorption, sig.pump_emission, s.upper_state_lifetime, beta_tr
+        )
+    )
     i_pump_max = q.max_power / pump_area
-    beta_max_pump = float(physics.steady_state_fraction(i_pump_max, q.wavelength, sig.pump_absorption,
-                                                        sig.pump_emission, s.upper_state_lifetime))
+    beta_max_pump = float(
+        physics.steady_state_fraction(
+            i_pump_max, q.wavelength, sig.pump_absorption, sig.pump_emission, s.upper_state_lifetime
+        )
+    )
     pump_absorbed = 1.0 - math.exp(-sig.pump_absorption * s.n_total * s.length)
     return {
         "probe_wavelength_m": p.wavelength,
@@ -88,35 +101,76 @@ def run(args: argparse.Namespace) -> int:
     cfg = load_bench(args.config)
     f = figures(cfg)
     if args.json:
-        out = {"bench": cfg.name, "simulated": cfg.simulated, "sample": cfg.sample.label,
-               "figures": {k: (None if not math.isfinite(v) else v) for k, v in f.items()}}
+        out = {
+            "bench": cfg.name,
+            "simulated": cfg.simulated,
+            "sample": cfg.sample.label,
+            "figures": {k: (None if not math.isfinite(v) else v) for k, v in f.items()},
+        }
         print(json.dumps(out, indent=2))
         return 0
     ev = 1.602176634e-19
     rows = [
-        ("probe photon energy", f"{f['probe_photon_energy_j']:.4g} J", f"{f['probe_photon_energy_j'] / ev:.4f} eV"),
-        ("pump photon energy", f"{f['pump_photon_energy_j']:.4g} J", f"{f['pump_photon_energy_j'] / ev:.4f} eV"),
+        (
+            "probe photon energy",
+            f"{f['probe_photon_energy_j']:.4g} J",
+            f"{f['probe_photon_energy_j'] / ev:.4f} eV",
+        ),
+        (
+            "pump photon energy",
+            f"{f['pump_photon_energy_j']:.4g} J",
+            f"{f['pump_photon_energy_j'] / ev:.4f} eV",
+        ),
         ("sigma_e + sigma_a at the probe", f"{f['sigma_sum_probe_m2'] * 1e4:.4g} cm^2", ""),
         ("transparency fraction beta_tr", f"{f['transparency_fraction']:.4f}", ""),
-        ("unpumped single-pass transmission", f"{f['unpumped_transmission']:.4f}",
-         f"{physics.gain_db(f['unpumped_transmission']):+.2f} dB"),
-        ("largest gain (full inversion)", f"{f['max_gain_full_inversion']:.4g}x",
-         f"{f['max_gain_full_inversion_db']:+.2f} dB"),
-        ("saturation intensity I_sat (probe)", f"{f['saturation_intensity_w_per_m2'] * 1e-7:.4g} kW/cm^2", ""),
+        (
+            "unpumped single-pass transmission",
+            f"{f['unpumped_transmission']:.4f}",
+            f"{physics.gain_db(f['unpumped_transmission']):+.2f} dB",
+        ),
+        (
+            "largest gain (full inversion)",
+            f"{f['max_gain_full_inversion']:.4g}x",
+            f"{f['max_gain_full_inversion_db']:+.2f} dB",
+        ),
+        (
+            "saturation intensity I_sat (probe)",
+            f"{f['saturation_intensity_w_per_m2'] * 1e-7:.4g} kW/cm^2",
+            "",
+        ),
         ("saturation fluence F_sat (probe)", f"{f['saturation_fluence_j_per_m2'] * 1e-4:.4g} J/cm^2", ""),
-        ("probe I / I_sat (I = P / (pi w^2), half the peak)", f"{f['probe_intensity_over_saturation']:.3g}",
-         "weak" if f['probe_intensity_over_saturation'] <= cfg.probe.weak_fraction else "NOT WEAK"),
-        ("beta the probe alone keeps up (in the baseline)", f"{f['probe_held_fraction']:.3g}",
-         f"± {f['probe_held_fraction_sigma']:.2g} (lifetime)"),
-        ("pump intensity for transparency", _kw(f["pump_intensity_for_transparency_w_per_m2"]),
-         _w(f["pump_power_for_transparency_w"])),
+        (
+            "probe I / I_sat (I = P / (pi w^2), half the peak)",
+            f"{f['probe_intensity_over_saturation']:.3g}",
+            "weak" if f["probe_intensity_over_saturation"] <= cfg.probe.weak_fraction else "NOT WEAK",
+        ),
+        (
+            "beta the probe alone keeps up (in the baseline)",
+            f"{f['probe_held_fraction']:.3g}",
+            f"± {f['probe_held_fraction_sigma']:.2g} (lifetime)",
+        ),
+        (
+            "pump intensity for transparency",
+            _kw(f["pump_intensity_for_transparency_w_per_m2"]),
+            _w(f["pump_power_for_transparency_w"]),
+        ),
         ("pump at max current", _kw(f["pump_max_intensity_w_per_m2"]), _w(f["pump_max_power_w"])),
-        ("steady-state beta at max pump (entrance face)", f"{f['steady_state_fraction_at_max_pump']:.4f}", ""),
+        (
+            "steady-state beta at max pump (entrance face)",
+            f"{f['steady_state_fraction_at_max_pump']:.4f}",
+            "",
+        ),
         ("pump absorbed, unpumped sample", f"{f['unpumped_pump_absorbed_fraction'] * 100:.1f} %", ""),
-        ("pump saturation power (thin sample)", f"{f['pump_saturation_power_w']:.4g} W",
-         f"± {f['pump_saturation_power_w_sigma']:.2g} W (lifetime)"),
-        (f"Fresnel reflectance per uncoated face (n = {cfg.sample.refractive_index:g})",
-         f"{f['fresnel_reflectance_per_face'] * 100:.2f} %", "cancels in ln R; reduces the pump entering"),
+        (
+            "pump saturation power (thin sample)",
+            f"{f['pump_saturation_power_w']:.4g} W",
+            f"± {f['pump_saturation_power_w_sigma']:.2g} W (lifetime)",
+        ),
+        (
+            f"Fresnel reflectance per uncoated face (n = {cfg.sample.refractive_index:g})",
+            f"{f['fresnel_reflectance_per_face'] * 100:.2f} %",
+            "cancels in ln R; reduces the pump entering",
+        ),
     ]
     print(f"{cfg.name}{'  [SIMULATED]' if cfg.simulated else ''}")
     print(f"sample: {cfg.sample.label}")

@@ -35,18 +35,31 @@ def configure(parser: argparse.ArgumentParser) -> None:
         "instruments and their maker are invented for the demo; the simulated pump is switched "
         "off on exit.",
     )
-    serve.add_argument("--config", metavar="FILE", default=None,
-                       help="bench file with a [simulation] table (default: the built-in demo bench)")
-    serve.add_argument("--speed", type=float, default=1.0, metavar="N",
-                       help="simulated seconds per real second (default 1)")
+    serve.add_argument(
+        "--config",
+        metavar="FILE",
+        default=None,
+        help="bench file with a [simulation] table (default: the built-in demo bench)",
+    )
+    serve.add_argument(
+        "--speed", type=float, default=1.0, metavar="N", help="simulated seconds per real second (default 1)"
+    )
     serve.add_argument("--seed", type=int, default=None, help="random seed (default: the bench file's)")
     serve.add_argument("--fault", action="append", default=[], metavar="SPEC", help=FAULT_HELP)
-    serve.add_argument("--set", action="append", default=[], metavar="KEY=VALUE", dest="overrides",
-                       help="change a key of the bench file for this run, e.g. simulation.drift_per_hour=0 "
-                            "(repeatable)")
-    serve.add_argument("--until-stdin-closes", action="store_true",
-                       help="also stop when standard input closes, and ignore Ctrl-C (for a parent process "
-                            "that starts the simulator: it stops with its parent, even a killed one)")
+    serve.add_argument(
+        "--set",
+        action="append",
+        default=[],
+        metavar="KEY=VALUE",
+        dest="overrides",
+        help="change a key of the bench file for this run, e.g. simulation.drift_per_hour=0 (repeatable)",
+    )
+    serve.add_argument(
+        "--until-stdin-closes",
+        action="store_true",
+        help="also stop when standard input closes, and ignore Ctrl-C (for a parent process "
+        "that starts the simulator: it stops with its parent, even a killed one)",
+    )
 
 
 def run(args: argparse.Namespace) -> int:
@@ -58,13 +71,17 @@ def run(args: argparse.Namespace) -> int:
     from simulated_instruments.setup_config import SimulatorSetupError
 
     if not (math.isfinite(args.speed) and args.speed > 0):
-        raise ConfigError(f"--speed {args.speed!r}: expected a positive number of simulated seconds per second")
+        raise ConfigError(
+            f"--speed {args.speed!r}: expected a positive number of simulated seconds per second"
+        )
     cfg = load_bench(args.config, overrides=parse_overrides(args.overrides) or None)
     from bench.run.preflight import check_instruments
 
     check_instruments(cfg)  # the bench file's instrument mistakes, before the simulator trips on them
     if cfg.simulation is None:
-        raise ConfigError(f"{cfg.source}: no [simulation] table; `gainbench sim serve` needs a simulated bench file")
+        raise ConfigError(
+            f"{cfg.source}: no [simulation] table; `gainbench sim serve` needs a simulated bench file"
+        )
     try:
         faults = [parse_fault(spec) for spec in args.fault]
     except SimulatorSetupError as exc:
@@ -86,7 +103,9 @@ def run(args: argparse.Namespace) -> int:
     try:
         bench = SimulatedBench(cfg, speed=args.speed, faults=faults, seed=args.seed)
     except DeviceError as exc:  # a value the simulated instruments cannot take (e.g. their sample rates)
-        raise ConfigError(f"{cfg.source}: the simulated bench cannot take this bench file: {exc.detail or exc}") from None
+        raise ConfigError(
+            f"{cfg.source}: the simulated bench cannot take this bench file: {exc.detail or exc}"
+        ) from None
     except SimulatorSetupError as exc:
         raise ConfigError(str(exc)) from None
     try:
@@ -94,8 +113,9 @@ def run(args: argparse.Namespace) -> int:
             for role, resource in sim.resources.items():
                 print(f"{role} {resource}")
             sys.stdout.flush()
-            print(f"gainbench sim: serving {cfg.name} at speed {args.speed:g}; Ctrl-C to stop",
-                  file=sys.stderr)
+            print(
+                f"gainbench sim: serving {cfg.name} at speed {args.speed:g}; Ctrl-C to stop", file=sys.stderr
+            )
             if args.until_stdin_closes:
                 threading.Thread(target=_stop_at_eof, args=(stop,), daemon=True, name="stdin-watch").start()
             while not stop.wait(0.5):

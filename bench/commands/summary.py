@@ -26,7 +26,9 @@ LABELS = {
 def configure(parser: argparse.ArgumentParser) -> None:
     parser.add_argument("run", help="run id (or a unique prefix of one) or run file path")
     parser.add_argument("--logs", metavar="DIR", default="logs", help="run store directory (default logs)")
-    parser.add_argument("--analysis", type=int, help="analysis id (default: the live one); see --json 'analyses'")
+    parser.add_argument(
+        "--analysis", type=int, help="analysis id (default: the live one); see --json 'analyses'"
+    )
     parser.add_argument("--json", action="store_true", help="print JSON")
 
 
@@ -40,7 +42,9 @@ def run(args: argparse.Namespace) -> int:
     if args.json:
         print(json.dumps(out, indent=2, default=_json_default))
         return 0
-    print(f"run {out['run_id']}  ({out['status']}, mode {out['mode']}{', SIMULATED' if out['simulated'] else ''})")
+    print(
+        f"run {out['run_id']}  ({out['status']}, mode {out['mode']}{', SIMULATED' if out['simulated'] else ''})"
+    )
     print(f"sample: {out['sample']}")
     if not out["estimates"]:
         print("no estimate (the pump never ran long enough, or no baseline was taken)")
@@ -49,8 +53,10 @@ def run(args: argparse.Namespace) -> int:
         q = out["estimates"].get(key)
         if q is None:
             continue
-        line = (f"  {label:<22} {q['value'] * scale:>12.5g} ± {q['sigma'] * scale:<9.3g} {unit:<6}"
-                f" (noise {q['sigma_noise'] * scale:.2g}, systematic {q['sigma_systematic'] * scale:.2g})")
+        line = (
+            f"  {label:<22} {q['value'] * scale:>12.5g} ± {q['sigma'] * scale:<9.3g} {unit:<6}"
+            f" (noise {q['sigma_noise'] * scale:.2g}, systematic {q['sigma_systematic'] * scale:.2g})"
+        )
         if key in truth:
             line += f"   truth {truth[key]['value'] * scale:.5g}"
         print(line)
@@ -64,8 +70,11 @@ def run(args: argparse.Namespace) -> int:
         lat_text = "unknown" if lat is None else f"{lat * 1e3:.1f} ms"
         if lat is not None and speed != 1.0:
             lat_text += f" of run clock ({lat / speed * 1e3:.2f} ms real, speed x{speed:g})"
-        ack = (f"acknowledged by {t['acknowledged_by']} at t = {t['acknowledged_at']:.3f} s"
-               if t.get("acknowledged_at") is not None else "NOT acknowledged")
+        ack = (
+            f"acknowledged by {t['acknowledged_by']} at t = {t['acknowledged_at']:.3f} s"
+            if t.get("acknowledged_at") is not None
+            else "NOT acknowledged"
+        )
         print(f"  TRIP at t = {t['t']:.3f} s: {t['reason']}; latency {lat_text}; {ack}")
     counts = ", ".join(f"{k} {v}" for k, v in out["events"].items())
     print(f"  events: {counts}; drops {out['drops']}")
@@ -81,7 +90,9 @@ def _print_sweep(out: dict) -> None:
     for k, st in enumerate(steps, 1):
         cur = st.get("pump_current_a")
         pw = st.get("pump_power_w")
-        where = (f"{cur:6.3f} A" if cur is not None else "     - A") + (f" {pw:7.3f} W" if pw is not None else "")
+        where = (f"{cur:6.3f} A" if cur is not None else "     - A") + (
+            f" {pw:7.3f} W" if pw is not None else ""
+        )
         b = st.get("beta")
         b_text = f"beta {b['value']:.6f} ± {b['sigma']:.2g} (noise {b['sigma_noise']:.2g})" if b else "beta -"
         q = st["ln_ratio"]
@@ -94,8 +105,10 @@ def _print_sweep(out: dict) -> None:
     for key, label, unit in (("beta_max", "fitted beta_max", ""), ("p_sat_w", "fitted p_sat", "W")):
         q = fit.get(key)
         if q is not None:
-            print(f"  {label:<22} {q['value']:>12.6g} ± {q['sigma']:<9.3g} {unit:<6}"
-                  f" (noise {q['sigma_noise']:.2g}, systematic {q['sigma_systematic']:.2g})")
+            print(
+                f"  {label:<22} {q['value']:>12.6g} ± {q['sigma']:<9.3g} {unit:<6}"
+                f" (noise {q['sigma_noise']:.2g}, systematic {q['sigma_systematic']:.2g})"
+            )
     if fit.get("model"):
         print(f"  saturation model: {fit['model']} sample, reduced chi-square {fit['chi2_reduced']:.3g}")
 

@@ -25,6 +25,12 @@ LENGTH_RANGE = (1e-6, 100.0)
 #: (sigma_e + sigma_a) N_total L at the probe: exp(200) is 7e86, a gain or loss of 870 dB in
 #: one pass that no probe is measured through (double precision overflows at exp(709)).
 OPTICAL_DEPTH_MAX = 200.0
+#: Probe power on the sample, W: a probe is a weak beam (microwatts to milliwatts); 100 W is
+#: five orders of magnitude above that and keeps its photon flux far from overflow.
+PROBE_POWER_MAX = 100.0
+#: Pump diode currents, A: diode bars and stacks run at up to a few hundred amperes (from
+#: memory); 10 kA leaves a factor of ten and keeps the power calibration finite.
+PUMP_CURRENT_MAX = 1e4
 #: Pump slope efficiency, W/A: at most h nu / e per emitter in series (1.3 W/A at 940 nm, a
 #: quantum efficiency of 1); 1000 W/A would be some 750 emitters in series.
 SLOPE_EFFICIENCY_MAX = 1000.0

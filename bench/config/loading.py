@@ -38,8 +38,10 @@ def load_bench(path: str | Path | None = None, overrides: Mapping[str, str] | No
         with p.open("rb") as f:
             data = f.read(BENCH_FILE_MAX_BYTES + 1)  # bounded: a device such as /dev/zero never ends
         if len(data) > BENCH_FILE_MAX_BYTES:
-            raise ConfigError(f"{source}: larger than {BENCH_FILE_MAX_BYTES // 1000} kB; a bench file is a few kB "
-                              "of TOML (is this the right file?)")
+            raise ConfigError(
+                f"{source}: larger than {BENCH_FILE_MAX_BYTES // 1000} kB; a bench file is a few kB "
+                "of TOML (is this the right file?)"
+            )
         text = data.decode("utf-8")
     except FileNotFoundError:
         raise ConfigError(f"{source}: no such bench file") from None

@@ -19,6 +19,8 @@ from bench.config.limits import (
     MOUNT_TEMPERATURE_RANGE,
     N_TOTAL_MAX,
     OPTICAL_DEPTH_MAX,
+    PROBE_POWER_MAX,
+    PUMP_CURRENT_MAX,
     SLOPE_EFFICIENCY_MAX,
     STALE_AFTER_MAX,
     TRANSMISSION_JUMP_MAX,
@@ -41,17 +43,21 @@ from bench.errors import ConfigError
 from bench.physics import photon_energy, spectra
 
 
-def _refuse_simulator_on_a_real_bench(r: BenchFileReader, simulated: bool, instruments: Mapping[str, Any]) -> None:
+def _refuse_simulator_on_a_real_bench(
+    r: BenchFileReader, simulated: bool, instruments: Mapping[str, Any]
+) -> None:
     """A bench that is not simulated must not name the simulator: its data would be stored as
     real (no simulation banner, tag or ground truth)."""
     if simulated:
         return
     for role, inst in instruments.items():
         if inst.resource == "simulated":
-            raise r.fail(f"instruments.{role}.resource",
-                         '"simulated" is the simulated bench, but bench.simulated is false (the run would be '
-                         "stored as real data); set bench.simulated = true with a [simulation] table, or give "
-                         "the instrument's real resource")
+            raise r.fail(
+                f"instruments.{role}.resource",
+                '"simulated" is the simulated bench, but bench.simulated is false (the run would be '
+                "stored as real data); set bench.simulated = true with a [simulation] table, or give "
+                "the instrument's real resource",
+            )
 
 
 def build_bench(r: BenchFileReader, text: str, base_dir: Path) -> BenchConfig:
@@ -67,7 +73,9 @@ def build_bench(r: BenchFileReader, text: str, base_dir: Path) -> BenchConfig:
     instruments = _instruments(r)
     guard = _guard(r, pump)
     run = RunConfig(
-        log_dir=Path(r.string("run.log_dir", "logs")) if r.table("run", required=False) is not None else Path("logs"),
+        log_dir=Path(r.string("run.log_dir", "logs"))
+        if r.table("run", required=False) is not None
+        else Path("logs"),
         flush_interval=r.positive("run.flush_interval", "time", "1 s"),
         operator=r.string("run.operator", ""),
         estimate_every=r.positive("run.estimate_every", "time", "0.25 s"),
@@ -113,7 +121,7 @@ def _sample(r: BenchFileReader, base_dir: Path) -> SampleConfig:
         )
     if spectrum is None and not has_numbers:
         raise ConfigError(
-            f"{r.source}: [sample] needs either [sample.cross_sections] or spectrum = \"FILE.csv\""
+            f'{r.source}: [sample] needs either [sample.cross_sections] or spectrum = "FILE.csv"'
         )
     if has_numbers:
         sigma = CrossSections(
@@ -158,8 +166,11 @@ def _cross_section(r: BenchFileReader, name: str, default: Any = ...) -> float:
     key = f"sample.cross_sections.{name}"
     value = r.positive(key, "area", default, allow_zero=default is not ...)
     if value > CROSS_SECTION_MAX:
-        raise r.fail(key, f'"{r.get(key, default)}" is above {CROSS_SECTION_MAX * 1e4:g} cm^2, larger than any laser '
-                          "transition's cross-section")
+        raise r.fail(
+            key,
+            f'"{r.get(key, default)}" is above {CROSS_SECTION_MAX * 1e4:g} cm^2, larger than any laser '
+            "transition's cross-section",
+        )
     return value
 
 
@@ -174,7 +185,9 @@ def _check_optical_depth(r: BenchFileReader, sample: SampleConfig) -> None:
         )
 
 
-def _sample_from_spectrum(r: BenchFileReader, sample: SampleConfig, probe: ProbeConfig, pump: PumpConfig) -> SampleConfig:
+def _sample_from_spectrum(
+    r: BenchFileReader, sample: SampleConfig, probe: ProbeConfig, pump: PumpConfig
+) -> SampleConfig:
     epsilon = photon_energy(sample.zero_line) if sample.zero_line is not None else None
     path = sample.spectrum_file
     assert path is not None
@@ -191,7 +204,9 @@ def _sample_from_spectrum(r: BenchFileReader, sample: SampleConfig, probe: Probe
         pump_emission=float(se_pump),
     )
     if sigma.probe_emission <= 0 or sigma.pump_absorption <= 0:
-        raise r.fail("sample.spectrum", "gives no emission at the probe or no absorption at the pump wavelength")
+        raise r.fail(
+            "sample.spectrum", "gives no emission at the probe or no absorption at the pump wavelength"
+        )
     return replace(sample, sigma=sigma)
 
 
@@ -205,7 +220,7 @@ def _probe(r: BenchFileReader) -> ProbeConfig:
         raise ConfigError(f"{r.source}: probe.kind is pulsed, so probe.pulse_energy is needed")
     return ProbeConfig(
         wavelength=r.wavelength("probe.wavelength"),
-        power=r.positive("probe.power", "power"),
+        power=r.bounded("probe.power", "power", 1e-300, PROBE_POWER_MAX, "W"),
         beam_diameter=r.bounded("probe.beam_diameter", "length", *BEAM_DIAMETER_RANGE, "m"),
         kind=kind,
         pulse_energy=pulse_energy,
@@ -217,8 +232,8 @@ def _pump(r: BenchFileReader) -> PumpConfig:
     r.table("pump")
     pump = PumpConfig(
         wavelength=r.wavelength("pump.wavelength"),
-        max_current=r.positive("pump.max_current", "current"),
-        diode_current_rating=r.positive("pump.diode_current_rating", "current"),
+        max_current=r.bounded("pump.max_current", "current", 1e-300, PUMP_CURRENT_MAX, "A"),
+        diode_current_rating=r.bounded("pump.diode_current_rating", "current", 1e-300, PUMP_CURRENT_MAX, "A"),
         threshold_current=r.positive("pump.threshold_current", "current", "0 A", allow_zero=True),
         slope_efficiency=r.bounded("pump.slope_efficiency", "slope", 0.0, SLOPE_EFFICIENCY_MAX, "W/A"),
         beam_diameter=r.bounded("pump.beam_diameter", "length", *BEAM_DIAMETER_RANGE, "m"),
@@ -244,10 +259,12 @@ def _instruments(r: BenchFileReader) -> dict[str, InstrumentConfig]:
         r.table(base)
         options = r.get(f"{base}.options", {})
         if not isinstance(options, dict):
-            raise r.fail(f"{base}.options", "expected a table, e.g. options = { sample_rate = \"100 kHz\" }")
+            raise r.fail(f"{base}.options", 'expected a table, e.g. options = { sample_rate = "100 kHz" }')
         resource = r.string(f"{base}.resource")
         if not resource.strip():
-            raise r.fail(f"{base}.resource", "is empty; expected a VISA resource, serial port, URL or \"simulated\"")
+            raise r.fail(
+                f"{base}.resource", 'is empty; expected a VISA resource, serial port, URL or "simulated"'
+            )
         out[role] = InstrumentConfig(
             role=role,
             driver=r.string(f"{base}.driver"),
@@ -267,15 +284,22 @@ def _guard(r: BenchFileReader, pump: PumpConfig) -> GuardConfig:
     jump = r.get("guard.transmission_jump", None)
     guard = GuardConfig(
         max_current=r.positive("guard.max_current", "current"),
-        current_tolerance=r.bounded("guard.current_tolerance", "current", 0.0,
-                                    CURRENT_TOLERANCE_MAX_FRACTION * pump.diode_current_rating, "A", "0.2 A"),
+        current_tolerance=r.bounded(
+            "guard.current_tolerance",
+            "current",
+            0.0,
+            CURRENT_TOLERANCE_MAX_FRACTION * pump.diode_current_rating,
+            "A",
+            "0.2 A",
+        ),
         mount_temperature_min=_mount_temperature(r, "guard.mount_temperature_min"),
         mount_temperature_max=_mount_temperature(r, "guard.mount_temperature_max"),
         full_scale_fraction=r.number("guard.full_scale_fraction", 0.95, lo=0.1, hi=1.0),
         stale_after=r.bounded("guard.stale_after", "time", 0.0, STALE_AFTER_MAX, "s", "0.5 s"),
         comm_failures=r.integer("guard.comm_failures", 3, lo=1, hi=COMM_FAILURES_MAX),
-        transmission_jump=None if jump is None else r.number("guard.transmission_jump", lo=0.01,
-                                                             hi=TRANSMISSION_JUMP_MAX),
+        transmission_jump=None
+        if jump is None
+        else r.number("guard.transmission_jump", lo=0.01, hi=TRANSMISSION_JUMP_MAX),
     )
     if guard.mount_temperature_min >= guard.mount_temperature_max:
         raise r.fail("guard.mount_temperature_min", "is not below guard.mount_temperature_max")
@@ -291,8 +315,11 @@ def _mount_temperature(r: BenchFileReader, key: str) -> float:
     lo, hi = MOUNT_TEMPERATURE_RANGE
     value = r.positive(key, "temperature")
     if not lo <= value <= hi:
-        raise r.fail(key, f'"{r.get(key)}" is outside {lo - 273.15:g} degC ... {hi - 273.15:g} degC, the range '
-                          "laser-diode mounts are run in")
+        raise r.fail(
+            key,
+            f'"{r.get(key)}" is outside {lo - 273.15:g} degC ... {hi - 273.15:g} degC, the range '
+            "laser-diode mounts are run in",
+        )
     return value
 
 

@@ -89,7 +89,11 @@ class BenchFileReader:
             raise self.fail(key, "expected a table")
         return value
 
-    def get(self, key: str, default: Any = ..., ) -> Any:
+    def get(
+        self,
+        key: str,
+        default: Any = ...,
+    ) -> Any:
         self.used.add(key)
         found, value = self._lookup(key)
         if not found:
@@ -179,7 +183,9 @@ class BenchFileReader:
                         walk(v, dotted + ".")
                     continue
                 known = sorted(
-                    u[len(prefix):].split(".")[0] for u in self.used | self.known_tables if u.startswith(prefix)
+                    u[len(prefix) :].split(".")[0]
+                    for u in self.used | self.known_tables
+                    if u.startswith(prefix)
                 )
                 hint = f"; expected one of: {', '.join(dict.fromkeys(known))}" if known else ""
                 raise ConfigError(f"{self.where(dotted)}: unknown key{hint}")

@@ -56,9 +56,17 @@ class DashboardBase(App):
     TITLE = "gainbench"
     ENABLE_COMMAND_PALETTE = False
 
-    def __init__(self, *, bench_name: str, simulated: bool, power_at: Callable[[float], float] | None = None,
-                 current_limit: float | None = None, replay_of: str = "", run_clock: Callable[[], float] | None = None,
-                 refresh_hz: float = REFRESH_HZ) -> None:
+    def __init__(
+        self,
+        *,
+        bench_name: str,
+        simulated: bool,
+        power_at: Callable[[float], float] | None = None,
+        current_limit: float | None = None,
+        replay_of: str = "",
+        run_clock: Callable[[], float] | None = None,
+        refresh_hz: float = REFRESH_HZ,
+    ) -> None:
         super().__init__()
         if not (math.isfinite(refresh_hz) and 1.0 <= refresh_hz <= 60.0):
             raise ValueError(f"refresh_hz: {refresh_hz!r} is not between 1 and 60")
@@ -116,8 +124,11 @@ class DashboardBase(App):
         """
         main = self.screen_main
         self.panels = {
-            "guard": main.query_one(GuardPanel), "pump": main.query_one(PumpPanel), "run": main.query_one(RunPanel),
-            "figures": main.query_one(FiguresPanel), "events": main.query_one(EventsPanel),
+            "guard": main.query_one(GuardPanel),
+            "pump": main.query_one(PumpPanel),
+            "run": main.query_one(RunPanel),
+            "figures": main.query_one(FiguresPanel),
+            "events": main.query_one(EventsPanel),
             "action": main.query_one(ActionLine),
         }
         self.plots = list(main.query(_SnapshotPlot).results(_SnapshotPlot))
@@ -161,8 +172,12 @@ class DashboardBase(App):
         if snap is None:
             return
         if snap.trace is None and self.last_snapshot is not None:
-            snap = replace(snap, trace=self.last_snapshot.trace, pump_trace=self.last_snapshot.pump_trace,
-                           estimates=self.last_snapshot.estimates)  # for a key that redraws the plots
+            snap = replace(
+                snap,
+                trace=self.last_snapshot.trace,
+                pump_trace=self.last_snapshot.pump_trace,
+                estimates=self.last_snapshot.estimates,
+            )  # for a key that redraws the plots
         self.last_snapshot = snap
         self.ticks += 1
         self.show_snapshot(snap)  # the text first: it is painted without waiting for a plot
@@ -188,8 +203,11 @@ class DashboardBase(App):
         p["pump"].show(snap.pump)
         lv = snap.levels
         if lv:
-            p["run"].levels = (lv.get("probe", math.nan), lv.get("reference", math.nan),
-                               lv.get("transmission", math.nan))
+            p["run"].levels = (
+                lv.get("probe", math.nan),
+                lv.get("reference", math.nan),
+                lv.get("transmission", math.nan),
+            )
 
     def show_slow(self, snap: Snapshot) -> None:
         """Every `SLOW_EVERY` snapshots: the run, the figures, the events (subclasses add theirs)."""

@@ -38,12 +38,20 @@ from bench.safety.checklist import (
 )
 from bench.safety.checklist_answers import parse_od
 
-REMINDER = ("Software layer only: the hardware interlock, your laser safety officer (LSO), "
-            "ANSI Z136.1 / IEC 60825-1 and local rules come first.")
+REMINDER = (
+    "Software layer only: the hardware interlock, your laser safety officer (LSO), "
+    "ANSI Z136.1 / IEC 60825-1 and local rules come first."
+)
 
 
-def verdict_of(items: Sequence[Item], index: int, answers: Mapping[str, Answer],
-               readings: Mapping[str, object], operator: str, clock: Callable[[], float]) -> tuple[bool, str]:
+def verdict_of(
+    items: Sequence[Item],
+    index: int,
+    answers: Mapping[str, Answer],
+    readings: Mapping[str, object],
+    operator: str,
+    clock: Callable[[], float],
+) -> tuple[bool, str]:
     """(ok, why) of item ``index`` given the answers so far (`bench.safety.checklist.evaluate`'s wording)."""
     result = evaluate(items, answers, readings, operator or "unnamed", clock=clock)
     record = result.records[index]
@@ -82,9 +90,14 @@ class ChecklistScreen(ModalScreen[ChecklistResult | None]):
         Binding("enter", "next", "continue", show=False),
     ]
 
-    def __init__(self, items: Sequence[Item], read_pump: Callable[[], Mapping[str, object]],
-                 arm: Callable[[Mapping[str, Answer], str], ChecklistResult], clock: Callable[[], float],
-                 operator: str = "") -> None:
+    def __init__(
+        self,
+        items: Sequence[Item],
+        read_pump: Callable[[], Mapping[str, object]],
+        arm: Callable[[Mapping[str, Answer], str], ChecklistResult],
+        clock: Callable[[], float],
+        operator: str = "",
+    ) -> None:
         super().__init__()
         if not items:
             raise ValueError("items: the checklist is empty")
@@ -148,13 +161,16 @@ class ChecklistScreen(ModalScreen[ChecklistResult | None]):
         self.result = result
         self.query_one("#cl-step", Static).update(Text("Verdict of the arming checklist"))
         summary = Text()
-        for record in (result.records[:-1] if result is not None else ()):  # the last is the verdict
+        for record in result.records[:-1] if result is not None else ():  # the last is the verdict
             summary.append(record.text + "\n", style="" if record.data.get("ok", True) else "bold reverse")
         self._set_text(summary)
         feedback = self.query_one("#cl-feedback", Static)
         if result is not None and result.passed:
-            self._feedback("✓ Arming checklist passed: the guard is ARMED (pump output still off). "
-                           "Emission needs its own key.", "passed")
+            self._feedback(
+                "✓ Arming checklist passed: the guard is ARMED (pump output still off). "
+                "Emission needs its own key.",
+                "passed",
+            )
         else:
             refusals = result.refusals if result is not None else []
             why = error or (refusals[0] if refusals else "no verdict")
@@ -184,7 +200,9 @@ class ChecklistScreen(ModalScreen[ChecklistResult | None]):
             if self.readings is None:
                 text.append("reading the pump driver…")
             else:
-                ok, why = verdict_of(self.items, self.step, self.answers, self.readings, self.operator, self._clock)
+                ok, why = verdict_of(
+                    self.items, self.step, self.answers, self.readings, self.operator, self._clock
+                )
                 text.append("ok: " if ok else "REFUSED: ", style="bold" if ok else "bold reverse")
                 text.append(why)
             self._set_text(text)
@@ -213,8 +231,11 @@ class ChecklistScreen(ModalScreen[ChecklistResult | None]):
         answer.set_class(kind != "input", "hidden")
         answer.disabled = kind != "input"
         buttons.set_class(kind == "input", "hidden")
-        for button_id, shown in (("#cl-yes", kind == "confirm"), ("#cl-no", kind == "confirm"),
-                                 ("#cl-continue", kind in ("check", "done"))):
+        for button_id, shown in (
+            ("#cl-yes", kind == "confirm"),
+            ("#cl-no", kind == "confirm"),
+            ("#cl-continue", kind in ("check", "done")),
+        ):
             button = self.query_one(button_id, Button)
             button.display = shown
             button.disabled = not shown
@@ -248,7 +269,9 @@ class ChecklistScreen(ModalScreen[ChecklistResult | None]):
 
     def _judge_current(self) -> bool:
         """True when the current item passes; otherwise says why and finishes (refused)."""
-        ok, why = verdict_of(self.items, self.step, self.answers, self.readings or {}, self.operator, self._clock)
+        ok, why = verdict_of(
+            self.items, self.step, self.answers, self.readings or {}, self.operator, self._clock
+        )
         if not ok:
             self._feedback(f"Arming will be refused: {why}", "refused")
             self._finish()
@@ -283,8 +306,10 @@ class ChecklistScreen(ModalScreen[ChecklistResult | None]):
         try:
             od = parse_od(value)
         except ValueError as exc:
-            self._feedback(f"Not accepted: {exc}. Enter the OD printed on your eyewear for this wavelength, "
-                           "a number such as 5.")
+            self._feedback(
+                f"Not accepted: {exc}. Enter the OD printed on your eyewear for this wavelength, "
+                "a number such as 5."
+            )
             return
         self.answers[item.id] = Answer(od, t=float(self._clock()), who=self.operator, via="dashboard")
         if self._judge_current():

@@ -53,7 +53,9 @@ class EventsPanel(TextPanel):
         self._paint()
 
     def show(self, events: Sequence[Event]) -> None:
-        wanted = tuple(e for e in events if e.kind != "checklist" or "REFUSED" in e.text or "arming" in e.text)
+        wanted = tuple(
+            e for e in events if e.kind != "checklist" or "REFUSED" in e.text or "arming" in e.text
+        )
         if wanted != self.events:
             self.events = wanted
 

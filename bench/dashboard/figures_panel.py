@@ -89,10 +89,18 @@ class FiguresPanel(Vertical):
         beta, gain = values.get("beta"), values.get("gain_db")
         self.query_one("#beta", Digits).update(fmt.fixed(beta.value, 4) if beta else "")
         self.query_one("#gain", Digits).update(fmt.fixed(gain.value, 3, sign=True) if gain else "")
-        self._static("#beta-label", Text(f"β  σ {fmt.sigma(beta)}  (excited fraction)" if beta
-                                         else "β: no estimate yet"))
-        self._static("#gain-label", Text(f"gain dB  σ {fmt.sigma(gain, unit='dB')}  (single pass)" if gain
-                                         else "gain dB: no estimate yet"))
+        self._static(
+            "#beta-label",
+            Text(f"β  σ {fmt.sigma(beta)}  (excited fraction)" if beta else "β: no estimate yet"),
+        )
+        self._static(
+            "#gain-label",
+            Text(
+                f"gain dB  σ {fmt.sigma(gain, unit='dB')}  (single pass)"
+                if gain
+                else "gain dB: no estimate yet"
+            ),
+        )
         lines = Text(no_wrap=True, overflow="ellipsis")
         first = MODE_FIRST.get(e.mode if e is not None else "", ())
         ordered = [row for key in first for row in SMALL_FIGURES if row[0] == key]
@@ -109,7 +117,9 @@ class FiguresPanel(Vertical):
         flags = e.flags if e is not None else frozenset()
         self.set_class(bool(flags), "flagged")
         self.border_title = "estimate" if e is None else f"estimate ({e.mode}, {e.scope})"
-        self._static("#flags", Text("flags: " + (fmt.flag_words(flags) if e is not None else "no estimate yet")))
+        self._static(
+            "#flags", Text("flags: " + (fmt.flag_words(flags) if e is not None else "no estimate yet"))
+        )
         self._paint_prerequisites()
 
     def _paint_prerequisites(self) -> None:
@@ -119,5 +129,7 @@ class FiguresPanel(Vertical):
         text.append("dark ")
         text.append("✓ yes" if self.has_dark else "✗ no", style="" if self.has_dark else "bold reverse")
         text.append("  baseline ")
-        text.append("✓ yes" if self.has_baseline else "✗ no", style="" if self.has_baseline else "bold reverse")
+        text.append(
+            "✓ yes" if self.has_baseline else "✗ no", style="" if self.has_baseline else "bold reverse"
+        )
         self._static("#prerequisites", text)

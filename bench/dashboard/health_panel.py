@@ -55,8 +55,17 @@ class HealthPanel(TextPanel):
     def show(self, stats: Mapping[str, object], rates: Mapping[str, float | None]) -> None:
         """Take driver stats (role -> InstrumentStats) and read rates (role -> reads/s)."""
         self.rows = tuple(
-            InstrumentHealth(role, s.reads, rates.get(role), s.last_latency_s, s.mean_latency_s,
-                             s.errors, s.reconnects, s.retries, s.last_error)
+            InstrumentHealth(
+                role,
+                s.reads,
+                rates.get(role),
+                s.last_latency_s,
+                s.mean_latency_s,
+                s.errors,
+                s.reconnects,
+                s.retries,
+                s.last_error,
+            )
             for role, s in stats.items()
         )
 
@@ -88,8 +97,10 @@ class HealthPanel(TextPanel):
         text.append(f"\nsamples {rate} · retries {retries}")
         if self.latency is not None:
             s = self.latency
-            text.append(f"\nscreen {s.repaint_hz:.0f}/s, reading→screen {s.median * 1e3:.0f} ms "
-                        f"(p95 {s.p95 * 1e3:.0f})")
+            text.append(
+                f"\nscreen {s.repaint_hz:.0f}/s, reading→screen {s.median * 1e3:.0f} ms "
+                f"(p95 {s.p95 * 1e3:.0f})"
+            )
         last = next((r for r in self.rows if r.last_error), None)
         if last is not None:
             text.append(f"\nlast error, {last.role}: {last.last_error}", style="dim")

@@ -40,8 +40,12 @@ log = logging.getLogger(__name__)
 KEYS = (
     ("question_mark,f1", "help", "help", "this list of keys"),
     ("d", "dark", "dark", "capture the dark: the probe shutter closes for a moment, then opens"),
-    ("b", "baseline", "baseline", "capture the baseline: pump off, wait for the medium to relax, "
-                                  "then average probe/reference"),
+    (
+        "b",
+        "baseline",
+        "baseline",
+        "capture the baseline: pump off, wait for the medium to relax, then average probe/reference",
+    ),
     ("m", "mode", "mode", "choose the mode (watch, chopped, decay, sweep) and its timing"),
     ("a", "arm", "arm", "the arming checklist, one question at a time (arms the guard if it passes)"),
     ("e", "emit", "EMIT", "switch the pump output ON (armed only; in sweep mode runs the current steps)"),
@@ -61,8 +65,10 @@ PRIORITY_KEYS = ("ctrl+x",)
 
 
 def _bindings() -> list[Binding]:
-    return [Binding(keys, action, word or action, show=bool(word), priority=keys in PRIORITY_KEYS)
-            for keys, action, word, _ in KEYS]
+    return [
+        Binding(keys, action, word or action, show=bool(word), priority=keys in PRIORITY_KEYS)
+        for keys, action, word, _ in KEYS
+    ]
 
 
 def help_rows(keys=KEYS) -> list[tuple[str, str]]:
@@ -94,13 +100,25 @@ class LiveDashboard(BenchActions, DashboardBase):
 
     BINDINGS = _bindings()
 
-    def __init__(self, measurement: Measurement, *, operator: str = "", current_step: float = 0.25,
-                 close_on_quit: bool = True, refresh_hz: float | None = None) -> None:
+    def __init__(
+        self,
+        measurement: Measurement,
+        *,
+        operator: str = "",
+        current_step: float = 0.25,
+        close_on_quit: bool = True,
+        refresh_hz: float | None = None,
+    ) -> None:
         cfg = measurement.cfg
         kwargs = {} if refresh_hz is None else {"refresh_hz": refresh_hz}
-        super().__init__(bench_name=cfg.name, simulated=cfg.simulated, power_at=cfg.pump.power_at,
-                         current_limit=min(cfg.guard.max_current, cfg.pump.max_current),
-                         run_clock=lambda: measurement.clock.now(), **kwargs)  # open() sets a new clock
+        super().__init__(
+            bench_name=cfg.name,
+            simulated=cfg.simulated,
+            power_at=cfg.pump.power_at,
+            current_limit=min(cfg.guard.max_current, cfg.pump.max_current),
+            run_clock=lambda: measurement.clock.now(),
+            **kwargs,
+        )  # open() sets a new clock
         if not current_step > 0:
             raise ValueError(f"current_step: {current_step!r} is not a positive current")
         self.meas = measurement
@@ -155,8 +173,10 @@ class LiveDashboard(BenchActions, DashboardBase):
     def _opened(self) -> None:
         self.ready = True
         self.poller = StatsPoller(self.meas.instruments).start()
-        self.say(f"pump output off. Keys: d dark, b baseline, a arm, e emit, s pump off, ? help "
-                 f"(current preset {self.setpoint:.2f} A)")
+        self.say(
+            f"pump output off. Keys: d dark, b baseline, a arm, e emit, s pump off, ? help "
+            f"(current preset {self.setpoint:.2f} A)"
+        )
         self._preset_current(self.setpoint)
         if self.choice.modulation_hz is not None:  # started in chopped or decay mode
             self._mode_chosen(self.choice)
@@ -218,7 +238,9 @@ class LiveDashboard(BenchActions, DashboardBase):
     # -- trips ----------------------------------------------------------------------------
     def on_guard_panel_state_changed(self, message: GuardPanel.StateChanged) -> None:
         if message.new == "tripped":
-            self.say(f"GUARD TRIPPED: {self.meas.guarded_pump.trip_reason or 'see the guard panel'}", "refused")
+            self.say(
+                f"GUARD TRIPPED: {self.meas.guarded_pump.trip_reason or 'see the guard panel'}", "refused"
+            )
             self.open_trip_screen()
         elif message.old == "tripped" and message.new == "safe":
             self.say("trip acknowledged: guard back to SAFE; arm again through the checklist (a)", "done")
@@ -227,7 +249,9 @@ class LiveDashboard(BenchActions, DashboardBase):
         if self.trip_screen is not None:
             return
         reason = self.meas.guarded_pump.trip_reason or "(no reason recorded)"
-        self.trip_screen = TripScreen(reason, acknowledge=lambda: self.meas.acknowledge(self.who), who=self.who)
+        self.trip_screen = TripScreen(
+            reason, acknowledge=lambda: self.meas.acknowledge(self.who), who=self.who
+        )
         self.push_screen(self.trip_screen, callback=self._trip_closed)
 
     def _trip_closed(self, acknowledged: bool | None) -> None:

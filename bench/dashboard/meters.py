@@ -67,8 +67,16 @@ class ScreenLatency:
         fresh = np.asarray(self._fresh)
         span = (self._painted[-1] - self._painted[0]) / speed
         hz = (len(self._painted) - 1) / span if span > 0 else math.nan
-        return LatencyFigures(len(lat), float(lat.mean()), float(np.median(lat)), float(np.percentile(lat, 95)),
-                              float(lat.max()), hz, float(np.median(fresh)), float(np.percentile(fresh, 95)))
+        return LatencyFigures(
+            len(lat),
+            float(lat.mean()),
+            float(np.median(lat)),
+            float(np.percentile(lat, 95)),
+            float(lat.max()),
+            hz,
+            float(np.median(fresh)),
+            float(np.percentile(fresh, 95)),
+        )
 
 
 class RateMeter:

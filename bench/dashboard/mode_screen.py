@@ -71,8 +71,9 @@ class ModeChoice:
         return None if period is None else 1.0 / period
 
     def describe(self) -> str:
-        return mode_of(self.mode).describe_choice(self.chop_period, self.decay_period, self.sweep_steps,
-                                                  self.sweep_dwell)
+        return mode_of(self.mode).describe_choice(
+            self.chop_period, self.decay_period, self.sweep_steps, self.sweep_dwell
+        )
 
 
 class ModeButton(RadioButton):
@@ -140,6 +141,7 @@ class ModeScreen(ModalScreen[ModeChoice | None]):
 
     def read_choice(self) -> ModeChoice:
         """The choice on screen; ValueError naming the field when a value is unusable."""
+
         def number(key: str, label: str) -> float:
             text = self.query_one(f"#in-{key}", Input).value.strip()
             try:
@@ -153,8 +155,14 @@ class ModeScreen(ModalScreen[ModeChoice | None]):
         dwell = number("dwell", "seconds per step")
         if steps != int(steps):
             raise ValueError(f"sweep steps: {steps:g} is not a whole number")
-        return replace(self.current, mode=self.chosen_mode(), chop_period=chop, decay_period=decay,
-                       sweep_steps=int(steps), sweep_dwell=dwell)
+        return replace(
+            self.current,
+            mode=self.chosen_mode(),
+            chop_period=chop,
+            decay_period=decay,
+            sweep_steps=int(steps),
+            sweep_dwell=dwell,
+        )
 
     def _apply(self) -> None:
         try:

@@ -170,7 +170,11 @@ class ResponsePlot(_SnapshotPlot):
 
     def data_key(self, snapshot: Snapshot) -> object:
         e = snapshot.estimate
-        if snapshot.mode in ("decay", "sweep") and e is not None and ("curve" in e.extra or "points" in e.extra):
+        if (
+            snapshot.mode in ("decay", "sweep")
+            and e is not None
+            and ("curve" in e.extra or "points" in e.extra)
+        ):
             return (snapshot.mode, e.t)
         return (snapshot.t, snapshot.mode)
 
@@ -223,8 +227,13 @@ class ResponsePlot(_SnapshotPlot):
         plt = self.plt
         curve = (fits.get("saturation") or {}).get("curve")
         if isinstance(curve, dict) and curve.get("pump_power_w"):  # under the points
-            plt.plot(curve["pump_power_w"], curve["beta"], color=PUMP_COLOUR, marker="braille",
-                     label="saturation fit")
+            plt.plot(
+                curve["pump_power_w"],
+                curve["beta"],
+                color=PUMP_COLOUR,
+                marker="braille",
+                label="saturation fit",
+            )
         if pts:
             x = np.array([p["pump_power_w"] for p in pts], dtype=float)
             y = np.array([p["beta"] for p in pts], dtype=float)

@@ -68,6 +68,7 @@ class BenchActions:
         def dark() -> str:
             self.meas.capture_dark(who=self.who)
             return "dark captured (probe shutter open again)"
+
         self._run_procedure("dark", dark)
 
     def action_baseline(self) -> None:
@@ -79,6 +80,7 @@ class BenchActions:
         def baseline() -> str:
             self.meas.capture_baseline(who=self.who)
             return "baseline captured (pump off)"
+
         self._run_procedure("baseline", baseline)
 
     def action_mode(self) -> None:
@@ -111,12 +113,16 @@ class BenchActions:
         def change() -> str:
             cfg = self.meas.cfg
             mode = mode_of(choice.mode)
-            settings = dict(mode.run_settings) if mode.steps_pump else {
-                "pump_current": self.setpoint, "pump_power": cfg.pump.power_at(self.setpoint)}
+            settings = (
+                dict(mode.run_settings)
+                if mode.steps_pump
+                else {"pump_current": self.setpoint, "pump_power": cfg.pump.power_at(self.setpoint)}
+            )
             self.meas.set_modulation(choice.modulation_hz, who=self.who)
             self.meas.set_mode(choice.mode, settings, who=self.who)
             self.choice = choice
             return f"mode: {choice.describe()}"
+
         self._run_procedure("mode", change)
 
     # -- arming and emission --------------------------------------------------------------
@@ -131,8 +137,13 @@ class BenchActions:
             self.say("the guard is TRIPPED: acknowledge the trip (k) before arming", "refused")
             self.open_trip_screen()
             return
-        screen = ChecklistScreen(self.meas.checklist_items(), read_pump=self.meas.pump_readings,
-                                 arm=self.meas.arm, clock=self.meas.clock.now, operator=self.operator)
+        screen = ChecklistScreen(
+            self.meas.checklist_items(),
+            read_pump=self.meas.pump_readings,
+            arm=self.meas.arm,
+            clock=self.meas.clock.now,
+            operator=self.operator,
+        )
         self.push_screen(screen, callback=self._checklist_closed)
 
     def _checklist_closed(self, result: ChecklistResult | None) -> None:
@@ -170,7 +181,9 @@ class BenchActions:
         except (GainbenchError, ValueError) as exc:
             self.say_from_thread(str(exc), "refused")
         else:
-            self.say_from_thread(f"PUMP ON at {current:.2f} A ({self.meas.cfg.pump.power_at(current):.2f} W)", "done")
+            self.say_from_thread(
+                f"PUMP ON at {current:.2f} A ({self.meas.cfg.pump.power_at(current):.2f} W)", "done"
+            )
 
     @work(thread=True, group="procedure")
     def _sweep_worker(self, choice: ModeChoice) -> None:
@@ -203,6 +216,7 @@ class BenchActions:
             except RuntimeError:
                 pass
             return f"sweep: {done} of {len(currents)} steps done; pump off, current left at {last:.2f} A"
+
         self._run_procedure("sweep", sweep)
 
     def action_stop(self) -> None:

@@ -31,7 +31,12 @@ KEYS = (
     ("shift+right", "seek(30)", "", "seek 30 s forward"),
     ("shift+left", "seek(-30)", "", "seek 30 s back"),
     ("home", "start", "", "back to the start"),
-    ("n", "next_event", "next event", "jump to the next event (trip, guard change, fault, note, procedure, setting)"),
+    (
+        "n",
+        "next_event",
+        "next event",
+        "jump to the next event (trip, guard change, fault, note, procedure, setting)",
+    ),
     ("p", "previous_event", "prev", "jump to the previous event"),
     ("v", "swap_plots", "plots", "small terminals: show the other two plots"),
     ("q,ctrl+q", "quit", "quit", "leave the replay (the run file is not changed)"),
@@ -39,8 +44,14 @@ KEYS = (
 
 
 def help_rows() -> list[tuple[str, str]]:
-    names = {"question_mark": "?", "full_stop": ".", "greater_than_sign": ">", "comma": ",",
-             "less_than_sign": "<", "space": "space"}
+    names = {
+        "question_mark": "?",
+        "full_stop": ".",
+        "greater_than_sign": ">",
+        "comma": ",",
+        "less_than_sign": "<",
+        "space": "space",
+    }
     return [(" ".join(names.get(k, k) for k in keys.split(",")), does) for keys, _, _, does in KEYS]
 
 
@@ -53,9 +64,14 @@ class ReplayDashboard(DashboardBase):
         sim = bool(feed.meta.get("simulated"))
         kwargs = {} if refresh_hz is None else {"refresh_hz": refresh_hz}
         cfg = feed.cfg
-        super().__init__(bench_name=cfg.name, simulated=sim, power_at=cfg.pump.power_at,
-                         current_limit=min(cfg.guard.max_current, cfg.pump.max_current),
-                         replay_of=feed.run_id, **kwargs)
+        super().__init__(
+            bench_name=cfg.name,
+            simulated=sim,
+            power_at=cfg.pump.power_at,
+            current_limit=min(cfg.guard.max_current, cfg.pump.max_current),
+            replay_of=feed.run_id,
+            **kwargs,
+        )
         self.feed = feed
         try:
             self.file_bytes: int | None = os.path.getsize(feed.path)
@@ -90,8 +106,17 @@ class ReplayDashboard(DashboardBase):
         feed = self.feed
         pos = feed.position()
         run = self.panels["run"]
-        state = ("»" if feed.seeking else "■" if feed.finished else "❚❚" if feed.paused
-                 else f"▶×{feed.speed:g}" if feed.speed else "▶max")
+        state = (
+            "»"
+            if feed.seeking
+            else "■"
+            if feed.finished
+            else "❚❚"
+            if feed.paused
+            else f"▶×{feed.speed:g}"
+            if feed.speed
+            else "▶max"
+        )
         run.position = f"{pos:.1f}/{feed.end_t:.1f} s {state}"
         run.store_bytes = self.file_bytes
         run.flush_age = None
@@ -143,8 +168,9 @@ class ReplayDashboard(DashboardBase):
         self.push_screen(HelpScreen("keys (replay)", help_rows(), extra=note))
 
 
-def run_replay_dashboard(path: str | Path, speed: float | None = None,
-                         overrides: Mapping[str, str] | None = None) -> int:
+def run_replay_dashboard(
+    path: str | Path, speed: float | None = None, overrides: Mapping[str, str] | None = None
+) -> int:
     """Open the replay dashboard on run file ``path``; returns the exit status.
 
     ``speed`` is a multiple of real time; None (``--speed max``, the command's default) starts

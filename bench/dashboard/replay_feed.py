@@ -69,7 +69,9 @@ def jump_targets(events: Sequence[Event]) -> list[Event]:
     for ev in events:
         if ev.kind not in JUMP_KINDS:
             continue
-        if ev.kind == "guard" and (ev.data.get("from") == ev.data.get("to") or not ev.data.get("accepted", True)):
+        if ev.kind == "guard" and (
+            ev.data.get("from") == ev.data.get("to") or not ev.data.get("accepted", True)
+        ):
             continue
         out.append(ev)
     return out
@@ -85,8 +87,9 @@ class ReplayFeed:
     speed : multiple of real time; None for as fast as the machine goes.
     """
 
-    def __init__(self, path: str | Path, overrides: Mapping[str, str] | None = None,
-                 speed: float | None = 1.0) -> None:
+    def __init__(
+        self, path: str | Path, overrides: Mapping[str, str] | None = None, speed: float | None = 1.0
+    ) -> None:
         if speed is not None and not (math.isfinite(speed) and speed > 0):
             raise ValueError(f"speed: {speed!r} is not a positive number")
         self.path = Path(path)
@@ -228,8 +231,14 @@ class ReplayFeed:
             self._restart.clear()
             self.passes += 1
             try:
-                replay(self.path, overrides=self.overrides, speed=None, store=False,
-                       on_block=self._on_block, should_stop=self._should_stop)
+                replay(
+                    self.path,
+                    overrides=self.overrides,
+                    speed=None,
+                    store=False,
+                    on_block=self._on_block,
+                    should_stop=self._should_stop,
+                )
             except GainbenchError as exc:
                 self.error = str(exc)
                 log.error("replay of %s: %s", self.path, exc)

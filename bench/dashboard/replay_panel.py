@@ -62,7 +62,9 @@ class ReplayPanel(TextPanel):
         width = max(10, (self.size.width or 40) - 4)
         text.append("\n" + position_bar(self.position, self.end, width))
         ev = self.next_event
-        text.append("\nnext: " + (f"{ev.t:.2f} s {ev.kind}: {ev.text}" if ev is not None else "no more events"))
+        text.append(
+            "\nnext: " + (f"{ev.t:.2f} s {ev.kind}: {ev.text}" if ev is not None else "no more events")
+        )
         text.append("\nspace pause · , . speed · ← → seek 5 s", style="dim")
         text.append("\nn next event · p previous · home start", style="dim")
         if self.error:

@@ -29,8 +29,10 @@ class StatsPoller:
         self._instruments = dict(instruments)
         self.period = float(period)
         self._stop = threading.Event()
-        self._latest: tuple[Mapping[str, Any], Mapping[str, float | None]] = (MappingProxyType({}),
-                                                                              MappingProxyType({}))
+        self._latest: tuple[Mapping[str, Any], Mapping[str, float | None]] = (
+            MappingProxyType({}),
+            MappingProxyType({}),
+        )
         self._meters = {role: RateMeter(window=3.0) for role in self._instruments}
         self._thread = threading.Thread(target=self._run, name="dashboard-stats", daemon=True)
 

@@ -53,10 +53,13 @@ class TripScreen(ModalScreen[bool]):
         with Vertical():
             yield Static(Text("✖ GUARD TRIPPED: the pump output was switched off"), id="trip-title")
             yield Static(self._reason_text(), id="trip-reason")
-            yield Static(Text(
-                "Find and clear the cause first. Acknowledging returns the guard to SAFE, never to "
-                "emission: arm again through the checklist.\n[k] or [enter] acknowledge    [escape] hide"),
-                id="trip-help")
+            yield Static(
+                Text(
+                    "Find and clear the cause first. Acknowledging returns the guard to SAFE, never to "
+                    "emission: arm again through the checklist.\n[k] or [enter] acknowledge    [escape] hide"
+                ),
+                id="trip-help",
+            )
             yield Static("", id="trip-outcome")
 
     def _reason_text(self) -> Text:

@@ -58,7 +58,9 @@ def _columns(blocks: Iterable[Block], names: tuple[str, ...], what: str):
             continue
         for n in names:
             if n not in block.channels:
-                raise ValueError(f"blocks: block {block.seq} from {block.source} has no {n!r} channel for the {what}")
+                raise ValueError(
+                    f"blocks: block {block.seq} from {block.source} has no {n!r} channel for the {what}"
+                )
             parts[n].append(block.column(n))
         t_first = block.t0 if t_first is None else t_first
         t_last = block.t_end
@@ -99,8 +101,13 @@ def capture_dark(blocks: Iterable[Block], *, batches: int = 20) -> Dark:
     return Dark(p, sp, r, sr, int(cols[PROBE].size), t_last)
 
 
-def capture_baseline(blocks: Iterable[Block], dark: Dark | None = None, *, batches: int = 20,
-                     pump_threshold_v: float | None = None) -> Baseline:
+def capture_baseline(
+    blocks: Iterable[Block],
+    dark: Dark | None = None,
+    *,
+    batches: int = 20,
+    pump_threshold_v: float | None = None,
+) -> Baseline:
     """Pump-off baseline ``S_off = (V_probe - dark_p) / (V_ref - dark_r)`` from blocks.
 
     Parameters

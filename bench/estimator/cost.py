@@ -55,13 +55,21 @@ def _synthetic_blocks(mode: str, rate: float, seconds: float, block_size: int, s
     data[:, 0] = 0.003 + 0.8 * np.exp(lnr) * ref / 0.6 + 5e-4 * rng.standard_normal(n)
     data[:, 1] = 0.002 + ref + 5e-4 * rng.standard_normal(n)
     data[:, 2] = np.where(on, 0.46, 0.0) + 5e-4 * rng.standard_normal(n)
-    return [Block("detector", k, i / rate, 1.0 / rate, i, _CHANNELS, data[i:i + block_size])
-            for k, i in enumerate(range(0, n, block_size))]
+    return [
+        Block("detector", k, i / rate, 1.0 / rate, i, _CHANNELS, data[i : i + block_size])
+        for k, i in enumerate(range(0, n, block_size))
+    ]
 
 
-def estimator_cost_per_sample(mode: str = "watch", *, rate: float = 1e6, seconds: float = 2.0,
-                              block_size: int = 100_000, seed: int = 0,
-                              cfg: BenchConfig | None = None) -> float:
+def estimator_cost_per_sample(
+    mode: str = "watch",
+    *,
+    rate: float = 1e6,
+    seconds: float = 2.0,
+    block_size: int = 100_000,
+    seed: int = 0,
+    cfg: BenchConfig | None = None,
+) -> float:
     """CPU seconds per sample set spent in `update` (and one final `report`) in ``mode``.
 
     Parameters

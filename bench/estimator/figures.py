@@ -51,8 +51,18 @@ from bench.estimator.params import EstimatorParams
 from bench.estimator.state import Counts, EstimatorState
 from bench.records import Quantity
 
-__all__ = ["figures", "probe_terms", "pump_induced", "pulsed_small_signal_ln_ratio", "quantity", "common_flags",
-           "snr_flags", "wavelength_of", "dark_noise", "with_ln_ratio_systematic"]
+__all__ = [
+    "figures",
+    "probe_terms",
+    "pump_induced",
+    "pulsed_small_signal_ln_ratio",
+    "quantity",
+    "common_flags",
+    "snr_flags",
+    "wavelength_of",
+    "dark_noise",
+    "with_ln_ratio_systematic",
+]
 
 
 def quantity(value: float, noise: float, sys: float = 0.0) -> Quantity:
@@ -72,8 +82,9 @@ def _beam_energy_gain(g0: float, f_peak: float, f_sat: float) -> float:
     return float(0.5 * np.sum(_GL_WEIGHTS * f_out / f_in))
 
 
-def pulsed_small_signal_ln_ratio(ln_ratio: float, params: EstimatorParams, sigma_e: float, sigma_a: float,
-                                 wavelength: float | None = None) -> float:
+def pulsed_small_signal_ln_ratio(
+    ln_ratio: float, params: EstimatorParams, sigma_e: float, sigma_a: float, wavelength: float | None = None
+) -> float:
     """Small-signal ln R from the ln R measured with a pulsed probe of the configured energy.
 
     Both the pumped and the unpumped transmission of a pulse follow Frantz-Nodvik; for a
@@ -151,8 +162,9 @@ def _held_sys(params: EstimatorParams, wavelength: float | None, se: float, sa: 
     return b_off * math.sqrt((d_sa * u) ** 2 + (d_se * u) ** 2 + (d_tau * params.u_tau) ** 2)
 
 
-def figures(params: EstimatorParams, ln_ratio: float, sigma_noise: float,
-            wavelength: float | None = None) -> dict[str, Quantity]:
+def figures(
+    params: EstimatorParams, ln_ratio: float, sigma_noise: float, wavelength: float | None = None
+) -> dict[str, Quantity]:
     """All figures from one ln R and its noise sigma (uncertainty model in the module doc).
 
     ``ln R`` measures the pump-induced change from the baseline, and the baseline already holds
@@ -203,15 +215,22 @@ def figures(params: EstimatorParams, ln_ratio: float, sigma_noise: float,
         "gain_linear": quantity(gain, gain * sn, gain * lng_sys),
         "gain_db": quantity(float(physics.ln_gain_to_db(ln_gain)), db * sn, db * lng_sys),
         "gain_coefficient_per_cm": quantity(float(physics.per_m_to_per_cm(g)), sn / L / 100.0, g_sys / 100.0),
-        "n2_per_m3": quantity(n2, sn / (total * L), math.hypot(abs(n2_change) * math.hypot(u_sum, u_l),
-                                                         N * b_off_sys, b_off * N * u_n)),
-        "beta": quantity(beta, sn / (total * L * N),
-                   math.hypot(abs(n2_change / N) * math.sqrt(u_sum**2 + u_l**2 + u_n**2), b_off_sys)),
+        "n2_per_m3": quantity(
+            n2,
+            sn / (total * L),
+            math.hypot(abs(n2_change) * math.hypot(u_sum, u_l), N * b_off_sys, b_off * N * u_n),
+        ),
+        "beta": quantity(
+            beta,
+            sn / (total * L * N),
+            math.hypot(abs(n2_change / N) * math.sqrt(u_sum**2 + u_l**2 + u_n**2), b_off_sys),
+        ),
     }
 
 
-def pump_induced(params: EstimatorParams, values: Mapping[str, Quantity],
-                 wavelength: float | None = None) -> dict[str, float]:
+def pump_induced(
+    params: EstimatorParams, values: Mapping[str, Quantity], wavelength: float | None = None
+) -> dict[str, float]:
     """The pump-induced change of the excited fraction behind `figures`' absolute ``beta``, and
     the probe-held part added back (for an estimate's ``extra``); empty without a ``beta``."""
     q = values.get("beta")
@@ -221,8 +240,9 @@ def pump_induced(params: EstimatorParams, values: Mapping[str, Quantity],
     return {"beta_change": q.value - b_off, "beta_probe_held": b_off}
 
 
-def common_flags(state: EstimatorState, t: float, counts: Counts, wavelength: float | None,
-                  uses_baseline: bool) -> set[str]:
+def common_flags(
+    state: EstimatorState, t: float, counts: Counts, wavelength: float | None, uses_baseline: bool
+) -> set[str]:
     p = state.params
     flags: set[str] = set()
     sat = p.probe_saturation(wavelength)
@@ -274,4 +294,3 @@ def with_ln_ratio_systematic(values: dict[str, Quantity], sys: float) -> dict[st
         sens = v.sigma_noise / q.sigma_noise
         out[name] = quantity(v.value, v.sigma_noise, math.hypot(v.sigma_systematic, sens * sys))
     return out
-

@@ -113,7 +113,9 @@ class Mode:
         if self.period not in (None, "chop", "decay"):
             raise ValueError(f"mode {self.name}: period must be None, 'chop' or 'decay', got {self.period!r}")
         if (self.timing is None) != (self.period is None):
-            raise ValueError(f"mode {self.name}: a modulated mode needs both timing and period, a steady one neither")
+            raise ValueError(
+                f"mode {self.name}: a modulated mode needs both timing and period, a steady one neither"
+            )
 
     @property
     def closes_steps(self) -> bool:
@@ -122,7 +124,9 @@ class Mode:
 
     def describe_choice(self, chop_period: float, decay_period: float, steps: int, dwell: float) -> str:
         """The dashboard's one-line description of this mode with its timing."""
-        return self.describe.format(chop_ms=chop_period * 1e3, decay_ms=decay_period * 1e3, steps=steps, dwell=dwell)
+        return self.describe.format(
+            chop_ms=chop_period * 1e3, decay_ms=decay_period * 1e3, steps=steps, dwell=dwell
+        )
 
 
 #: The table of modes, in the order the dashboard and ``record --help`` show them.

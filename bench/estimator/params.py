@@ -35,8 +35,9 @@ FALLBACK_PUMP_THRESHOLD_V = 0.05
 SETTLE_RESIDUAL = 1e-5
 
 
-def back_face_pump_rate(sigma_ap: float, sigma_ep: float, wavelength: float, beam_diameter: float,
-                        absorbance: float) -> float:
+def back_face_pump_rate(
+    sigma_ap: float, sigma_ep: float, wavelength: float, beam_diameter: float, absorbance: float
+) -> float:
     """Pump rate per watt at the back face of the sample, ``(sigma_ap + sigma_ep) exp(-A) /
     (h nu_p pi w^2)`` in 1/(s W), ``w = D/2``, ``A = sigma_ap N L`` the unbleached absorbance.
 
@@ -199,17 +200,44 @@ class EstimatorParams:
     temperature: float = 295.0
 
     def __post_init__(self) -> None:
-        positive = ("probe_wavelength", "length", "n_total", "tau", "weak_fraction", "window",
-                    "settle_time", "step_settle_time", "pump_slope", "baseline_max_age",
-                    "baseline_drift_k", "decay_bin", "decay_fit_span", "decay_tail_start",
-                    "decay_record", "decay_min_tail", "temperature")
+        positive = (
+            "probe_wavelength",
+            "length",
+            "n_total",
+            "tau",
+            "weak_fraction",
+            "window",
+            "settle_time",
+            "step_settle_time",
+            "pump_slope",
+            "baseline_max_age",
+            "baseline_drift_k",
+            "decay_bin",
+            "decay_fit_span",
+            "decay_tail_start",
+            "decay_record",
+            "decay_min_tail",
+            "temperature",
+        )
         for name in positive:
             v = getattr(self, name)
             if not (isinstance(v, (int, float)) and math.isfinite(v) and v > 0):
                 raise ValueError(f"{name}: must be a positive number, got {v!r}")
-        nonneg = ("sigma_e", "sigma_a", "u_length", "u_n_total", "u_cross_sections", "u_tau",
-                  "probe_peak", "pump_threshold_current", "snr_min", "decay_skip",
-                  "rise_settle_time", "off_settle_time", "pump_rate_per_watt")
+        nonneg = (
+            "sigma_e",
+            "sigma_a",
+            "u_length",
+            "u_n_total",
+            "u_cross_sections",
+            "u_tau",
+            "probe_peak",
+            "pump_threshold_current",
+            "snr_min",
+            "decay_skip",
+            "rise_settle_time",
+            "off_settle_time",
+            "pump_rate_per_watt",
+        )
         for name in nonneg:
             v = getattr(self, name)
             if not (isinstance(v, (int, float)) and math.isfinite(v) and v >= 0):
@@ -220,38 +248,57 @@ class EstimatorParams:
             raise ValueError("u_length: must be smaller than the length")
         if self.probe_kind not in ("cw", "pulsed"):
             raise ValueError(f"probe_kind: must be 'cw' or 'pulsed', got {self.probe_kind!r}")
-        if self.detector_range is not None and not (math.isfinite(self.detector_range) and self.detector_range > 0):
-            raise ValueError(f"detector_range: must be a positive voltage or None, got {self.detector_range!r}")
+        if self.detector_range is not None and not (
+            math.isfinite(self.detector_range) and self.detector_range > 0
+        ):
+            raise ValueError(
+                f"detector_range: must be a positive voltage or None, got {self.detector_range!r}"
+            )
         if not 0 < self.full_scale_fraction <= 1:
             raise ValueError(f"full_scale_fraction: must be in (0, 1], got {self.full_scale_fraction!r}")
         if not (isinstance(self.batches_per_window, int) and self.batches_per_window >= 2):
-            raise ValueError(f"batches_per_window: must be a whole number of at least 2, got {self.batches_per_window!r}")
+            raise ValueError(
+                f"batches_per_window: must be a whole number of at least 2, got {self.batches_per_window!r}"
+            )
         if not (isinstance(self.min_batches, int) and self.min_batches >= 2):
             raise ValueError(f"min_batches: must be a whole number of at least 2, got {self.min_batches!r}")
         if self.pump_threshold_v is not None and not math.isfinite(self.pump_threshold_v):
             raise ValueError(f"pump_threshold_v: must be finite or None, got {self.pump_threshold_v!r}")
         if not 0 < self.pump_threshold_fraction < 1:
-            raise ValueError(f"pump_threshold_fraction: must be in (0, 1), got {self.pump_threshold_fraction!r}")
-        if self.monitor_per_watt is not None and not (math.isfinite(self.monitor_per_watt) and self.monitor_per_watt > 0):
+            raise ValueError(
+                f"pump_threshold_fraction: must be in (0, 1), got {self.pump_threshold_fraction!r}"
+            )
+        if self.monitor_per_watt is not None and not (
+            math.isfinite(self.monitor_per_watt) and self.monitor_per_watt > 0
+        ):
             raise ValueError(f"monitor_per_watt: must be positive or None, got {self.monitor_per_watt!r}")
-        if self.pump_absorbance is not None and not (math.isfinite(self.pump_absorbance) and self.pump_absorbance > 0):
+        if self.pump_absorbance is not None and not (
+            math.isfinite(self.pump_absorbance) and self.pump_absorbance > 0
+        ):
             raise ValueError(f"pump_absorbance: must be positive or None, got {self.pump_absorbance!r}")
         if self.decay_reference not in DECAY_REFERENCES:
-            raise ValueError(f"decay_reference: must be one of {', '.join(DECAY_REFERENCES)}, got {self.decay_reference!r}")
+            raise ValueError(
+                f"decay_reference: must be one of {', '.join(DECAY_REFERENCES)}, got {self.decay_reference!r}"
+            )
         if not self.decay_skip < self.decay_fit_span:
             raise ValueError("decay_skip: must be shorter than decay_fit_span")
         if not self.decay_fit_span <= self.decay_record:
             raise ValueError("decay_fit_span: must not be longer than decay_record")
         if not self.decay_tail_start < self.decay_record:
             raise ValueError("decay_tail_start: must be earlier than decay_record")
-        if self.zero_line_energy is not None and not (math.isfinite(self.zero_line_energy) and self.zero_line_energy > 0):
-            raise ValueError(f"zero_line_energy: must be a positive energy in J or None, got {self.zero_line_energy!r}")
+        if self.zero_line_energy is not None and not (
+            math.isfinite(self.zero_line_energy) and self.zero_line_energy > 0
+        ):
+            raise ValueError(
+                f"zero_line_energy: must be a positive energy in J or None, got {self.zero_line_energy!r}"
+            )
 
     # -- building ------------------------------------------------------------------------
 
     @classmethod
-    def from_config(cls, cfg: BenchConfig, *, spectrum: CrossSectionSpectrum | None = None,
-                    **overrides: Any) -> EstimatorParams:
+    def from_config(
+        cls, cfg: BenchConfig, *, spectrum: CrossSectionSpectrum | None = None, **overrides: Any
+    ) -> EstimatorParams:
         """Parameters for the bench ``cfg``; keyword overrides replace fields by name.
 
         Derived defaults (settle time 5 tau, decay bins and spans in units of tau, the chopped
@@ -268,11 +315,16 @@ class EstimatorParams:
         det = cfg.instruments.get("detector")
         options = dict(det.options) if det is not None else {}
         rng = options.get("range")
-        detector_range = (parse_quantity(rng, "voltage", f"{cfg.source}: instruments.detector.options.range")
-                          if rng is not None else None)
+        detector_range = (
+            parse_quantity(rng, "voltage", f"{cfg.source}: instruments.detector.options.range")
+            if rng is not None
+            else None
+        )
         mpw = options.get("pump_monitor_per_watt")
         if mpw is not None:
-            monitor = parse_quantity(mpw, "volts_per_watt", f"{cfg.source}: instruments.detector.options.pump_monitor_per_watt")
+            monitor = parse_quantity(
+                mpw, "volts_per_watt", f"{cfg.source}: instruments.detector.options.pump_monitor_per_watt"
+            )
         elif cfg.simulation is not None:
             monitor = cfg.simulation.pump_monitor_per_watt
         else:
@@ -292,7 +344,8 @@ class EstimatorParams:
             probe_kind=cfg.probe.kind,
             probe_peak=physics.gaussian_peak(
                 cfg.probe.pulse_energy if cfg.probe.kind == "pulsed" else cfg.probe.power,
-                cfg.probe.beam_diameter),
+                cfg.probe.beam_diameter,
+            ),
             weak_fraction=cfg.probe.weak_fraction,
             detector_range=detector_range,
             full_scale_fraction=cfg.guard.full_scale_fraction,
@@ -301,8 +354,12 @@ class EstimatorParams:
             pump_threshold_current=cfg.pump.threshold_current,
             pump_absorbance=s.sigma.pump_absorption * s.n_total * s.length,
             pump_rate_per_watt=back_face_pump_rate(
-                s.sigma.pump_absorption, s.sigma.pump_emission, cfg.pump.wavelength, cfg.pump.beam_diameter,
-                s.sigma.pump_absorption * s.n_total * s.length),
+                s.sigma.pump_absorption,
+                s.sigma.pump_emission,
+                cfg.pump.wavelength,
+                cfg.pump.beam_diameter,
+                s.sigma.pump_absorption * s.n_total * s.length,
+            ),
             spectrum=spectrum,
             zero_line_energy=physics.photon_energy(s.zero_line).item() if s.zero_line is not None else None,
             temperature=s.temperature,
@@ -339,7 +396,9 @@ class EstimatorParams:
         value); zero for pulsed probes."""
         if self.probe_kind != "cw":
             return 0.0
-        return (self.sigma_e + self.sigma_a) * float(physics.photon_flux(0.5 * self.probe_peak, self.probe_wavelength))
+        return (self.sigma_e + self.sigma_a) * float(
+            physics.photon_flux(0.5 * self.probe_peak, self.probe_wavelength)
+        )
 
     def rise_rate(self, pump_power: float | None) -> float:
         """Slowest rate (1/s) at which the excited fraction approaches its pumped level.
@@ -419,7 +478,9 @@ class EstimatorParams:
         se, sa = xs
         if self.probe_kind == "pulsed":
             return float(self.probe_mean / physics.saturation_fluence(lam, se, sa))
-        return float(physics.probe_weakness(self.probe_mean, physics.saturation_intensity(lam, se, sa, self.tau)))
+        return float(
+            physics.probe_weakness(self.probe_mean, physics.saturation_intensity(lam, se, sa, self.tau))
+        )
 
     def pump_threshold(self, pump_power: float | None) -> float:
         """Pump-on threshold (V) on the monitor channel at this pump power (see the class doc)."""

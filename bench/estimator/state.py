@@ -63,8 +63,13 @@ class Counts:
     no_reference: int = 0
 
     def plus(self, other: Counts) -> Counts:
-        return Counts(self.seen + other.seen, self.unsettled + other.unsettled, self.over + other.over,
-                       self.skipped + other.skipped, self.no_reference + other.no_reference)
+        return Counts(
+            self.seen + other.seen,
+            self.unsettled + other.unsettled,
+            self.over + other.over,
+            self.skipped + other.skipped,
+            self.no_reference + other.no_reference,
+        )
 
 
 @dataclass(frozen=True, eq=False)
@@ -111,8 +116,10 @@ def make_frame(state: EstimatorState, block: Block, mode) -> tuple[Frame | None,
     p = state.params
     for name in (PROBE, REFERENCE, PUMP_MONITOR):
         if name not in block.channels:
-            raise ValueError(f"block: block {block.seq} from {block.source} has no {name!r} channel "
-                             f"(has {', '.join(block.channels)})")
+            raise ValueError(
+                f"block: block {block.seq} from {block.source} has no {name!r} channel "
+                f"(has {', '.join(block.channels)})"
+            )
     n = block.n
     clock = state.clock
     if n == 0:
@@ -126,12 +133,16 @@ def make_frame(state: EstimatorState, block: Block, mode) -> tuple[Frame | None,
         i0 = 0
     else:
         if abs(dt - clock.dt) > 1e-6 * clock.dt:
-            raise ValueError(f"block: block {block.seq} has dt = {dt!r} s but the stream has {clock.dt!r} s; "
-                             "start a new estimator state when the sample rate changes")
+            raise ValueError(
+                f"block: block {block.seq} has dt = {dt!r} s but the stream has {clock.dt!r} s; "
+                "start a new estimator state when the sample rate changes"
+            )
         i0 = int(round((block.t0 - clock.origin) / clock.dt))
         if i0 < clock.next_index:
-            raise ValueError(f"block: block {block.seq} starts at sample {i0} but samples up to "
-                             f"{clock.next_index - 1} were already processed (repeated or out of order)")
+            raise ValueError(
+                f"block: block {block.seq} starts at sample {i0} but samples up to "
+                f"{clock.next_index - 1} were already processed (repeated or out of order)"
+            )
     gap = (not first) and i0 > clock.next_index
     clock = dataclasses.replace(clock, next_index=i0 + n)
 
@@ -187,7 +198,17 @@ def make_frame(state: EstimatorState, block: Block, mode) -> tuple[Frame | None,
         step_pending=False,
     )
     ref = vr - state.dark.reference if state.dark is not None else vr
-    frame = Frame(i0=i0, n=n, s=s, on=on, change=change, settled=settled, edges=edges,
-                   start_is_edge=restart or pump.step_pending, over=over, ref_sum=float(np.sum(ref)),
-                   monitor=vm)
+    frame = Frame(
+        i0=i0,
+        n=n,
+        s=s,
+        on=on,
+        change=change,
+        settled=settled,
+        edges=edges,
+        start_is_edge=restart or pump.step_pending,
+        over=over,
+        ref_sum=float(np.sum(ref)),
+        monitor=vm,
+    )
     return frame, clock, new_pump

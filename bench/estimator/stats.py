@@ -27,8 +27,15 @@ class BatchStats:
     def add(self, n_b: float, mean_b: float) -> BatchStats:
         shift = mean_b if self.k == 0 else self.shift
         d = mean_b - shift
-        return BatchStats(self.k + 1, self.n + n_b, shift, self.s1 + n_b * d, self.s2 + n_b * n_b * d * d,
-                           self.s3 + n_b * n_b * d, self.s4 + n_b * n_b)
+        return BatchStats(
+            self.k + 1,
+            self.n + n_b,
+            shift,
+            self.s1 + n_b * d,
+            self.s2 + n_b * n_b * d * d,
+            self.s3 + n_b * n_b * d,
+            self.s4 + n_b * n_b,
+        )
 
     def mean_error(self) -> tuple[float, float]:
         if self.k == 0:
@@ -101,4 +108,3 @@ def pump_level_steady(monitor: tuple[float, float], previous: tuple[float, float
         return not after_edge
     allowed = max(PUMP_LEVEL_TOLERANCE * max(abs(m), abs(mp)), 5.0 * math.sqrt(v + vp))
     return abs(m - mp) <= allowed
-

@@ -63,7 +63,12 @@ def _check_settings(settings: Mapping[str, Any] | None, mode: str) -> dict[str, 
                 takers = [name for name, m in MODES.items() if key in m.settings]
                 raise ValueError(f"settings: {key} applies to {' and '.join(takers)} mode only")
         elif value is not None:
-            if isinstance(value, bool) or not isinstance(value, (int, float)) or not math.isfinite(value) or value < 0:
+            if (
+                isinstance(value, bool)
+                or not isinstance(value, (int, float))
+                or not math.isfinite(value)
+                or value < 0
+            ):
                 raise ValueError(f"settings: {key} must be a finite number, zero or positive, got {value!r}")
             if key == "probe_wavelength" and value <= 0:
                 raise ValueError(f"settings: probe_wavelength must be positive, got {value!r}")
@@ -72,13 +77,17 @@ def _check_settings(settings: Mapping[str, Any] | None, mode: str) -> dict[str, 
     return out
 
 
-def new_state(params: EstimatorParams, mode: str, settings: Mapping[str, Any] | None = None) -> EstimatorState:
+def new_state(
+    params: EstimatorParams, mode: str, settings: Mapping[str, Any] | None = None
+) -> EstimatorState:
     """A fresh estimator for ``mode`` (one of `MODES`) with optional `SETTINGS`."""
     if not isinstance(params, EstimatorParams):
         raise ValueError(f"params: expected EstimatorParams, got {type(params).__name__}")
     m = mode_of(mode)
     s = _check_settings(settings, mode)
-    return EstimatorState(params=params, mode=mode, settings=MappingProxyType(s), core=m.new_core(params, s, None))
+    return EstimatorState(
+        params=params, mode=mode, settings=MappingProxyType(s), core=m.new_core(params, s, None)
+    )
 
 
 def _restart(state: EstimatorState, *, settle: bool = True, **changes: Any) -> EstimatorState:
@@ -131,7 +140,9 @@ def with_setting(state: EstimatorState, *, t: float | None = None, **settings: A
     if merged == dict(state.settings):
         return state
     st = _restart(mode_of(state.mode).close_step(state), settings=MappingProxyType(merged))
-    return dataclasses.replace(st, pump=dataclasses.replace(st.pump, step_time=None if t is None else float(t)))
+    return dataclasses.replace(
+        st, pump=dataclasses.replace(st.pump, step_time=None if t is None else float(t))
+    )
 
 
 def _item_counts(items: list) -> tuple[int, int]:
@@ -149,15 +160,21 @@ def _sample_counts(f: Frame, W: int, w_first: int, w_last: int, watch_like: bool
     if watch_like:
         mask = f.on & ~f.settled
         if mask.any():
-            unsettled = np.bincount((np.flatnonzero(mask) + f.i0) // W - w_first, minlength=w_last - w_first + 1)
+            unsettled = np.bincount(
+                (np.flatnonzero(mask) + f.i0) // W - w_first, minlength=w_last - w_first + 1
+            )
     over = None
     if f.over is not None:
         over = np.bincount((np.flatnonzero(f.over) + f.i0) // W - w_first, minlength=w_last - w_first + 1)
     for k, w in enumerate(range(w_first, w_last + 1)):
         seen = min(hi, (w + 1) * W) - max(lo, w * W)
-        out.append(Counts(seen=int(seen),
-                           unsettled=int(unsettled[k]) if unsettled is not None else 0,
-                           over=int(over[k]) if over is not None else 0))
+        out.append(
+            Counts(
+                seen=int(seen),
+                unsettled=int(unsettled[k]) if unsettled is not None else 0,
+                over=int(over[k]) if over is not None else 0,
+            )
+        )
     return out
 
 

@@ -58,7 +58,9 @@ def _timing(mode: str):
     return None if m is None else m.timing
 
 
-def required_half_periods(params: EstimatorParams, mode: str, pump_power: float | None) -> tuple[float, float]:
+def required_half_periods(
+    params: EstimatorParams, mode: str, pump_power: float | None
+) -> tuple[float, float]:
     """(pump-on, pump-off) half-period lengths (s) below which a mode has no settled data."""
     rule = _timing(mode)
     if rule is None:

@@ -83,8 +83,7 @@ def _trapezoid(y: np.ndarray, x: np.ndarray) -> float:
     return float(np.sum(0.5 * (y[1:] + y[:-1]) * np.diff(x)))
 
 
-def fuchtbauer_ladenburg(wavelength, intensity, refractive_index, radiative_lifetime, *,
-                         branching_ratio=1.0):
+def fuchtbauer_ladenburg(wavelength, intensity, refractive_index, radiative_lifetime, *, branching_ratio=1.0):
     """Emission cross-section spectrum from a fluorescence spectrum (Füchtbauer-Ladenburg).
 
     ``sigma_e(lambda) = beta lambda^5 I(lambda) / (8 pi n^2 c tau_rad ∫ lambda I(lambda) dlambda)``,

@@ -46,9 +46,18 @@ def _rates(pump_flux, sigma_ap, sigma_ep, tau, probe_flux, sigma_as, sigma_es):
     return up, k
 
 
-def steady_state_fraction(pump_intensity, pump_wavelength, sigma_a_pump, sigma_e_pump, tau, *,
-                          probe_intensity=0.0, probe_wavelength=None, sigma_e_probe=0.0,
-                          sigma_a_probe=0.0):
+def steady_state_fraction(
+    pump_intensity,
+    pump_wavelength,
+    sigma_a_pump,
+    sigma_e_pump,
+    tau,
+    *,
+    probe_intensity=0.0,
+    probe_wavelength=None,
+    sigma_e_probe=0.0,
+    sigma_a_probe=0.0,
+):
     """Steady-state excited fraction ``beta = N2 / N_total`` under CW pump (and probe).
 
     From ``dN2/dt = (sigma_ap N1 - sigma_ep N2) Phi_p + (sigma_as N1 - sigma_es N2) Phi_s
@@ -75,8 +84,9 @@ def steady_state_fraction(pump_intensity, pump_wavelength, sigma_a_pump, sigma_e
     .. [1] W. Koechner, *Solid-State Laser Engineering*, 6th ed., Springer, 2006, sec. 1.4.
     .. [2] O. Svelto, *Principles of Lasers*, 5th ed., Springer, 2010, sec. 7.3.
     """
-    phi_p = (check_nonnegative(pump_intensity, "pump_intensity", " (an intensity)")
-             / checked_photon_energy(pump_wavelength, "pump_wavelength"))
+    phi_p = check_nonnegative(pump_intensity, "pump_intensity", " (an intensity)") / checked_photon_energy(
+        pump_wavelength, "pump_wavelength"
+    )
     ip = check_nonnegative(probe_intensity, "probe_intensity", " (an intensity)")
     if probe_wavelength is None:
         if np.any(ip > 0):
@@ -127,7 +137,9 @@ def pump_saturation_parameters(pump_wavelength, sigma_a_pump, sigma_e_pump, tau)
     """
     _, sap, total = check_cross_sections(sigma_e_pump, sigma_a_pump, "sigma_e_pump", "sigma_a_pump")
     t = check_positive(tau, "tau", " (a lifetime)")
-    return as_result(sap / total), as_result(checked_photon_energy(pump_wavelength, "pump_wavelength") / (total * t))
+    return as_result(sap / total), as_result(
+        checked_photon_energy(pump_wavelength, "pump_wavelength") / (total * t)
+    )
 
 
 def beta_of_pump(p, beta_max, p_sat):
@@ -182,8 +194,9 @@ def transparency_pump_intensity(pump_wavelength, sigma_ap, sigma_ep, tau, beta_t
     return as_result(np.where(bt == 0, 0.0, np.where(bt >= beta_max, math.inf, i)))
 
 
-def rate_equation_step(n2, n_total, pump_flux, sigma_ap, sigma_ep, tau, dt, *, probe_flux=0.0,
-                       sigma_as=0.0, sigma_es=0.0):
+def rate_equation_step(
+    n2, n_total, pump_flux, sigma_ap, sigma_ep, tau, dt, *, probe_flux=0.0, sigma_as=0.0, sigma_es=0.0
+):
     """Excited density after ``dt`` under constant fluxes: the exact solution of the rate equation.
 
     ``dN2/dt = A N_total - k N2`` with ``A = sigma_ap Phi_p + sigma_as Phi_s`` and

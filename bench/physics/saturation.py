@@ -102,7 +102,6 @@ def saturation_fluence(wavelength, sigma_e, sigma_a):
     return as_result(checked_photon_energy(wavelength, "wavelength") / total)
 
 
-
 def probe_weakness(probe_intensity, i_sat):
     """How strongly a CW probe saturates the gain it measures, ``I_probe / I_sat``.
 

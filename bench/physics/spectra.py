@@ -140,8 +140,9 @@ def _nm(wavelength_m: float) -> str:
     return f"{wavelength_m * 1e9:.6g} nm"
 
 
-def load_spectrum(path, *, epsilon: float | None = None,
-                  temperature: float | None = None) -> CrossSectionSpectrum:
+def load_spectrum(
+    path, *, epsilon: float | None = None, temperature: float | None = None
+) -> CrossSectionSpectrum:
     """Read a cross-section spectrum file (format in the module docstring).
 
     Parameters
@@ -176,8 +177,9 @@ def load_spectrum(path, *, epsilon: float | None = None,
     return parse_spectrum_text(text, source, epsilon=epsilon, temperature=temperature)
 
 
-def parse_spectrum_text(text: str, source: str, *, epsilon: float | None = None,
-                        temperature: float | None = None) -> CrossSectionSpectrum:
+def parse_spectrum_text(
+    text: str, source: str, *, epsilon: float | None = None, temperature: float | None = None
+) -> CrossSectionSpectrum:
     """Parse the text of a spectrum file; ``source`` names it in errors. See `load_spectrum`."""
     if not isinstance(text, str):  # the project's rule: ValueError naming the argument
         raise ValueError(f"text: expected a str, got {type(text).__name__}")  # noqa: TRY004
@@ -187,7 +189,7 @@ def parse_spectrum_text(text: str, source: str, *, epsilon: float | None = None,
     if not rows:
         raise ConfigError(
             f"{source} line {len(lines)}: the file ends before the header row; expected a "
-            f"line such as \"{_EXAMPLE_HEADER}\""
+            f'line such as "{_EXAMPLE_HEADER}"'
         )
     header_line, header = rows[0]
     columns = _parse_header(header, header_line, source)
@@ -197,8 +199,11 @@ def parse_spectrum_text(text: str, source: str, *, epsilon: float | None = None,
     data = {name: arr[order] for name, arr in values.items()}
     derived = _derive_missing(data, line_numbers[order], source, header_line, epsilon, temperature)
     return CrossSectionSpectrum(
-        wavelength=data["wavelength"], sigma_a=data["sigma_a"], sigma_e=data["sigma_e"],
-        source=source, derived=derived,
+        wavelength=data["wavelength"],
+        sigma_a=data["sigma_a"],
+        sigma_e=data["sigma_e"],
+        source=source,
+        derived=derived,
     )
 
 
@@ -216,24 +221,24 @@ def _parse_header(header: str, line: int, source: str) -> list[_Column]:
         match = _HEADER_CELL.match(cell)
         if match is None:
             raise ConfigError(
-                f"{where}: header cell \"{cell.strip()}\" is not a column name with its unit in "
-                f"square brackets; expected a header row such as \"{_EXAMPLE_HEADER}\""
+                f'{where}: header cell "{cell.strip()}" is not a column name with its unit in '
+                f'square brackets; expected a header row such as "{_EXAMPLE_HEADER}"'
             )
         name, unit = match.group(1).lower(), match.group(2).strip()
         if name not in COLUMNS:
             raise ConfigError(
-                f"{where}: unknown column \"{match.group(1)}\"; the columns are "
-                + ", ".join(f"\"{c}\"" for c in COLUMNS)
+                f'{where}: unknown column "{match.group(1)}"; the columns are '
+                + ", ".join(f'"{c}"' for c in COLUMNS)
             )
         if any(c.name == name for c in columns):
-            raise ConfigError(f"{where}: column \"{name}\" appears twice in the header")
+            raise ConfigError(f'{where}: column "{name}" appears twice in the header')
         columns.append(_Column(name, unit, _unit_factor(name, unit, where)))
     names = {c.name for c in columns}
     if "wavelength" not in names:
-        raise ConfigError(f"{where}: the header has no \"wavelength\" column; expected \"{_EXAMPLE_HEADER}\"")
+        raise ConfigError(f'{where}: the header has no "wavelength" column; expected "{_EXAMPLE_HEADER}"')
     if not names & {"sigma_a", "sigma_e"}:
         raise ConfigError(
-            f"{where}: the header has neither a \"sigma_a\" nor a \"sigma_e\" column; "
+            f'{where}: the header has neither a "sigma_a" nor a "sigma_e" column; '
             "at least one cross-section column is needed"
         )
     return columns
@@ -241,17 +246,19 @@ def _parse_header(header: str, line: int, source: str) -> list[_Column]:
 
 def _unit_factor(name: str, unit: str, where: str) -> float:
     kind = COLUMNS[name]
-    label = f"{where}: unit [{unit}] of column \"{name}\""
+    label = f'{where}: unit [{unit}] of column "{name}"'
     if not unit:
-        raise ConfigError(f"{label} is empty; write the unit in the brackets, e.g. \"{name} [nm]\""
-                          if kind == "length" else
-                          f"{label} is empty; write the unit in the brackets, e.g. \"{name} [cm^2]\"")
+        raise ConfigError(
+            f'{label} is empty; write the unit in the brackets, e.g. "{name} [nm]"'
+            if kind == "length"
+            else f'{label} is empty; write the unit in the brackets, e.g. "{name} [cm^2]"'
+        )
     if len(unit) > _MAX_UNIT_CHARS:
         raise ConfigError(f"{label} is longer than {_MAX_UNIT_CHARS} characters")
     exponents = _EXPONENT.findall(unit)
     if len(exponents) > 2 or not all(_SMALL_EXPONENT.match(e) for _, e in exponents):
         # the unit parser evaluates integer powers exactly: 9**9**9 would never finish
-        raise ConfigError(f"{label}: exponents must be small numbers such as \"cm^2\" (at most two)")
+        raise ConfigError(f'{label}: exponents must be small numbers such as "cm^2" (at most two)')
     try:
         factor = parse_quantity(unit, kind, label)
     except (OverflowError, ZeroDivisionError):
@@ -261,8 +268,9 @@ def _unit_factor(name: str, unit: str, where: str) -> float:
     return factor
 
 
-def _parse_rows(rows, columns: list[_Column], header_line: int,
-                source: str) -> tuple[dict[str, np.ndarray], np.ndarray]:
+def _parse_rows(
+    rows, columns: list[_Column], header_line: int, source: str
+) -> tuple[dict[str, np.ndarray], np.ndarray]:
     """The columns in SI units, and the line number of each row."""
     if len(rows) < 2:
         raise ConfigError(
@@ -285,9 +293,7 @@ def _parse_rows(rows, columns: list[_Column], header_line: int,
             written = f"{cell.strip()} {column.unit}"
             if column.name == "wavelength":
                 if not WAVELENGTH_MIN <= value <= WAVELENGTH_MAX:
-                    raise ConfigError(
-                        f"{where}: wavelength {written} is outside 200 nm to 20 µm"
-                    )
+                    raise ConfigError(f"{where}: wavelength {written} is outside 200 nm to 20 µm")
                 if previous is not None:
                     step = value - previous[2]
                     if step == 0:
@@ -320,15 +326,21 @@ def _number(cell: str, column: _Column, where: str) -> float:
     except ValueError:
         value = None
     if value is None or "_" in text:
-        raise ConfigError(f"{where}: \"{text}\" in column \"{column.name}\" is not a number")
+        raise ConfigError(f'{where}: "{text}" in column "{column.name}" is not a number')
     si = value * column.factor
     if not np.isfinite(si):
-        raise ConfigError(f"{where}: \"{text}\" in column \"{column.name}\" is not a finite number")
+        raise ConfigError(f'{where}: "{text}" in column "{column.name}" is not a finite number')
     return si
 
 
-def _derive_missing(data: dict[str, np.ndarray], line_numbers: np.ndarray, source: str, header_line: int,
-                    epsilon: float | None, temperature: float | None) -> str | None:
+def _derive_missing(
+    data: dict[str, np.ndarray],
+    line_numbers: np.ndarray,
+    source: str,
+    header_line: int,
+    epsilon: float | None,
+    temperature: float | None,
+) -> str | None:
     have_a, have_e = "sigma_a" in data, "sigma_e" in data
     if have_a and have_e:
         return None
@@ -341,10 +353,10 @@ def _derive_missing(data: dict[str, np.ndarray], line_numbers: np.ndarray, sourc
             f"(missing: {', '.join(need)})"
         )
     for key, val in ((ZERO_LINE_KEY, epsilon), (TEMPERATURE_KEY, temperature)):
-        if not (isinstance(val, (int, float)) and not isinstance(val, bool)
-                and np.isfinite(val) and val > 0):
+        if not (isinstance(val, (int, float)) and not isinstance(val, bool) and np.isfinite(val) and val > 0):
             raise ConfigError(
-                f"{key}: must be a positive quantity to derive {missing} in {source}, got {val!r}")
+                f"{key}: must be a positive quantity to derive {missing} in {source}, got {val!r}"
+            )
     convert = physics.mccumber_emission if have_a else physics.mccumber_absorption
     values = np.asarray(convert(data["wavelength"], data[given], epsilon, temperature))
     bad = ~np.isfinite(values)
@@ -377,13 +389,16 @@ def stored_form(path, *, epsilon: float | None = None, temperature: float | None
     except OSError as exc:
         raise ConfigError(f"{source}: cannot read the spectrum file ({exc.strerror or exc})") from None
     if len(raw) > MAX_STORED_BYTES:
-        raise ConfigError(f"{source}: {len(raw)} bytes is more than a spectrum file may hold "
-                          f"({MAX_STORED_BYTES} bytes)")
+        raise ConfigError(
+            f"{source}: {len(raw)} bytes is more than a spectrum file may hold ({MAX_STORED_BYTES} bytes)"
+        )
     try:
         text = raw.decode("utf-8-sig")
     except UnicodeDecodeError as exc:
-        raise ConfigError(f"{source}: not a UTF-8 text file (byte {exc.start} cannot be decoded); "
-                          "save the spectrum as UTF-8 CSV") from None
+        raise ConfigError(
+            f"{source}: not a UTF-8 text file (byte {exc.start} cannot be decoded); "
+            "save the spectrum as UTF-8 CSV"
+        ) from None
     spec = parse_spectrum_text(text, source, epsilon=epsilon, temperature=temperature)
     return {
         "format": STORED_FORMAT,
@@ -424,14 +439,19 @@ class StoredSpectrum:
         extra = {}
         for key in ("zero_line_energy_j", "temperature_k"):
             v = record.get(key)
-            if v is not None and (isinstance(v, bool) or not isinstance(v, (int, float)) or not math.isfinite(v)):
+            if v is not None and (
+                isinstance(v, bool) or not isinstance(v, (int, float)) or not math.isfinite(v)
+            ):
                 raise ValueError(f"{where}: the stored spectrum's {key} is not a number")
             extra[key] = None if v is None else float(v)
         try:
             table = CrossSectionSpectrum(
-                wavelength=record.get("wavelength_m"), sigma_a=record.get("sigma_a_m2"),
-                sigma_e=record.get("sigma_e_m2"), source=f"{name} (stored in {where})",
-                derived=record.get("derived"))
+                wavelength=record.get("wavelength_m"),
+                sigma_a=record.get("sigma_a_m2"),
+                sigma_e=record.get("sigma_e_m2"),
+                source=f"{name} (stored in {where})",
+                derived=record.get("derived"),
+            )
         except (TypeError, ValueError) as exc:
             raise ValueError(f"{where}: the stored spectrum's table is damaged ({exc})") from None
         return cls(table, text, name, digest, extra["zero_line_energy_j"], extra["temperature_k"])
@@ -450,7 +470,9 @@ def _bom_digest(text: str, digest: str) -> bool:
     return hashlib.sha256(b"\xef\xbb\xbf" + text.encode("utf-8")).hexdigest() == digest
 
 
-_IN_USE: contextvars.ContextVar[StoredSpectrum | None] = contextvars.ContextVar("stored_spectrum", default=None)
+_IN_USE: contextvars.ContextVar[StoredSpectrum | None] = contextvars.ContextVar(
+    "stored_spectrum", default=None
+)
 
 
 @contextmanager
@@ -463,8 +485,9 @@ def using_stored(stored: StoredSpectrum | None) -> Iterator[None]:
         _IN_USE.reset(token)
 
 
-def spectrum_for_bench(path, *, epsilon: float | None = None,
-                       temperature: float | None = None) -> CrossSectionSpectrum | None:
+def spectrum_for_bench(
+    path, *, epsilon: float | None = None, temperature: float | None = None
+) -> CrossSectionSpectrum | None:
     """The spectrum a bench file names: the stored one inside `using_stored`, else the file
     ``path`` read with `load_spectrum`; None when there is neither (no such file)."""
     stored = _IN_USE.get()

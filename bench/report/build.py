@@ -113,14 +113,33 @@ def collect(reader: RunReader, which: str | int = LIVE) -> ReportData:
         overridden = [(str(k), recorded_value(bench_text, str(k)), str(v)) for k, v in overrides.items()]
         estimates = reader.estimates(int(a["id"]))
         final = next((e for e in reversed(estimates) if e.scope == "cumulative"), None)
-        chosen.append(AnalysisData(
-            id=int(a["id"]), kind=str(a.get("kind")), info=a, overrides=dict(overrides), overridden=overridden,
-            estimates=estimates, final=final, summary=summary(reader, cfg, int(a["id"]))))
+        chosen.append(
+            AnalysisData(
+                id=int(a["id"]),
+                kind=str(a.get("kind")),
+                info=a,
+                overrides=dict(overrides),
+                overridden=overridden,
+                estimates=estimates,
+                final=final,
+                summary=summary(reader, cfg, int(a["id"])),
+            )
+        )
     return ReportData(
-        run_path=reader.path, run_id=reader.run_id, status=reader.status, meta=dict(reader.meta), cfg=cfg,
-        duration_s=reader.duration(), block_count=reader.block_count(), all_analyses=all_analyses,
-        analyses=chosen, events=events, truth=reader.truth(), trips=trips(events),
-        generated_at=datetime.now(UTC).isoformat(timespec="seconds"))
+        run_path=reader.path,
+        run_id=reader.run_id,
+        status=reader.status,
+        meta=dict(reader.meta),
+        cfg=cfg,
+        duration_s=reader.duration(),
+        block_count=reader.block_count(),
+        all_analyses=all_analyses,
+        analyses=chosen,
+        events=events,
+        truth=reader.truth(),
+        trips=trips(events),
+        generated_at=datetime.now(UTC).isoformat(timespec="seconds"),
+    )
 
 
 # --------------------------------------------------------------------------------------------
@@ -187,55 +206,88 @@ def draw_figures(reader: RunReader, data: ReportData, out: Path, *, buckets: int
     sig = signal_trace(reader, data.events, buckets=buckets, duration=data.duration_s)
     data.extra["signal_samples"] = sig.trace.samples
     data.extra["signal_bucket_s"] = sig.trace.width
-    pump_text = ("Grey: the pump driver reported its output on." if sig.pump_on is not None
-                 else "The pump driver's output state was not recorded.")
-    dark_text = ("S uses the dark captured in the run (dotted boxes: the dark captures, where S is not "
-                 "defined)." if sig.darks else "No dark was captured: S assumes zero volts of dark.")
-    save("signals", lambda: signals_figure(sig, title=rid), "Signals",
-         f"Probe and reference detector voltages, the normalised transmission S and the pump monitor over "
-         f"the whole run, decimated to {sig.trace.edges.size - 1} time buckets of "
-         f"{sig.trace.width * 1e3:.3g} ms: the band spans each bucket's lowest to highest sample, the line is "
-         f"its mean. {pump_text} {dark_text} The S axis spans the 0.5 to 99.5 percentiles of the buckets.")
+    pump_text = (
+        "Grey: the pump driver reported its output on."
+        if sig.pump_on is not None
+        else "The pump driver's output state was not recorded."
+    )
+    dark_text = (
+        "S uses the dark captured in the run (dotted boxes: the dark captures, where S is not defined)."
+        if sig.darks
+        else "No dark was captured: S assumes zero volts of dark."
+    )
+    save(
+        "signals",
+        lambda: signals_figure(sig, title=rid),
+        "Signals",
+        f"Probe and reference detector voltages, the normalised transmission S and the pump monitor over "
+        f"the whole run, decimated to {sig.trace.edges.size - 1} time buckets of "
+        f"{sig.trace.width * 1e3:.3g} ms: the band spans each bucket's lowest to highest sample, the line is "
+        f"its mean. {pump_text} {dark_text} The S axis spans the 0.5 to 99.5 percentiles of the buckets.",
+    )
 
     truth = None
     if data.simulated and data.truth:
         truth = truth_series(data.truth, data.cfg.sample.sigma.probe_absorption)
-    truth_text = (" Black crosses: the simulator's truth, sampled at instants while the pump was on."
-                  if truth is not None else "")
+    truth_text = (
+        " Black crosses: the simulator's truth, sampled at instants while the pump was on."
+        if truth is not None
+        else ""
+    )
     series = [(a.label, a.estimates) for a in data.analyses]
-    save("estimates", lambda: estimates_figure(series, truth, title=rid,
-                                                     trips=[float(t["t"]) for t in data.trips]), "Estimates over time",
-         "Excited fraction β and single-pass net gain (ln R where neither is known): the cumulative "
-         "estimate (everything since the mode or setting last changed) with its ±2σ band (combined: noise "
-         "and systematic), and each window's own estimate as a point with ±2σ of its noise part." + truth_text
-         + (" Dashed vermillion: the guard's trips." if data.trips else ""))
+    save(
+        "estimates",
+        lambda: estimates_figure(series, truth, title=rid, trips=[float(t["t"]) for t in data.trips]),
+        "Estimates over time",
+        "Excited fraction β and single-pass net gain (ln R where neither is known): the cumulative "
+        "estimate (everything since the mode or setting last changed) with its ±2σ band (combined: noise "
+        "and systematic), and each window's own estimate as a point with ±2σ of its noise part."
+        + truth_text
+        + (" Dashed vermillion: the guard's trips." if data.trips else ""),
+    )
 
     for a in data.analyses:
         final = a.final
         name = f" ({a.label})" if len(data.analyses) > 1 or a.kind != "live" else ""
         truth_rows = data.truth if data.simulated else None
-        save(f"decay-a{a.id}",
-             lambda final=final: decay_figure(final, title=rid) if final is not None and final.mode == "decay" else None,
-             f"Lifetime fit{name}",
-             "ln R(t) after each pump-off edge, averaged over the decays and binned, with the fitted "
-             "exponential ln R(0) exp(−t/τ_d); lower panel: each bin's residual divided by its standard "
-             "uncertainty (dotted: ±2). The lifetime τ removes the probe's own stimulated rate from τ_d.")
-        save(f"saturation-a{a.id}",
-             lambda final=final, truth_rows=truth_rows: (saturation_figure(final, truth_rows, title=rid)
-                      if final is not None and final.mode == "sweep" else None),
-             f"Pump saturation{name}",
-             "Excited fraction β at each pump-power step (error bars: ±1σ noise, the weights of the fit) "
-             "and the fitted saturation curve.")
-        save(f"spectrum-a{a.id}", lambda final=final: spectrum_figure(final, title=rid) if final is not None else None,
-             f"Gain spectrum{name}",
-             "Pump-induced gain change ln R / L at each probe wavelength (±1σ noise) with the fitted Voigt "
-             "line (in optical frequency).")
+        save(
+            f"decay-a{a.id}",
+            lambda final=final: (
+                decay_figure(final, title=rid) if final is not None and final.mode == "decay" else None
+            ),
+            f"Lifetime fit{name}",
+            "ln R(t) after each pump-off edge, averaged over the decays and binned, with the fitted "
+            "exponential ln R(0) exp(−t/τ_d); lower panel: each bin's residual divided by its standard "
+            "uncertainty (dotted: ±2). The lifetime τ removes the probe's own stimulated rate from τ_d.",
+        )
+        save(
+            f"saturation-a{a.id}",
+            lambda final=final, truth_rows=truth_rows: (
+                saturation_figure(final, truth_rows, title=rid)
+                if final is not None and final.mode == "sweep"
+                else None
+            ),
+            f"Pump saturation{name}",
+            "Excited fraction β at each pump-power step (error bars: ±1σ noise, the weights of the fit) "
+            "and the fitted saturation curve.",
+        )
+        save(
+            f"spectrum-a{a.id}",
+            lambda final=final: spectrum_figure(final, title=rid) if final is not None else None,
+            f"Gain spectrum{name}",
+            "Pump-induced gain change ln R / L at each probe wavelength (±1σ noise) with the fitted Voigt "
+            "line (in optical frequency).",
+        )
 
     t_end = float(data.duration_s or 0.0)
-    save("events", lambda: timeline_figure(data.events, t_end, data.trips, title=rid), "Events",
-         "Every recorded event on the run's time axis, one row per kind; top: the guard's state from its "
-         "accepted transitions. A dashed line marks each trip, with the time from the failing reading to "
-         "the pump-off command (latency).")
+    save(
+        "events",
+        lambda: timeline_figure(data.events, t_end, data.trips, title=rid),
+        "Events",
+        "Every recorded event on the run's time axis, one row per kind; top: the guard's state from its "
+        "accepted transitions. A dashed line marks each trip, with the time from the failing reading to "
+        "the pump-off command (latency).",
+    )
     return written
 
 
@@ -243,8 +295,14 @@ def draw_figures(reader: RunReader, data: ReportData, out: Path, *, buckets: int
 # The whole report
 
 
-def build_report(run: str | Path, out_dir: str | Path | None = None, *, analysis: str | int = LIVE,
-                 log_dir: str | Path = "logs", buckets: int = 800) -> ReportResult:
+def build_report(
+    run: str | Path,
+    out_dir: str | Path | None = None,
+    *,
+    analysis: str | int = LIVE,
+    log_dir: str | Path = "logs",
+    buckets: int = 800,
+) -> ReportResult:
     """Write ``report.html`` and its figures for ``run`` (a path, run id or unique prefix).
 
     Parameters
@@ -266,6 +324,8 @@ def build_report(run: str | Path, out_dir: str | Path | None = None, *, analysis
     try:
         page = report_html.render(data, figures)  # reads the figures back to embed them
     except OSError as exc:
-        raise ReportError(f"{exc.filename or out}: cannot read a figure back ({exc.strerror or exc})") from None
+        raise ReportError(
+            f"{exc.filename or out}: cannot read a figure back ({exc.strerror or exc})"
+        ) from None
     _write_text(html_path, page)
     return ReportResult(html_path, out, tuple(figures), tuple(a.id for a in data.analyses))

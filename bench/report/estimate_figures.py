@@ -71,17 +71,26 @@ ESTIMATE_PANELS = (("beta", "excited fraction β", 1.0), ("gain_db", "single-pas
 LN_RATIO_PANEL = ("ln_ratio", "ln R", 1.0)
 
 
-def estimates_figure(series: Sequence[tuple[str, Sequence[Estimate]]], truth: Mapping[str, np.ndarray] | None,
-                     *, title: str, trips: Sequence[float] = (), limit: int = 3000) -> Figure | None:
+def estimates_figure(
+    series: Sequence[tuple[str, Sequence[Estimate]]],
+    truth: Mapping[str, np.ndarray] | None,
+    *,
+    title: str,
+    trips: Sequence[float] = (),
+    limit: int = 3000,
+) -> Figure | None:
     """Cumulative beta and gain with their ±2σ bands, window estimates as points, truth markers.
 
     The value axis spans the estimates and their bands; a truth sample far outside (the truth is
     sampled at instants, and may catch the pump's rise) is counted in the corner, not drawn.
     """
+
     def present(key: str) -> bool:
         return any(key in e.values for _, ests in series for e in ests)
 
-    panels = [p for p in ESTIMATE_PANELS if present(p[0])] or ([LN_RATIO_PANEL] if present("ln_ratio") else [])
+    panels = [p for p in ESTIMATE_PANELS if present(p[0])] or (
+        [LN_RATIO_PANEL] if present("ln_ratio") else []
+    )
     if not panels:
         return None
     single = len(series) == 1
@@ -99,16 +108,35 @@ def estimates_figure(series: Sequence[tuple[str, Sequence[Estimate]]], truth: Ma
                     t = np.array([e.t for e in cum])
                     v = np.array([e.values[key].value for e in cum]) * scale
                     s = np.array([e.values[key].sigma for e in cum]) * scale
-                    ax.fill_between(t, v - 2 * s, v + 2 * s, facecolor=colour, alpha=0.18, hatch=hatch,
-                                    edgecolor=colour, lw=0, label=f"{prefix}cumulative ±2σ (combined)")
+                    ax.fill_between(
+                        t,
+                        v - 2 * s,
+                        v + 2 * s,
+                        facecolor=colour,
+                        alpha=0.18,
+                        hatch=hatch,
+                        edgecolor=colour,
+                        lw=0,
+                        label=f"{prefix}cumulative ±2σ (combined)",
+                    )
                     ax.plot(t, v, color=colour, ls=ls, lw=1.6, label=f"{prefix}cumulative estimate")
                     spans += [v - 2 * s, v + 2 * s]
                 if win:
                     t = np.array([e.t for e in win])
                     v = np.array([e.values[key].value for e in win]) * scale
                     s = np.array([e.values[key].sigma_noise for e in win]) * scale
-                    ax.errorbar(t, v, yerr=2 * s, fmt=marker, ms=3.5, color=colour, mfc="white", lw=0.8,
-                                capsize=0, label=f"{prefix}window estimates (±2σ noise)")
+                    ax.errorbar(
+                        t,
+                        v,
+                        yerr=2 * s,
+                        fmt=marker,
+                        ms=3.5,
+                        color=colour,
+                        mfc="white",
+                        lw=0.8,
+                        capsize=0,
+                        label=f"{prefix}window estimates (±2σ noise)",
+                    )
                     spans += [v - 2 * s, v + 2 * s]
             vals = np.concatenate(spans) if spans else np.array([])
             vals = vals[np.isfinite(vals)]
@@ -121,14 +149,30 @@ def estimates_figure(series: Sequence[tuple[str, Sequence[Estimate]]], truth: Ma
             if truth is not None and key in truth and np.isfinite(truth[key]).any():
                 tv = truth[key] * scale
                 inside = np.isfinite(tv) if lo is None else np.isfinite(tv) & (tv >= lo) & (tv <= hi)
-                ax.plot(truth["t"][inside], tv[inside], "x", color=BLACK, ms=6, mew=1.4,
-                        label="simulator truth (instantaneous, pump on)")
+                ax.plot(
+                    truth["t"][inside],
+                    tv[inside],
+                    "x",
+                    color=BLACK,
+                    ms=6,
+                    mew=1.4,
+                    label="simulator truth (instantaneous, pump on)",
+                )
                 outside = int((np.isfinite(tv) & ~inside).sum())
                 if outside:
-                    ax.text(0.99, 0.03, f"{outside} truth sample{'s' if outside > 1 else ''} outside this range",
-                            transform=ax.transAxes, ha="right", va="bottom", fontsize=8.5)
+                    ax.text(
+                        0.99,
+                        0.03,
+                        f"{outside} truth sample{'s' if outside > 1 else ''} outside this range",
+                        transform=ax.transAxes,
+                        ha="right",
+                        va="bottom",
+                        fontsize=8.5,
+                    )
             for k, t in enumerate(trips):
-                ax.axvline(t, color=VERMILLION, ls="--", lw=1.0, label="guard trip (pump off)" if k == 0 else None)
+                ax.axvline(
+                    t, color=VERMILLION, ls="--", lw=1.0, label="guard trip (pump off)" if k == 0 else None
+                )
             ax.set_ylabel(label)
         axes[-1].set_xlabel("run time t (s)")
         handles, labels = axes[0].get_legend_handles_labels()
@@ -155,13 +199,25 @@ def decay_figure(estimate: Estimate | None, *, title: str) -> Figure | None:
     with rc_context(RC):
         fig = new_figure(9, 6.5)
         top, bottom = fig.subplots(2, 1, sharex=True, height_ratios=[3, 1.3])
-        top.errorbar(t, y, yerr=s, fmt="o", ms=3.5, color=BLUE, mfc="white", lw=0.8, capsize=0,
-                     label="binned mean of the decays (±1σ)")
+        top.errorbar(
+            t,
+            y,
+            yerr=s,
+            fmt="o",
+            ms=3.5,
+            color=BLUE,
+            mfc="white",
+            lw=0.8,
+            capsize=0,
+            label="binned mean of the decays (±1σ)",
+        )
         label = "fit: ln R(t) = ln R(0) exp(−t / τ_d)"
         if isinstance(fit, Mapping) and "tau" in fit:
-            label += (f"\nln R(0) = {plus_minus_label(fit['amplitude'], fit['amplitude_sigma'])}, "
-                      f"τ_d = {plus_minus_label(fit['tau'] * 1e3, fit['tau_sigma'] * 1e3)} ms, "
-                      f"χ²/dof = {fit['chi2_reduced']:.2f} ({fit.get('dof', '?')} dof)")
+            label += (
+                f"\nln R(0) = {plus_minus_label(fit['amplitude'], fit['amplitude_sigma'])}, "
+                f"τ_d = {plus_minus_label(fit['tau'] * 1e3, fit['tau_sigma'] * 1e3)} ms, "
+                f"χ²/dof = {fit['chi2_reduced']:.2f} ({fit.get('dof', '?')} dof)"
+            )
         top.plot(t, model, color=VERMILLION, ls="--", lw=1.8, label=label)
         top.set_ylabel("ln R(t)")
         tau = estimate.values.get("tau_s")
@@ -190,13 +246,17 @@ def _truth_per_power(truth: Sequence[Mapping[str, Any]]) -> list[tuple[float, fl
     return sorted((p, float(np.mean(v))) for p, v in groups.items())
 
 
-def saturation_figure(estimate: Estimate | None, truth: Sequence[Mapping[str, Any]] | None, *,
-                      title: str) -> Figure | None:
+def saturation_figure(
+    estimate: Estimate | None, truth: Sequence[Mapping[str, Any]] | None, *, title: str
+) -> Figure | None:
     """beta versus pump power at each sweep step, with the fitted saturation curve."""
     if estimate is None or not isinstance(estimate.extra, Mapping):
         return None
-    points = [p for p in estimate.extra.get("points") or () if isinstance(p, Mapping)
-              and isinstance(p.get("pump_power_w"), (int, float)) and "beta" in p]
+    points = [
+        p
+        for p in estimate.extra.get("points") or ()
+        if isinstance(p, Mapping) and isinstance(p.get("pump_power_w"), (int, float)) and "beta" in p
+    ]
     fits = estimate.extra.get("fits") if isinstance(estimate.extra.get("fits"), Mapping) else {}
     step = estimate.extra.get("step") if isinstance(estimate.extra.get("step"), Mapping) else {}
     if points:
@@ -204,8 +264,11 @@ def saturation_figure(estimate: Estimate | None, truth: Sequence[Mapping[str, An
         points = [p for p in points if p.get("probe_wavelength_m") == wl0]
     open_power = step.get("pump_power_w")
     open_beta = estimate.values.get("beta")
-    has_open = (isinstance(open_power, (int, float)) and open_beta is not None
-                and all(p["pump_power_w"] != open_power for p in points))
+    has_open = (
+        isinstance(open_power, (int, float))
+        and open_beta is not None
+        and all(p["pump_power_w"] != open_power for p in points)
+    )
     if not points and not has_open:
         return None
     with rc_context(RC):
@@ -215,28 +278,63 @@ def saturation_figure(estimate: Estimate | None, truth: Sequence[Mapping[str, An
             x = np.array([p["pump_power_w"] for p in points])
             y = np.array([p["beta"] for p in points])
             s = np.array([p.get("beta_sigma_noise", 0.0) for p in points])
-            ax.errorbar(x, y, yerr=s, fmt="o", ms=6, color=BLUE, capsize=3, lw=1.0,
-                        label="closed steps (±1σ noise: the fit's weights)")
+            ax.errorbar(
+                x,
+                y,
+                yerr=s,
+                fmt="o",
+                ms=6,
+                color=BLUE,
+                capsize=3,
+                lw=1.0,
+                label="closed steps (±1σ noise: the fit's weights)",
+            )
         if has_open:
-            ax.errorbar([open_power], [open_beta.value], yerr=[open_beta.sigma_noise], fmt="s", ms=7, mfc="white",
-                        color=ORANGE, capsize=3, label="last step, still open (not in the fit)")
+            ax.errorbar(
+                [open_power],
+                [open_beta.value],
+                yerr=[open_beta.sigma_noise],
+                fmt="s",
+                ms=7,
+                mfc="white",
+                color=ORANGE,
+                capsize=3,
+                label="last step, still open (not in the fit)",
+            )
         sat = fits.get("saturation")
         if isinstance(sat, Mapping) and isinstance(sat.get("curve"), Mapping):
             cx = np.asarray(sat["curve"]["pump_power_w"], float)
             cy = np.asarray(sat["curve"]["beta"], float)
-            bm = plus_minus_label(sat["beta_max"], math.hypot(sat["beta_max_sigma_noise"], sat["beta_max_sigma_systematic"]))
-            ps = plus_minus_label(sat["p_sat_w"], math.hypot(sat["p_sat_w_sigma_noise"], sat["p_sat_w_sigma_systematic"]))
-            ax.plot(cx, cy, color=VERMILLION, ls="--", lw=1.8,
-                    label=f"fit ({sat.get('model', '?')} sample): β_max = {bm}, P_sat = {ps} W, "
-                          f"χ²/dof = {sat.get('chi2_reduced', float('nan')):.2f}")
+            bm = plus_minus_label(
+                sat["beta_max"], math.hypot(sat["beta_max_sigma_noise"], sat["beta_max_sigma_systematic"])
+            )
+            ps = plus_minus_label(
+                sat["p_sat_w"], math.hypot(sat["p_sat_w_sigma_noise"], sat["p_sat_w_sigma_systematic"])
+            )
+            ax.plot(
+                cx,
+                cy,
+                color=VERMILLION,
+                ls="--",
+                lw=1.8,
+                label=f"fit ({sat.get('model', '?')} sample): β_max = {bm}, P_sat = {ps} W, "
+                f"χ²/dof = {sat.get('chi2_reduced', float('nan')):.2f}",
+            )
         else:
             why = fits.get("saturation_error") or "needs closed steps at 3 or more pump powers"
             ax.plot([], [], " ", label=f"no saturation fit: {plain(why)}")
         if truth:
             tp = _truth_per_power(truth)
             if tp:
-                ax.plot([p for p, _ in tp], [b for _, b in tp], "x", ms=8, mew=1.6, color=BLACK,
-                        label="simulator truth (per pump power)")
+                ax.plot(
+                    [p for p, _ in tp],
+                    [b for _, b in tp],
+                    "x",
+                    ms=8,
+                    mew=1.6,
+                    color=BLACK,
+                    label="simulator truth (per pump power)",
+                )
         rel = None
         if open_beta is not None and open_beta.value:
             rel = open_beta.sigma_systematic / abs(open_beta.value)
@@ -262,16 +360,22 @@ def spectrum_curve(spec: Mapping[str, Any], wavelengths: np.ndarray) -> np.ndarr
         raise ValueError("wavelengths: expected positive wavelengths in m")
     sg = float(spec["gaussian_fwhm_hz"]) / (2.0 * math.sqrt(2.0 * math.log(2.0)))
     gl = float(spec["lorentzian_fwhm_hz"]) / 2.0
-    return fitting.voigt_line(constants.c / lam, float(spec["peak_gain_change_per_m"]), float(spec["centre_hz"]),
-                              sg, gl)
+    return fitting.voigt_line(
+        constants.c / lam, float(spec["peak_gain_change_per_m"]), float(spec["centre_hz"]), sg, gl
+    )
 
 
 def spectrum_figure(estimate: Estimate | None, *, title: str) -> Figure | None:
     """The gain change at each probe wavelength, with the fitted Voigt line."""
     if estimate is None or not isinstance(estimate.extra, Mapping):
         return None
-    points = [p for p in estimate.extra.get("points") or () if isinstance(p, Mapping)
-              and isinstance(p.get("probe_wavelength_m"), (int, float)) and "gain_change_per_m" in p]
+    points = [
+        p
+        for p in estimate.extra.get("points") or ()
+        if isinstance(p, Mapping)
+        and isinstance(p.get("probe_wavelength_m"), (int, float))
+        and "gain_change_per_m" in p
+    ]
     if len({p["probe_wavelength_m"] for p in points}) < 2:
         return None
     fits = estimate.extra.get("fits") if isinstance(estimate.extra.get("fits"), Mapping) else {}
@@ -281,17 +385,32 @@ def spectrum_figure(estimate: Estimate | None, *, title: str) -> Figure | None:
     with rc_context(RC):
         fig = new_figure(9, 5.5)
         ax = fig.subplots()
-        ax.errorbar(lam * 1e9, y, yerr=s, fmt="o", ms=6, color=BLUE, capsize=3, lw=1.0,
-                    label="measured steps (±1σ noise)")
+        ax.errorbar(
+            lam * 1e9,
+            y,
+            yerr=s,
+            fmt="o",
+            ms=6,
+            color=BLUE,
+            capsize=3,
+            lw=1.0,
+            label="measured steps (±1σ noise)",
+        )
         spec = fits.get("spectrum")
         if isinstance(spec, Mapping):
             span = lam.max() - lam.min()
             grid = np.linspace(lam.min() - 0.05 * span, lam.max() + 0.05 * span, 400)
             curve = spectrum_curve(spec, grid)
             centre = plus_minus_label(spec["centre_m"] * 1e9, spec["centre_m_sigma"] * 1e9)
-            ax.plot(grid * 1e9, curve / 100.0, color=VERMILLION, ls="--", lw=1.8,
-                    label=f"Voigt fit: centre {centre} nm, FWHM {spec['voigt_fwhm_hz'] / 1e12:.3g} THz, "
-                          f"χ²/dof = {spec.get('chi2_reduced', float('nan')):.2f}")
+            ax.plot(
+                grid * 1e9,
+                curve / 100.0,
+                color=VERMILLION,
+                ls="--",
+                lw=1.8,
+                label=f"Voigt fit: centre {centre} nm, FWHM {spec['voigt_fwhm_hz'] / 1e12:.3g} THz, "
+                f"χ²/dof = {spec.get('chi2_reduced', float('nan')):.2f}",
+            )
             ax.axvline(spec["centre_m"] * 1e9, color=GREY, ls=":", lw=1.0)
         else:
             why = fits.get("spectrum_error") or "needs 5 or more probe wavelengths"

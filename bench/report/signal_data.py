@@ -99,8 +99,12 @@ class MinMaxDecimator:
     def _coarsen(self, factor: int) -> None:
         n = self.buckets
         m = -(-n // factor) * factor
-        for store, fill, reduce in ((self._min, np.inf, np.min), (self._max, -np.inf, np.max),
-                                    (self._sum, 0.0, np.sum), (self._count, 0, np.sum)):
+        for store, fill, reduce in (
+            (self._min, np.inf, np.min),
+            (self._max, -np.inf, np.max),
+            (self._sum, 0.0, np.sum),
+            (self._count, 0, np.sum),
+        ):
             for name, arr in store.items():
                 padded = np.full(m, fill, dtype=arr.dtype)
                 padded[:n] = arr
@@ -213,8 +217,14 @@ def reference_level(reader: Any, events: Iterable[Event], source: str = "detecto
 MIN_REFERENCE_FRACTION = 0.1
 
 
-def signal_trace(reader: Any, events: Sequence[Event], *, buckets: int = 800, source: str = "detector",
-                 duration: float | None = None) -> SignalData:
+def signal_trace(
+    reader: Any,
+    events: Sequence[Event],
+    *,
+    buckets: int = 800,
+    source: str = "detector",
+    duration: float | None = None,
+) -> SignalData:
     """Stream the run's detector blocks once into `MinMaxDecimator` (probe, reference, S, pump
     monitor) and read the pump output's on/off intervals from the pump's blocks.
 

@@ -58,16 +58,27 @@ def signals_figure(data: SignalData, *, title: str) -> Figure | None:
                 for d in data.darks:
                     ax.axvspan(d.t_start, d.t_end, facecolor="none", edgecolor=BLACK, hatch="..", lw=0.5)
         axes[-1].set_xlabel("run time t (s)")
-        handles = [Patch(facecolor=GREY, alpha=0.18, label="pump output on (driver)"),
-                   Patch(facecolor=GREY, alpha=0.6, label=f"min to max per {bucket} bucket"),
-                   Line2D([], [], color=GREY, lw=1.0, label="mean per bucket")]
+        handles = [
+            Patch(facecolor=GREY, alpha=0.18, label="pump output on (driver)"),
+            Patch(facecolor=GREY, alpha=0.6, label=f"min to max per {bucket} bucket"),
+            Line2D([], [], color=GREY, lw=1.0, label="mean per bucket"),
+        ]
         if data.darks:
-            handles.append(Patch(facecolor="none", edgecolor=BLACK, hatch="..", lw=0.5,
-                                 label="dark capture (probe blocked, no S)"))
+            handles.append(
+                Patch(
+                    facecolor="none",
+                    edgecolor=BLACK,
+                    hatch="..",
+                    lw=0.5,
+                    label="dark capture (probe blocked, no S)",
+                )
+            )
         fig.legend(handles=handles, loc="outside lower center", ncols=len(handles), frameon=False)
         note = "" if data.pump_on is not None else " (pump output state not recorded)"
-        fig.suptitle(f"Signals of run {plain(title)}: {trace.samples:,} samples in {trace.edges.size - 1} "
-                     f"buckets{note}")
+        fig.suptitle(
+            f"Signals of run {plain(title)}: {trace.samples:,} samples in {trace.edges.size - 1} "
+            f"buckets{note}"
+        )
     return fig
 
 

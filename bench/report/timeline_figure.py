@@ -64,11 +64,13 @@ def guard_segments(events: Sequence[Event], t_end: float) -> list[tuple[float, f
     return out
 
 
-def timeline_figure(events: Sequence[Event], t_end: float, trips: Sequence[Mapping[str, Any]], *,
-                    title: str) -> Figure:
+def timeline_figure(
+    events: Sequence[Event], t_end: float, trips: Sequence[Mapping[str, Any]], *, title: str
+) -> Figure:
     """Events on the time axis, one row per kind, with the guard's state as a band on top."""
-    rows = [r for r in TIMELINE_ROWS if r[0] in ("guard requests", "trips")
-            or any(e.kind in r[1] for e in events)]
+    rows = [
+        r for r in TIMELINE_ROWS if r[0] in ("guard requests", "trips") or any(e.kind in r[1] for e in events)
+    ]
     t_end = max([t_end, *(e.t for e in events)] or [1.0])
     with rc_context(RC):
         fig = new_figure(10, 1.6 + 0.42 * (len(rows) + 1))
@@ -77,26 +79,63 @@ def timeline_figure(events: Sequence[Event], t_end: float, trips: Sequence[Mappi
         band_y = n  # the top row
         for a, b, state in guard_segments(events, t_end):
             colour, hatch = STATE_STYLES[state]
-            ax.broken_barh([(a, b - a)], (band_y - 0.35, 0.7), facecolors=colour, edgecolor=BLACK, hatch=hatch,
-                           lw=0.6, alpha=0.9)
+            ax.broken_barh(
+                [(a, b - a)],
+                (band_y - 0.35, 0.7),
+                facecolors=colour,
+                edgecolor=BLACK,
+                hatch=hatch,
+                lw=0.6,
+                alpha=0.9,
+            )
             if (b - a) > 0.06 * t_end:
-                ax.text(0.5 * (a + b), band_y, state, ha="center", va="center", fontsize=8.5,
-                        bbox={"boxstyle": "round,pad=0.15", "fc": "white", "ec": "none", "alpha": 0.85})
+                ax.text(
+                    0.5 * (a + b),
+                    band_y,
+                    state,
+                    ha="center",
+                    va="center",
+                    fontsize=8.5,
+                    bbox={"boxstyle": "round,pad=0.15", "fc": "white", "ec": "none", "alpha": 0.85},
+                )
         for k, (label, kinds, marker, colour) in enumerate(rows):
             y = n - 1 - k
             evs = [e for e in events if e.kind in kinds]
             if label == "guard requests":
                 acc = [e.t for e in evs if (e.data or {}).get("accepted", True)]
                 ref = [e.t for e in evs if not (e.data or {}).get("accepted", True)]
-                ax.plot(acc, [y] * len(acc), marker, ls="none", color=colour, ms=6, mfc="white",
-                        label="guard transition")
+                ax.plot(
+                    acc,
+                    [y] * len(acc),
+                    marker,
+                    ls="none",
+                    color=colour,
+                    ms=6,
+                    mfc="white",
+                    label="guard transition",
+                )
                 if ref:
-                    ax.plot(ref, [y] * len(ref), "x", ls="none", color=VERMILLION, ms=7, mew=1.5,
-                            label="refused request")
+                    ax.plot(
+                        ref,
+                        [y] * len(ref),
+                        "x",
+                        ls="none",
+                        color=VERMILLION,
+                        ms=7,
+                        mew=1.5,
+                        label="refused request",
+                    )
             else:
                 ts = [e.t for e in evs]
-                ax.plot(ts, [y] * len(ts), marker, ls="none", color=colour, ms=7, mfc=colour if marker != "o"
-                        else "white")
+                ax.plot(
+                    ts,
+                    [y] * len(ts),
+                    marker,
+                    ls="none",
+                    color=colour,
+                    ms=7,
+                    mfc=colour if marker != "o" else "white",
+                )
         trip_row = n - 2  # rows[1] is the trips row
         for k, tr in enumerate(trips):
             t = float(tr["t"])
@@ -104,19 +143,33 @@ def timeline_figure(events: Sequence[Event], t_end: float, trips: Sequence[Mappi
             ax.axvline(t, color=VERMILLION, ls="--", lw=1.0)
             if k >= MAX_TRIP_LABELS:
                 continue
-            text = f"trip {k + 1}" + (f", latency {lat * 1e3:.1f} ms" if isinstance(lat, (int, float)) else "")
+            text = f"trip {k + 1}" + (
+                f", latency {lat * 1e3:.1f} ms" if isinstance(lat, (int, float)) else ""
+            )
             # alternate above and below the row, so that close trips stay readable
             dy = 0.3 if k % 2 == 0 else -0.3
-            ax.annotate(plain(text), (t, trip_row + dy), xytext=(4, 0), textcoords="offset points", fontsize=8.5,
-                        va="center", color=BLACK,
-                        bbox={"boxstyle": "round,pad=0.15", "fc": "white", "ec": VERMILLION})
+            ax.annotate(
+                plain(text),
+                (t, trip_row + dy),
+                xytext=(4, 0),
+                textcoords="offset points",
+                fontsize=8.5,
+                va="center",
+                color=BLACK,
+                bbox={"boxstyle": "round,pad=0.15", "fc": "white", "ec": VERMILLION},
+            )
         ax.set_yticks(list(range(n + 1)), [*(r[0] for r in reversed(rows)), "guard state"])
         ax.set_ylim(-0.7, n + 0.7)
         ax.set_xlim(0, t_end * 1.02)
         ax.set_xlabel("run time t (s)")
         handles = [_state_patch(s) for s in STATE_STYLES]
-        ax.legend(handles=handles + ax.get_legend_handles_labels()[0], loc="upper center",
-                  bbox_to_anchor=(0.5, -0.22), ncols=6, framealpha=0.9)
+        ax.legend(
+            handles=handles + ax.get_legend_handles_labels()[0],
+            loc="upper center",
+            bbox_to_anchor=(0.5, -0.22),
+            ncols=6,
+            framealpha=0.9,
+        )
         fig.suptitle(f"Events of run {plain(title)}")
     return fig
 

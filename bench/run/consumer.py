@@ -214,8 +214,10 @@ class Consumer:
             self._apply_now(self._pending.popleft())
         if not est.mode_of(self.state.mode).closes_steps or self.unanalysed_blocks:
             return []
-        estimates = [dataclasses.replace(e, extra=MappingProxyType({**e.extra, "final": True}))
-                     for e in est.report(self.state)]
+        estimates = [
+            dataclasses.replace(e, extra=MappingProxyType({**e.extra, "final": True}))
+            for e in est.report(self.state)
+        ]
         self._estimates(estimates)
         return estimates
 
@@ -259,8 +261,11 @@ class Consumer:
             s = (probe - dp) / (ref - dr)
         k = max(1, min(block.n, int(round(LEVELS_SPAN / block.dt)) if block.dt > 0 else 1))
         with np.errstate(invalid="ignore"):
-            levels = {PROBE: float(np.mean(probe[-k:])), REFERENCE: float(np.mean(ref[-k:])),
-                      "transmission": float(np.mean(s[-k:]))}
+            levels = {
+                PROBE: float(np.mean(probe[-k:])),
+                REFERENCE: float(np.mean(ref[-k:])),
+                "transmission": float(np.mean(s[-k:])),
+            }
         with self._lock:  # 3. display history
             self.trace.add(block.times(), np.column_stack([probe, ref, s, mon]))
             self._levels = levels
@@ -277,12 +282,23 @@ class Consumer:
         else:
             text = f"detector: sample index went back from {expected} to {block.first_index}"
         # t: the first missing sample's time; data as a CSV import's gaps (first_index: after the gap)
-        self.record_event(Event(block.t0 - max(missing, 0) * block.dt, "gap", text,
-                                data={"source": block.source, "first_missing": expected, "missing": missing,
-                                      "first_index": block.first_index, "seq": block.seq}))
+        self.record_event(
+            Event(
+                block.t0 - max(missing, 0) * block.dt,
+                "gap",
+                text,
+                data={
+                    "source": block.source,
+                    "first_missing": expected,
+                    "missing": missing,
+                    "first_index": block.first_index,
+                    "seq": block.seq,
+                },
+            )
+        )
 
     def _pump_block(self, block: Block) -> None:
-        # (the guard judges pump readings in the reader's thread: `bench.safety.bench_checks`)
+        # (the guard judges pump readings in the reader's thread: `bench.safety.guard_checks`)
         row = block.data[-1]
         with self._lock:
             self._pump = {c: float(v) for c, v in zip(block.channels, row)}
@@ -293,11 +309,23 @@ class Consumer:
         if not status.ok or status.detail != "recovered":
             self.faults += 0 if status.ok else 1
             self.last_fault = f"{status.source}: {status.detail}"
-            self.record_event(Event(status.t, "fault", f"{status.source}: {status.detail}",
-                                    data={"source": status.source, "ok": status.ok, "lost": status.lost}))
+            self.record_event(
+                Event(
+                    status.t,
+                    "fault",
+                    f"{status.source}: {status.detail}",
+                    data={"source": status.source, "ok": status.ok, "lost": status.lost},
+                )
+            )
         elif status.ok:
-            self.record_event(Event(status.t, "fault", f"{status.source}: communication recovered",
-                                    data={"source": status.source, "ok": True}))
+            self.record_event(
+                Event(
+                    status.t,
+                    "fault",
+                    f"{status.source}: communication recovered",
+                    data={"source": status.source, "ok": True},
+                )
+            )
 
     def _estimates(self, estimates: list[Estimate]) -> None:
         if not estimates:
@@ -316,8 +344,10 @@ class Consumer:
 
     def _remember(self, block: Block) -> None:
         self._recent.append(block)
-        while (len(self._recent) > RECENT_MIN_BLOCKS
-               and self._recent[-1].t_end - self._recent[0].t_end > RECENT_SECONDS):
+        while (
+            len(self._recent) > RECENT_MIN_BLOCKS
+            and self._recent[-1].t_end - self._recent[0].t_end > RECENT_SECONDS
+        ):
             self._recent.popleft()
 
     # -- controls -------------------------------------------------------------------------
@@ -345,8 +375,14 @@ class Consumer:
         data = dict(control.data)
         text = control.kind
         if control.kind == "dark" and "probe_v" in data:  # levels measured apart and given
-            dark = est.Dark(float(data["probe_v"]), float(data.get("probe_sigma_v", 0.0)), float(data["reference_v"]),
-                            float(data.get("reference_sigma_v", 0.0)), int(data.get("n_samples", 0)), control.t)
+            dark = est.Dark(
+                float(data["probe_v"]),
+                float(data.get("probe_sigma_v", 0.0)),
+                float(data["reference_v"]),
+                float(data.get("reference_sigma_v", 0.0)),
+                int(data.get("n_samples", 0)),
+                control.t,
+            )
             self.state = est.with_dark(self.state, dark)
             text = f"dark given: probe {dark.probe * 1e3:.4g} mV, reference {dark.reference * 1e3:.4g} mV"
         elif control.kind in ("dark", "baseline"):
@@ -355,21 +391,32 @@ class Consumer:
             blocks = [b for b in blocks if b is not None and b.n > 0]
             if not blocks:
                 self.procedure_results.append((control.kind, False, "no detector samples in the window"))
-                self.record_event(Event(control.t, "procedure", f"{control.kind} capture failed: no detector "
-                                        f"samples between {t0:.3f} s and {t1:.3f} s", control.who,
-                                        data={**data, "control": control.kind, "ok": False,
-                                              "before_seq": before_seq}))
+                self.record_event(
+                    Event(
+                        control.t,
+                        "procedure",
+                        f"{control.kind} capture failed: no detector "
+                        f"samples between {t0:.3f} s and {t1:.3f} s",
+                        control.who,
+                        data={**data, "control": control.kind, "ok": False, "before_seq": before_seq},
+                    )
+                )
                 return
             try:
                 text = self._capture(control.kind, blocks)
             except ValueError as exc:  # the data cannot give a dark or baseline: say so, go on
                 self.procedure_results.append((control.kind, False, str(exc)))
-                self.record_event(Event(control.t, "procedure", f"{control.kind} capture failed: {exc}",
-                                        control.who, data={**data, "control": control.kind, "ok": False,
-                                                           "before_seq": before_seq}))
+                self.record_event(
+                    Event(
+                        control.t,
+                        "procedure",
+                        f"{control.kind} capture failed: {exc}",
+                        control.who,
+                        data={**data, "control": control.kind, "ok": False, "before_seq": before_seq},
+                    )
+                )
                 return
         elif control.kind == "mode":
-
             mode = str(data["mode"])
             keep_dark, keep_base = self.state.dark, self.state.baseline
             self.state = est.new_state(self.params, mode, data.get("settings"))
@@ -377,12 +424,19 @@ class Consumer:
             text = f"mode {mode}"
         elif control.kind == "setting":
             self.state = est.with_setting(self.state, t=control.t, **data)
-            text = "setting " + ", ".join(f"{k}={v:g}" if isinstance(v, float) else f"{k}={v}"
-                                          for k, v in data.items())
+            text = "setting " + ", ".join(
+                f"{k}={v:g}" if isinstance(v, float) else f"{k}={v}" for k, v in data.items()
+            )
         self.procedure_results.append((control.kind, True, text))
-        self.record_event(Event(control.t, "procedure" if control.kind in ("dark", "baseline") else "setting",
-                                text, control.who,
-                                data={**data, "control": control.kind, "ok": True, "before_seq": before_seq}))
+        self.record_event(
+            Event(
+                control.t,
+                "procedure" if control.kind in ("dark", "baseline") else "setting",
+                text,
+                control.who,
+                data={**data, "control": control.kind, "ok": True, "before_seq": before_seq},
+            )
+        )
 
     def _capture(self, kind: str, blocks: list[Block]) -> str:
         """Capture a dark or a baseline from ``blocks``; the event text. ValueError if impossible."""
@@ -425,8 +479,14 @@ class Consumer:
             if (n, s) != self._reported_drops:
                 dn, ds = n - self._reported_drops[0], s - self._reported_drops[1]
                 self._reported_drops = (n, s)
-                self.record_event(Event(now_run, "drop", f"{dn} blocks ({ds} samples) dropped: queue full",
-                                        data={"blocks": dn, "samples": ds, "by_source": counts}))
+                self.record_event(
+                    Event(
+                        now_run,
+                        "drop",
+                        f"{dn} blocks ({ds} samples) dropped: queue full",
+                        data={"blocks": dn, "samples": ds, "by_source": counts},
+                    )
+                )
         if self.store is not None:
             self.store.flush_if_due()
 
@@ -481,8 +541,15 @@ def _slice(block: Block, t0: float, t1: float) -> Block | None:
         return None
     if i0 == 0 and i1 == block.n:
         return block
-    return Block(block.source, block.seq, block.t0 + i0 * block.dt, block.dt, block.first_index + i0,
-                 block.channels, block.data[i0:i1])
+    return Block(
+        block.source,
+        block.seq,
+        block.t0 + i0 * block.dt,
+        block.dt,
+        block.first_index + i0,
+        block.channels,
+        block.data[i0:i1],
+    )
 
 
 def _file_size(path) -> int | None:

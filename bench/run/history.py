@@ -116,7 +116,9 @@ class EstimateView:
 class EstimateHistory:
     """The latest ``capacity`` estimates of a few keys (value and sigma), oldest first."""
 
-    def __init__(self, keys: tuple[str, ...] = ("beta", "gain_db", "ln_ratio", "tau_s"), capacity: int = 2000):
+    def __init__(
+        self, keys: tuple[str, ...] = ("beta", "gain_db", "ln_ratio", "tau_s"), capacity: int = 2000
+    ):
         self.keys = tuple(keys)
         self.capacity = int(capacity)
         self._t = np.full(self.capacity, np.nan)

@@ -64,7 +64,9 @@ class DarkGiven:
         if self.window is not None:
             a, b = self.window
             if not (math.isfinite(a) and math.isfinite(b) and b > a):
-                raise ValueError(f"dark: window {self.window!r} is not a time span start:end with end after start")
+                raise ValueError(
+                    f"dark: window {self.window!r} is not a time span start:end with end after start"
+                )
 
 
 class _EventsAndEstimates:
@@ -98,25 +100,46 @@ def _window_part(block: Block, t0: float, t1: float) -> Block | None:
     if not keep.any():
         return None
     i0, i1 = int(np.argmax(keep)), int(len(keep) - np.argmax(keep[::-1]))
-    return Block(block.source, block.seq, float(t[i0]), block.dt, block.first_index + i0, block.channels,
-                 block.data[i0:i1])
+    return Block(
+        block.source,
+        block.seq,
+        float(t[i0]),
+        block.dt,
+        block.first_index + i0,
+        block.channels,
+        block.data[i0:i1],
+    )
 
 
 def _dark_from_window(reader: Any, dark: DarkGiven, t_offset: float, csv_name: str) -> est.Dark:
     a, b = (w - t_offset for w in dark.window)  # type: ignore[union-attr]
-    parts = [p for blk in reader.iter_blocks("detector", start=a, stop=b)
-             if (p := _window_part(blk, a, b)) is not None]
+    parts = [
+        p
+        for blk in reader.iter_blocks("detector", start=a, stop=b)
+        if (p := _window_part(blk, a, b)) is not None
+    ]
     if not parts:
-        raise ConfigError(f"--dark-window {dark.text}: no sample of {csv_name} lies in that time span "
-                          "(times as in the file's time column)")
+        raise ConfigError(
+            f"--dark-window {dark.text}: no sample of {csv_name} lies in that time span "
+            "(times as in the file's time column)"
+        )
     try:
         return est.capture_dark(parts)
     except ValueError as exc:
         raise ConfigError(f"--dark-window {dark.text}: {exc}") from None
 
 
-def analyse(writer: Any, reader: Any, params: EstimatorParams, mode: str, *, dark: DarkGiven | None,
-            first_on: float | None, t_offset: float, csv_name: str) -> list[Estimate]:
+def analyse(
+    writer: Any,
+    reader: Any,
+    params: EstimatorParams,
+    mode: str,
+    *,
+    dark: DarkGiven | None,
+    first_on: float | None,
+    t_offset: float,
+    csv_name: str,
+) -> list[Estimate]:
     """Run the stored detector blocks of ``reader`` through a consumer that stores its events and
     estimates with ``writer`` (the run's live analysis); returns the final report.
 
@@ -129,9 +152,14 @@ def analyse(writer: Any, reader: Any, params: EstimatorParams, mode: str, *, dar
         data: dict[str, Any]
         if dark.window is not None:
             d = _dark_from_window(reader, dark, t_offset, csv_name)
-            data = {"probe_v": d.probe, "reference_v": d.reference, "probe_sigma_v": d.probe_sigma,
-                    "reference_sigma_v": d.reference_sigma, "window_file_s": list(dark.window),
-                    "n_samples": d.n_samples}
+            data = {
+                "probe_v": d.probe,
+                "reference_v": d.reference,
+                "probe_sigma_v": d.probe_sigma,
+                "reference_sigma_v": d.reference_sigma,
+                "window_file_s": list(dark.window),
+                "n_samples": d.n_samples,
+            }
             end = dark.window[1] - t_offset
             if first_on is None or end <= first_on:
                 base_start = end
@@ -141,8 +169,11 @@ def analyse(writer: Any, reader: Any, params: EstimatorParams, mode: str, *, dar
     pending_baseline = first_on is not None
     for block in reader.iter_blocks("detector"):
         if pending_baseline and block.t0 >= first_on - 0.5 * block.dt:
-            consumer.apply(Control("baseline", block.t0, {"t_start": base_start, "t_end": block.t0 - 0.5 * block.dt},
-                                   WHO))
+            consumer.apply(
+                Control(
+                    "baseline", block.t0, {"t_start": base_start, "t_end": block.t0 - 0.5 * block.dt}, WHO
+                )
+            )
             pending_baseline = False
         consumer.process(block)
     final = est.report(consumer.state)

@@ -33,8 +33,9 @@ def needs_simulator(resources: Mapping[str, str]) -> bool:
     return any(r == SIMULATED for r in resources.values())
 
 
-def make_simulator(cfg: BenchConfig, *, speed: float, faults: tuple[str, ...], seed: int | None,
-                   in_process: bool):
+def make_simulator(
+    cfg: BenchConfig, *, speed: float, faults: tuple[str, ...], seed: int | None, in_process: bool
+):
     """The simulated bench, not yet started (enter it as a context manager): in this process, or
     (the default for runs) in a process of its own."""
     if not in_process:
@@ -50,15 +51,22 @@ def simulated_resources(resources: Mapping[str, str], sim) -> dict[str, str]:
     return {role: (sim.resources[role] if r == SIMULATED else r) for role, r in resources.items()}
 
 
-def open_instruments(cfg: BenchConfig, resources: Mapping[str, str], instruments: dict[str, Any],
-                     identities: dict[str, str], on_event: Callable[[Event], None]) -> None:
+def open_instruments(
+    cfg: BenchConfig,
+    resources: Mapping[str, str],
+    instruments: dict[str, Any],
+    identities: dict[str, str],
+    on_event: Callable[[Event], None],
+) -> None:
     """Open every configured instrument that has a resource through the driver registry, ask
     its identity and empty its error queue (what it holds is from before this run; noted as an
     event through ``on_event``). Fills ``instruments`` and ``identities`` by role."""
     for role, inst in cfg.instruments.items():
         if role not in resources:
             continue
-        driver = open_instrument(role, inst.driver, resources[role], inst.profile, inst.timeout, dict(inst.options))
+        driver = open_instrument(
+            role, inst.driver, resources[role], inst.profile, inst.timeout, dict(inst.options)
+        )
         instruments[role] = driver
         try:
             identities[role] = str(driver.identify())
@@ -76,16 +84,22 @@ def clear_error_queue(role: str, driver, on_event: Callable[[Event], None]) -> N
         raise MeasurementError(f"{role}: reading its error queue at start failed ({exc})") from exc
     if entries:
         listed = "; ".join(f"{e.code}, {e.text!r}" for e in entries)
-        on_event(Event(0.0, "run", f"{role}: error queue at start held (from before this run, "
-                       f"cleared): {listed}", data={"source": role,
-                                                    "errors": [[e.code, e.text] for e in entries]}))
+        on_event(
+            Event(
+                0.0,
+                "run",
+                f"{role}: error queue at start held (from before this run, cleared): {listed}",
+                data={"source": role, "errors": [[e.code, e.text] for e in entries]},
+            )
+        )
 
 
 def open_truth_connection(cfg: BenchConfig, sim):
     """A detector connection of its own to the simulator, for its truth queries."""
     inst = cfg.instruments["detector"]
-    return open_instrument("detector", inst.driver, sim.resources["detector"], inst.profile,
-                           inst.timeout, dict(inst.options))
+    return open_instrument(
+        "detector", inst.driver, sim.resources["detector"], inst.profile, inst.timeout, dict(inst.options)
+    )
 
 
 def close_instruments(instruments: Mapping[str, Any], sim) -> None:

@@ -54,7 +54,7 @@ from bench.run.readers import (
 )
 from bench.run.truth_poller import poll_truth
 from bench.safety import checklist
-from bench.safety.bench_checks import BenchChecks
+from bench.safety.guard_checks import GuardChecks
 from bench.store import RunWriter
 
 log = logging.getLogger(__name__)
@@ -74,8 +74,6 @@ MIN_BLOCK = 0.01
 
 #: Queue length in blocks; at 64k sample sets per block this is several seconds of data.
 QUEUE_BLOCKS = 256
-
-
 
 
 class Measurement:
@@ -115,7 +113,7 @@ class Measurement:
         self.instruments: dict[str, Any] = {}
         self.identities: dict[str, str] = {}
         self.store = None
-        self.checks = None  # the guard: monitor, guarded pump and checks (bench.safety.bench_checks)
+        self.checks = None  # the guard: monitor, guarded pump and checks (bench.safety.guard_checks)
         self.guarded_pump = None
         self.monitor = None
         self.consumer: Consumer | None = None
@@ -161,8 +159,9 @@ class Measurement:
         sys.setswitchinterval(SWITCH_INTERVAL)
         resources = configured_resources(cfg)
         if needs_simulator(resources):
-            self.sim = make_simulator(cfg, speed=self.speed, faults=self.faults, seed=self.seed,
-                                      in_process=self.sim_in_process)
+            self.sim = make_simulator(
+                cfg, speed=self.speed, faults=self.faults, seed=self.seed, in_process=self.sim_in_process
+            )
             self.sim.__enter__()
             resources = simulated_resources(resources, self.sim)
         # filled as they open: what opened before a failure is closed by `close`
@@ -171,38 +170,75 @@ class Measurement:
         shutter = self.instruments.get("shutter")
         self.clock = RunClock(self.speed)  # the run's time zero: instruments open, nothing read yet
         if self.record:
-            self.store = RunWriter.from_config(cfg, mode=self.mode, instruments=self.identities,
-                                               log_dir=self.log_dir,
-                                               meta={"speed": self.speed, "faults": list(self.faults)})
-            self.store.set_meta(estimator_mode=self.mode, estimator_settings=self.settings,
-                                bench_overrides=dict(cfg.overrides))
+            self.store = RunWriter.from_config(
+                cfg,
+                mode=self.mode,
+                instruments=self.identities,
+                log_dir=self.log_dir,
+                meta={"speed": self.speed, "faults": list(self.faults)},
+            )
+            self.store.set_meta(
+                estimator_mode=self.mode,
+                estimator_settings=self.settings,
+                bench_overrides=dict(cfg.overrides),
+            )
             if self.operator:
                 self.store.set_meta(operator=self.operator)
         # the guard: commands the pump output off at once
-        self.checks = BenchChecks(cfg, pump, shutter, self.clock, speed=self.speed, event_sink=self.control_q.put,
-                                  stop=self.stop_flag, mode=lambda: (self.mode, self.settings))
+        self.checks = GuardChecks(
+            cfg,
+            pump,
+            shutter,
+            self.clock,
+            speed=self.speed,
+            event_sink=self.control_q.put,
+            stop=self.stop_flag,
+            mode=lambda: (self.mode, self.settings),
+        )
         self.monitor, self.pump_access, self.guarded_pump = (
-            self.checks.monitor, self.checks.pump_access, self.checks.guarded_pump)
+            self.checks.monitor,
+            self.checks.pump_access,
+            self.checks.guarded_pump,
+        )
         detector = self.instruments["detector"]
         detector.configure()
         params = EstimatorParams.from_config(cfg)
         self.params = params
         self.checks.use_params(params)
-        # The guard's checks run in the reader threads (`BenchChecks.on_block`), not in the consumer.
+        # The guard's checks run in the reader threads (`GuardChecks.on_block`), not in the consumer.
         self.consumer = Consumer(
-            params, self.mode, self.settings, store=self.store, guarded_pump=self.guarded_pump,
-            now=self.clock.now, drop_totals=self.drops.totals,
+            params,
+            self.mode,
+            self.settings,
+            store=self.store,
+            guarded_pump=self.guarded_pump,
+            now=self.clock.now,
+            drop_totals=self.drops.totals,
         )
         self.consumer.extra["identities"] = dict(self.identities)
         rate = float(detector.rate_hz)
         # A fetch returns what is waiting, up to this: enough to catch up on a backlog at once.
         fetch = self.fetch_sets or int(min(65536, max(1024, rate * self.speed * 0.25)))
-        det_reader = DetectorReader(detector, self.data_q, self.clock, self.drops, self.stop_flag, max_sets=fetch,
-                                    min_block=self.min_block)
+        det_reader = DetectorReader(
+            detector,
+            self.data_q,
+            self.clock,
+            self.drops,
+            self.stop_flag,
+            max_sets=fetch,
+            min_block=self.min_block,
+        )
         # The pump's readings have a queue of their own, served first: a trip condition must not
         # wait behind a backlog of detector blocks.
-        pump_reader = PumpReader(pump, self.pump_q, self.clock, self.drops, self.stop_flag,
-                                 period=self.pump_poll, access=self.pump_access)
+        pump_reader = PumpReader(
+            pump,
+            self.pump_q,
+            self.clock,
+            self.drops,
+            self.stop_flag,
+            period=self.pump_poll,
+            access=self.pump_access,
+        )
         self.readers = [det_reader, pump_reader]
         for r in self.readers:
             r.on_block = self.checks.on_block
@@ -211,9 +247,18 @@ class Measurement:
         self._consumer_thread.start()
         self.monitor.started_at = self.clock.now()  # staleness counts from here
         det_reader.start_acquisition()
-        self.control_q.put(Event(self.clock.now(), "run", f"run started on {cfg.name}", self.operator or "gainbench",
-                                 data={"mode": self.mode, "speed": self.speed, "simulated": cfg.simulated}))
-        for event in override_events(cfg, self.clock.now(), self.operator or "gainbench"):  # --accept-lower-od
+        self.control_q.put(
+            Event(
+                self.clock.now(),
+                "run",
+                f"run started on {cfg.name}",
+                self.operator or "gainbench",
+                data={"mode": self.mode, "speed": self.speed, "simulated": cfg.simulated},
+            )
+        )
+        for event in override_events(
+            cfg, self.clock.now(), self.operator or "gainbench"
+        ):  # --accept-lower-od
             self.control_q.put(event)
         for r in self.readers:
             r.start()
@@ -224,8 +269,11 @@ class Measurement:
         gc.freeze()
         if self.sim is not None:
             self._truth_thread = threading.Thread(
-                target=poll_truth, name="truth", daemon=True,
-                args=(self.cfg, self.sim, self.readers[0], self.stop_flag, self.control_q.put))
+                target=poll_truth,
+                name="truth",
+                daemon=True,
+                args=(self.cfg, self.sim, self.readers[0], self.stop_flag, self.control_q.put),
+            )
             self._truth_thread.start()
 
     def close(self, reason: str = "stopped") -> None:
@@ -246,8 +294,12 @@ class Measurement:
                 self.guarded_pump.shutdown(reason=reason)
             except Exception:  # the guard logs loudly itself; closing must go on
                 log.exception("pump shutdown")
-        stop_readers(self.readers, self.stop_flag, timeout=5.0,
-                     on_stuck=lambda r: log.error("reader %s did not stop", r.name))
+        stop_readers(
+            self.readers,
+            self.stop_flag,
+            timeout=5.0,
+            on_stuck=lambda r: log.error("reader %s did not stop", r.name),
+        )
         if self._truth_thread is not None:
             self._truth_thread.join(2.0)
         if self.checks is not None:
@@ -262,18 +314,25 @@ class Measurement:
                 self._store_only.set()
                 self._consumer_thread.join(CLOSE_STORE_S)
             if self._consumer_thread.is_alive():
-                log.error("the consumer did not finish within %.0f s; the run file is closed without the "
-                          "blocks still queued", CLOSE_ANALYSE_S + CLOSE_STORE_S)
+                log.error(
+                    "the consumer did not finish within %.0f s; the run file is closed without the "
+                    "blocks still queued",
+                    CLOSE_ANALYSE_S + CLOSE_STORE_S,
+                )
         if self.store is not None:
             try:
                 if self.consumer is not None:
                     self.consumer.drain_events(self.control_q)
                     if self.consumer.unanalysed_blocks:
-                        self.consumer.record_event(Event(
-                            self.clock.now(), "run",
-                            f"{self.consumer.unanalysed_blocks} detector blocks stored at close without being "
-                            "analysed (the analysis was behind); replay analyses them",
-                            data={"unanalysed_blocks": self.consumer.unanalysed_blocks}))
+                        self.consumer.record_event(
+                            Event(
+                                self.clock.now(),
+                                "run",
+                                f"{self.consumer.unanalysed_blocks} detector blocks stored at close without being "
+                                "analysed (the analysis was behind); replay analyses them",
+                                data={"unanalysed_blocks": self.consumer.unanalysed_blocks},
+                            )
+                        )
                     self.consumer.record_event(Event(self.clock.now(), "run", f"run {reason}"))
                 self.store.close(reason=reason)
             except Exception:
@@ -312,8 +371,9 @@ class Measurement:
             log.exception("consumer failed; switching the pump off")
             if self.guarded_pump is not None:
                 with contextlib.suppress(Exception):
-                    self.guarded_pump.trip("the acquisition pipeline failed: " + repr(exc), "pipeline_failure",
-                                           self.clock.now())
+                    self.guarded_pump.trip(
+                        "the acquisition pipeline failed: " + repr(exc), "pipeline_failure", self.clock.now()
+                    )
             self.stop_flag.set()
 
     # -- state for displays -------------------------------------------------------------------
@@ -345,7 +405,9 @@ class Measurement:
 
     def wait_data_until(self, t: float, timeout: float | None = None) -> None:
         """Block until the consumer has processed detector data up to run-clock time ``t``."""
-        limit = timeout if timeout is not None else 5.0 + max(0.0, t - self.data_time()) / self.speed * 3 + 5.0
+        limit = (
+            timeout if timeout is not None else 5.0 + max(0.0, t - self.data_time()) / self.speed * 3 + 5.0
+        )
         deadline = time.monotonic() + limit
         while self.data_time() < t:
             self.check_alive()
@@ -353,8 +415,13 @@ class Measurement:
                 raise MeasurementError(f"no detector data up to t = {t:.3f} s after {limit:.1f} s of waiting")
             time.sleep(0.005)
 
-    def hold(self, seconds: float, should_stop: Callable[[], bool] | None = None,
-             on_tick: Callable[[], None] | None = None, tick: float = 1.0) -> None:
+    def hold(
+        self,
+        seconds: float,
+        should_stop: Callable[[], bool] | None = None,
+        on_tick: Callable[[], None] | None = None,
+        tick: float = 1.0,
+    ) -> None:
         """Let data flow for ``seconds`` of run-clock time."""
         end = self.clock.now() + seconds
         next_tick = time.monotonic() + tick
@@ -372,8 +439,10 @@ class Measurement:
         """Close the probe shutter, take ``seconds`` of dark, open it again."""
         shutter = self.instruments.get("shutter")
         if shutter is None:
-            raise MeasurementError("capture dark: no shutter is configured to block the probe; "
-                                   "block it by hand and use a bench file with a shutter, or skip the dark")
+            raise MeasurementError(
+                "capture dark: no shutter is configured to block the probe; "
+                "block it by hand and use a bench file with a shutter, or skip the dark"
+            )
         shutter.close_shutter("probe")
         try:
             t0 = self.clock.now() + settle
@@ -404,7 +473,9 @@ class Measurement:
         while len(self.consumer.procedure_results) <= before:
             self.check_alive()
             if time.monotonic() > deadline:
-                raise MeasurementError(f"{control.kind}: the pipeline did not apply it within {timeout:.0f} s")
+                raise MeasurementError(
+                    f"{control.kind}: the pipeline did not apply it within {timeout:.0f} s"
+                )
             time.sleep(0.005)
         kind, ok, text = self.consumer.procedure_results[before]
         if not ok:
@@ -414,23 +485,34 @@ class Measurement:
     def set_mode(self, mode: str, settings: Mapping[str, Any] | None = None, who: str = "gainbench") -> None:
         self.mode = mode
         self.settings = dict(settings or {})
-        self.control_q.put(Control("mode", self.clock.now(), {"mode": mode, "settings": dict(settings or {})}, who))
+        self.control_q.put(
+            Control("mode", self.clock.now(), {"mode": mode, "settings": dict(settings or {})}, who)
+        )
 
     def set_current(self, current: float, who: str = "gainbench") -> None:
         """Set the pump current through the guard (which refuses values above its limit)."""
         assert self.guarded_pump is not None
         self.guarded_pump.set_current(current, who=who)
         power = self.cfg.pump.power_at(current)
-        self.control_q.put(Control("setting", self.clock.now(), {"pump_current": float(current),
-                                                                 "pump_power": float(power)}, who))
+        self.control_q.put(
+            Control(
+                "setting", self.clock.now(), {"pump_current": float(current), "pump_power": float(power)}, who
+            )
+        )
 
     def set_modulation(self, hz: float | None, who: str = "gainbench") -> None:
         pump = self.instruments["pump"]
         with stop_signals.shielded():  # never a pump exchange cut in half (see GuardedPump._run)
             pump.set_modulation(hz)
-        self.control_q.put(Event(self.clock.now(), "setting",
-                                 "pump modulation off" if hz is None else f"pump modulation {hz:g} Hz", who,
-                                 data={"modulation_hz": hz}))
+        self.control_q.put(
+            Event(
+                self.clock.now(),
+                "setting",
+                "pump modulation off" if hz is None else f"pump modulation {hz:g} Hz",
+                who,
+                data={"modulation_hz": hz},
+            )
+        )
 
     def set_operator(self, name: str) -> None:
         """The person running the measurement, once known (e.g. asked at the checklist)."""
@@ -455,7 +537,9 @@ class Measurement:
     def arm(self, answers, operator: str):
         """Judge the checklist answers; arm the guard if they pass. Returns the result."""
         assert self.guarded_pump is not None
-        result = checklist.evaluate(self.checklist_items(), answers, self.pump_readings(), operator, clock=self.clock.now)
+        result = checklist.evaluate(
+            self.checklist_items(), answers, self.pump_readings(), operator, clock=self.clock.now
+        )
         for ev in result.records:
             self.control_q.put(ev)
         if result.passed:
@@ -473,4 +557,3 @@ class Measurement:
     def acknowledge(self, who: str) -> None:
         assert self.guarded_pump is not None
         self.guarded_pump.acknowledge(who)
-

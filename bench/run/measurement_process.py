@@ -47,10 +47,22 @@ from bench.run.readers import RunClock
 log = logging.getLogger(__name__)
 
 #: What the dashboard may call on the bench process's `Measurement`.
-METHODS = frozenset({
-    "snapshot", "capture_dark", "capture_baseline", "set_modulation", "set_mode", "set_current", "emit",
-    "stop_emission", "acknowledge", "note", "pump_readings", "arm",
-})
+METHODS = frozenset(
+    {
+        "snapshot",
+        "capture_dark",
+        "capture_baseline",
+        "set_modulation",
+        "set_mode",
+        "set_current",
+        "emit",
+        "stop_emission",
+        "acknowledge",
+        "note",
+        "pump_readings",
+        "arm",
+    }
+)
 
 #: s to wait for the bench process to open the instruments, and to close everything.
 OPEN_TIMEOUT = 60.0
@@ -74,6 +86,7 @@ copyreg.pickle(MappingProxyType, lambda m: (read_only, (dict(m),)))
 # the bench process
 # ==============================================================================================
 
+
 class _Terminated(Exception):
     """SIGTERM reached the bench process: close as on a quit (pump off, run closed)."""
 
@@ -82,8 +95,14 @@ def _on_sigterm(signum, frame) -> None:
     raise _Terminated("terminated (SIGTERM)")
 
 
-def _serve(conn, bench_text: str, bench_source: str, overrides: dict[str, str] | None,
-           options: dict[str, Any], log_path: str | None) -> None:
+def _serve(
+    conn,
+    bench_text: str,
+    bench_source: str,
+    overrides: dict[str, str] | None,
+    options: dict[str, Any],
+    log_path: str | None,
+) -> None:
     """Main function of the bench process."""
     # Ctrl-C and a closed terminal (SIGHUP) reach the whole process group: the dashboard
     # handles them, and its end (the pipe closing) ends this process, pump off first.
@@ -141,8 +160,9 @@ def _serve(conn, bench_text: str, bench_source: str, overrides: dict[str, str] |
             if name == "info":
                 send((rid, True, _info(m)))
                 continue
-            threading.Thread(target=_call, args=(m, send, rid, name, args, kwargs), daemon=True,
-                             name=f"request-{name}").start()
+            threading.Thread(
+                target=_call, args=(m, send, rid, name, args, kwargs), daemon=True, name=f"request-{name}"
+            ).start()
     finally:
         signal.signal(signal.SIGTERM, signal.SIG_IGN)  # the pump goes off and the run closes first
         m.close(reason=reason)
@@ -166,10 +186,18 @@ def _info(m) -> dict[str, Any]:
         with contextlib.suppress(Exception):
             stats[role] = inst.stats
     gp = m.guarded_pump
-    return {"run_id": m.run_id, "run_path": None if m.run_path is None else str(m.run_path),
-            "clock_start": m.clock.start, "speed": m.speed, "open": m.is_open,
-            "guard_state": None if gp is None else gp.state, "trip_reason": None if gp is None else gp.trip_reason,
-            "stats": stats, "identities": dict(m.identities), "mode": m.mode}
+    return {
+        "run_id": m.run_id,
+        "run_path": None if m.run_path is None else str(m.run_path),
+        "clock_start": m.clock.start,
+        "speed": m.speed,
+        "open": m.is_open,
+        "guard_state": None if gp is None else gp.state,
+        "trip_reason": None if gp is None else gp.trip_reason,
+        "stats": stats,
+        "identities": dict(m.identities),
+        "mode": m.mode,
+    }
 
 
 def _portable(exc: BaseException) -> BaseException:
@@ -184,6 +212,7 @@ def _portable(exc: BaseException) -> BaseException:
 # ==============================================================================================
 # the dashboard's side
 # ==============================================================================================
+
 
 class _GuardView:
     """The guard as the latest answer from the bench process showed it (state, trip reason)."""
@@ -270,9 +299,18 @@ class RemoteMeasurement:
         with contextlib.suppress(OSError):
             self.bench_log.parent.mkdir(parents=True, exist_ok=True)
         self._process = ctx.Process(
-            target=_serve, name="gainbench-bench", daemon=False,
-            args=(theirs, self.cfg.text, self.cfg.source, dict(self.cfg.overrides) or None, self.options,
-                  str(self.bench_log)))
+            target=_serve,
+            name="gainbench-bench",
+            daemon=False,
+            args=(
+                theirs,
+                self.cfg.text,
+                self.cfg.source,
+                dict(self.cfg.overrides) or None,
+                self.options,
+                str(self.bench_log),
+            ),
+        )
         self._conn = mine
         self._process.start()
         theirs.close()
@@ -293,8 +331,9 @@ class RemoteMeasurement:
             rid, ok, value = mine.recv()
         except (EOFError, OSError) as exc:
             self._kill()
-            raise BenchProcessError(f"the bench process ended while opening the bench "
-                                    f"(see {self.bench_log})") from exc
+            raise BenchProcessError(
+                f"the bench process ended while opening the bench (see {self.bench_log})"
+            ) from exc
         if not ok:
             self._process.join(CLOSE_TIMEOUT)
             raise value
@@ -379,9 +418,12 @@ class RemoteMeasurement:
                 slot[1], slot[2] = ok, value
                 slot[0].set()
         code = self._process.exitcode if self._process is not None else None
-        self._gone = ("the bench process has ended" + ("" if self._closed else
-                      f" unexpectedly (exit code {code}); the pump may still be on: switch it off at the driver "
-                      f"and see {self.bench_log}"))
+        self._gone = "the bench process has ended" + (
+            ""
+            if self._closed
+            else f" unexpectedly (exit code {code}); the pump may still be on: switch it off at the driver "
+            f"and see {self.bench_log}"
+        )
         with self._pending_lock:
             slots, self._pending = list(self._pending.values()), {}
         for slot in slots:

@@ -70,8 +70,14 @@ def _check_simulated_instruments(cfg: BenchConfig) -> None:
     except DeviceError as exc:
         detail = exc.detail or str(exc)
         option = detail.split(":")[0].strip()
-        key = next((f"instruments.{role}.options.{option}" for role, inst in cfg.instruments.items()
-                    if option in inst.options), "instruments")
+        key = next(
+            (
+                f"instruments.{role}.options.{option}"
+                for role, inst in cfg.instruments.items()
+                if option in inst.options
+            ),
+            "instruments",
+        )
         raise ConfigError(f"{_where(cfg, key)}: the simulated instrument refuses it: {detail}") from None
 
 
@@ -104,8 +110,10 @@ def lowered_eyewear(cfg: BenchConfig) -> list[str]:
     try:
         written = load_bench_text(cfg.text, cfg.source, base_dir=cfg.base_dir)
     except ConfigError as exc:
-        raise ConfigError(f"{exc} (in the bench file as written, before --set: the eyewear OD it requires is "
-                          "what the overrides are checked against, so fix the file itself)") from None
+        raise ConfigError(
+            f"{exc} (in the bench file as written, before --set: the eyewear OD it requires is "
+            "what the overrides are checked against, so fix the file itself)"
+        ) from None
     before = required_ods(written)
     lowered = _lowered(before, required_ods(cfg))
     if not lowered:
@@ -116,8 +124,10 @@ def lowered_eyewear(cfg: BenchConfig) -> list[str]:
     out = []
     for laser, (wl0, od0), (wl1, od1) in lowered:
         now = "cannot be computed" if od1 is None else f"OD {od1} at {wl1 * 1e9:g} nm"
-        out.append(f"--set {given} lowers the eyewear OD required against the {laser} from OD {od0} at "
-                   f"{wl0 * 1e9:g} nm (the bench file as written) to {now}")
+        out.append(
+            f"--set {given} lowers the eyewear OD required against the {laser} from OD {od0} at "
+            f"{wl0 * 1e9:g} nm (the bench file as written) to {now}"
+        )
     return out
 
 
@@ -139,10 +149,14 @@ def _ods_with(cfg: BenchConfig, overrides: dict[str, str]) -> dict[str, tuple[fl
 
 def add_run_options(parser: argparse.ArgumentParser) -> None:
     """The option that confirms overrides lowering the eyewear OD (for `record` and `live`)."""
-    parser.add_argument(ACCEPT_FLAG, action="store_true", dest="accept_lower_od",
-                        help="accept --set values that lower the eyewear OD the arming checklist requires "
-                             "(e.g. a smaller pump.slope_efficiency or a wider pump.beam_diameter); the run "
-                             "records that you did")
+    parser.add_argument(
+        ACCEPT_FLAG,
+        action="store_true",
+        dest="accept_lower_od",
+        help="accept --set values that lower the eyewear OD the arming checklist requires "
+        "(e.g. a smaller pump.slope_efficiency or a wider pump.beam_diameter); the run "
+        "records that you did",
+    )
 
 
 def load_for_run(args: argparse.Namespace, err: TextIO | None = None) -> BenchConfig:
@@ -156,8 +170,10 @@ def load_for_run(args: argparse.Namespace, err: TextIO | None = None) -> BenchCo
     check_instruments(cfg)
     lowered = lowered_eyewear(cfg)
     if lowered and not getattr(args, "accept_lower_od", False):
-        raise ConfigError("; ".join(lowered) + f". Weaker eyewear would pass the arming checklist. Fix the "
-                          f"bench file, or give {ACCEPT_FLAG} if these values are right (the run records it)")
+        raise ConfigError(
+            "; ".join(lowered) + f". Weaker eyewear would pass the arming checklist. Fix the "
+            f"bench file, or give {ACCEPT_FLAG} if these values are right (the run records it)"
+        )
     if lowered:
         out = err if err is not None else sys.stderr
         for text in lowered:
@@ -171,6 +187,13 @@ def override_events(cfg: BenchConfig, t: float, who: str) -> list[Event]:
         lowered = lowered_eyewear(cfg)
     except GainbenchError as exc:  # a run started on it was checked already; never stop it here
         lowered = [f"the eyewear OD of the bench file as written could not be compared ({exc})"]
-    return [Event(t, "setting", f"WARNING: {text}; accepted with {ACCEPT_FLAG}", who,
-                  data={"overrides": dict(cfg.overrides), "accepted_with": ACCEPT_FLAG})
-            for text in lowered]
+    return [
+        Event(
+            t,
+            "setting",
+            f"WARNING: {text}; accepted with {ACCEPT_FLAG}",
+            who,
+            data={"overrides": dict(cfg.overrides), "accepted_with": ACCEPT_FLAG},
+        )
+        for text in lowered
+    ]

@@ -149,7 +149,9 @@ class Reader(threading.Thread):
                 continue
             except Exception as exc:  # a bug or an unexpected library error: report and stop reading
                 self.error = exc
-                self.put(CommStatus(self.source, False, self.clock.now(), f"reader stopped: {exc!r}", lost=True))
+                self.put(
+                    CommStatus(self.source, False, self.clock.now(), f"reader stopped: {exc!r}", lost=True)
+                )
                 log.exception("%s reader stopped", self.source)
                 return
             if self.failures:
@@ -210,8 +212,14 @@ class DetectorReader(Reader):
     def read_once(self) -> Block | None:
         result = self.digitiser.fetch(self.max_sets)
         if result.lost > self.lost_reported:
-            self.put(CommStatus(self.source, True, self.clock.now(),
-                                f"instrument buffer overflow: {result.lost - self.lost_reported} sample sets lost"))
+            self.put(
+                CommStatus(
+                    self.source,
+                    True,
+                    self.clock.now(),
+                    f"instrument buffer overflow: {result.lost - self.lost_reported} sample sets lost",
+                )
+            )
             self.lost_reported = result.lost
         if result.data.shape[0] == 0:
             return None
@@ -249,8 +257,9 @@ class PumpReader(Reader):
 
     source = "pump"
 
-    def __init__(self, pump, out, clock, drops, stop, *, period: float = 0.02,
-                 access: PumpAccess | None = None):
+    def __init__(
+        self, pump, out, clock, drops, stop, *, period: float = 0.02, access: PumpAccess | None = None
+    ):
         super().__init__(out, clock, drops, stop)
         self.pump = pump
         self.period = float(period)
@@ -268,11 +277,16 @@ class PumpReader(Reader):
         t = self.clock.now()  # stamped before the query: latencies count from here
         status = self.pump.read_status()
         values = {
-            INTERLOCK: status["interlock"], PUMP_ON: status["output_state"],
-            PUMP_CURRENT: status["measured_current"], PUMP_SETPOINT: status["current_setpoint"],
+            INTERLOCK: status["interlock"],
+            PUMP_ON: status["output_state"],
+            PUMP_CURRENT: status["measured_current"],
+            PUMP_SETPOINT: status["current_setpoint"],
             MOUNT_TEMP: status["mount_temperature"],
         }
-        row = [(1.0 if values[c] else 0.0) if isinstance(values[c], bool) else float(values[c]) for c in PUMP_CHANNELS]
+        row = [
+            (1.0 if values[c] else 0.0) if isinstance(values[c], bool) else float(values[c])
+            for c in PUMP_CHANNELS
+        ]
         block = Block(self.source, self.seq, t, 0.0, -1, PUMP_CHANNELS, np.array([row], dtype=np.float64))
         self.seq += 1
         return block
@@ -287,8 +301,12 @@ class PumpReader(Reader):
             log.info("pump reconnect failed: %s", exc)
 
 
-def stop_readers(readers: list[Reader], stop: threading.Event, timeout: float = 5.0,
-                 on_stuck: Callable[[Reader], None] | None = None) -> None:
+def stop_readers(
+    readers: list[Reader],
+    stop: threading.Event,
+    timeout: float = 5.0,
+    on_stuck: Callable[[Reader], None] | None = None,
+) -> None:
     stop.set()
     deadline = time.monotonic() + timeout
     for r in readers:

@@ -192,7 +192,7 @@ def replay(
             # A run closed while its analysis was behind stored its last blocks unanalysed: the
             # live estimates are then a prefix of the replayed ones.
             unanalysed = any(e.kind == "run" and (e.data or {}).get("unanalysed_blocks") for e in events)
-            mine = results[:len(live)] if unanalysed and len(results) > len(live) else results
+            mine = results[: len(live)] if unanalysed and len(results) > len(live) else results
             if mine and mine[-1].extra.get("final") and not (live and live[-1].extra.get("final")):
                 mine = mine[:-1]  # recorded before runs closed a sweep's open step at their end
             result.max_relative_difference, result.compared = compare(live, mine)

@@ -38,8 +38,15 @@ class SimulatorError(GainbenchError):
 class SimulatorProcess:
     """``gainbench sim serve`` as a child process (context manager)."""
 
-    def __init__(self, cfg: BenchConfig, *, speed: float = 1.0, faults=(), seed: int | None = None,
-                 start_timeout: float = 60.0):
+    def __init__(
+        self,
+        cfg: BenchConfig,
+        *,
+        speed: float = 1.0,
+        faults=(),
+        seed: int | None = None,
+        start_timeout: float = 60.0,
+    ):
         self.cfg = cfg
         self.speed = float(speed)
         self.faults = tuple(str(f) for f in faults)
@@ -71,8 +78,19 @@ class SimulatorProcess:
         bench.write_text(self.cfg.text, encoding="utf-8")
         # -P: the current directory is not put on sys.path, so a folder named "bench" there is never
         # imported in place of this package
-        cmd = [sys.executable, "-P", "-m", "bench", "sim", "serve", "--config", str(bench), "--speed", repr(self.speed),
-               "--until-stdin-closes"]
+        cmd = [
+            sys.executable,
+            "-P",
+            "-m",
+            "bench",
+            "sim",
+            "serve",
+            "--config",
+            str(bench),
+            "--speed",
+            repr(self.speed),
+            "--until-stdin-closes",
+        ]
         if self.seed is not None:
             cmd += ["--seed", str(self.seed)]
         for f in self.faults:
@@ -84,8 +102,9 @@ class SimulatorProcess:
         env = dict(os.environ, PYTHONUNBUFFERED="1")
         # The child's standard input is a pipe nobody writes to: it closes when this process
         # ends, however it ends (even kill -9), and the simulator then stops by itself.
-        self._proc = subprocess.Popen(cmd, stdin=subprocess.PIPE, stdout=subprocess.PIPE, stderr=subprocess.PIPE,
-                                      text=True, env=env)
+        self._proc = subprocess.Popen(
+            cmd, stdin=subprocess.PIPE, stdout=subprocess.PIPE, stderr=subprocess.PIPE, text=True, env=env
+        )
         threading.Thread(target=self._collect_stderr, daemon=True, name="sim-stderr").start()
         wanted = {r for r in ROLES if r in self.cfg.instruments}
         deadline = time.monotonic() + self.start_timeout
@@ -97,7 +116,9 @@ class SimulatorProcess:
             if not line:
                 self._proc.wait(5)
                 detail = "".join(self._stderr[-20:]).strip()
-                raise SimulatorError(f"the simulated bench stopped at start (exit {self._proc.returncode}): {detail}")
+                raise SimulatorError(
+                    f"the simulated bench stopped at start (exit {self._proc.returncode}): {detail}"
+                )
             parts = line.split()
             if len(parts) == 2 and parts[0] in ROLES:
                 self.resources[parts[0]] = parts[1]
@@ -113,7 +134,9 @@ class SimulatorProcess:
         from drivers.registry import open_instrument
 
         inst = self.cfg.instruments[role]
-        return open_instrument(role, inst.driver, self.resources[role], inst.profile, inst.timeout, dict(inst.options))
+        return open_instrument(
+            role, inst.driver, self.resources[role], inst.profile, inst.timeout, dict(inst.options)
+        )
 
     def truth(self) -> dict[str, float]:
         """The simulator's true state now (``SIM:TRUTH?``); ``t`` is simulated s since start."""

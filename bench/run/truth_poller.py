@@ -20,8 +20,9 @@ log = logging.getLogger(__name__)
 TRUTH_NAMES = {"t": "sim_t", "pump_W": "pump_w"}
 
 
-def poll_truth(cfg: BenchConfig, sim, detector_reader, stop: threading.Event,
-               put: Callable[[TruthItem], None]) -> None:
+def poll_truth(
+    cfg: BenchConfig, sim, detector_reader, stop: threading.Event, put: Callable[[TruthItem], None]
+) -> None:
     """The simulator's truth about every 50 ms of real time until ``stop`` is set (a thread's
     target). Times become run-clock times through the detector reader's ``t_start``."""
     try:

@@ -55,11 +55,13 @@ MOUNT_TEMPERATURE_ITEM = "mount_temperature"
 CURRENT_LIMIT_ITEM = "current_limit"
 
 #: The yes/no confirmations: item id -> question.
-CONFIRMATIONS: Mapping[str, str] = MappingProxyType({
-    "beam_enclosed": "Is the beam path enclosed?",
-    "beam_dumps": "Are beam dumps in place for every beam leaving the sample (transmitted and reflected)?",
-    "warning_sign": "Is the laser warning sign or warning light at the entrance on?",
-})
+CONFIRMATIONS: Mapping[str, str] = MappingProxyType(
+    {
+        "beam_enclosed": "Is the beam path enclosed?",
+        "beam_dumps": "Are beam dumps in place for every beam leaving the sample (transmitted and reflected)?",
+        "warning_sign": "Is the laser warning sign or warning light at the entrance on?",
+    }
+)
 
 #: Keys of the readings `evaluate` uses (`read_pump` fills them).
 READ_INTERLOCK = "interlock_closed"
@@ -152,8 +154,10 @@ class ChecklistResult:
 
 def eyewear_id(wavelength: float) -> str:
     """Item id of the eyewear question at ``wavelength`` (m): ``"eyewear@976nm"`` (0.1 nm steps)."""
-    if isinstance(wavelength, bool) or not isinstance(wavelength, (int, float)) or not (
-        math.isfinite(wavelength) and wavelength > 0
+    if (
+        isinstance(wavelength, bool)
+        or not isinstance(wavelength, (int, float))
+        or not (math.isfinite(wavelength) and wavelength > 0)
     ):
         raise ValueError(f"wavelength: expected a positive wavelength in m, got {wavelength!r}")
     return f"eyewear@{round(wavelength * 1e9, 1):g}nm"
@@ -171,24 +175,30 @@ def checklist_items(cfg: BenchConfig) -> list[Item]:
     items.extend(_eyewear_items(cfg))
     items.extend(Item(key, question, CONFIRM) for key, question in CONFIRMATIONS.items())
     g, p = cfg.guard, cfg.pump
-    items.append(Item(
-        MOUNT_TEMPERATURE_ITEM,
-        f"The mount temperature is within {_k(g.mount_temperature_min)} to {_k(g.mount_temperature_max)} "
-        "(read from the pump driver)",
-        CHECK,
-        limits=MappingProxyType({"low": g.mount_temperature_min, "high": g.mount_temperature_max}),
-    ))
-    items.append(Item(
-        CURRENT_LIMIT_ITEM,
-        f"The pump current limit is at or below the diode's rating of {p.diode_current_rating:g} A "
-        "(read from the pump driver and the bench file)",
-        CHECK,
-        limits=MappingProxyType({
-            "rating": p.diode_current_rating,
-            "guard_max": g.max_current,
-            "pump_max": p.max_current,
-        }),
-    ))
+    items.append(
+        Item(
+            MOUNT_TEMPERATURE_ITEM,
+            f"The mount temperature is within {_k(g.mount_temperature_min)} to {_k(g.mount_temperature_max)} "
+            "(read from the pump driver)",
+            CHECK,
+            limits=MappingProxyType({"low": g.mount_temperature_min, "high": g.mount_temperature_max}),
+        )
+    )
+    items.append(
+        Item(
+            CURRENT_LIMIT_ITEM,
+            f"The pump current limit is at or below the diode's rating of {p.diode_current_rating:g} A "
+            "(read from the pump driver and the bench file)",
+            CHECK,
+            limits=MappingProxyType(
+                {
+                    "rating": p.diode_current_rating,
+                    "guard_max": g.max_current,
+                    "pump_max": p.max_current,
+                }
+            ),
+        )
+    )
     return items
 
 
@@ -220,32 +230,52 @@ def _eyewear_items(cfg: BenchConfig) -> list[Item]:
         power = sum(g[2] for g in group)
         diameter = min(g[3] for g in group)
         names = tuple(g[0] for g in group)
-        described = ", ".join(f"{g[0]} {_watts(g[2])}{(' ' + g[4]) if g[4] else ''}, {g[3] * 1e3:g} mm beam"
-                              for g in group)
+        described = ", ".join(
+            f"{g[0]} {_watts(g[2])}{(' ' + g[4]) if g[4] else ''}, {g[3] * 1e3:g} mm beam" for g in group
+        )
         nm = wavelength * 1e9
         notes = []
         if cfg.probe.kind == "pulsed" and "probe" in names:
-            notes.append("The probe is pulsed: this OD is for its average power only; pulsed exposure "
-                         "needs a separate evaluation by your LSO.")
+            notes.append(
+                "The probe is pulsed: this OD is for its average power only; pulsed exposure "
+                "needs a separate evaluation by your LSO."
+            )
         try:
             need = laser_safety.required_od(wavelength, power, diameter)
         except laser_safety.OutOfRangeError as exc:
             od = None
-            prompt = (f"Laser-safety eyewear at {nm:g} nm ({described}): gainbench cannot compute the OD "
-                      f"needed here ({exc.detail})")
-            notes.insert(0, "Arming is refused: this tool cannot check eyewear at this wavelength. Ask your "
-                            "laser safety officer.")
+            prompt = (
+                f"Laser-safety eyewear at {nm:g} nm ({described}): gainbench cannot compute the OD "
+                f"needed here ({exc.detail})"
+            )
+            notes.insert(
+                0,
+                "Arming is refused: this tool cannot check eyewear at this wavelength. Ask your "
+                "laser safety officer.",
+            )
         else:
             od = need.od_required
-            prompt = (f"Laser-safety eyewear at {nm:g} nm ({described}): enter the OD your eyewear is rated "
-                      f"for at {nm:g} nm; required: OD {od} or more")
-            notes.insert(0, f"OD {need.od_exact:.2f} exact for {need.exposure_time:g} s of direct viewing "
-                            f"({need.standard}).")
+            prompt = (
+                f"Laser-safety eyewear at {nm:g} nm ({described}): enter the OD your eyewear is rated "
+                f"for at {nm:g} nm; required: OD {od} or more"
+            )
+            notes.insert(
+                0,
+                f"OD {need.od_exact:.2f} exact for {need.exposure_time:g} s of direct viewing "
+                f"({need.standard}).",
+            )
         notes.append(laser_safety.caution_text())
-        items.append(Item(
-            eyewear_id(wavelength), prompt, EYEWEAR, wavelength=wavelength, required_od=od,
-            note="\n".join(notes), lasers=names,
-        ))
+        items.append(
+            Item(
+                eyewear_id(wavelength),
+                prompt,
+                EYEWEAR,
+                wavelength=wavelength,
+                required_od=od,
+                note="\n".join(notes),
+                lasers=names,
+            )
+        )
     return items
 
 
@@ -332,8 +362,10 @@ def _check_current(item: Item, readings: Mapping[str, object]) -> tuple[bool, st
     elif setpoint is None:
         problems.append(f"the current setpoint reading {value!r} is not a number")
     elif setpoint > min(guard_max, pump_max):
-        problems.append(f"the driver's current setpoint {setpoint:g} A is above the limit "
-                        f"{min(guard_max, pump_max):g} A of the bench file")
+        problems.append(
+            f"the driver's current setpoint {setpoint:g} A is above the limit "
+            f"{min(guard_max, pump_max):g} A of the bench file"
+        )
     limit = None
     if READ_CURRENT_LIMIT in readings:
         value, why = _reading(readings, READ_CURRENT_LIMIT, "the driver's current limit")
@@ -343,29 +375,37 @@ def _check_current(item: Item, readings: Mapping[str, object]) -> tuple[bool, st
         elif limit is None:
             problems.append(f"the driver's current limit reading {value!r} is not a number")
         elif limit > rating:
-            problems.append(f"the driver's current limit {limit:g} A is above the diode's rating {rating:g} A; "
-                            "set it at or below the rating")
+            problems.append(
+                f"the driver's current limit {limit:g} A is above the diode's rating {rating:g} A; "
+                "set it at or below the rating"
+            )
     seen = {"setpoint": setpoint, "driver_limit": limit}
     if problems:
         return False, "; ".join(problems), seen
     return True, f"current limits at or below the diode's rating {rating:g} A", seen
 
 
-_CHECKS: Mapping[str, Callable[[Item, Mapping[str, object]], tuple[bool, str, object]]] = MappingProxyType({
-    INTERLOCK_ITEM: _check_interlock,
-    MOUNT_TEMPERATURE_ITEM: _check_temperature,
-    CURRENT_LIMIT_ITEM: _check_current,
-})
+_CHECKS: Mapping[str, Callable[[Item, Mapping[str, object]], tuple[bool, str, object]]] = MappingProxyType(
+    {
+        INTERLOCK_ITEM: _check_interlock,
+        MOUNT_TEMPERATURE_ITEM: _check_temperature,
+        CURRENT_LIMIT_ITEM: _check_current,
+    }
+)
 
 
-def _judge_check(item: Item, answer: Answer | None, readings: Mapping[str, object]) -> tuple[bool, str, object]:
+def _judge_check(
+    item: Item, answer: Answer | None, readings: Mapping[str, object]
+) -> tuple[bool, str, object]:
     check = _CHECKS.get(item.id)
     if check is None:
         return False, f"no check is known for item {item.id!r}", None
     return check(item, readings)
 
 
-def _judge_confirm(item: Item, answer: Answer | None, readings: Mapping[str, object]) -> tuple[bool, str, object]:
+def _judge_confirm(
+    item: Item, answer: Answer | None, readings: Mapping[str, object]
+) -> tuple[bool, str, object]:
     if answer is None:
         return False, f"not answered: {item.prompt}", None
     if answer.value is True:
@@ -375,19 +415,33 @@ def _judge_confirm(item: Item, answer: Answer | None, readings: Mapping[str, obj
     return False, f"not a yes/no answer ({answer.value!r}): {item.prompt}", answer.value
 
 
-def _judge_eyewear(item: Item, answer: Answer | None, readings: Mapping[str, object]) -> tuple[bool, str, object]:
+def _judge_eyewear(
+    item: Item, answer: Answer | None, readings: Mapping[str, object]
+) -> tuple[bool, str, object]:
     nm = f"{item.wavelength * 1e9:g} nm" if item.wavelength else "this wavelength"
     if item.required_od is None:
-        return False, (f"the OD needed at {nm} could not be computed by this tool; eyewear there must be "
-                       "chosen with your laser safety officer"), None if answer is None else answer.value
+        return (
+            False,
+            (
+                f"the OD needed at {nm} could not be computed by this tool; eyewear there must be "
+                "chosen with your laser safety officer"
+            ),
+            None if answer is None else answer.value,
+        )
     if answer is None:
         return False, f"no eyewear OD given for {nm} (required: OD {item.required_od} or more)", None
     od = _number(answer.value)
     if od is None or od < 0:
         return False, f"the eyewear OD given for {nm} ({answer.value!r}) is not a number >= 0", answer.value
     if od < item.required_od:
-        return False, (f"eyewear OD {od:g} at {nm} is below the OD {item.required_od} required: use eyewear "
-                       f"rated OD {item.required_od} or more at {nm}"), od
+        return (
+            False,
+            (
+                f"eyewear OD {od:g} at {nm} is below the OD {item.required_od} required: use eyewear "
+                f"rated OD {item.required_od} or more at {nm}"
+            ),
+            od,
+        )
     return True, f"eyewear OD {od:g} at {nm} (OD {item.required_od} required)", od
 
 
@@ -443,7 +497,9 @@ def evaluate(
     refusals: list[str] = []
     records: list[Event] = []
     if not name:
-        refusals.append("no operator named: the checklist needs the name of the person answering it (--operator NAME)")
+        refusals.append(
+            "no operator named: the checklist needs the name of the person answering it (--operator NAME)"
+        )
     known = {item.id for item in items}
     for key in answers:
         if key not in known:
@@ -453,39 +509,58 @@ def evaluate(
         answer = raw if isinstance(raw, Answer) or raw is None else Answer(raw)
         ok, text, value = _JUDGES[item.kind](item, answer, readings)
         if ok and answer is not None and answer.who is not None and name and answer.who.strip() != name:
-            ok, text = False, f"{item.id} was answered by {answer.who!r}, but the checklist is run by {name!r}"
+            ok, text = (
+                False,
+                f"{item.id} was answered by {answer.who!r}, but the checklist is run by {name!r}",
+            )
         if not ok:
             refusals.append(text)
         t = answer.t if answer is not None and answer.t is not None else clock()
-        records.append(Event(
-            t=float(t), kind="checklist", text=f"{number}. {item.id}: {'ok' if ok else 'REFUSED'}: {text}", who=who,
-            data=MappingProxyType({
-                "item": item.id,
-                "kind": item.kind,
-                "prompt": item.prompt,
-                "ok": ok,
-                "answer": _plain(value),
-                "required_od": item.required_od,
-                "wavelength_m": item.wavelength,
-                "via": "pump driver and bench file" if item.kind == CHECK else (answer.via if answer else ""),
-            }),
-        ))
+        records.append(
+            Event(
+                t=float(t),
+                kind="checklist",
+                text=f"{number}. {item.id}: {'ok' if ok else 'REFUSED'}: {text}",
+                who=who,
+                data=MappingProxyType(
+                    {
+                        "item": item.id,
+                        "kind": item.kind,
+                        "prompt": item.prompt,
+                        "ok": ok,
+                        "answer": _plain(value),
+                        "required_od": item.required_od,
+                        "wavelength_m": item.wavelength,
+                        "via": "pump driver and bench file"
+                        if item.kind == CHECK
+                        else (answer.via if answer else ""),
+                    }
+                ),
+            )
+        )
     completed = float(clock())
     token = uuid.uuid4().hex
     passed = not refusals
     verdict = "passed" if passed else "refused: " + "; ".join(refusals)
-    records.append(Event(
-        t=completed, kind="checklist", text=f"arming checklist {verdict}", who=who,
-        data=MappingProxyType({"passed": passed, "refusals": list(refusals), "token": token}),
-    ))
+    records.append(
+        Event(
+            t=completed,
+            kind="checklist",
+            text=f"arming checklist {verdict}",
+            who=who,
+            data=MappingProxyType({"passed": passed, "refusals": list(refusals), "token": token}),
+        )
+    )
     return ChecklistResult(passed, refusals, records, name, completed, token)
 
 
 def _unknown_answer(key: str, items: Sequence[Item]) -> str:
     if key.startswith("eyewear@"):
         have = ", ".join(i.id.removeprefix("eyewear@") for i in items if i.kind == EYEWEAR) or "none"
-        return (f"an eyewear OD was given for {key.removeprefix('eyewear@')}, but no laser on this bench has that "
-                f"wavelength (lasers at: {have})")
+        return (
+            f"an eyewear OD was given for {key.removeprefix('eyewear@')}, but no laser on this bench has that "
+            f"wavelength (lasers at: {have})"
+        )
     return f"an answer was given for {key!r}, which is not on this checklist"
 
 

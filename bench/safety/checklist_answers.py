@@ -46,7 +46,9 @@ def answers_from_flags(
         False those items stay unanswered and `evaluate` refuses arming.
     """
     if not isinstance(eyewear_ods, Mapping):
-        raise ValueError(f"eyewear_ods: expected a mapping of wavelength (m) to OD, got {type(eyewear_ods).__name__}")
+        raise ValueError(
+            f"eyewear_ods: expected a mapping of wavelength (m) to OD, got {type(eyewear_ods).__name__}"
+        )
     who = operator.strip() if isinstance(operator, str) else None
     answers: dict[str, Answer] = {}
     for wavelength, od in eyewear_ods.items():
@@ -71,8 +73,9 @@ def parse_od(text: str) -> float:
     """An eyewear OD as typed (``"5"``, ``"4.5"``); ValueError saying what is wrong otherwise."""
     t = str(text).strip()
     if not _OD_NUMERAL.fullmatch(t):
-        raise ValueError(f"the OD {t!r} is not a plain number such as 5 or 4.5 (ASCII digits, "
-                         "no underscores, no exponent)")
+        raise ValueError(
+            f"the OD {t!r} is not a plain number such as 5 or 4.5 (ASCII digits, no underscores, no exponent)"
+        )
     od = float(t)
     if od > OD_MAX:
         raise ValueError(f"the OD {t!r} is above OD {OD_MAX:g}, more than any eyewear is rated for")
@@ -167,8 +170,9 @@ def run_interactive(
     return answers
 
 
-def _ask(item: Item, head: str, input_fn: Callable[[str], str], print_fn: Callable[[str], None],
-         max_retries: int) -> bool | float | None:
+def _ask(
+    item: Item, head: str, input_fn: Callable[[str], str], print_fn: Callable[[str], None], max_retries: int
+) -> bool | float | None:
     question = f"{head} {item.prompt} [yes/no] " if item.kind == CONFIRM else f"{head} {item.prompt}\n  OD: "
     for _ in range(max_retries):
         try:
@@ -185,7 +189,8 @@ def _ask(item: Item, head: str, input_fn: Callable[[str], str], print_fn: Callab
         try:
             return parse_od(text)
         except ValueError as exc:
-            print_fn(f"{str(exc)[0].upper()}{str(exc)[1:]}. Please enter the OD printed on your eyewear for "
-                     "this wavelength, a number such as 5.")
+            print_fn(
+                f"{str(exc)[0].upper()}{str(exc)[1:]}. Please enter the OD printed on your eyewear for "
+                "this wavelength, a number such as 5."
+            )
     return None
-

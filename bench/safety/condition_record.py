@@ -106,14 +106,37 @@ class BlockReading:
         Conditions holding before this block.
     """
 
-    __slots__ = ("block", "t", "cfg", "monitor", "output_off_since", "output_on_since", "settled", "ranges",
-                 "pump_steady", "found", "active", "_watched", "_name")
+    __slots__ = (
+        "block",
+        "t",
+        "cfg",
+        "monitor",
+        "output_off_since",
+        "output_on_since",
+        "settled",
+        "ranges",
+        "pump_steady",
+        "found",
+        "active",
+        "_watched",
+        "_name",
+    )
 
-    def __init__(self, block: Block, t: np.ndarray, cfg: GuardConfig, monitor: Any, *,
-                 output_off_since: float | None = None, output_on_since: float | None = None,
-                 settled: np.ndarray | None = None, ranges: Mapping[str, float] | None = None,
-                 pump_steady: bool = True, found: Sequence[TripCondition] = (),
-                 active: Mapping[str, TripCondition] | None = None) -> None:
+    def __init__(
+        self,
+        block: Block,
+        t: np.ndarray,
+        cfg: GuardConfig,
+        monitor: Any,
+        *,
+        output_off_since: float | None = None,
+        output_on_since: float | None = None,
+        settled: np.ndarray | None = None,
+        ranges: Mapping[str, float] | None = None,
+        pump_steady: bool = True,
+        found: Sequence[TripCondition] = (),
+        active: Mapping[str, TripCondition] | None = None,
+    ) -> None:
         self.block = block
         self.t = t
         self.cfg = cfg
@@ -136,8 +159,10 @@ class BlockReading:
 
     def _allowed(self, channel: str) -> None:
         if self._watched is not None and channel not in self._watched:
-            raise ValueError(f"condition {self._name!r}: reads channel {channel!r}, which its record does not "
-                             f"list in watches {self._watched}")
+            raise ValueError(
+                f"condition {self._name!r}: reads channel {channel!r}, which its record does not "
+                f"list in watches {self._watched}"
+            )
 
     def has(self, *channels: str) -> bool:
         """The block carries every one of ``channels``."""
@@ -344,7 +369,7 @@ class Condition:
     def names(self, condition: str) -> str | None:
         """The source if ``condition`` is this condition's name ("" when not per source), else None."""
         if self.per_source:
-            return condition[len(self.name):] if condition.startswith(self.name) else None
+            return condition[len(self.name) :] if condition.startswith(self.name) else None
         return "" if condition == self.name else None
 
 
@@ -382,4 +407,3 @@ def reads_exactly(value: object, state: bool) -> bool:
     if isinstance(value, (bool, int, float, np.bool_, np.integer, np.floating)):
         return bool(value == state)
     return False
-

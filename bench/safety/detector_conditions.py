@@ -58,8 +58,15 @@ def check_full_scale(
         if i is not None:
             x = float(v[i])
             share = f"{abs(x) / fs * 100:.0f} %" if math.isfinite(x) else "not a number"
-            hits.append((float(t[i]), (f"{name} at {x:.4g} V, {share} of its {fs:g} V range (trips at "
-                                       f"{fraction * 100:.0f} %) at t={t[i]:.3f} s")))
+            hits.append(
+                (
+                    float(t[i]),
+                    (
+                        f"{name} at {x:.4g} V, {share} of its {fs:g} V range (trips at "
+                        f"{fraction * 100:.0f} %) at t={t[i]:.3f} s"
+                    ),
+                )
+            )
     if not hits:
         return None
     seen_at, reason = min(hits)
@@ -86,12 +93,16 @@ def _full_scale_holds(e: Evidence) -> str | None:
 
 
 FULL_SCALE_RECORD = Condition(
-    NEAR_FULL_SCALE, DETECTOR_FEED, DETECTOR_CHANNELS,
+    NEAR_FULL_SCALE,
+    DETECTOR_FEED,
+    DETECTOR_CHANNELS,
     check=_full_scale_check,
     still_holds=_full_scale_holds,
     keys=("guard.full_scale_fraction",),
-    summary=("trips when a detector channel reaches full_scale_fraction of its range (or is not a number); "
-             "clears on a fresh block of every channel below it"),
+    summary=(
+        "trips when a detector channel reaches full_scale_fraction of its range (or is not a number); "
+        "clears on a fresh block of every channel below it"
+    ),
 )
 
 # --------------------------------------------------------------------------------------------
@@ -144,18 +155,28 @@ def _jump_check(r: BlockReading) -> Verdict:
     jump = r.cfg.transmission_jump
     if jump is None or not r.has(PROBE, REFERENCE):
         return UNJUDGED
-    return r.monitor.windows.compare(r.block, r.t, r.columns(DETECTOR_CHANNELS), r.ranges, r.pump_steady,
-                                     lambda *pairs: check_transmission_jump(*pairs, jump))
+    return r.monitor.windows.compare(
+        r.block,
+        r.t,
+        r.columns(DETECTOR_CHANNELS),
+        r.ranges,
+        r.pump_steady,
+        lambda *pairs: check_transmission_jump(*pairs, jump),
+    )
 
 
 JUMP_RECORD = Condition(
-    TRANSMISSION_JUMP, DETECTOR_FEED, DETECTOR_CHANNELS,
+    TRANSMISSION_JUMP,
+    DETECTOR_FEED,
+    DETECTOR_CHANNELS,
     check=_jump_check,
     # A jump is an event, not a state: the person acknowledging confirms the optics were checked.
     still_holds=cleared_by_acknowledgement,
     keys=("guard.transmission_jump",),
-    summary=("trips when S changes by more than transmission_jump between short windows while the pump "
-             "stays steady (off when the key is absent); cleared by acknowledging"),
+    summary=(
+        "trips when S changes by more than transmission_jump between short windows while the pump "
+        "stays steady (off when the key is absent); cleared by acknowledging"
+    ),
     kind=EVENT,
     holds_on_driver=nothing_to_read,
 )

@@ -64,8 +64,7 @@ def _wavelength_nm(wavelength: object) -> float:
             hint = f" (the wavelength is in metres: {x:g} nm is {x * 1e-9:g} m)"
         raise OutOfRangeError(
             "wavelength",
-            f"{x:g} m ({nm:g} nm) is outside the implemented range, above 400 nm up to "
-            f"2600 nm{hint}",
+            f"{x:g} m ({nm:g} nm) is outside the implemented range, above 400 nm up to 2600 nm{hint}",
         )
     return nm
 
@@ -143,14 +142,20 @@ def _visible_short(wl: float, nm: float, t: float) -> tuple[float, str, str]:
 
 def _nir_short(wl: float, nm: float, t: float) -> tuple[float, str, str]:
     ca = correction_c_a(wl)
-    return _h(18.0 * ca * t**0.75, t,
-              f"H = 18 C_A t^0.75 J/m^2 (1.8 C_A t^0.75 mJ/cm^2), C_A = {ca:.4g}, retinal thermal")
+    return _h(
+        18.0 * ca * t**0.75,
+        t,
+        f"H = 18 C_A t^0.75 J/m^2 (1.8 C_A t^0.75 mJ/cm^2), C_A = {ca:.4g}, retinal thermal",
+    )
 
 
 def _nir_b_short(wl: float, nm: float, t: float) -> tuple[float, str, str]:
     cc = correction_c_c(wl)
-    return _h(90.0 * cc * t**0.75, t,
-              f"H = 90 C_C t^0.75 J/m^2 (9 C_C t^0.75 mJ/cm^2), C_C = {cc:.4g}, retinal thermal")
+    return _h(
+        90.0 * cc * t**0.75,
+        t,
+        f"H = 90 C_C t^0.75 J/m^2 (9 C_C t^0.75 mJ/cm^2), C_C = {cc:.4g}, retinal thermal",
+    )
 
 
 def _ir_quarter_power_short(wl: float, nm: float, t: float) -> tuple[float, str, str]:
@@ -177,22 +182,30 @@ def _visible_long(wl: float, nm: float, t: float) -> tuple[float, str, str]:
         photo = cb
         photo_defined, photo_text = IRRADIANCE, f"E = 1 C_B W/m^2, C_B = {cb:.4g}"
     if photo < thermal:
-        return photo, photo_defined, (
-            f"{photo_text}, retinal photochemical (lower than the thermal limit {thermal_text})")
-    return thermal, IRRADIANCE, (
-        f"{thermal_text} (lower than the photochemical limit {photo_text})")
+        return (
+            photo,
+            photo_defined,
+            (f"{photo_text}, retinal photochemical (lower than the thermal limit {thermal_text})"),
+        )
+    return thermal, IRRADIANCE, (f"{thermal_text} (lower than the photochemical limit {photo_text})")
 
 
 def _nir_long(wl: float, nm: float, t: float) -> tuple[float, str, str]:
     ca = correction_c_a(wl)
-    return 10.0 * ca, IRRADIANCE, (
-        f"E = 10 C_A C_C W/m^2 (1 C_A C_C mW/cm^2), C_A = {ca:.4g}, C_C = 1, retinal thermal")
+    return (
+        10.0 * ca,
+        IRRADIANCE,
+        (f"E = 10 C_A C_C W/m^2 (1 C_A C_C mW/cm^2), C_A = {ca:.4g}, C_C = 1, retinal thermal"),
+    )
 
 
 def _nir_b_long(wl: float, nm: float, t: float) -> tuple[float, str, str]:
     cc = correction_c_c(wl)
-    return 50.0 * cc, IRRADIANCE, (
-        f"E = 10 C_A C_C W/m^2 (1 C_A C_C mW/cm^2), C_A = 5, C_C = {cc:.4g}, retinal thermal")
+    return (
+        50.0 * cc,
+        IRRADIANCE,
+        (f"E = 10 C_A C_C W/m^2 (1 C_A C_C mW/cm^2), C_A = 5, C_C = {cc:.4g}, retinal thermal"),
+    )
 
 
 def _ir_long(wl: float, nm: float, t: float) -> tuple[float, str, str]:
@@ -241,5 +254,7 @@ _STEP_EDGES = (1400.0, 1500.0, 1800.0)
 def _edge_note(nm: float, band: _Band) -> str:
     if nm != band.high_nm or nm not in _STEP_EDGES:
         return ""
-    return (f" ({nm:g} nm is this row's upper edge; the row above it gives a different limit, "
-            "so check a laser whose wavelength may lie on either side)")
+    return (
+        f" ({nm:g} nm is this row's upper edge; the row above it gives a different limit, "
+        "so check a laser whose wavelength may lie on either side)"
+    )

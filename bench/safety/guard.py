@@ -213,7 +213,15 @@ class Shutdown:
 
 GuardEvent = Start | Arm | Disarm | Emit | StopEmission | Trip | ConditionCleared | Acknowledge | Shutdown
 EVENT_TYPES: tuple[type, ...] = (
-    Start, Arm, Disarm, Emit, StopEmission, Trip, ConditionCleared, Acknowledge, Shutdown,
+    Start,
+    Arm,
+    Disarm,
+    Emit,
+    StopEmission,
+    Trip,
+    ConditionCleared,
+    Acknowledge,
+    Shutdown,
 )
 
 # --------------------------------------------------------------------------------------------
@@ -274,9 +282,13 @@ class Guard:
 
     def __init__(self, *, checklist_max_age: float | None = DEFAULT_CHECKLIST_MAX_AGE) -> None:
         if checklist_max_age is not None and not (
-            isinstance(checklist_max_age, (int, float)) and checklist_max_age > 0 and math.isfinite(checklist_max_age)
+            isinstance(checklist_max_age, (int, float))
+            and checklist_max_age > 0
+            and math.isfinite(checklist_max_age)
         ):
-            raise ValueError(f"checklist_max_age: expected a positive number of seconds or None, got {checklist_max_age!r}")
+            raise ValueError(
+                f"checklist_max_age: expected a positive number of seconds or None, got {checklist_max_age!r}"
+            )
         self.checklist_max_age = checklist_max_age
         self._state = SAFE
         self._held: dict[str, HeldCondition] = {}
@@ -307,7 +319,9 @@ class Guard:
             raise ValueError(f"now: expected a finite time in seconds, got {now!r}")
         handler = TRANSITIONS[self._state].get(type(event))
         if handler is None:
-            raise ValueError(f"event: {event!r} is not a guard event (one of {', '.join(t.__name__ for t in EVENT_TYPES)})")
+            raise ValueError(
+                f"event: {event!r} is not a guard event (one of {', '.join(t.__name__ for t in EVENT_TYPES)})"
+            )
         return handler(self, event, float(now))
 
     # -- helpers for the handlers ----------------------------------------------------------
@@ -332,7 +346,9 @@ class Guard:
             "actions": [type(a).__name__ for a in actions],
             **extra,
         }
-        record = Event(t=now, kind=kind, text=f"{before} -> {to}: {reason}", who=_who(event), data=MappingProxyType(data))
+        record = Event(
+            t=now, kind=kind, text=f"{before} -> {to}: {reason}", who=_who(event), data=MappingProxyType(data)
+        )
         return Outcome(True, before, to, actions, record)
 
     def _refuse(self, event: GuardEvent, now: float, reason: str, **extra: object) -> Outcome:
@@ -362,7 +378,11 @@ class Guard:
         result = event.checklist
         self._used_tokens.add(result.token)
         return self._go(
-            event, now, ARMED, (), f"armed by {event.who} after the checklist passed",
+            event,
+            now,
+            ARMED,
+            (),
+            f"armed by {event.who} after the checklist passed",
             checklist_token=result.token,
             checklist_operator=result.operator,
             checklist_completed_at=float(result.completed_at),
@@ -385,35 +405,50 @@ class Guard:
         if not math.isfinite(done):
             return "the checklist result has no valid completion time; run the arming checklist again"
         if done > now:
-            return (f"the checklist is dated t={done:.3f} s, after now (t={now:.3f} s): the checklist and "
-                    "the guard use different clocks; run the checklist with the run clock")
+            return (
+                f"the checklist is dated t={done:.3f} s, after now (t={now:.3f} s): the checklist and "
+                "the guard use different clocks; run the checklist with the run clock"
+            )
         if done < self._reset_at:
-            return (f"the checklist was completed (t={done:.3f} s) before the last trip, disarm, "
-                    f"acknowledgement or start (t={self._reset_at:.3f} s); run the arming checklist again")
+            return (
+                f"the checklist was completed (t={done:.3f} s) before the last trip, disarm, "
+                f"acknowledgement or start (t={self._reset_at:.3f} s); run the arming checklist again"
+            )
         if self.checklist_max_age is not None and now - done > self.checklist_max_age:
-            return (f"the checklist is {now - done:.0f} s old (at most {self.checklist_max_age:.0f} s); "
-                    "run the arming checklist again")
+            return (
+                f"the checklist is {now - done:.0f} s old (at most {self.checklist_max_age:.0f} s); "
+                "run the arming checklist again"
+            )
         return None
 
     def _disarm(self, event: Disarm, now: float) -> Outcome:
         self._reset_at = now
         why = f"disarmed by {event.who}" + (f" ({event.reason})" if event.reason else "")
         if self._state == TRIPPED:
-            return self._go(event, now, TRIPPED, _OFF, f"{why}; output off; the trip still needs acknowledging")
+            return self._go(
+                event, now, TRIPPED, _OFF, f"{why}; output off; the trip still needs acknowledging"
+            )
         if self._state == SAFE:
             return self._go(event, now, SAFE, _OFF, f"{why} while not armed: output commanded off again")
         return self._go(event, now, SAFE, _OFF_AND_SHUTTER, why)
 
     def _emit(self, event: Emit, now: float) -> Outcome:
         if not _named(event.who):
-            return self._refuse(event, now, "switching the pump on is a deliberate act: name the person (who)")
+            return self._refuse(
+                event, now, "switching the pump on is a deliberate act: name the person (who)"
+            )
         return self._go(event, now, EMITTING, _ON, f"emission started by {event.who}")
 
     def _stop(self, event: StopEmission, now: float) -> Outcome:
         if self._state == EMITTING:
             return self._go(event, now, ARMED, _OFF, f"emission stopped by {event.who}; still armed")
-        return self._go(event, now, self._state, _OFF,
-                        f"stop requested by {event.who} while not emitting: output commanded off again")
+        return self._go(
+            event,
+            now,
+            self._state,
+            _OFF,
+            f"stop requested by {event.who} while not emitting: output commanded off again",
+        )
 
     def _trip_event(self, event: Trip, now: float) -> Outcome:
         reason = event.reason.strip() if isinstance(event.reason, str) else ""
@@ -432,8 +467,15 @@ class Guard:
         self._reset_at = now
         again = " (already tripped; condition added)" if self._state == TRIPPED else ""
         return self._go(
-            event, now, TRIPPED, _OFF_AND_SHUTTER, f"trip: {reason}{again}", kind="trip",
-            condition=condition, seen_at=float(seen_at), held=sorted(self._held),
+            event,
+            now,
+            TRIPPED,
+            _OFF_AND_SHUTTER,
+            f"trip: {reason}{again}",
+            kind="trip",
+            condition=condition,
+            seen_at=float(seen_at),
+            held=sorted(self._held),
         )
 
     def _cleared(self, event: ConditionCleared, now: float) -> Outcome:
@@ -443,27 +485,44 @@ class Guard:
         del self._held[event.condition]
         detail = f": {event.detail}" if event.detail else ""
         left = ", ".join(sorted(self._held)) or "none"
-        return self._go(event, now, TRIPPED, (), f"condition {event.condition} cleared{detail} (still held: {left})",
-                        condition=event.condition)
+        return self._go(
+            event,
+            now,
+            TRIPPED,
+            (),
+            f"condition {event.condition} cleared{detail} (still held: {left})",
+            condition=event.condition,
+        )
 
     def _acknowledge(self, event: Acknowledge, now: float) -> Outcome:
         if not _named(event.who):
             return self._refuse(event, now, "acknowledging a trip is a deliberate act: name the person (who)")
         if self._held:
             still = "; ".join(f"{h.condition}: {h.reason}" for h in self._held.values())
-            return self._refuse(event, now, f"cannot acknowledge while the condition still holds ({still})",
-                                held=sorted(self._held))
+            return self._refuse(
+                event,
+                now,
+                f"cannot acknowledge while the condition still holds ({still})",
+                held=sorted(self._held),
+            )
         tripped_by = self._trip.reason if self._trip is not None else ""
         self._trip = None
         self._reset_at = now
-        return self._go(event, now, SAFE, _OFF,
-                        f"trip acknowledged by {event.who} ({tripped_by}); back to safe, arm again to emit")
+        return self._go(
+            event,
+            now,
+            SAFE,
+            _OFF,
+            f"trip acknowledged by {event.who} ({tripped_by}); back to safe, arm again to emit",
+        )
 
     def _shutdown(self, event: Shutdown, now: float) -> Outcome:
         self._shut_down = True
         self._reset_at = now
         to = TRIPPED if self._state == TRIPPED else SAFE
-        return self._go(event, now, to, _OFF_AND_SHUTTER, f"shutdown ({event.reason}): pump output commanded off")
+        return self._go(
+            event, now, to, _OFF_AND_SHUTTER, f"shutdown ({event.reason}): pump output commanded off"
+        )
 
 
 def _who(event: GuardEvent) -> str:
@@ -486,56 +545,69 @@ def _refusal(reason: str) -> Callable[[Guard, GuardEvent, float], Outcome]:
 
 _NOT_TRIPPED = "nothing to acknowledge: the guard is not tripped"
 _NOTHING_HELD = "no condition is held: the guard is not tripped"
-_TRIPPED_ARM = ("tripped ({trip}): acknowledge the trip once its condition has cleared, then run the "
-                "arming checklist again")
-_TRIPPED_EMIT = ("tripped ({trip}): emission is refused until the trip is acknowledged and the guard is "
-                 "armed again")
+_TRIPPED_ARM = (
+    "tripped ({trip}): acknowledge the trip once its condition has cleared, then run the "
+    "arming checklist again"
+)
+_TRIPPED_EMIT = (
+    "tripped ({trip}): emission is refused until the trip is acknowledged and the guard is armed again"
+)
 
 #: The transition table: state -> event type -> handler. Every (state, event) pair is listed,
 #: either as a transition (a method of Guard) or as a refusal with its reason.
-TRANSITIONS: Mapping[str, Mapping[type, Callable[[Guard, GuardEvent, float], Outcome]]] = MappingProxyType({
-    SAFE: MappingProxyType({
-        Start: Guard._start,
-        Arm: Guard._arm,
-        Disarm: Guard._disarm,
-        Emit: _refusal("not armed: run the arming checklist and arm before switching the pump on"),
-        StopEmission: Guard._stop,
-        Trip: Guard._trip_event,
-        ConditionCleared: _refusal(_NOTHING_HELD),
-        Acknowledge: _refusal(_NOT_TRIPPED),
-        Shutdown: Guard._shutdown,
-    }),
-    ARMED: MappingProxyType({
-        Start: Guard._start,
-        Arm: _refusal("already armed"),
-        Disarm: Guard._disarm,
-        Emit: Guard._emit,
-        StopEmission: Guard._stop,
-        Trip: Guard._trip_event,
-        ConditionCleared: _refusal(_NOTHING_HELD),
-        Acknowledge: _refusal(_NOT_TRIPPED),
-        Shutdown: Guard._shutdown,
-    }),
-    EMITTING: MappingProxyType({
-        Start: Guard._start,
-        Arm: _refusal("already armed and emitting"),
-        Disarm: Guard._disarm,
-        Emit: _refusal("already emitting"),
-        StopEmission: Guard._stop,
-        Trip: Guard._trip_event,
-        ConditionCleared: _refusal(_NOTHING_HELD),
-        Acknowledge: _refusal(_NOT_TRIPPED),
-        Shutdown: Guard._shutdown,
-    }),
-    TRIPPED: MappingProxyType({
-        Start: Guard._start,
-        Arm: _refusal(_TRIPPED_ARM),
-        Disarm: Guard._disarm,
-        Emit: _refusal(_TRIPPED_EMIT),
-        StopEmission: Guard._stop,
-        Trip: Guard._trip_event,
-        ConditionCleared: Guard._cleared,
-        Acknowledge: Guard._acknowledge,
-        Shutdown: Guard._shutdown,
-    }),
-})
+TRANSITIONS: Mapping[str, Mapping[type, Callable[[Guard, GuardEvent, float], Outcome]]] = MappingProxyType(
+    {
+        SAFE: MappingProxyType(
+            {
+                Start: Guard._start,
+                Arm: Guard._arm,
+                Disarm: Guard._disarm,
+                Emit: _refusal("not armed: run the arming checklist and arm before switching the pump on"),
+                StopEmission: Guard._stop,
+                Trip: Guard._trip_event,
+                ConditionCleared: _refusal(_NOTHING_HELD),
+                Acknowledge: _refusal(_NOT_TRIPPED),
+                Shutdown: Guard._shutdown,
+            }
+        ),
+        ARMED: MappingProxyType(
+            {
+                Start: Guard._start,
+                Arm: _refusal("already armed"),
+                Disarm: Guard._disarm,
+                Emit: Guard._emit,
+                StopEmission: Guard._stop,
+                Trip: Guard._trip_event,
+                ConditionCleared: _refusal(_NOTHING_HELD),
+                Acknowledge: _refusal(_NOT_TRIPPED),
+                Shutdown: Guard._shutdown,
+            }
+        ),
+        EMITTING: MappingProxyType(
+            {
+                Start: Guard._start,
+                Arm: _refusal("already armed and emitting"),
+                Disarm: Guard._disarm,
+                Emit: _refusal("already emitting"),
+                StopEmission: Guard._stop,
+                Trip: Guard._trip_event,
+                ConditionCleared: _refusal(_NOTHING_HELD),
+                Acknowledge: _refusal(_NOT_TRIPPED),
+                Shutdown: Guard._shutdown,
+            }
+        ),
+        TRIPPED: MappingProxyType(
+            {
+                Start: Guard._start,
+                Arm: _refusal(_TRIPPED_ARM),
+                Disarm: Guard._disarm,
+                Emit: _refusal(_TRIPPED_EMIT),
+                StopEmission: Guard._stop,
+                Trip: Guard._trip_event,
+                ConditionCleared: Guard._cleared,
+                Acknowledge: Guard._acknowledge,
+                Shutdown: Guard._shutdown,
+            }
+        ),
+    }
+)

@@ -131,8 +131,10 @@ class GuardedPump:
         shutter_name: str = "pump",
     ) -> None:
         if not isinstance(pump, PumpOutput):
-            raise ValueError("pump: expected a pump driver with output, output_is_on, interlock_closed, "
-                             "mount_temperature, measured_current, current_setpoint and set_current")
+            raise ValueError(
+                "pump: expected a pump driver with output, output_is_on, interlock_closed, "
+                "mount_temperature, measured_current, current_setpoint and set_current"
+            )
         if shutter is not None and not isinstance(shutter, Shutter):
             raise ValueError("shutter: expected an object with open_shutter(name) and close_shutter(name)")
         if not callable(clock):
@@ -251,7 +253,9 @@ class GuardedPump:
             if not outcome.accepted:
                 raise GuardRefused(f"emission refused: {outcome.refusal}")
             if self._guard.state != EMITTING:
-                raise GuardRefused(f"the pump could not be switched on; the guard tripped: {self._guard.trip_reason}")
+                raise GuardRefused(
+                    f"the pump could not be switched on; the guard tripped: {self._guard.trip_reason}"
+                )
             self._note_change()
             return outcome
 
@@ -311,7 +315,9 @@ class GuardedPump:
                 for condition, held in self._guard.held.items():
                     why = self._why_still_holds(condition, held.seen_at, now)
                     if why is None:
-                        self._run(ConditionCleared(condition, detail="fresh readings show it no longer holds"))
+                        self._run(
+                            ConditionCleared(condition, detail="fresh readings show it no longer holds")
+                        )
                     elif why != held.reason:
                         notes.append(f"{condition}: {why}")
             outcome = self._run(Acknowledge(who))
@@ -325,28 +331,50 @@ class GuardedPump:
 
         A failure while emitting trips the guard (the current is then unknown).
         """
-        if isinstance(current, bool) or not isinstance(current, (int, float)) or not (
-            math.isfinite(current) and current >= 0
+        if (
+            isinstance(current, bool)
+            or not isinstance(current, (int, float))
+            or not (math.isfinite(current) and current >= 0)
         ):
             raise ValueError(f"current: expected a current >= 0 A, got {current!r}")
         if self.max_current is None:
             raise GuardRefused("no current limit is configured for the pump: setting the current is refused")
         if current > self.max_current:
-            raise GuardRefused(f"pump current {current:g} A is above the limit {self.max_current:g} A of the bench file")
+            raise GuardRefused(
+                f"pump current {current:g} A is above the limit {self.max_current:g} A of the bench file"
+            )
         with stop_signals.shielded(), self._lock:
             try:
                 self._pump.set_current(float(current))
             except Exception as exc:  # any driver failure
                 detail = f"{type(exc).__name__}: {exc}"
-                self._record(Event(self._clock(), "fault", f"setting the pump current to {current:g} A failed: {detail}",
-                                   data=MappingProxyType({"current_a": float(current), "error": detail})))
+                self._record(
+                    Event(
+                        self._clock(),
+                        "fault",
+                        f"setting the pump current to {current:g} A failed: {detail}",
+                        data=MappingProxyType({"current_a": float(current), "error": detail}),
+                    )
+                )
                 if self._guard.state == EMITTING:
-                    self._run(Trip(f"setting the pump current failed while emitting ({detail})", PUMP_COMMAND_FAILED,
-                                   self._clock()))
+                    self._run(
+                        Trip(
+                            f"setting the pump current failed while emitting ({detail})",
+                            PUMP_COMMAND_FAILED,
+                            self._clock(),
+                        )
+                    )
                 raise GuardRefused(f"setting the pump current failed: {detail}") from exc
             now = self._clock()
-            self._record(Event(now, "setting", f"pump current set to {current:g} A by {_who_ok(who)}", who=_who_ok(who),
-                               data=MappingProxyType({"pump_current_setpoint_a": float(current)})))
+            self._record(
+                Event(
+                    now,
+                    "setting",
+                    f"pump current set to {current:g} A by {_who_ok(who)}",
+                    who=_who_ok(who),
+                    data=MappingProxyType({"pump_current_setpoint_a": float(current)}),
+                )
+            )
             self._note_change(now)
 
     def recommand_off(self, block: Block) -> None:
@@ -361,8 +389,11 @@ class GuardedPump:
             return
         off_since = self.output_off_since
         taken_after_off = off_since is not None and block.t0 > off_since + RECOMMAND_AFTER
-        if (block.column(PUMP_ON)[-1] > 0.5 and taken_after_off
-                and time.monotonic() - self._last_recommand > RECOMMAND_EVERY):
+        if (
+            block.column(PUMP_ON)[-1] > 0.5
+            and taken_after_off
+            and time.monotonic() - self._last_recommand > RECOMMAND_EVERY
+        ):
             self._last_recommand = time.monotonic()
             self.stop_emission(who="gainbench (output read on while not emitting)")
 
@@ -392,7 +423,9 @@ class GuardedPump:
         try:
             self.shutdown(reason=reason)
         except Exception:  # never mask the original exception; the failure is logged loudly
-            log.critical("gainbench guard: shutdown on exit failed; switch the pump off at the driver", exc_info=True)
+            log.critical(
+                "gainbench guard: shutdown on exit failed; switch the pump off at the driver", exc_info=True
+            )
         return False
 
     # -- the machinery ---------------------------------------------------------------------
@@ -455,9 +488,19 @@ class GuardedPump:
                     self._shutter.open_shutter(action.name)
                 except Exception as exc:  # any controller failure: do not switch on
                     detail = f"{type(exc).__name__}: {exc}"
-                    done.faults.append(Event(self._clock(), "fault", f"opening the {action.name} shutter failed: {detail}",
-                                             data=MappingProxyType({"shutter": action.name, "error": detail})))
-                    done.failed = (PUMP_COMMAND_FAILED, f"the {action.name} shutter did not open ({detail})", self._clock())
+                    done.faults.append(
+                        Event(
+                            self._clock(),
+                            "fault",
+                            f"opening the {action.name} shutter failed: {detail}",
+                            data=MappingProxyType({"shutter": action.name, "error": detail}),
+                        )
+                    )
+                    done.failed = (
+                        PUMP_COMMAND_FAILED,
+                        f"the {action.name} shutter did not open ({detail})",
+                        self._clock(),
+                    )
                     break
             elif isinstance(action, PumpOn):
                 self._on_since = self._clock()
@@ -467,9 +510,19 @@ class GuardedPump:
                     self._pump.output(True)
                 except Exception as exc:  # any driver failure: the state of the output is unknown
                     detail = f"{type(exc).__name__}: {exc}"
-                    done.faults.append(Event(self._clock(), "fault", f"the pump output on command failed: {detail}",
-                                             data=MappingProxyType({"error": detail})))
-                    done.failed = (PUMP_COMMAND_FAILED, f"the pump output on command failed ({detail})", self._clock())
+                    done.faults.append(
+                        Event(
+                            self._clock(),
+                            "fault",
+                            f"the pump output on command failed: {detail}",
+                            data=MappingProxyType({"error": detail}),
+                        )
+                    )
+                    done.failed = (
+                        PUMP_COMMAND_FAILED,
+                        f"the pump output on command failed ({detail})",
+                        self._clock(),
+                    )
                     break
         return done
 
@@ -515,8 +568,14 @@ class GuardedPump:
             self._shutter.close_shutter(name)
         except Exception as exc:  # any controller failure: logged loudly, never stops the off path
             detail = f"{type(exc).__name__}: {exc}"
-            done.faults.append(Event(self._clock(), "fault", f"CLOSING THE {name.upper()} SHUTTER FAILED ({why}): {detail}",
-                                     data=MappingProxyType({"shutter": name, "error": detail})))
+            done.faults.append(
+                Event(
+                    self._clock(),
+                    "fault",
+                    f"CLOSING THE {name.upper()} SHUTTER FAILED ({why}): {detail}",
+                    data=MappingProxyType({"shutter": name, "error": detail}),
+                )
+            )
             return False
         return True
 
@@ -527,13 +586,22 @@ class GuardedPump:
             after = "no pump shutter is configured"
         else:
             after = f"the {self.shutter_name} shutter could not be closed either"
-        text = (f"PUMP OUTPUT OFF COMMAND FAILED after {report.attempts} attempts ({report.error}); {after}. "
-                "SWITCH THE PUMP OFF AT THE DRIVER (key switch or emergency stop) AND CHECK THE HARDWARE INTERLOCK.")
-        return Event(self._clock(), "fault", text, data=MappingProxyType({
-            "error": report.error,
-            "attempts": report.attempts,
-            "shutter_closed": shutter_closed,
-        }))
+        text = (
+            f"PUMP OUTPUT OFF COMMAND FAILED after {report.attempts} attempts ({report.error}); {after}. "
+            "SWITCH THE PUMP OFF AT THE DRIVER (key switch or emergency stop) AND CHECK THE HARDWARE INTERLOCK."
+        )
+        return Event(
+            self._clock(),
+            "fault",
+            text,
+            data=MappingProxyType(
+                {
+                    "error": report.error,
+                    "attempts": report.attempts,
+                    "shutter_closed": shutter_closed,
+                }
+            ),
+        )
 
     def _record(self, event: Event) -> None:
         if event.kind == "fault":
@@ -547,7 +615,9 @@ class GuardedPump:
         try:
             self._sink(event)
         except Exception:  # a failing sink must never keep the pump on; the event is logged above
-            log.critical("gainbench guard: the event sink failed; event not stored: %s", event.text, exc_info=True)
+            log.critical(
+                "gainbench guard: the event sink failed; event not stored: %s", event.text, exc_info=True
+            )
 
     def _pre_emission_problem(self) -> tuple[str, str, float] | None:
         if self._monitor is not None:
@@ -559,7 +629,11 @@ class GuardedPump:
         try:
             closed = self._pump.interlock_closed()
         except Exception as exc:  # cannot read the interlock: do not switch on
-            return PUMP_COMMAND_FAILED, f"could not read the hardware interlock before switching on ({type(exc).__name__}: {exc})", now
+            return (
+                PUMP_COMMAND_FAILED,
+                f"could not read the hardware interlock before switching on ({type(exc).__name__}: {exc})",
+                now,
+            )
         if not reads_exactly(closed, True):
             return INTERLOCK_OPEN, "the hardware interlock reads open just before switching on", now
         return None

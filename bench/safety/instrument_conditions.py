@@ -55,13 +55,17 @@ def stale_condition(source: str) -> str:
 # comm_failures consecutive failed exchanges with an instrument, or a lost connection
 
 
-def check_comm(source: str, failures: int, limit: int, t: float, detail: str = "", lost: bool = False) -> TripCondition | None:
+def check_comm(
+    source: str, failures: int, limit: int, t: float, detail: str = "", lost: bool = False
+) -> TripCondition | None:
     """``limit`` consecutive failed exchanges with ``source``, or a lost connection."""
     if limit < 1:
         raise ValueError(f"limit: expected at least 1, got {limit!r}")
     last = f" (last: {detail})" if detail else ""
     if lost:
-        return TripCondition(comm_condition(source), f"connection to the {source} lost at t={t:.3f} s{last}", t, source)
+        return TripCondition(
+            comm_condition(source), f"connection to the {source} lost at t={t:.3f} s{last}", t, source
+        )
     if failures >= limit:
         return TripCondition(
             comm_condition(source),
@@ -86,12 +90,16 @@ def _comm_holds(e: Evidence) -> str | None:
 
 
 COMM_RECORD = Condition(
-    COMM_PREFIX, EXCHANGE_FEED, ("exchange ok/failed/lost",),
+    COMM_PREFIX,
+    EXCHANGE_FEED,
+    ("exchange ok/failed/lost",),
     check=_comm_check,
     still_holds=_comm_holds,
     keys=("guard.comm_failures",),
-    summary=("trips after comm_failures failed exchanges in a row with an instrument, or a lost connection; "
-             "clears on a fresh successful exchange"),
+    summary=(
+        "trips after comm_failures failed exchanges in a row with an instrument, or a lost connection; "
+        "clears on a fresh successful exchange"
+    ),
     per_source=True,
 )
 
@@ -113,7 +121,9 @@ def check_stale(source: str, now: float, newest: float, stale_after: float) -> T
 
 
 STALE_RECORD = Condition(
-    STALE_PREFIX, AGE_FEED, ("time of the newest reading",),
+    STALE_PREFIX,
+    AGE_FEED,
+    ("time of the newest reading",),
     # a fresh reading clears it (`TripMonitor` does, as it arrives); younger: not judged here
     check=lambda r: check_stale(r.source, r.now, r.newest, r.cfg.stale_after) or UNJUDGED,
     still_holds=lambda e: e.fresh(e.latest.reading_times.get(e.source), e.source),
@@ -131,12 +141,15 @@ def check_device_errors(source: str, entries: Sequence[tuple[int, str]], t: floa
     if not entries:
         return None
     listed = "; ".join(f"{code}, {text!r}" for code, text in entries)
-    return TripCondition(DEVICE_ERROR, f"the {source} reported a device error at t={t:.3f} s: {listed}",
-                         float(t), source)
+    return TripCondition(
+        DEVICE_ERROR, f"the {source} reported a device error at t={t:.3f} s: {listed}", float(t), source
+    )
 
 
 DEVICE_ERROR_RECORD = Condition(
-    DEVICE_ERROR, ERROR_QUEUE_FEED, ("error-queue entries",),
+    DEVICE_ERROR,
+    ERROR_QUEUE_FEED,
+    ("error-queue entries",),
     check=lambda r: check_device_errors(r.source, r.entries, r.t),
     # An error entry is an event: the person acknowledging confirms the driver was checked.
     still_holds=cleared_by_acknowledgement,
@@ -150,8 +163,14 @@ DEVICE_ERROR_RECORD = Condition(
 # calibration that makes the pump look weak also makes the eyewear checklist ask too little)
 
 
-def check_power_calibration(expected_w: float, measured_w: float, current_a: float, what: str, t: float,
-                            factor: float = CALIBRATION_FACTOR) -> TripCondition | None:
+def check_power_calibration(
+    expected_w: float,
+    measured_w: float,
+    current_a: float,
+    what: str,
+    t: float,
+    factor: float = CALIBRATION_FACTOR,
+) -> TripCondition | None:
     """The bench file's pump power at ``current_a`` (``expected_w``) against ``measured_w``.
 
     ``what`` names the measurement (``"the pump driver's power reading"``). Returns a condition
@@ -180,13 +199,17 @@ def check_power_calibration(expected_w: float, measured_w: float, current_a: flo
 
 
 POWER_RECORD = Condition(
-    POWER_CALIBRATION, POWER_FEED, ("calibrated pump power", "measured pump power"),
+    POWER_CALIBRATION,
+    POWER_FEED,
+    ("calibrated pump power", "measured pump power"),
     check=lambda r: check_power_calibration(r.expected_w, r.measured_w, r.current_a, r.what, r.t),
     # The pump is off after the trip; the person acknowledging confirms the calibration was
     # checked (emitting again with it unchanged trips again).
     still_holds=cleared_by_acknowledgement,
     keys=("pump.slope_efficiency", "pump.threshold_current"),
-    summary=(f"trips when the calibrated pump power and a measured one differ by more than a factor "
-             f"{CALIBRATION_FACTOR:g} while emitting at a settled current; cleared by acknowledging"),
+    summary=(
+        f"trips when the calibrated pump power and a measured one differ by more than a factor "
+        f"{CALIBRATION_FACTOR:g} while emitting at a settled current; cleared by acknowledging"
+    ),
     kind=EVENT,
 )

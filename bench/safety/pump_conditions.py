@@ -60,7 +60,9 @@ def check_interlock(times: object, interlock: object) -> TripCondition | None:
     if i is None:
         return None
     state = "open" if x[i] < 0.5 else f"not a valid state ({x[i]!r})"
-    return TripCondition(INTERLOCK_OPEN, f"hardware interlock reads {state} at t={t[i]:.3f} s", float(t[i]), PUMP)
+    return TripCondition(
+        INTERLOCK_OPEN, f"hardware interlock reads {state} at t={t[i]:.3f} s", float(t[i]), PUMP
+    )
 
 
 def _interlock_holds(e: Evidence) -> str | None:
@@ -69,19 +71,24 @@ def _interlock_holds(e: Evidence) -> str | None:
 
 
 INTERLOCK_RECORD = Condition(
-    INTERLOCK_OPEN, PUMP_FEED, (INTERLOCK,),
+    INTERLOCK_OPEN,
+    PUMP_FEED,
+    (INTERLOCK,),
     check=lambda r: check_interlock(r.t, r.column(INTERLOCK)) if r.has(INTERLOCK) else UNJUDGED,
     still_holds=_interlock_holds,
     summary="trips when the hardware interlock reads open; clears on a fresh reading that shows it closed",
-    holds_on_driver=lambda pump: (None if reads_exactly(pump.interlock_closed(), True)
-                                  else "the hardware interlock still reads open"),
+    holds_on_driver=lambda pump: (
+        None if reads_exactly(pump.interlock_closed(), True) else "the hardware interlock still reads open"
+    ),
 )
 
 # --------------------------------------------------------------------------------------------
 # The mount temperature is outside its window (``mount_temp``, K)
 
 
-def check_mount_temperature(times: object, temperature: object, low: float, high: float) -> TripCondition | None:
+def check_mount_temperature(
+    times: object, temperature: object, low: float, high: float
+) -> TripCondition | None:
     """The mount temperature (K) is outside ``[low, high]`` (or not a number) in any sample."""
     if not (math.isfinite(low) and math.isfinite(high) and low < high):
         raise ValueError(f"low, high: expected a finite window low < high, got {low!r}, {high!r}")
@@ -91,7 +98,9 @@ def check_mount_temperature(times: object, temperature: object, low: float, high
     if i is None:
         return None
     v = float(x[i])
-    where = "not a number" if not math.isfinite(v) else _celsius(v) + (" is above" if v > high else " is below")
+    where = (
+        "not a number" if not math.isfinite(v) else _celsius(v) + (" is above" if v > high else " is below")
+    )
     return TripCondition(
         MOUNT_TEMPERATURE,
         f"mount temperature {where} its window {_celsius(low)} to {_celsius(high)} at t={t[i]:.3f} s",
@@ -111,9 +120,16 @@ def _temperature_holds(e: Evidence) -> str | None:
 
 
 MOUNT_TEMPERATURE_RECORD = Condition(
-    MOUNT_TEMPERATURE, PUMP_FEED, (MOUNT_TEMP,),
-    check=lambda r: (check_mount_temperature(r.t, r.column(MOUNT_TEMP), r.cfg.mount_temperature_min,
-                                             r.cfg.mount_temperature_max) if r.has(MOUNT_TEMP) else UNJUDGED),
+    MOUNT_TEMPERATURE,
+    PUMP_FEED,
+    (MOUNT_TEMP,),
+    check=lambda r: (
+        check_mount_temperature(
+            r.t, r.column(MOUNT_TEMP), r.cfg.mount_temperature_min, r.cfg.mount_temperature_max
+        )
+        if r.has(MOUNT_TEMP)
+        else UNJUDGED
+    ),
     still_holds=_temperature_holds,
     keys=("guard.mount_temperature_min", "guard.mount_temperature_max"),
     summary="trips when the mount temperature leaves its window; clears on a fresh reading inside it",
@@ -142,15 +158,29 @@ def check_over_current(
         t = _times(times, m.shape[0])
         i = _first(~(m <= max_current + tolerance))
         if i is not None:
-            found.append((float(t[i]), (f"pump current {m[i]:.3f} A is above the limit {max_current:g} A "
-                                        f"(+{tolerance:g} A tolerance) at t={t[i]:.3f} s")))
+            found.append(
+                (
+                    float(t[i]),
+                    (
+                        f"pump current {m[i]:.3f} A is above the limit {max_current:g} A "
+                        f"(+{tolerance:g} A tolerance) at t={t[i]:.3f} s"
+                    ),
+                )
+            )
     if setpoint is not None:
         s = _array(setpoint, "setpoint")
         t = _times(times, s.shape[0])
         i = _first(~(s <= max_current * (1.0 + 1e-9)))
         if i is not None:
-            found.append((float(t[i]), (f"pump current setpoint {s[i]:.3f} A is above the limit "
-                                        f"{max_current:g} A at t={t[i]:.3f} s")))
+            found.append(
+                (
+                    float(t[i]),
+                    (
+                        f"pump current setpoint {s[i]:.3f} A is above the limit "
+                        f"{max_current:g} A at t={t[i]:.3f} s"
+                    ),
+                )
+            )
     if not found:
         return None
     seen_at, reason = min(found)
@@ -161,9 +191,13 @@ def _over_current_check(r: BlockReading) -> Verdict:
     measured, setpoint = r.has(PUMP_CURRENT), r.has(PUMP_SETPOINT)
     if not (measured or setpoint):
         return UNJUDGED
-    return check_over_current(r.t, r.column(PUMP_CURRENT) if measured else None,
-                              r.column(PUMP_SETPOINT) if setpoint else None, r.cfg.max_current,
-                              r.cfg.current_tolerance)
+    return check_over_current(
+        r.t,
+        r.column(PUMP_CURRENT) if measured else None,
+        r.column(PUMP_SETPOINT) if setpoint else None,
+        r.cfg.max_current,
+        r.cfg.current_tolerance,
+    )
 
 
 def _current_holds(e: Evidence) -> str | None:
@@ -180,12 +214,16 @@ def _current_holds(e: Evidence) -> str | None:
 
 
 OVER_CURRENT_RECORD = Condition(
-    OVER_CURRENT, PUMP_FEED, (PUMP_CURRENT, PUMP_SETPOINT),
+    OVER_CURRENT,
+    PUMP_FEED,
+    (PUMP_CURRENT, PUMP_SETPOINT),
     check=_over_current_check,
     still_holds=_current_holds,
     keys=("guard.max_current", "guard.current_tolerance"),
-    summary=("trips when the measured current is above max_current + current_tolerance or the setpoint "
-             "above max_current; clears on fresh readings of both within them"),
+    summary=(
+        "trips when the measured current is above max_current + current_tolerance or the setpoint "
+        "above max_current; clears on fresh readings of both within them"
+    ),
 )
 
 # --------------------------------------------------------------------------------------------
@@ -230,8 +268,14 @@ def _following_check(r: BlockReading) -> Verdict:
     # r.settled is None without all three channels; no settled sample: nothing to judge yet
     if r.settled is None or not r.settled.any():
         return UNJUDGED
-    return check_following(r.t, r.column(PUMP_CURRENT), r.column(PUMP_SETPOINT), r.column(PUMP_ON),
-                           r.cfg.current_tolerance, r.settled)
+    return check_following(
+        r.t,
+        r.column(PUMP_CURRENT),
+        r.column(PUMP_SETPOINT),
+        r.column(PUMP_ON),
+        r.cfg.current_tolerance,
+        r.settled,
+    )
 
 
 def _following_holds(e: Evidence) -> str | None:
@@ -248,19 +292,25 @@ def _following_holds(e: Evidence) -> str | None:
 
 
 FOLLOWING_RECORD = Condition(
-    CURRENT_NOT_FOLLOWING, PUMP_FEED, (PUMP_CURRENT, PUMP_SETPOINT, PUMP_ON),
+    CURRENT_NOT_FOLLOWING,
+    PUMP_FEED,
+    (PUMP_CURRENT, PUMP_SETPOINT, PUMP_ON),
     check=_following_check,
     still_holds=_following_holds,
     keys=("guard.current_tolerance",),
-    summary=("trips when the current is more than current_tolerance from its target in a settled sample "
-             "(not within the settle time of a change); clears on fresh readings that follow it"),
+    summary=(
+        "trips when the current is more than current_tolerance from its target in a settled sample "
+        "(not within the settle time of a change); clears on fresh readings that follow it"
+    ),
 )
 
 # --------------------------------------------------------------------------------------------
 # The pump output reads on although the guard commanded it off
 
 
-def check_output_unexpected(times: object, pump_on: object, off_since: float, grace: float) -> TripCondition | None:
+def check_output_unexpected(
+    times: object, pump_on: object, off_since: float, grace: float
+) -> TripCondition | None:
     """The output reads on in a sample taken more than ``grace`` s after it was commanded off."""
     on = _array(pump_on, "pump_on")
     t = _times(times, on.shape[0])
@@ -276,12 +326,19 @@ def check_output_unexpected(times: object, pump_on: object, off_since: float, gr
 
 
 OUTPUT_ON_RECORD = Condition(
-    OUTPUT_UNEXPECTED, PUMP_FEED, (PUMP_ON,),
-    check=lambda r: (check_output_unexpected(r.t, r.column(PUMP_ON), r.output_off_since, r.monitor.output_grace)
-                     if r.has(PUMP_ON) and r.output_off_since is not None else UNJUDGED),
+    OUTPUT_UNEXPECTED,
+    PUMP_FEED,
+    (PUMP_ON,),
+    check=lambda r: (
+        check_output_unexpected(r.t, r.column(PUMP_ON), r.output_off_since, r.monitor.output_grace)
+        if r.has(PUMP_ON) and r.output_off_since is not None
+        else UNJUDGED
+    ),
     still_holds=output_reads_off,
-    summary=("trips when the output reads on more than the output grace after the guard commanded it off; "
-             "clears on a fresh reading that shows it off"),
+    summary=(
+        "trips when the output reads on more than the output grace after the guard commanded it off; "
+        "clears on a fresh reading that shows it off"
+    ),
     holds_on_driver=driver_output_reads_off,
 )
 
@@ -290,7 +347,9 @@ OUTPUT_ON_RECORD = Condition(
 # off, or the driver's own protection did: the guard's view of the pump is then wrong)
 
 
-def check_output_off_unexpected(times: object, pump_on: object, on_since: float, grace: float) -> TripCondition | None:
+def check_output_off_unexpected(
+    times: object, pump_on: object, on_since: float, grace: float
+) -> TripCondition | None:
     """The output reads off in a sample taken more than ``grace`` s after it was commanded on."""
     on = _array(pump_on, "pump_on")
     t = _times(times, on.shape[0])
@@ -308,19 +367,22 @@ def check_output_off_unexpected(times: object, pump_on: object, on_since: float,
 
 def _output_off_check(r: BlockReading) -> Verdict:
     # an open interlock, or another condition of this reading, already explains it
-    if (r.has(PUMP_ON) and r.output_on_since is not None and not r.found
-            and INTERLOCK_OPEN not in r.active):
+    if r.has(PUMP_ON) and r.output_on_since is not None and not r.found and INTERLOCK_OPEN not in r.active:
         return check_output_off_unexpected(r.t, r.column(PUMP_ON), r.output_on_since, r.monitor.output_grace)
     return None if r.output_off_since is not None else UNJUDGED  # commanded off: no longer applies
 
 
 OUTPUT_OFF_RECORD = Condition(
-    OUTPUT_OFF_UNEXPECTED, PUMP_FEED, (PUMP_ON,),
+    OUTPUT_OFF_UNEXPECTED,
+    PUMP_FEED,
+    (PUMP_ON,),
     check=_output_off_check,
     # The guard switched the pump off on the trip: what stays is to find out why the output
     # went off; the person acknowledging confirms they did.
     still_holds=cleared_by_acknowledgement,
-    summary=("trips when the output reads off more than the output grace after the guard commanded it on "
-             "(unless the interlock or another condition of the same reading explains it); cleared by "
-             "acknowledging"),
+    summary=(
+        "trips when the output reads off more than the output grace after the guard commanded it on "
+        "(unless the interlock or another condition of the same reading explains it); cleared by "
+        "acknowledging"
+    ),
 )

@@ -29,8 +29,16 @@ class TransmissionWindows:
     ``pump_changes`` is the monitor's record of when the pump changed (shared, read here).
     """
 
-    def __init__(self, *, jump_window: float, min_reference_fraction: float, pump_steady_fraction: float,
-                 settle_time: float, lag_allowance: float, pump_changes: Any) -> None:
+    def __init__(
+        self,
+        *,
+        jump_window: float,
+        min_reference_fraction: float,
+        pump_steady_fraction: float,
+        settle_time: float,
+        lag_allowance: float,
+        pump_changes: Any,
+    ) -> None:
         self.jump_window = jump_window
         self.min_reference_fraction = min_reference_fraction
         self.pump_steady_fraction = pump_steady_fraction
@@ -88,7 +96,7 @@ class TransmissionWindows:
         # The windows of this block, after the (up to two) last windows of the stream so far.
         prev = self._prev
         start = np.concatenate(([p[0] for p in prev], data["t"][:use:w]))
-        end = np.concatenate(([p[1] for p in prev], data["t"][w - 1:use:w]))
+        end = np.concatenate(([p[1] for p in prev], data["t"][w - 1 : use : w]))
         s_all = np.concatenate(([p[2] for p in prev], s))
         valid_all = np.concatenate((np.array([p[3] for p in prev], dtype=bool), valid))
         pm_all = np.concatenate(([p[4] for p in prev], pm))
@@ -100,16 +108,18 @@ class TransmissionWindows:
         comparable = valid_all[before] & valid_all[after]
         if PUMP_MONITOR in means:
             a, b = pm_all[before], pm_all[after]
-            allowed = np.maximum(self.pump_steady_fraction * np.maximum(np.abs(a), np.abs(b)),
-                                 0.01 * ranges[PUMP_MONITOR])
+            allowed = np.maximum(
+                self.pump_steady_fraction * np.maximum(np.abs(a), np.abs(b)), 0.01 * ranges[PUMP_MONITOR]
+            )
             comparable &= np.abs(b - a) <= allowed
         if self._pump_changes:
             changes = np.fromiter(self._pump_changes, dtype=np.float64)
             # the change takes effect up to lag_allowance after (or, by the readings' clock,
             # before) the time it was commanded at
             lag = self.lag_allowance
-            near = ((changes[None, :] > start[before, None] - self.settle_time - lag)
-                    & (changes[None, :] <= end[after, None] + lag))
+            near = (changes[None, :] > start[before, None] - self.settle_time - lag) & (
+                changes[None, :] <= end[after, None] + lag
+            )
             comparable &= ~near.any(axis=1)
         if not pump_steady:
             comparable[:] = False
@@ -117,6 +127,8 @@ class TransmissionWindows:
         keep = range(max(0, len(start) - 2), len(start))
         if result is not None:  # compare later windows with those after the jump only (one report)
             keep = [i for i in keep if start[i] >= result.seen_at]
-        self._prev = [(float(start[i]), float(end[i]), float(s_all[i]), bool(valid_all[i]), float(pm_all[i]))
-                      for i in keep]
+        self._prev = [
+            (float(start[i]), float(end[i]), float(s_all[i]), bool(valid_all[i]), float(pm_all[i]))
+            for i in keep
+        ]
         return result

@@ -90,7 +90,6 @@ def settled_mask(
     return mask, float(x[-1]), float(latest_change[-1])
 
 
-
 class TripMonitor:
     """Feeds blocks and communication results to the checks and keeps what they need.
 
@@ -145,14 +144,19 @@ class TripMonitor:
     ) -> None:
         if not isinstance(cfg, GuardConfig):
             raise ValueError(f"cfg: expected a GuardConfig, got {type(cfg).__name__}")
-        for name, value in (("settle_time", settle_time), ("jump_window", jump_window),
-                            ("lag_allowance", lag_allowance)):
+        for name, value in (
+            ("settle_time", settle_time),
+            ("jump_window", jump_window),
+            ("lag_allowance", lag_allowance),
+        ):
             if not (isinstance(value, (int, float)) and math.isfinite(value) and value >= 0):
                 raise ValueError(f"{name}: expected a time >= 0 s, got {value!r}")
         if jump_window <= 0:
             raise ValueError(f"jump_window: expected a positive time, got {jump_window!r}")
-        for name, value in (("min_reference_fraction", min_reference_fraction),
-                            ("pump_steady_fraction", pump_steady_fraction)):
+        for name, value in (
+            ("min_reference_fraction", min_reference_fraction),
+            ("pump_steady_fraction", pump_steady_fraction),
+        ):
             if not (isinstance(value, (int, float)) and 0 < value < 1):
                 raise ValueError(f"{name}: expected a fraction between 0 and 1, got {value!r}")
         self.cfg = cfg
@@ -163,7 +167,9 @@ class TripMonitor:
         self.started_at = started_at
         self.sources = tuple(sources)
         self.lag_allowance = float(lag_allowance)
-        self.output_grace = self.settle_time + self.lag_allowance if output_grace is None else float(output_grace)
+        self.output_grace = (
+            self.settle_time + self.lag_allowance if output_grace is None else float(output_grace)
+        )
         self._lock = threading.Lock()
         self._active: dict[str, TripCondition] = {}
         self._values: dict[str, tuple[float, float]] = {}
@@ -176,9 +182,13 @@ class TripMonitor:
         self._pump_changes: deque[float] = deque(maxlen=32)
         self._commanded_changes: deque[float] = deque(maxlen=8)
         self.windows = TransmissionWindows(
-            jump_window=self.jump_window, min_reference_fraction=self.min_reference_fraction,
-            pump_steady_fraction=self.pump_steady_fraction, settle_time=self.settle_time,
-            lag_allowance=self.lag_allowance, pump_changes=self._pump_changes)
+            jump_window=self.jump_window,
+            min_reference_fraction=self.min_reference_fraction,
+            pump_steady_fraction=self.pump_steady_fraction,
+            settle_time=self.settle_time,
+            lag_allowance=self.lag_allowance,
+            pump_changes=self._pump_changes,
+        )
 
     # -- small helpers ---------------------------------------------------------------------
     def _judge(self, feed: str, reading: object, found: list[TripCondition]) -> None:
@@ -213,7 +223,8 @@ class TripMonitor:
         target = np.where(on >= 0.5, block.column(PUMP_SETPOINT), 0.0)
         before = self._last_change
         mask, self._last_target, self._last_change = settled_mask(
-            t, target, self.settle_time, self._last_target, self._last_change)
+            t, target, self.settle_time, self._last_target, self._last_change
+        )
         if self._last_change > before:
             self._pump_changes.append(self._last_change)
         if self._commanded_changes:
@@ -221,14 +232,21 @@ class TripMonitor:
             # may mix the values before and after: do not judge it.
             changes = np.fromiter(self._commanded_changes, dtype=np.float64)
             lag = self.lag_allowance
-            near = (t[:, None] >= changes[None, :] - lag) & (t[:, None] < changes[None, :] + self.settle_time + lag)
+            near = (t[:, None] >= changes[None, :] - lag) & (
+                t[:, None] < changes[None, :] + self.settle_time + lag
+            )
             mask &= ~near.any(axis=1)
         return mask
 
     # -- feeding ---------------------------------------------------------------------------
-    def feed_pump(self, block: Block, *, output_off_since: float | None = None,
-                  output_on_since: float | None = None,
-                  received_at: float | None = None) -> list[TripCondition]:
+    def feed_pump(
+        self,
+        block: Block,
+        *,
+        output_off_since: float | None = None,
+        output_on_since: float | None = None,
+        received_at: float | None = None,
+    ) -> list[TripCondition]:
         """Check one pump block (channels ``pump_current``, ``pump_setpoint``, ``pump_on``,
         ``mount_temp``, ``interlock``; any subset).
 
@@ -247,9 +265,17 @@ class TripMonitor:
             self._seen(PUMP, block.t_end if received_at is None else max(block.t_end, received_at))
             for name in block.channels:
                 self._values[name] = (float(t[-1]), float(block.column(name)[-1]))
-            reading = BlockReading(block, t, self.cfg, self, output_off_since=output_off_since,
-                                   output_on_since=output_on_since, settled=self._settled(block, t),
-                                   found=found, active=self._active)
+            reading = BlockReading(
+                block,
+                t,
+                self.cfg,
+                self,
+                output_off_since=output_off_since,
+                output_on_since=output_on_since,
+                settled=self._settled(block, t),
+                found=found,
+                active=self._active,
+            )
             self._judge(PUMP_FEED, reading, found)
         return found
 
@@ -281,12 +307,22 @@ class TripMonitor:
             for c in present:
                 peak = float(np.max(np.abs(block.column(c))))  # NaN propagates: a NaN reading never clears
                 self._peaks[c] = (float(t[-1]), peak, ranges[c])
-            reading = BlockReading(block, t, self.cfg, self, ranges=ranges, pump_steady=pump_steady,
-                                   found=found, active=self._active)
+            reading = BlockReading(
+                block,
+                t,
+                self.cfg,
+                self,
+                ranges=ranges,
+                pump_steady=pump_steady,
+                found=found,
+                active=self._active,
+            )
             self._judge(DETECTOR_FEED, reading, found)
         return found
 
-    def comm_result(self, source: str, ok: bool, t: float, detail: str = "", lost: bool = False) -> list[TripCondition]:
+    def comm_result(
+        self, source: str, ok: bool, t: float, detail: str = "", lost: bool = False
+    ) -> list[TripCondition]:
         """Record one exchange with ``source`` (``"pump"``, ``"detector"``) at run-clock time ``t``.
 
         ``lost=True`` (the connection dropped) trips at once; otherwise ``comm_failures``
@@ -301,8 +337,13 @@ class TripMonitor:
                 self._comm_ok_at[source] = float(t)
             else:
                 self._failures[source] = self._failures.get(source, 0) + 1
-            self._judge(EXCHANGE_FEED, ExchangeReading(source, bool(ok), self._failures[source], float(t), detail,
-                                                       bool(lost), self.cfg), found)
+            self._judge(
+                EXCHANGE_FEED,
+                ExchangeReading(
+                    source, bool(ok), self._failures[source], float(t), detail, bool(lost), self.cfg
+                ),
+                found,
+            )
         return found
 
     def check_stale(self, now: float) -> list[TripCondition]:
@@ -316,15 +357,18 @@ class TripMonitor:
                 self._judge(AGE_FEED, AgeReading(source, float(now), newest, self.cfg), found)
         return found
 
-    def feed_error_queue(self, source: str, entries: Sequence[tuple[int, str]], t: float) -> list[TripCondition]:
+    def feed_error_queue(
+        self, source: str, entries: Sequence[tuple[int, str]], t: float
+    ) -> list[TripCondition]:
         """Entries ``(code, text)`` read from ``source``'s error queue at run-clock time ``t``."""
         found: list[TripCondition] = []
         with self._lock:
             self._judge(ERROR_QUEUE_FEED, ErrorQueueReading(source, tuple(entries), float(t)), found)
         return found
 
-    def feed_power(self, expected_w: float, measured_w: float, current_a: float, what: str,
-                   t: float) -> list[TripCondition]:
+    def feed_power(
+        self, expected_w: float, measured_w: float, current_a: float, what: str, t: float
+    ) -> list[TripCondition]:
         """The bench file's pump power at ``current_a`` against one measured by ``what``."""
         found: list[TripCondition] = []
         with self._lock:

@@ -120,8 +120,9 @@ def import_csv(
         raise ConfigError(f"{path}: is a directory, not a CSV file")
     try:
         with open(path, encoding="utf-8-sig", newline="") as f:
-            return _import(f, path, roles, cfg, log_dir, block_size, mode, float(pump_on_threshold),
-                           sample_id, dark)
+            return _import(
+                f, path, roles, cfg, log_dir, block_size, mode, float(pump_on_threshold), sample_id, dark
+            )
     except UnicodeDecodeError as exc:
         raise ConfigError(f"{path}: is not UTF-8 text ({exc.reason} at byte {exc.start} of a line)") from None
     except OSError as exc:
@@ -133,7 +134,9 @@ def _check_columns(columns: Mapping[str, str]) -> dict[str, str]:
         raise ValueError(f"columns: expected a mapping of {', '.join(COLUMN_ROLES)} to header names")
     unknown = [k for k in columns if k not in COLUMN_ROLES]
     if unknown:
-        raise ValueError(f"columns: unknown key {', '.join(map(repr, unknown))}; expected {', '.join(COLUMN_ROLES)}")
+        raise ValueError(
+            f"columns: unknown key {', '.join(map(repr, unknown))}; expected {', '.join(COLUMN_ROLES)}"
+        )
     missing = [k for k in REQUIRED_ROLES if not columns.get(k)]
     if missing:
         raise ValueError(f"columns: needs the header name of {', '.join(missing)}")
@@ -177,7 +180,8 @@ class _Rows:
         absent = [n for n in names if n not in cells]
         raise ConfigError(
             f"{self.path}: no header line names the column(s) {', '.join(map(repr, absent))} "
-            f"(looked at the first {MAX_PREAMBLE} lines; line {number} has: {', '.join(map(repr, cells[:12]))})")
+            f"(looked at the first {MAX_PREAMBLE} lines; line {number} has: {', '.join(map(repr, cells[:12]))})"
+        )
 
     def __iter__(self) -> Iterator[tuple[int, list[float]]]:
         while True:
@@ -196,8 +200,10 @@ class _Rows:
                 k = self.index[role]
                 name = self.roles[role]
                 if k >= len(row):
-                    raise ConfigError(f"{self.path}: line {line}: has {len(row)} fields, so no column {name!r} "
-                                      f"(field {k + 1} of the header)")
+                    raise ConfigError(
+                        f"{self.path}: line {line}: has {len(row)} fields, so no column {name!r} "
+                        f"(field {k + 1} of the header)"
+                    )
                 values.append(self._value(row[k].strip(), role, line, name))
             yield line, values
 
@@ -228,16 +234,26 @@ def _bounded_lines(f: Any, path: Path) -> Iterator[str]:
         if "\x00" in line:
             raise ConfigError(f"{path}: line {number} holds NUL characters: a binary file, not CSV text")
         if len(line) >= MAX_LINE_CHARS and not line.endswith("\n"):
-            raise ConfigError(f"{path}: line {number} is longer than {MAX_LINE_CHARS} characters: not a CSV "
-                              "file of numbers (is it a binary file?)")
+            raise ConfigError(
+                f"{path}: line {number} is longer than {MAX_LINE_CHARS} characters: not a CSV "
+                "file of numbers (is it a binary file?)"
+            )
         yield line
 
 
 class _Blocks:
     """Cuts timed samples into uniformly sampled blocks and hands them to the writer."""
 
-    def __init__(self, writer: RunWriter, path: Path, time_name: str, dt: float, t_offset: float,
-                 channels: tuple[str, ...], block_size: int) -> None:
+    def __init__(
+        self,
+        writer: RunWriter,
+        path: Path,
+        time_name: str,
+        dt: float,
+        t_offset: float,
+        channels: tuple[str, ...],
+        block_size: int,
+    ) -> None:
         self.writer, self.path, self.time_name = writer, path, time_name
         self.dt, self.t_offset, self.channels, self.block_size = dt, t_offset, channels, block_size
         self.rows: list[list[float]] = []
@@ -277,15 +293,22 @@ class _Blocks:
                     raise ConfigError(
                         f"{self.path}: line {line}, column {self.time_name!r}: irregular sampling: the interval "
                         f"{interval:.6g} s is not a whole number of the sample interval {self.dt:.6g} s "
-                        f"(median of the first intervals)")
+                        f"(median of the first intervals)"
+                    )
                 self.flush()
                 if m >= 2:
                     self.next_index += m - 1
                     self.gaps += 1
                     self.missing += m - 1
-                    self.writer.append_event(Event(
-                        t=t, kind="gap", text=f"{m - 1} samples missing before line {line} of {self.path.name}",
-                        who="csv import", data={"line": line, "missing": m - 1, "first_index": self.next_index}))
+                    self.writer.append_event(
+                        Event(
+                            t=t,
+                            kind="gap",
+                            text=f"{m - 1} samples missing before line {line} of {self.path.name}",
+                            who="csv import",
+                            data={"line": line, "missing": m - 1, "first_index": self.next_index},
+                        )
+                    )
         if not self.rows:
             self.t0 = t
             self.first_index = self.next_index
@@ -299,8 +322,17 @@ class _Blocks:
         if not self.rows:
             return
         data = np.array(self.rows, dtype=np.float64)
-        self.writer.append_block(Block(source="detector", seq=self.seq, t0=self.t0, dt=self.dt,
-                                       first_index=self.first_index, channels=self.channels, data=data))
+        self.writer.append_block(
+            Block(
+                source="detector",
+                seq=self.seq,
+                t0=self.t0,
+                dt=self.dt,
+                first_index=self.first_index,
+                channels=self.channels,
+                data=data,
+            )
+        )
         self.seq += 1
         self.samples += len(self.rows)
         self.rows = []
@@ -312,9 +344,18 @@ def default_mode(switch_ons: int | None) -> str:
     return "chopped" if switch_ons is not None and switch_ons > 1 else "watch"
 
 
-def _import(f: Any, path: Path, roles: dict[str, str], cfg: BenchConfig, log_dir: str | Path | None,
-            block_size: int, mode: str | None, threshold: float, sample_id: str | None,
-            dark: DarkGiven | None) -> Path:
+def _import(
+    f: Any,
+    path: Path,
+    roles: dict[str, str],
+    cfg: BenchConfig,
+    log_dir: str | Path | None,
+    block_size: int,
+    mode: str | None,
+    threshold: float,
+    sample_id: str | None,
+    dark: DarkGiven | None,
+) -> Path:
     rows = _Rows(f, path, roles, threshold)
     it = iter(rows)
     head: list[tuple[int, list[float]]] = []
@@ -325,8 +366,10 @@ def _import(f: Any, path: Path, roles: dict[str, str], cfg: BenchConfig, log_dir
         if len(head) > DT_INTERVALS:
             break
     if len(head) < 2:
-        raise ConfigError(f"{path}: has {len(head)} data row(s) after the header (line {rows.header_line}); "
-                          "at least 2 are needed to know the sample interval")
+        raise ConfigError(
+            f"{path}: has {len(head)} data row(s) after the header (line {rows.header_line}); "
+            "at least 2 are needed to know the sample interval"
+        )
     times = np.array([values[0] for _, values in head])
     dt = float(np.median(np.diff(times)))
     t_offset = float(times[0])
@@ -341,8 +384,13 @@ def _import(f: Any, path: Path, roles: dict[str, str], cfg: BenchConfig, log_dir
         simulated=False,
         instruments={"detector": f"CSV file {path.name}"},
         flush_interval=cfg.run.flush_interval,
-        meta={"bench_name": cfg.name, "sample_label": cfg.sample.label, "imported_from": str(path),
-              "bench_overrides": dict(cfg.overrides), **config_meta(cfg)},
+        meta={
+            "bench_name": cfg.name,
+            "sample_label": cfg.sample.label,
+            "imported_from": str(path),
+            "bench_overrides": dict(cfg.overrides),
+            **config_meta(cfg),
+        },
     )
     try:
         blocks = _Blocks(writer, path, roles["time"], dt, t_offset, channels, block_size)
@@ -356,9 +404,16 @@ def _import(f: Any, path: Path, roles: dict[str, str], cfg: BenchConfig, log_dir
         if mode is None:
             mode = default_mode(blocks.switch_ons if blocks.pump is not None else None)
         info = {
-            "file": str(path), "columns": roles, "samples": blocks.samples, "blocks": blocks.seq,
-            "dt_s": dt, "time_offset_s": t_offset, "gaps": blocks.gaps, "missing_samples": blocks.missing,
-            "max_timing_deviation_dt": blocks.max_deviation, "grid_tolerance_dt": GRID_TOLERANCE,
+            "file": str(path),
+            "columns": roles,
+            "samples": blocks.samples,
+            "blocks": blocks.seq,
+            "dt_s": dt,
+            "time_offset_s": t_offset,
+            "gaps": blocks.gaps,
+            "missing_samples": blocks.missing,
+            "max_timing_deviation_dt": blocks.max_deviation,
+            "grid_tolerance_dt": GRID_TOLERANCE,
             "pump_on_threshold": threshold if "pump_on" in roles else None,
             "pump_switch_ons": blocks.switch_ons if blocks.pump is not None else None,
             "first_pump_on_s": blocks.first_on,
@@ -368,23 +423,45 @@ def _import(f: Any, path: Path, roles: dict[str, str], cfg: BenchConfig, log_dir
         writer.set_meta({"import": info, "mode": mode})
         if analysed:
             overrides = {"pump_threshold_v": PUMP_THRESHOLD_V}
-            writer.set_meta({"estimator_mode": mode, "estimator_settings": {}, "estimator_overrides": overrides,
-                             FINAL_REPORT: True})
-        writer.append_event(Event(
-            t=0.0, kind="note", who="csv import",
-            text=(f"imported {blocks.samples} samples from {path.name}: sample interval {dt:.6g} s (median of the "
-                  f"first intervals), {blocks.gaps} gap(s), largest timing deviation "
-                  f"{100 * blocks.max_deviation:.3g} % of the interval"),
-            data=info))
+            writer.set_meta(
+                {
+                    "estimator_mode": mode,
+                    "estimator_settings": {},
+                    "estimator_overrides": overrides,
+                    FINAL_REPORT: True,
+                }
+            )
+        writer.append_event(
+            Event(
+                t=0.0,
+                kind="note",
+                who="csv import",
+                text=(
+                    f"imported {blocks.samples} samples from {path.name}: sample interval {dt:.6g} s (median of the "
+                    f"first intervals), {blocks.gaps} gap(s), largest timing deviation "
+                    f"{100 * blocks.max_deviation:.3g} % of the interval"
+                ),
+                data=info,
+            )
+        )
         if analysed:
             writer.flush()
             params = EstimatorParams.from_config(cfg, **overrides)
             with RunReader(writer.path) as reader:
-                analyse(writer, reader, params, mode, dark=dark, first_on=blocks.first_on, t_offset=t_offset,
-                        csv_name=path.name)
+                analyse(
+                    writer,
+                    reader,
+                    params,
+                    mode,
+                    dark=dark,
+                    first_on=blocks.first_on,
+                    t_offset=t_offset,
+                    csv_name=path.name,
+                )
         else:
-            writer.append_event(Event(t=0.0, kind="note", who="csv import",
-                                      text="not analysed: the file has no pump column"))
+            writer.append_event(
+                Event(t=0.0, kind="note", who="csv import", text="not analysed: the file has no pump column")
+            )
         writer.close(reason="imported")
     except BaseException:
         if not writer.closed:
@@ -409,5 +486,7 @@ def _chain(head: list, rest: Iterator) -> Iterator:
 
 
 def _not_increasing(path: Path, name: str, line: int, t: float, prev: float) -> None:
-    raise ConfigError(f"{path}: line {line}, column {name!r}: time {t!r} is not after the previous "
-                      f"row's {prev!r} (time must increase)")
+    raise ConfigError(
+        f"{path}: line {line}, column {name!r}: time {t!r} is not after the previous "
+        f"row's {prev!r} (time must increase)"
+    )

@@ -106,8 +106,9 @@ def _block_columns(channels: tuple[str, ...]) -> dict[str, str]:
     return {c: (f"{c}_channel" if c in ("time", "source") else c) for c in channels}
 
 
-def _block_frames(reader: RunReader, source: str | None, columns: dict[str, str],
-                  chunk_rows: int) -> Iterator[pd.DataFrame]:
+def _block_frames(
+    reader: RunReader, source: str | None, columns: dict[str, str], chunk_rows: int
+) -> Iterator[pd.DataFrame]:
     pending: list[Any] = []
     rows = 0
     for block in reader.iter_blocks(source=source):
@@ -149,8 +150,13 @@ def _estimate_frame(reader: RunReader, analysis_id: int | None) -> pd.DataFrame:
     for a in analyses:
         for e in reader.estimates(a["id"]):
             row: dict[str, Any] = {
-                "t": e.t, "mode": e.mode, "scope": e.scope, "analysis": a["id"], "analysis_kind": a["kind"],
-                "n_samples": e.n_samples, "flags": ";".join(sorted(e.flags)),
+                "t": e.t,
+                "mode": e.mode,
+                "scope": e.scope,
+                "analysis": a["id"],
+                "analysis_kind": a["kind"],
+                "n_samples": e.n_samples,
+                "flags": ";".join(sorted(e.flags)),
             }
             for key, q in e.values.items():
                 keys.setdefault(key)
@@ -159,8 +165,11 @@ def _estimate_frame(reader: RunReader, analysis_id: int | None) -> pd.DataFrame:
             row["extra"] = json.dumps(dict(e.extra), separators=(",", ":"))
             rows.append(row)
     ordered = [k for k in ESTIMATE_KEYS if k in keys] + [k for k in keys if k not in ESTIMATE_KEYS]
-    columns = (["t", "mode", "scope", "analysis", "analysis_kind", "n_samples", "flags"]
-               + [f"{k}_{part}" for k in ordered for part in _QUANTITY_PARTS] + ["extra"])
+    columns = (
+        ["t", "mode", "scope", "analysis", "analysis_kind", "n_samples", "flags"]
+        + [f"{k}_{part}" for k in ordered for part in _QUANTITY_PARTS]
+        + ["extra"]
+    )
     frame = pd.DataFrame(rows, columns=columns)
     numeric = [c for c in columns if c.endswith(tuple(f"_{p}" for p in _QUANTITY_PARTS)) or c == "t"]
     frame[numeric] = frame[numeric].astype(np.float64)
@@ -169,8 +178,16 @@ def _estimate_frame(reader: RunReader, analysis_id: int | None) -> pd.DataFrame:
 
 
 def _event_frame(reader: RunReader) -> pd.DataFrame:
-    rows = [{"t": e.t, "kind": e.kind, "who": e.who, "text": e.text,
-             "data": json.dumps(dict(e.data), separators=(",", ":"))} for e in reader.events()]
+    rows = [
+        {
+            "t": e.t,
+            "kind": e.kind,
+            "who": e.who,
+            "text": e.text,
+            "data": json.dumps(dict(e.data), separators=(",", ":")),
+        }
+        for e in reader.events()
+    ]
     frame = pd.DataFrame(rows, columns=["t", "kind", "who", "text", "data"])
     frame["t"] = frame["t"].astype(np.float64)
     return frame
@@ -192,8 +209,9 @@ def _write_csv(frames: Iterator[pd.DataFrame], columns: dict[str, str] | None, t
 
 
 def _block_schema(columns: dict[str, str]) -> pa.Schema:
-    return pa.schema([("time", pa.float64()), ("source", pa.string())]
-                     + [(c, pa.float64()) for c in columns.values()])
+    return pa.schema(
+        [("time", pa.float64()), ("source", pa.string())] + [(c, pa.float64()) for c in columns.values()]
+    )
 
 
 def _write_parquet(frames: Iterator[pd.DataFrame], columns: dict[str, str] | None, target: Path) -> None:

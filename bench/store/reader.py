@@ -40,8 +40,22 @@ from bench.store.schema import (
 
 #: Keys of every `RunReader.summary` / `list_runs` row.
 SUMMARY_KEYS = (
-    "id", "path", "status", "error", "start", "stop", "duration_s", "sample", "mode", "simulated",
-    "size_bytes", "blocks", "analyses", "beta", "beta_sigma", "beta_analysis",
+    "id",
+    "path",
+    "status",
+    "error",
+    "start",
+    "stop",
+    "duration_s",
+    "sample",
+    "mode",
+    "simulated",
+    "size_bytes",
+    "blocks",
+    "analyses",
+    "beta",
+    "beta_sigma",
+    "beta_analysis",
 )
 
 
@@ -106,8 +120,11 @@ class RunReader:
         except READ_ERRORS as exc:
             problems = [str(exc)]
         if problems != ["ok"]:
-            raise run_file_error(self.path, f"{short_main}, and its -wal file does not hold the missing pages "
-                                            f"(SQLite: {'; '.join(map(str, problems[:3]))})")
+            raise run_file_error(
+                self.path,
+                f"{short_main}, and its -wal file does not hold the missing pages "
+                f"(SQLite: {'; '.join(map(str, problems[:3]))})",
+            )
 
     def _validate(self) -> None:
         conn = self._connection()
@@ -116,12 +133,17 @@ class RunReader:
         tables = {r[0] for r in conn.execute("SELECT name FROM sqlite_master WHERE type = 'table'")}
         if app != APPLICATION_ID:
             listed = ", ".join(sorted(t for t in tables if isinstance(t, str))[:6]) or "none"
-            raise run_file_error(self.path, "is not a gainbench run file: a SQLite database of another "
-                                            f"program (tables: {listed})")
+            raise run_file_error(
+                self.path,
+                f"is not a gainbench run file: a SQLite database of another program (tables: {listed})",
+            )
         if version > SCHEMA_VERSION:
-            raise run_file_error(self.path, f"was written by a newer gainbench (run file schema {version}; "
-                                            f"this version reads up to {SCHEMA_VERSION}): update gainbench to "
-                                            "read it")
+            raise run_file_error(
+                self.path,
+                f"was written by a newer gainbench (run file schema {version}; "
+                f"this version reads up to {SCHEMA_VERSION}): update gainbench to "
+                "read it",
+            )
         if version < 1:
             raise Damaged(f"its schema version is {version}")
         missing = [t for t in TABLES if t not in tables]
@@ -133,8 +155,9 @@ class RunReader:
                 raise Damaged("a meta key is not text")
             meta[key] = from_json(value, f"meta {key!r}")
         if meta.get("application") != APPLICATION:
-            raise run_file_error(self.path, "is not a gainbench run file "
-                                            f"(its application is {meta.get('application')!r})")
+            raise run_file_error(
+                self.path, f"is not a gainbench run file (its application is {meta.get('application')!r})"
+            )
         for key in ("run_id", "start_time", "bench_text"):
             if not isinstance(meta.get(key), str):
                 raise Damaged(f"meta {key!r} is missing or not text")
@@ -201,8 +224,9 @@ class RunReader:
                 names.update(dict.fromkeys(channels))
         return tuple(names)
 
-    def iter_blocks(self, source: str | None = None, start: float | None = None,
-                    stop: float | None = None) -> Iterator[Block]:
+    def iter_blocks(
+        self, source: str | None = None, start: float | None = None, stop: float | None = None
+    ) -> Iterator[Block]:
         """Blocks in seq order per source and in time order overall (by first-sample time).
 
         ``start`` / ``stop`` (run-clock s) keep the blocks that overlap ``[start, stop)``,
@@ -225,13 +249,17 @@ class RunReader:
         if start is not None:
             # A lower bound on t0 from the longest block's span lets SQLite use the time index
             # (with a margin for rounding); the exact overlap test follows it.
-            where.append(f"t0 >= ? - coalesce((SELECT CAST(value AS REAL) FROM meta WHERE key = "
-                         f"'{MAX_BLOCK_SPAN}'), 1e300) * 1.000001 - 1e-9")
+            where.append(
+                f"t0 >= ? - coalesce((SELECT CAST(value AS REAL) FROM meta WHERE key = "
+                f"'{MAX_BLOCK_SPAN}'), 1e300) * 1.000001 - 1e-9"
+            )
             where.append("t0 + dt * max(n - 1, 0) >= ?")
             args += [float(start), float(start)]
-        sql = ("SELECT source, seq, t0, dt, first_index, n, channels, dtype, data FROM blocks"
-               + (" WHERE " + " AND ".join(where) if where else "")
-               + (" ORDER BY seq" if source is not None else " ORDER BY t0, source, seq"))
+        sql = (
+            "SELECT source, seq, t0, dt, first_index, n, channels, dtype, data FROM blocks"
+            + (" WHERE " + " AND ".join(where) if where else "")
+            + (" ORDER BY seq" if source is not None else " ORDER BY t0, source, seq")
+        )
         try:
             cursor = self._connection().execute(sql, tuple(args))
             channel_cache: dict[str, tuple[str, ...]] = {}
@@ -254,8 +282,9 @@ class RunReader:
             raise Damaged("block times are not numbers")
         data = decode_samples(blob, dtype, n, len(channels))
         try:
-            return Block(source=source, seq=seq, t0=t0, dt=dt, first_index=first_index,
-                         channels=channels, data=data)
+            return Block(
+                source=source, seq=seq, t0=t0, dt=dt, first_index=first_index, channels=channels, data=data
+            )
         except ValueError as exc:
             raise Damaged(str(exc)) from None
 
@@ -264,12 +293,22 @@ class RunReader:
         """Every analysis: id, created, finished, kind, overrides, software_version, note, estimates."""
         rows = self._query(
             "SELECT a.id, a.created, a.finished, a.kind, a.overrides, a.software_version, a.note, "
-            "(SELECT count(*) FROM estimates e WHERE e.analysis_id = a.id) FROM analyses a ORDER BY a.id")
+            "(SELECT count(*) FROM estimates e WHERE e.analysis_id = a.id) FROM analyses a ORDER BY a.id"
+        )
         out = []
         for aid, created, finished, kind, overrides, version, note, count in rows:
-            out.append({"id": aid, "created": created, "finished": finished, "kind": kind,
-                        "overrides": self._decoded("analysis overrides", from_json, overrides, "overrides"),
-                        "software_version": version, "note": note, "estimates": count})
+            out.append(
+                {
+                    "id": aid,
+                    "created": created,
+                    "finished": finished,
+                    "kind": kind,
+                    "overrides": self._decoded("analysis overrides", from_json, overrides, "overrides"),
+                    "software_version": version,
+                    "note": note,
+                    "estimates": count,
+                }
+            )
         return out
 
     def _analysis(self, analysis_id: int | None) -> int | None:
@@ -287,8 +326,11 @@ class RunReader:
         aid = self._analysis(analysis_id)
         if aid is None:
             return []
-        rows = self._query("SELECT t, mode, scope, n_samples, flags, quantities, extra FROM estimates "
-                           "WHERE analysis_id = ? ORDER BY id", (aid,))
+        rows = self._query(
+            "SELECT t, mode, scope, n_samples, flags, quantities, extra FROM estimates "
+            "WHERE analysis_id = ? ORDER BY id",
+            (aid,),
+        )
         return [self._decoded("estimate", estimate_from_row, *r) for r in rows]
 
     def final_estimate(self, analysis_id: int | None = None) -> Estimate | None:
@@ -296,8 +338,11 @@ class RunReader:
         aid = self._analysis(analysis_id)
         if aid is None:
             return None
-        rows = self._query("SELECT t, mode, scope, n_samples, flags, quantities, extra FROM estimates "
-                           "WHERE analysis_id = ? AND scope = 'cumulative' ORDER BY id DESC LIMIT 1", (aid,))
+        rows = self._query(
+            "SELECT t, mode, scope, n_samples, flags, quantities, extra FROM estimates "
+            "WHERE analysis_id = ? AND scope = 'cumulative' ORDER BY id DESC LIMIT 1",
+            (aid,),
+        )
         return self._decoded("estimate", estimate_from_row, *rows[0]) if rows else None
 
     def events(self) -> list[Event]:
@@ -314,7 +359,9 @@ class RunReader:
         """Run SQLite's full integrity check; RunStoreError listing the first problems if any."""
         problems = [r[0] for r in self._query("PRAGMA integrity_check(20)")]
         if problems != ["ok"]:
-            raise run_file_error(self.path, "fails SQLite's integrity check: " + "; ".join(map(str, problems[:5])))
+            raise run_file_error(
+                self.path, "fails SQLite's integrity check: " + "; ".join(map(str, problems[:5]))
+            )
 
     def duration(self) -> float | None:
         """Seconds from start to stop (wall clock), or, for an incomplete run and for a run
@@ -328,7 +375,8 @@ class RunReader:
             pass
         last = self._query(
             "SELECT max(coalesce((SELECT t0 + dt * max(n - 1, 0) FROM blocks ORDER BY t0 DESC LIMIT 1), 0), "
-            "coalesce((SELECT max(t) FROM events), 0), coalesce((SELECT max(t) FROM estimates), 0))")[0][0]
+            "coalesce((SELECT max(t) FROM events), 0), coalesce((SELECT max(t) FROM estimates), 0))"
+        )[0][0]
         return float(last) if isinstance(last, (int, float)) else None
 
     def summary(self) -> dict[str, Any]:
@@ -368,8 +416,13 @@ def _layouts(text: Any) -> list[tuple[str, tuple[str, ...]]]:
         raise Damaged("block layouts are not a list")
     out = []
     for item in value:
-        if (not isinstance(item, list) or len(item) != 2 or not isinstance(item[0], str)
-                or not isinstance(item[1], list) or not all(isinstance(c, str) for c in item[1])):
+        if (
+            not isinstance(item, list)
+            or len(item) != 2
+            or not isinstance(item[0], str)
+            or not isinstance(item[1], list)
+            or not all(isinstance(c, str) for c in item[1])
+        ):
             raise Damaged("block layouts are not [source, [channel, ...]] pairs")
         out.append((item[0], tuple(item[1])))
     return out
@@ -406,7 +459,9 @@ def resolve_run(text: str, log_dir: str | Path = "logs") -> Path:
     if not isinstance(text, str):
         raise ValueError(f"text: expected a run id or a path, got {text!r}")
     if not text.strip():  # typed by a user: `gainbench summary ""`
-        raise RunStoreError("no run named (an empty run id); give a run id, a unique prefix of one, or a run file path")
+        raise RunStoreError(
+            "no run named (an empty run id); give a run id, a unique prefix of one, or a run file path"
+        )
     text = text.strip()
     given = Path(text)
     if given.is_file() or given.suffix == SUFFIX or "/" in text or os.sep in text:
@@ -424,7 +479,9 @@ def resolve_run(text: str, log_dir: str | Path = "logs") -> Path:
     if len(found) == 1:
         return found[0]
     if not found:
-        raise RunStoreError(f"no run matches {text!r} in {d} ({len(runs)} runs there; `gainbench runs` lists them)")
+        raise RunStoreError(
+            f"no run matches {text!r} in {d} ({len(runs)} runs there; `gainbench runs` lists them)"
+        )
     names = ", ".join(p.name[: -len(SUFFIX)] for p in found[:10]) + (", ..." if len(found) > 10 else "")
     raise RunStoreError(f"{text!r} matches {len(found)} runs in {d}: {names}; give more of the id")
 
@@ -444,7 +501,12 @@ def list_runs(log_dir: str | Path = "logs") -> list[dict[str, Any]]:
                 out.append(reader.summary())
         except RunStoreError as exc:
             row = dict.fromkeys(SUMMARY_KEYS)
-            row.update(id=p.name[: -len(SUFFIX)], path=str(p), status="unreadable",
-                       error=getattr(exc, "reason", str(exc)), size_bytes=_size(p))
+            row.update(
+                id=p.name[: -len(SUFFIX)],
+                path=str(p),
+                status="unreadable",
+                error=getattr(exc, "reason", str(exc)),
+                size_bytes=_size(p),
+            )
             out.append(row)
     return out

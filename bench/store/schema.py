@@ -382,8 +382,9 @@ def _number(obj: Any, what: str) -> float:
     return float(obj)
 
 
-def estimate_from_row(t: Any, mode: Any, scope: Any, n_samples: Any, flags: Any, quantities: Any,
-                      extra: Any) -> Estimate:
+def estimate_from_row(
+    t: Any, mode: Any, scope: Any, n_samples: Any, flags: Any, quantities: Any, extra: Any
+) -> Estimate:
     if not isinstance(mode, str) or not isinstance(scope, str) or not isinstance(n_samples, int):
         raise Damaged("estimate row has wrong column types")
     flag_list = from_json(flags, "estimate flags")

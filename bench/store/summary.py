@@ -29,8 +29,9 @@ def final_estimate(reader: RunReader, analysis_id: int | None = None) -> Estimat
 MEDIUM_KEYS = ("ln_t_pumped", "ln_t_unpumped", "gain_per_m")
 
 
-def _pumped_rows(rows: list[dict[str, Any]], t0: float, t1: float,
-                 settle: Callable[[float], float] | None = None) -> list[dict[str, Any]]:
+def _pumped_rows(
+    rows: list[dict[str, Any]], t0: float, t1: float, settle: Callable[[float], float] | None = None
+) -> list[dict[str, Any]]:
     """Truth rows in [t0, t1] taken while the pump was on (at least half its largest power there).
 
     With ``settle`` (pump power in W -> s) and rows that say how long the medium's inputs had
@@ -78,9 +79,11 @@ def truth_figures(pick: list[dict[str, Any]], cfg: BenchConfig) -> tuple[dict[st
     """
     if not pick:
         return None
-    med = {k: float(np.median([r[k] for r in pick]))
-           for k in ("ln_ratio", "beta", "n2_avg", "tau", "n_total", "length") + MEDIUM_KEYS
-           if all(k in r for r in pick)}
+    med = {
+        k: float(np.median([r[k] for r in pick]))
+        for k in ("ln_ratio", "beta", "n2_avg", "tau", "n_total", "length") + MEDIUM_KEYS
+        if all(k in r for r in pick)
+    }
     if "ln_ratio" not in med:
         return None
     s = cfg.sample
@@ -91,8 +94,10 @@ def truth_figures(pick: list[dict[str, Any]], cfg: BenchConfig) -> tuple[dict[st
         source = "medium: its own probe transmission and populations"
         ln_t, g, n2 = med["ln_t_pumped"], med["gain_per_m"], med["n2_avg"]
     elif "n2_avg" in med:
-        source = ("medium: its absolute <N2> (run recorded before the medium's transmission was stored; "
-                  "gain by Beer-Lambert from <N2>)")
+        source = (
+            "medium: its absolute <N2> (run recorded before the medium's transmission was stored; "
+            "gain by Beer-Lambert from <N2>)"
+        )
         n2 = med["n2_avg"]
         g = float(physics.gain_coefficient(n2, n_total, se, sa))
         ln_t = g * length
@@ -113,8 +118,9 @@ def truth_figures(pick: list[dict[str, Any]], cfg: BenchConfig) -> tuple[dict[st
     return out, source
 
 
-def truth_over(reader: RunReader, cfg: BenchConfig, estimate: Estimate | None,
-               span: tuple[float, float] | None = None) -> tuple[dict[str, float], str] | None:
+def truth_over(
+    reader: RunReader, cfg: BenchConfig, estimate: Estimate | None, span: tuple[float, float] | None = None
+) -> tuple[dict[str, float], str] | None:
     """The simulator's truth over the pumped stretch the estimate covers (or over ``span``,
     run-clock seconds), with its source (`truth_figures`)."""
     rows = reader.truth()
@@ -134,7 +140,12 @@ def truth_over(reader: RunReader, cfg: BenchConfig, estimate: Estimate | None,
 
 
 def _q(q: Quantity) -> dict[str, float]:
-    return {"value": q.value, "sigma": q.sigma, "sigma_noise": q.sigma_noise, "sigma_systematic": q.sigma_systematic}
+    return {
+        "value": q.value,
+        "sigma": q.sigma,
+        "sigma_noise": q.sigma_noise,
+        "sigma_systematic": q.sigma_systematic,
+    }
 
 
 def _step_span(point: dict[str, Any]) -> tuple[float, float] | None:
@@ -147,13 +158,23 @@ def sweep_steps(final: Estimate, reader: RunReader | None, cfg: BenchConfig) -> 
     time span on a simulated run (``reader`` given)."""
     out = []
     for pt in final.extra.get("points", []) or []:
-        step: dict[str, Any] = {"pump_current_a": pt.get("pump_current_a"), "pump_power_w": pt.get("pump_power_w")}
+        step: dict[str, Any] = {
+            "pump_current_a": pt.get("pump_current_a"),
+            "pump_power_w": pt.get("pump_power_w"),
+        }
         if pt.get("probe_wavelength_m") is not None:
             step["probe_wavelength_m"] = pt["probe_wavelength_m"]
         if "beta" in pt:
-            step["beta"] = {"value": pt["beta"], "sigma": pt.get("beta_sigma"),
-                            "sigma_noise": pt.get("beta_sigma_noise")}
-        step["ln_ratio"] = {"value": pt["ln_ratio"], "sigma": pt["ln_ratio_sigma"], "sigma_noise": pt["ln_ratio_sigma"]}
+            step["beta"] = {
+                "value": pt["beta"],
+                "sigma": pt.get("beta_sigma"),
+                "sigma_noise": pt.get("beta_sigma_noise"),
+            }
+        step["ln_ratio"] = {
+            "value": pt["ln_ratio"],
+            "sigma": pt["ln_ratio_sigma"],
+            "sigma_noise": pt["ln_ratio_sigma"],
+        }
         span = _step_span(pt)
         if span is not None:
             step["t_start"], step["t_end"] = span
@@ -188,9 +209,17 @@ def trips(events: list[Event]) -> list[dict[str, Any]]:
     for ev in events:
         if ev.kind == "trip":
             d = dict(ev.data)
-            out.append({"t": ev.t, "reason": d.get("reason", ev.text), "condition": d.get("condition"),
-                        "latency_s": d.get("latency_s"), "seen_at": d.get("seen_at"),
-                        "acknowledged_by": None, "acknowledged_at": None})
+            out.append(
+                {
+                    "t": ev.t,
+                    "reason": d.get("reason", ev.text),
+                    "condition": d.get("condition"),
+                    "latency_s": d.get("latency_s"),
+                    "seen_at": d.get("seen_at"),
+                    "acknowledged_by": None,
+                    "acknowledged_at": None,
+                }
+            )
         elif ev.kind == "guard" and out and out[-1]["acknowledged_at"] is None:
             d = dict(ev.data)
             if d.get("from") == "tripped" and d.get("to") == "safe":

@@ -46,8 +46,10 @@ RESERVED_META = ("application", "schema_version", "run_id", BLOCK_LAYOUTS, MAX_B
 
 
 def _platform() -> str:
-    return (f"{platform.system()} {platform.release()} ({platform.machine()}), "
-            f"Python {platform.python_version()}, SQLite {sqlite3.sqlite_version}")
+    return (
+        f"{platform.system()} {platform.release()} ({platform.machine()}), "
+        f"Python {platform.python_version()}, SQLite {sqlite3.sqlite_version}"
+    )
 
 
 def _file_part(sample_id: str) -> str:
@@ -110,12 +112,15 @@ def _build(temp: Path, meta_rows: list[tuple[str, str]], created: str, software_
     with closing(sqlite3.connect(temp, isolation_level=None, timeout=5.0)) as conn:
         conn.execute(f"PRAGMA page_size = {PAGE_SIZE}")
         conn.execute("PRAGMA synchronous = FULL")
-        conn.executescript(f"BEGIN; PRAGMA application_id = {APPLICATION_ID}; "
-                           f"PRAGMA user_version = {SCHEMA_VERSION}; {SCHEMA_SQL}")
+        conn.executescript(
+            f"BEGIN; PRAGMA application_id = {APPLICATION_ID}; "
+            f"PRAGMA user_version = {SCHEMA_VERSION}; {SCHEMA_SQL}"
+        )
         conn.executemany("INSERT INTO meta (key, value) VALUES (?, ?)", meta_rows)
         cur = conn.execute(
             "INSERT INTO analyses (created, kind, overrides, software_version, note) VALUES (?, ?, ?, ?, ?)",
-            (created, "live", "{}", software_version, "recorded live"))
+            (created, "live", "{}", software_version, "recorded live"),
+        )
         analysis_id = int(cur.lastrowid)
         conn.execute("COMMIT")
     return analysis_id
@@ -181,8 +186,9 @@ def config_meta(cfg: Any) -> dict[str, Any]:
     record = spectra.stored_form(path, epsilon=epsilon, temperature=cfg.sample.temperature)
     table = spectra.StoredSpectrum.from_stored(record, path.name).table
     sigma = cfg.sample.sigma
-    if (table.at(cfg.probe.wavelength) != (sigma.probe_absorption, sigma.probe_emission)
-            or table.at(cfg.pump.wavelength) != (sigma.pump_absorption, sigma.pump_emission)):
+    if table.at(cfg.probe.wavelength) != (sigma.probe_absorption, sigma.probe_emission) or table.at(
+        cfg.pump.wavelength
+    ) != (sigma.pump_absorption, sigma.pump_emission):
         raise ConfigError(f"{path}: the spectrum file changed after {cfg.source} was read; start again")
     return {"spectrum": record}
 
@@ -200,8 +206,14 @@ def _check_interval(flush_interval: float) -> float:
 class _Appender:
     """Commits at least every ``flush_interval`` seconds (checked on each write)."""
 
-    def __init__(self, conn: sqlite3.Connection, path: Path, analysis_id: int, flush_interval: float,
-                 clock: Callable[[], float]) -> None:
+    def __init__(
+        self,
+        conn: sqlite3.Connection,
+        path: Path,
+        analysis_id: int,
+        flush_interval: float,
+        clock: Callable[[], float],
+    ) -> None:
         self._conn = conn
         self.path = path
         self.analysis_id = analysis_id
@@ -256,12 +268,20 @@ class _Appender:
         items = [estimates] if isinstance(estimates, Estimate) else list(estimates)
         rows = [estimate_row(e, self.analysis_id) for e in items]
         if rows:
-            self._write("INSERT INTO estimates (analysis_id, t, mode, scope, n_samples, flags, quantities, "
-                        "extra) VALUES (?, ?, ?, ?, ?, ?, ?, ?)", rows, "estimates", many=True)
+            self._write(
+                "INSERT INTO estimates (analysis_id, t, mode, scope, n_samples, flags, quantities, "
+                "extra) VALUES (?, ?, ?, ?, ?, ?, ?, ?)",
+                rows,
+                "estimates",
+                many=True,
+            )
 
     def _finish_analysis(self, when: datetime) -> None:
-        self._write("UPDATE analyses SET finished = ? WHERE id = ?", (iso(when), self.analysis_id),
-                    "the analysis' finishing time")
+        self._write(
+            "UPDATE analyses SET finished = ? WHERE id = ?",
+            (iso(when), self.analysis_id),
+            "the analysis' finishing time",
+        )
 
     def _close_connection(self) -> None:
         """Merge the -wal file and leave the file in DELETE mode when nobody else has it open."""
@@ -286,8 +306,15 @@ class RunWriter(_Appender):
     ``flush_count`` (commits so far), ``closed``.
     """
 
-    def __init__(self, conn: sqlite3.Connection, path: Path, run_id: str, analysis_id: int,
-                 flush_interval: float, clock: Callable[[], float]) -> None:
+    def __init__(
+        self,
+        conn: sqlite3.Connection,
+        path: Path,
+        run_id: str,
+        analysis_id: int,
+        flush_interval: float,
+        clock: Callable[[], float],
+    ) -> None:
         super().__init__(conn, path, analysis_id, flush_interval, clock)
         self.run_id = run_id
         self._layouts: dict[tuple[str, tuple[str, ...]], None] = {}
@@ -331,7 +358,9 @@ class RunWriter(_Appender):
         extra = dict(meta or {})
         bad = [k for k in extra if k in RESERVED_META]
         if bad:
-            raise ValueError(f"meta: {', '.join(bad)} cannot be set (they identify the file or are kept by the writer)")
+            raise ValueError(
+                f"meta: {', '.join(bad)} cannot be set (they identify the file or are kept by the writer)"
+            )
         start = start_time or now()
         log_dir = Path(log_dir)
         try:
@@ -376,12 +405,24 @@ class RunWriter(_Appender):
         return cls(conn, path, run_id, analysis_id, flush_interval, clock)
 
     @classmethod
-    def from_config(cls, cfg: Any, *, mode: str = "watch", instruments: Mapping[str, str] | None = None,
-                    log_dir: str | Path | None = None, meta: Mapping[str, Any] | None = None,
-                    clock: Callable[[], float] = time.monotonic) -> RunWriter:
+    def from_config(
+        cls,
+        cfg: Any,
+        *,
+        mode: str = "watch",
+        instruments: Mapping[str, str] | None = None,
+        log_dir: str | Path | None = None,
+        meta: Mapping[str, Any] | None = None,
+        clock: Callable[[], float] = time.monotonic,
+    ) -> RunWriter:
         """`create` with the settings of a `bench.config.BenchConfig` (log dir, flush interval,
         operator, sample id and label, simulated, the bench file's text)."""
-        extra = {"bench_name": cfg.name, "sample_label": cfg.sample.label, **config_meta(cfg), **dict(meta or {})}
+        extra = {
+            "bench_name": cfg.name,
+            "sample_label": cfg.sample.label,
+            **config_meta(cfg),
+            **dict(meta or {}),
+        }
         return cls.create(
             cfg.run.log_dir if log_dir is None else log_dir,
             bench_text=cfg.text,
@@ -407,8 +448,17 @@ class RunWriter(_Appender):
         self._execute(
             "INSERT INTO blocks (source, seq, t0, dt, first_index, n, channels, dtype, data) "
             "VALUES (?, ?, ?, ?, ?, ?, ?, ?, ?)",
-            (str(block.source), int(block.seq), float(block.t0), float(block.dt), int(block.first_index),
-             block.n, to_json(list(block.channels), "block channels"), dtype, blob),
+            (
+                str(block.source),
+                int(block.seq),
+                float(block.t0),
+                float(block.dt),
+                int(block.first_index),
+                block.n,
+                to_json(list(block.channels), "block channels"),
+                dtype,
+                blob,
+            ),
             what,
         )
         # Kept in meta, in the same transaction as the block, so that readers of a long run
@@ -417,17 +467,26 @@ class RunWriter(_Appender):
         span = float(block.dt) * max(block.n - 1, 0)
         if layout not in self._layouts:
             self._layouts[layout] = None
-            self._execute("INSERT OR REPLACE INTO meta (key, value) VALUES (?, ?)",
-                          (BLOCK_LAYOUTS, to_json([[s, list(c)] for s, c in self._layouts], "layouts")), what)
+            self._execute(
+                "INSERT OR REPLACE INTO meta (key, value) VALUES (?, ?)",
+                (BLOCK_LAYOUTS, to_json([[s, list(c)] for s, c in self._layouts], "layouts")),
+                what,
+            )
         if span > self._max_span:
             self._max_span = span
-            self._execute("INSERT OR REPLACE INTO meta (key, value) VALUES (?, ?)",
-                          (MAX_BLOCK_SPAN, to_json(span, "span")), what)
+            self._execute(
+                "INSERT OR REPLACE INTO meta (key, value) VALUES (?, ?)",
+                (MAX_BLOCK_SPAN, to_json(span, "span")),
+                what,
+            )
         self.flush_if_due()
 
     def append_event(self, event: Event) -> None:
-        self._write("INSERT INTO events (t, kind, who, text, data) VALUES (?, ?, ?, ?, ?)", event_row(event),
-                    f"event {getattr(event, 'kind', '?')}")
+        self._write(
+            "INSERT INTO events (t, kind, who, text, data) VALUES (?, ?, ?, ?, ?)",
+            event_row(event),
+            f"event {getattr(event, 'kind', '?')}",
+        )
 
     def append_truth(self, t: float, values: Mapping[str, Any]) -> None:
         """Store the simulator's ground truth at run-clock time ``t``."""
@@ -438,8 +497,10 @@ class RunWriter(_Appender):
         values = {**dict(items or {}), **more}
         bad = [k for k in values if k in RESERVED_META]
         if bad:
-            raise ValueError(f"items: {', '.join(bad)} cannot be changed "
-                             "(they identify the file or are kept by the writer)")
+            raise ValueError(
+                f"items: {', '.join(bad)} cannot be changed "
+                "(they identify the file or are kept by the writer)"
+            )
         rows = [(str(k), to_json(v, f"meta[{k!r}]")) for k, v in values.items()]
         self._write("INSERT OR REPLACE INTO meta (key, value) VALUES (?, ?)", rows, "meta", many=True)
 
@@ -503,8 +564,11 @@ def open_for_analysis(
     path = Path(path)
     with RunReader(path) as reader:
         if reader.schema_version != SCHEMA_VERSION:
-            raise run_file_error(path, f"has schema version {reader.schema_version}; this gainbench adds "
-                               f"analyses only to schema version {SCHEMA_VERSION}")
+            raise run_file_error(
+                path,
+                f"has schema version {reader.schema_version}; this gainbench adds "
+                f"analyses only to schema version {SCHEMA_VERSION}",
+            )
     try:
         conn = sqlite3.connect(path, isolation_level=None, check_same_thread=False, timeout=10.0)
     except sqlite3.Error as exc:
@@ -517,7 +581,8 @@ def open_for_analysis(
         conn.execute("BEGIN IMMEDIATE")
         cur = conn.execute(
             "INSERT INTO analyses (created, kind, overrides, software_version, note) VALUES (?, ?, ?, ?, ?)",
-            (iso(now()), kind, to_json(overrides, "overrides"), software_version or __version__, str(note)))
+            (iso(now()), kind, to_json(overrides, "overrides"), software_version or __version__, str(note)),
+        )
         analysis_id = int(cur.lastrowid)
         conn.execute("COMMIT")
     except sqlite3.Error as exc:

@@ -19,8 +19,21 @@ from drivers.errors import DriverConfigError, ReplyError
 DEFAULT_CHANNEL_NAMES = {1: "probe", 2: "reference", 3: "pump_monitor"}
 
 #: Field names of the simulator-only truth query, in reply order.
-SIM_TRUTH_FIELDS = ("t", "n2_avg", "beta", "tau", "pump_W", "ln_ratio", "n_total", "length",
-                    "ln_t_pumped", "ln_t_unpumped", "gain_per_m", "n2_probe_only", "inputs_steady_s")
+SIM_TRUTH_FIELDS = (
+    "t",
+    "n2_avg",
+    "beta",
+    "tau",
+    "pump_W",
+    "ln_ratio",
+    "n_total",
+    "length",
+    "ln_t_pumped",
+    "ln_t_unpumped",
+    "gain_per_m",
+    "n2_probe_only",
+    "inputs_steady_s",
+)
 
 DATA_FORMATS = ("binary", "ascii")
 
@@ -61,10 +74,15 @@ class Digitiser(Driver):
         for name, value in (("sample_rate", self.rate_hz), ("range", self.range_v)):
             if value is not None and not value > 0:
                 raise DriverConfigError(f"{self._where(name)}: {self.options[name]!r} is not positive")
-        if self.data_format == "ascii" and not self.session.has("fetch_ascii") \
-                and self.session.profile.command("fetch").reply != "csv_floats":
-            raise DriverConfigError(f"{self._where('format')}: profile {self.profile_name} has no ASCII "
-                                    "fetch (commands.fetch_ascii); use format = \"binary\"")
+        if (
+            self.data_format == "ascii"
+            and not self.session.has("fetch_ascii")
+            and self.session.profile.command("fetch").reply != "csv_floats"
+        ):
+            raise DriverConfigError(
+                f"{self._where('format')}: profile {self.profile_name} has no ASCII "
+                'fetch (commands.fetch_ascii); use format = "binary"'
+            )
 
     # -- options -----------------------------------------------------------------------
 
@@ -84,13 +102,17 @@ class Digitiser(Driver):
     def _option_names(self) -> dict[int, str]:
         value = self.options.get("channel_names", DEFAULT_CHANNEL_NAMES)
         if not isinstance(value, dict):
-            raise DriverConfigError(f"{self._where('channel_names')}: expected a table such as {{ 1 = \"probe\" }}")
+            raise DriverConfigError(
+                f'{self._where("channel_names")}: expected a table such as {{ 1 = "probe" }}'
+            )
         names: dict[int, str] = {}
         for key, name in value.items():
             try:
                 number = int(key)
             except (TypeError, ValueError):
-                raise DriverConfigError(f"{self._where('channel_names')}.{key}: expected a channel number") from None
+                raise DriverConfigError(
+                    f"{self._where('channel_names')}.{key}: expected a channel number"
+                ) from None
             if not isinstance(name, str) or not name.strip():
                 raise DriverConfigError(f"{self._where('channel_names')}.{key}: expected a channel name")
             names[number] = name.strip()
@@ -125,7 +147,11 @@ class Digitiser(Driver):
         fmt = self.data_format if data_format is None else data_format
         if fmt not in DATA_FORMATS:
             raise ValueError(f"data_format: expected one of {list(DATA_FORMATS)}, got {data_format!r}")
-        if fmt == "ascii" and not self.session.has("fetch_ascii") and self.session.profile.command("fetch").reply != "csv_floats":
+        if (
+            fmt == "ascii"
+            and not self.session.has("fetch_ascii")
+            and self.session.profile.command("fetch").reply != "csv_floats"
+        ):
             raise ValueError("data_format: this profile has no ASCII fetch (commands.fetch_ascii)")
         self.session.write("stop")
         if rate is not None:
@@ -171,12 +197,15 @@ class Digitiser(Driver):
         if flat.size % n_ch:
             raise ReplyError(
                 f"{flat.size} values are not whole sample sets of {n_ch} channels",
-                role=self.role, resource=self.resource,
+                role=self.role,
+                resource=self.resource,
             )
         n_sets = flat.size // n_ch
         if n_sets > max_sets:
             raise ReplyError(
-                f"asked for at most {max_sets} sample sets, got {n_sets}", role=self.role, resource=self.resource
+                f"asked for at most {max_sets} sample sets, got {n_sets}",
+                role=self.role,
+                resource=self.resource,
             )
         return FetchResult(first_index=first, data=flat.reshape(n_sets, n_ch), lost=self.lost())
 
@@ -186,7 +215,8 @@ class Digitiser(Driver):
         if values.size != len(SIM_TRUTH_FIELDS):
             raise ReplyError(
                 f"expected {len(SIM_TRUTH_FIELDS)} truth values ({', '.join(SIM_TRUTH_FIELDS)}), got {values.size}",
-                role=self.role, resource=self.resource,
+                role=self.role,
+                resource=self.resource,
             )
         return {name: float(v) for name, v in zip(SIM_TRUTH_FIELDS, values)}
 

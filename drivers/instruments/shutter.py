@@ -29,11 +29,15 @@ class ShutterController(Driver):
         super().__init__(session, options)
         table = self.options.get("shutters", DEFAULT_SHUTTERS)
         if not isinstance(table, dict) or not table:
-            raise DriverConfigError(f"{self._where('shutters')}: expected a table such as {{ probe = 1, pump = 2 }}")
+            raise DriverConfigError(
+                f"{self._where('shutters')}: expected a table such as {{ probe = 1, pump = 2 }}"
+            )
         numbers: dict[str, int] = {}
         for name, number in table.items():
             if isinstance(number, bool) or not isinstance(number, int) or number < 0:
-                raise DriverConfigError(f"{self._where('shutters')}.{name}: expected a shutter number, got {number!r}")
+                raise DriverConfigError(
+                    f"{self._where('shutters')}.{name}: expected a shutter number, got {number!r}"
+                )
             numbers[str(name)] = number
         self.shutters: dict[str, int] = numbers
 

@@ -33,8 +33,10 @@ class WavelengthSource(Driver):
         values = self.session.query("range")
         if len(values) != 2 or not values[0] < values[1]:
             raise ReplyError(
-                "expected a tuning range <min>,<max> with min < max", role=self.role,
-                resource=self.resource, reply=",".join(str(v) for v in values),
+                "expected a tuning range <min>,<max> with min < max",
+                role=self.role,
+                resource=self.resource,
+                reply=",".join(str(v) for v in values),
             )
         return float(values[0]), float(values[1])
 
@@ -45,6 +47,8 @@ class WavelengthSource(Driver):
         while not self.settled():
             if deadline.expired():
                 raise InstrumentTimeout(
-                    f"the wavelength did not settle within {timeout_s} s", role=self.role, resource=self.resource
+                    f"the wavelength did not settle within {timeout_s} s",
+                    role=self.role,
+                    resource=self.resource,
                 )
             time.sleep(min(poll, deadline.time_left()))

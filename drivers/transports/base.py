@@ -115,10 +115,14 @@ def transport_kind(resource: str) -> str:
 #: Built-in kind -> (the module that registers it, what a missing library means: ``{exc}`` is
 #: the ImportError).
 BUILTIN_TRANSPORTS: dict[str, tuple[str, str]] = {
-    "visa": ("drivers.transports.visa",
-             "VISA resources need pyvisa and pyvisa-py ({exc}); install them with `pip install pyvisa pyvisa-py`"),
-    "serial": ("drivers.transports.serial",
-               "serial ports need pyserial ({exc}); install it with `pip install pyserial`"),
+    "visa": (
+        "drivers.transports.visa",
+        "VISA resources need pyvisa and pyvisa-py ({exc}); install them with `pip install pyvisa pyvisa-py`",
+    ),
+    "serial": (
+        "drivers.transports.serial",
+        "serial ports need pyserial ({exc}); install it with `pip install pyserial`",
+    ),
 }
 
 

@@ -95,8 +95,10 @@ class LineBuffer:
                 )
             return None
         if end > self.max_line:
-            raise LineTooLong(f"a line of {end} bytes is longer than the {self.max_line} allowed",
-                              reply=bytes(self._data[:80]))
+            raise LineTooLong(
+                f"a line of {end} bytes is longer than the {self.max_line} allowed",
+                reply=bytes(self._data[:80]),
+            )
         line = bytes(self._data[:end])
         del self._data[: end + len(term)]
         self._searched = 0

@@ -124,11 +124,15 @@ class SerialTransport:
             written = port.write(bytes(data))
             port.flush()
         except Exception as exc:  # SerialTimeoutException, SerialException, OSError
-            raise translate_transport_error(exc, role=self.role, resource=self.resource, command=data) from exc
+            raise translate_transport_error(
+                exc, role=self.role, resource=self.resource, command=data
+            ) from exc
         if written is not None and written != len(data):
             raise ConnectionLost(
-                f"only {written} of {len(data)} bytes were written", role=self.role,
-                resource=self.resource, command=data,
+                f"only {written} of {len(data)} bytes were written",
+                role=self.role,
+                resource=self.resource,
+                command=data,
             )
 
     def _next_line(self) -> bytes | None:
@@ -151,8 +155,10 @@ class SerialTransport:
             left = deadline.time_left()
             if left <= 0:
                 raise InstrumentTimeout(
-                    "no complete reply line before the timeout", role=self.role,
-                    resource=self.resource, reply=self._lines.pending(),
+                    "no complete reply line before the timeout",
+                    role=self.role,
+                    resource=self.resource,
+                    reply=self._lines.pending(),
                 )
             self._lines.feed(self._read(1, left))
 
@@ -167,8 +173,10 @@ class SerialTransport:
                 if left <= 0:
                     partial = lines.take_all()
                     raise InstrumentTimeout(
-                        f"only {len(partial)} of {n} bytes arrived before the timeout", role=self.role,
-                        resource=self.resource, reply=partial,
+                        f"only {len(partial)} of {n} bytes arrived before the timeout",
+                        role=self.role,
+                        resource=self.resource,
+                        reply=partial,
                     )
                 lines.feed(self._read(min(self.chunk_size, lines.missing(n)), left))
         except BaseException:

@@ -107,9 +107,10 @@ class VisaTransport:
         except (OSError, ValueError) as exc:  # LibraryError is an OSError; a bad yaml a ValueError
             first_line = (str(exc).strip().splitlines() or [""])[0][:300]
             raise InterfaceUnavailable(
-                f"VISA library {self.backend!r} cannot be used ({first_line}); the default \"@py\" needs "
-                "pyvisa-py (`pip install pyvisa-py`), \"...@sim\" needs pyvisa-sim",
-                role=self.role, resource=self.resource,
+                f'VISA library {self.backend!r} cannot be used ({first_line}); the default "@py" needs '
+                'pyvisa-py (`pip install pyvisa-py`), "...@sim" needs pyvisa-sim',
+                role=self.role,
+                resource=self.resource,
             ) from None
 
     def _open(self) -> None:
@@ -132,7 +133,8 @@ class VisaTransport:
             if "install" in text.lower():
                 raise InterfaceUnavailable(
                     f"this kind of VISA resource needs an optional package: {text}",
-                    role=self.role, resource=self.resource,
+                    role=self.role,
+                    resource=self.resource,
                 ) from exc
             raise self._error(exc, "could not open the resource") from exc
         except Exception as exc:  # pyvisa-py and the VISA libraries raise many types on open
@@ -234,7 +236,9 @@ class VisaTransport:
         try:
             res.write_raw(bytes(data))
         except Exception as exc:  # any library or socket failure goes through the chokepoint
-            raise translate_transport_error(exc, role=self.role, resource=self.resource, command=data) from exc
+            raise translate_transport_error(
+                exc, role=self.role, resource=self.resource, command=data
+            ) from exc
 
     def _read_call(self, count: int, deadline: Deadline) -> tuple[bytes, object]:
         res = self._session()

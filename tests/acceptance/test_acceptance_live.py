@@ -30,9 +30,11 @@ def test_live_chopped_default_timing(tmp_path):
     logs = tmp_path / "logs"
     done = tmp_path / "exit-status"
     config = bench_file(tmp_path)
-    command = (f"cd {shlex.quote(str(tmp_path))} && env -u COLUMNS -u LINES {shlex.quote(sys.executable)} -m bench live "
-               f"--config {shlex.quote(str(config))} --logs {shlex.quote(str(logs))} --operator tester; "
-               f"echo $? > {shlex.quote(str(done))}; sleep 60")
+    command = (
+        f"cd {shlex.quote(str(tmp_path))} && env -u COLUMNS -u LINES {shlex.quote(sys.executable)} -m bench live "
+        f"--config {shlex.quote(str(config))} --logs {shlex.quote(str(logs))} --operator tester; "
+        f"echo $? > {shlex.quote(str(done))}; sleep 60"
+    )
     tmux = Tmux(120, 40)
     try:
         tmux.start(command)
@@ -43,13 +45,15 @@ def test_live_chopped_default_timing(tmp_path):
         tmux.wait_for("baseline captured", timeout=60)
         tmux.keys("m")
         tmux.wait_for("chopped")
-        tmux.keys("Down", "Enter")       # chopped
-        tmux.keys("Tab", "Enter")        # keep the offered timing, apply
+        tmux.keys("Down", "Enter")  # chopped
+        tmux.keys("Tab", "Enter")  # keep the offered timing, apply
         tmux.wait_for("mode: chopped", timeout=10)
         arm_through_checklist(tmux)
         tmux.keys("e")
         tmux.wait_for("EMITTING", timeout=20)
-        time.sleep(EMIT_SECONDS)  # the measurement itself: emission for a fixed span, not a wait for a condition
+        time.sleep(
+            EMIT_SECONDS
+        )  # the measurement itself: emission for a fixed span, not a wait for a condition
         tmux.keys("s")
         tmux.wait_for("ARMED", timeout=20)
         tmux.keys("q")
@@ -63,8 +67,13 @@ def test_live_chopped_default_timing(tmp_path):
     finally:
         tmux.kill()
     (run,) = logs.glob("*.gbrun")
-    out = subprocess.run([sys.executable, "-m", "bench", "summary", run.stem, "--logs", str(logs), "--json"],
-                         cwd=tmp_path, capture_output=True, text=True, timeout=120)
+    out = subprocess.run(
+        [sys.executable, "-m", "bench", "summary", run.stem, "--logs", str(logs), "--json"],
+        cwd=tmp_path,
+        capture_output=True,
+        text=True,
+        timeout=120,
+    )
     assert out.returncode == 0, out.stderr
     s = json.loads(out.stdout)
     assert s["mode"] == "chopped", s["mode"]
@@ -72,4 +81,6 @@ def test_live_chopped_default_timing(tmp_path):
     for name in ("ln_ratio", "beta"):
         est, truth = s["estimates"][name], s["truth"][name]["value"]
         z = (est["value"] - truth) / est["sigma_noise"]
-        assert abs(z) <= 4.0, f"{name} = {est['value']:.8g} ± {est['sigma_noise']:.3g}, truth {truth:.8g}: {z:+.1f}"
+        assert abs(z) <= 4.0, (
+            f"{name} = {est['value']:.8g} ± {est['sigma_noise']:.3g}, truth {truth:.8g}: {z:+.1f}"
+        )

@@ -22,8 +22,17 @@ import pytest
 #: Arming answers as flags (who, eyewear OD per laser wavelength, setup confirmed). The longer
 #: stale-reading limit keeps a loaded CI machine from tripping the guard; it changes nothing
 #: in the data or the estimate.
-ARM = ["--operator", "tester", "--eyewear-od", "940nm=5", "--eyewear-od", "1030nm=2", "--confirm-setup",
-       "--set", "guard.stale_after=2s"]
+ARM = [
+    "--operator",
+    "tester",
+    "--eyewear-od",
+    "940nm=5",
+    "--eyewear-od",
+    "1030nm=2",
+    "--confirm-setup",
+    "--set",
+    "guard.stale_after=2s",
+]
 
 #: One seed in the default suite, a second in the slow set (`pytest -m slow`).
 SEEDS = (11, pytest.param(29, marks=pytest.mark.slow))
@@ -34,14 +43,16 @@ K = 4.0
 
 def gainbench(*args: str, cwd: Path) -> subprocess.CompletedProcess:
     """``gainbench ARGS`` in a process of its own, as a user types it."""
-    return subprocess.run([sys.executable, "-m", "bench", *args], cwd=cwd, capture_output=True, text=True,
-                          timeout=240)
+    return subprocess.run(
+        [sys.executable, "-m", "bench", *args], cwd=cwd, capture_output=True, text=True, timeout=240
+    )
 
 
 def record_and_summarise(tmp_path: Path, mode: str, seed: int, *extra: str) -> dict:
     logs = tmp_path / "logs"
-    rec = gainbench("record", "--mode", mode, "--logs", str(logs), *ARM, "--seed", str(seed),
-                    *extra, cwd=tmp_path)
+    rec = gainbench(
+        "record", "--mode", mode, "--logs", str(logs), *ARM, "--seed", str(seed), *extra, cwd=tmp_path
+    )
     assert rec.returncode == 0, rec.stdout + rec.stderr
     run_id = rec.stdout.strip().splitlines()[-1]
     summ = gainbench("summary", run_id, "--logs", str(logs), "--json", cwd=tmp_path)
@@ -57,8 +68,10 @@ def assert_near_truth(summary: dict, name: str, k: float = K) -> float:
     noise = est["sigma_noise"]
     assert noise > 0, f"{name}: sigma_noise must be positive, got {noise}"
     z = (est["value"] - truth) / noise
-    assert abs(z) <= k, (f"mode {summary['mode']}: {name} = {est['value']:.8g} ± {noise:.3g} (noise), "
-                         f"truth {truth:.8g}: {z:+.1f} sigma_noise")
+    assert abs(z) <= k, (
+        f"mode {summary['mode']}: {name} = {est['value']:.8g} ± {noise:.3g} (noise), "
+        f"truth {truth:.8g}: {z:+.1f} sigma_noise"
+    )
     return z
 
 

@@ -31,9 +31,11 @@ SEED = 20261201
 
 def pilot_test(fn):
     """Run an async Pilot test on its own event loop (no pytest asyncio plugin needed)."""
+
     @functools.wraps(fn)
     def run(*args, **kwargs):
         return asyncio.run(fn(*args, **kwargs))
+
     return run
 
 
@@ -87,8 +89,15 @@ BENCH_OVERRIDES = {"guard.stale_after": "3 s"}
 def open_measurement(log_dir) -> Measurement:
     cfg = load_bench(overrides=BENCH_OVERRIDES)
     current = default_current(cfg)
-    return Measurement(cfg, mode="watch", settings={"pump_current": current, "pump_power": cfg.pump.power_at(current)},
-                       log_dir=log_dir, speed=1.0, seed=SEED, operator="tester")
+    return Measurement(
+        cfg,
+        mode="watch",
+        settings={"pump_current": current, "pump_power": cfg.pump.power_at(current)},
+        log_dir=log_dir,
+        speed=1.0,
+        seed=SEED,
+        operator="tester",
+    )
 
 
 @pytest.fixture(scope="module")
@@ -142,8 +151,13 @@ def dashboard(meas, **kwargs):
 
 async def started(pilot):
     app = pilot.app
-    await wait_for(pilot, lambda: app.last_snapshot is not None and app.last_snapshot.blocks > 10
-                   and app.setpoint == app.target, "the first snapshots and the current preset")
+    await wait_for(
+        pilot,
+        lambda: (
+            app.last_snapshot is not None and app.last_snapshot.blocks > 10 and app.setpoint == app.target
+        ),
+        "the first snapshots and the current preset",
+    )
 
 
 async def arm(pilot, od_pump: str = "5", od_probe: str = "2"):
@@ -157,11 +171,16 @@ async def arm(pilot, od_pump: str = "5", od_probe: str = "2"):
     await wait_for(pilot, lambda: "SECOND LAYER ONLY" in screen_text(app), "the second-layer notice")
     await press(pilot, "enter")  # operator name, prefilled
     await wait_for(pilot, lambda: screen.step == 0 and screen.readings is not None, "the pump readings")
-    await wait_for(pilot, lambda: "ok: the hardware interlock reads closed" in screen_text(app), "the interlock check")
+    await wait_for(
+        pilot, lambda: "ok: the hardware interlock reads closed" in screen_text(app), "the interlock check"
+    )
     await press(pilot, "enter")  # interlock: read, not asked
     await wait_for(pilot, lambda: screen.step == 1, "the first eyewear question")
-    await wait_for(pilot, lambda: "940 nm" in screen_text(app) and "CAUTION" in screen_text(app),
-                   "the eyewear question with its caution")
+    await wait_for(
+        pilot,
+        lambda: "940 nm" in screen_text(app) and "CAUTION" in screen_text(app),
+        "the eyewear question with its caution",
+    )
     await type_text(pilot, od_pump)
     await press(pilot, "enter")
     if screen.stage != "asking":
@@ -183,8 +202,11 @@ async def closed_checklist(pilot):
     from bench.dashboard.checklist_screen import ChecklistScreen
 
     app = pilot.app
-    await wait_for(pilot, lambda: isinstance(app.screen, ChecklistScreen) and app.screen.stage == "done",
-                   "the checklist's verdict")
+    await wait_for(
+        pilot,
+        lambda: isinstance(app.screen, ChecklistScreen) and app.screen.stage == "done",
+        "the checklist's verdict",
+    )
     await press(pilot, "enter")
     await wait_for(pilot, lambda: not isinstance(app.screen, ChecklistScreen), "the checklist closed")
 
@@ -210,7 +232,9 @@ async def test_dark_and_baseline(meas):
         assert "dark ✓ yes" in screen_text(app)
         await wait_for(pilot, lambda: "baseline captured" in screen_text(app), "the action line")
     new = procedures(meas)[before:]
-    assert any(t.startswith("dark captured") for t in new) and any(t.startswith("baseline captured") for t in new)
+    assert any(t.startswith("dark captured") for t in new) and any(
+        t.startswith("baseline captured") for t in new
+    )
 
 
 @pilot_test
@@ -221,8 +245,11 @@ async def test_arming_refused_with_low_eyewear_od(meas):
         # the pump at 940 nm needs OD 4 for this bench (bench.safety.exposure_limits, ANSI Z136.1 MPE)
         screen = await arm(pilot, od_pump="2")
         await wait_for(pilot, lambda: screen.stage == "done", "the verdict")
-        await wait_for(pilot, lambda: "ARMING REFUSED" in screen_text(app) and "below the OD" in screen_text(app),
-                       "the refusal in words")
+        await wait_for(
+            pilot,
+            lambda: "ARMING REFUSED" in screen_text(app) and "below the OD" in screen_text(app),
+            "the refusal in words",
+        )
         save(app, "checklist_refused.svg")
         await press(pilot, "enter")
         await wait_for(pilot, lambda: "arming refused" in screen_text(app), "the refusal on the action line")
@@ -254,13 +281,25 @@ async def test_arm_emit_change_current_and_stop(meas):
         await press(pilot, "e")
         await wait_for(pilot, lambda: meas.guarded_pump.state == "emitting", "emission")
         await wait_for(pilot, lambda: meas.sim.pump_output_on(), "the simulated driver's output on")
-        await wait_for(pilot, lambda: "EMITTING" in screen_text(app) and "OUTPUT ON" in screen_text(app),
-                       "EMITTING and OUTPUT ON on screen")
-        await wait_for(pilot, lambda: (e := meas.snapshot(False).estimate) is not None and "beta" in e.values,
-                       "an estimate of beta", timeout=30)
-        await wait_for(pilot, lambda: "β  σ" in screen_text(app) and "gain dB  σ" in screen_text(app),
-                       "beta and gain with their uncertainties on screen")
-        await wait_for(pilot, lambda: app.last_snapshot.estimates.t.size > 3, "a few estimates for the trends")
+        await wait_for(
+            pilot,
+            lambda: "EMITTING" in screen_text(app) and "OUTPUT ON" in screen_text(app),
+            "EMITTING and OUTPUT ON on screen",
+        )
+        await wait_for(
+            pilot,
+            lambda: (e := meas.snapshot(False).estimate) is not None and "beta" in e.values,
+            "an estimate of beta",
+            timeout=30,
+        )
+        await wait_for(
+            pilot,
+            lambda: "β  σ" in screen_text(app) and "gain dB  σ" in screen_text(app),
+            "beta and gain with their uncertainties on screen",
+        )
+        await wait_for(
+            pilot, lambda: app.last_snapshot.estimates.t.size > 3, "a few estimates for the trends"
+        )
         save(app, "live_emitting_120x40.svg")
         # one step up from 7.2 A is accepted; two more would pass the guard's 9 A limit
         await press(pilot, "plus")
@@ -268,8 +307,11 @@ async def test_arm_emit_change_current_and_stop(meas):
         await press(pilot, "plus")
         await wait_for(pilot, lambda: "above the limit" in screen_text(app), "the guard's refusal above 9 A")
         assert app.setpoint == pytest.approx(8.2) and app.target == pytest.approx(8.2)
-        await wait_for(pilot, lambda: meas.snapshot(False).pump.get("pump_setpoint") == pytest.approx(8.2),
-                       "the driver's setpoint")
+        await wait_for(
+            pilot,
+            lambda: meas.snapshot(False).pump.get("pump_setpoint") == pytest.approx(8.2),
+            "the driver's setpoint",
+        )
         await wait_for(pilot, lambda: "set 8.20 A" in screen_text(app), "the new setpoint on the pump panel")
         await press(pilot, "s")
         await wait_for(pilot, lambda: meas.guarded_pump.state == "armed", "emission stopped, still armed")
@@ -292,17 +334,26 @@ async def test_trip_opens_a_screen_that_must_be_acknowledged(meas):
         await wait_for(pilot, lambda: isinstance(app.screen, TripScreen), "the trip screen")
         assert meas.guarded_pump.state == "tripped"
         await wait_for(pilot, lambda: not meas.sim.pump_output_on(), "the pump off after the trip")
-        await wait_for(pilot, lambda: "interlock" in screen_text(app).lower(), "the reason on the trip screen")
+        await wait_for(
+            pilot, lambda: "interlock" in screen_text(app).lower(), "the reason on the trip screen"
+        )
         await press(pilot, "k")  # the interlock is still open: refused, and said so
-        await wait_for(pilot, lambda: "REFUSED: acknowledgement refused" in screen_text(app),
-                       "the refusal of the acknowledgement")
+        await wait_for(
+            pilot,
+            lambda: "REFUSED: acknowledgement refused" in screen_text(app),
+            "the refusal of the acknowledgement",
+        )
         assert meas.guarded_pump.state == "tripped"
         save(app, "trip_screen.svg")
         await press(pilot, "escape")  # hide: still tripped, and the dashboard says so
         await wait_for(pilot, lambda: not isinstance(app.screen, TripScreen), "the trip screen hidden")
         await wait_for(pilot, lambda: "TRIPPED" in screen_text(app), "TRIPPED on the guard panel")
-        await wait_for(pilot, lambda: meas.snapshot(False).pump.get("interlock") == 1.0,
-                       "the interlock closed again", timeout=30)
+        await wait_for(
+            pilot,
+            lambda: meas.snapshot(False).pump.get("interlock") == 1.0,
+            "the interlock closed again",
+            timeout=30,
+        )
         await press(pilot, "k")
         await wait_for(pilot, lambda: isinstance(app.screen, TripScreen), "the trip screen again")
         await press(pilot, "k")
@@ -321,8 +372,13 @@ async def test_note_mode_change_and_help(meas):
         await press(pilot, "n")
         await type_text(pilot, "probe realigned")
         await press(pilot, "enter")
-        await wait_for(pilot, lambda: any(e.kind == "note" and e.text == "probe realigned"
-                                          for e in meas.snapshot(False).events), "the note in the run")
+        await wait_for(
+            pilot,
+            lambda: any(
+                e.kind == "note" and e.text == "probe realigned" for e in meas.snapshot(False).events
+            ),
+            "the note in the run",
+        )
         await press(pilot, "m")
         await wait_for(pilot, lambda: isinstance(app.screen, ModeScreen), "the mode screen")
         await press(pilot, "down", "enter")  # watch -> chopped in the radio set
@@ -340,8 +396,15 @@ async def test_note_mode_change_and_help(meas):
         await wait_for(pilot, lambda: isinstance(app.screen, HelpScreen), "the help screen")
         await wait_for(pilot, lambda: "capture the dark" in screen_text(app), "the key list")
         text = screen_text(app)
-        for words in ("capture the dark", "arming checklist", "pump output ON", "pump output OFF",
-                      "acknowledge", "add a note", "quit: pump off first"):
+        for words in (
+            "capture the dark",
+            "arming checklist",
+            "pump output ON",
+            "pump output OFF",
+            "acknowledge",
+            "add a note",
+            "quit: pump off first",
+        ):
             assert words in text, words
         await press(pilot, "escape")
         await wait_for(pilot, lambda: not isinstance(app.screen, HelpScreen), "the help screen closed")
@@ -385,8 +448,13 @@ async def test_dashboard_on_a_bench_process_arms_emits_and_quits(tmp_path):
 
     cfg = load_bench(overrides=BENCH_OVERRIDES)
     current = default_current(cfg)
-    meas = RemoteMeasurement(cfg, settings={"pump_current": current, "pump_power": cfg.pump.power_at(current)},
-                             log_dir=tmp_path, seed=SEED, operator="tester")
+    meas = RemoteMeasurement(
+        cfg,
+        settings={"pump_current": current, "pump_power": cfg.pump.power_at(current)},
+        log_dir=tmp_path,
+        seed=SEED,
+        operator="tester",
+    )
     meas.start()
     try:
         app = dashboard(meas)

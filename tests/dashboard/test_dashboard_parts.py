@@ -30,11 +30,16 @@ from bench.safety.checklist import checklist_items
 
 
 def guard_event(t, before, after, kind="guard", accepted=True, reason="r"):
-    return Event(t, kind, f"{before} -> {after}", data={"from": before, "to": after, "accepted": accepted,
-                                                        "reason": reason})
+    return Event(
+        t,
+        kind,
+        f"{before} -> {after}",
+        data={"from": before, "to": after, "accepted": accepted, "reason": reason},
+    )
 
 
 # -- wording (common practice, no source: a state is said in words, not colour alone) -------
+
 
 @pytest.mark.parametrize("state", ["safe", "armed", "emitting", "tripped"])
 def test_every_guard_state_has_its_word_and_symbol(state):
@@ -81,6 +86,7 @@ def test_flags_in_words():
 
 
 # -- meters (numpy as the reference) ---------------------------------------------------------
+
 
 def test_screen_latency_statistics_match_numpy():
     rng = np.random.default_rng(3)
@@ -149,7 +155,7 @@ def test_reduce_points_matches_a_slow_reference():
     gx, gy = x[good], y[good]
     k = math.ceil(gx.size / 100)
     m = (gx.size // k) * k
-    ref = [gy[i:i + k].mean() for i in range(0, m, k)]  # the obvious loop
+    ref = [gy[i : i + k].mean() for i in range(0, m, k)]  # the obvious loop
     np.testing.assert_allclose(ry, ref, rtol=1e-12)
     assert rx.size <= 100 and rx.size == len(ref)
     sx, sy = reduce_points(x[:50], y[:50], 100)  # short input: unchanged but for NaNs
@@ -206,6 +212,7 @@ def test_position_bar_and_play_state():
 
 # -- modes and the checklist ---------------------------------------------------------------------
 
+
 def test_mode_choice_defaults_and_modulation():
     cfg = load_bench()
     choice = ModeChoice.defaults(cfg, "chopped")
@@ -218,10 +225,16 @@ def test_mode_choice_defaults_and_modulation():
     assert ModeChoice("chopped", 0.030, 0.05).modulation_hz == pytest.approx(1 / 0.030)
 
 
-@pytest.mark.parametrize("kwargs, name", [
-    ({"mode": "fast"}, "mode"), ({"chop_period": 0.0}, "chop_period"), ({"decay_period": math.inf}, "decay_period"),
-    ({"sweep_steps": 1}, "sweep_steps"), ({"sweep_dwell": -1.0}, "sweep_dwell"),
-])
+@pytest.mark.parametrize(
+    "kwargs, name",
+    [
+        ({"mode": "fast"}, "mode"),
+        ({"chop_period": 0.0}, "chop_period"),
+        ({"decay_period": math.inf}, "decay_period"),
+        ({"sweep_steps": 1}, "sweep_steps"),
+        ({"sweep_dwell": -1.0}, "sweep_dwell"),
+    ],
+)
 def test_mode_choice_names_the_bad_field(kwargs, name):
     args = {"mode": "watch", "chop_period": 0.01, "decay_period": 0.03, **kwargs}
     with pytest.raises(ValueError, match=name):
@@ -244,6 +257,7 @@ def test_checklist_verdicts_use_the_checklists_own_judgement():
 
 # -- keys --------------------------------------------------------------------------------------
 
+
 @pytest.mark.parametrize("app, keys", [(LiveDashboard, LIVE_KEYS), (ReplayDashboard, REPLAY_KEYS)])
 def test_every_binding_is_on_the_help_screen_and_has_an_action(app, keys):
     bound = {(b.key, b.action) for b in app.BINDINGS}
@@ -264,6 +278,7 @@ def test_no_key_is_bound_twice():
 
 # -- the plots on synthetic snapshots (no bench) --------------------------------------------------
 
+
 def snapshot(mode="watch", estimate=None, t=1.0, n=400):
     from types import MappingProxyType
 
@@ -276,13 +291,38 @@ def snapshot(mode="watch", estimate=None, t=1.0, n=400):
     cols = np.column_stack([0.8 * np.ones(n), 0.6 * np.ones(n), s, 0.7 * on])
     trace = TraceView(("probe", "reference", "transmission", "pump_monitor"), tt, cols, cols, cols)
     et = np.linspace(0.1, t, 10)
-    ests = EstimateView(et, ("beta", "gain_db", "ln_ratio", "tau_s"), np.tile([0.3, 2.5, 0.69, 6e-4], (10, 1)),
-                        np.tile([0.017, 0.03, 1e-5, 1e-5], (10, 1)))
-    return Snapshot(t=t, mode=mode, estimate=estimate, window=None, has_dark=True, has_baseline=True,
-                    pump=MappingProxyType({}), guard_state="safe", trip_reason=None, blocks=10, samples=n,
-                    drops=0, dropped_samples=0, faults=0, last_fault="", trace=trace, pump_trace=None,
-                    estimates=ests, truth=None, events=(), last_flush_age=None, store_bytes=None,
-                    sample_rate=1e5, extra=MappingProxyType({}))
+    ests = EstimateView(
+        et,
+        ("beta", "gain_db", "ln_ratio", "tau_s"),
+        np.tile([0.3, 2.5, 0.69, 6e-4], (10, 1)),
+        np.tile([0.017, 0.03, 1e-5, 1e-5], (10, 1)),
+    )
+    return Snapshot(
+        t=t,
+        mode=mode,
+        estimate=estimate,
+        window=None,
+        has_dark=True,
+        has_baseline=True,
+        pump=MappingProxyType({}),
+        guard_state="safe",
+        trip_reason=None,
+        blocks=10,
+        samples=n,
+        drops=0,
+        dropped_samples=0,
+        faults=0,
+        last_fault="",
+        trace=trace,
+        pump_trace=None,
+        estimates=ests,
+        truth=None,
+        events=(),
+        last_flush_age=None,
+        store_bytes=None,
+        sample_rate=1e5,
+        extra=MappingProxyType({}),
+    )
 
 
 def plot_text(plot_cls, snap, **kwargs):
@@ -320,8 +360,12 @@ def test_response_plot_shows_the_decay_fit_and_the_sweep_points():
     from bench.records import Estimate
 
     t = np.linspace(0, 3e-3, 12)
-    curve = {"t_s": list(t), "ln_ratio": list(0.7 * np.exp(-t / 6e-4)), "sigma": [1e-3] * 12,
-             "fit": list(0.7 * np.exp(-t / 6e-4))}
+    curve = {
+        "t_s": list(t),
+        "ln_ratio": list(0.7 * np.exp(-t / 6e-4)),
+        "sigma": [1e-3] * 12,
+        "fit": list(0.7 * np.exp(-t / 6e-4)),
+    }
     decay = Estimate(1.0, "decay", "cumulative", {}, extra={"curve": curve})
     title, text, _ = plot_text(ResponsePlot, snapshot("decay", decay))
     assert title.startswith("decay") and "fit" in text
@@ -362,7 +406,9 @@ def test_mode_screen_refuses_a_chopping_period_with_no_settled_data():
 
     class One(App):
         def on_mount(self):
-            self.push_screen(ModeScreen(ModeChoice.defaults(cfg, "chopped"), check=check), callback=results.append)
+            self.push_screen(
+                ModeScreen(ModeChoice.defaults(cfg, "chopped"), check=check), callback=results.append
+            )
 
     async def run():
         app = One()

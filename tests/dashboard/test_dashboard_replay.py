@@ -25,8 +25,21 @@ def recorded(tmp_path_factory):
     logs = tmp_path_factory.mktemp("logs")
     buf = io.StringIO()
     with redirect_stdout(buf):
-        code = main(["record", "--seconds", "3", "--quiet", "--logs", str(logs), "--seed", "7",
-                     "--fault", "interlock@2.5s+0.3s", *ARM])
+        code = main(
+            [
+                "record",
+                "--seconds",
+                "3",
+                "--quiet",
+                "--logs",
+                str(logs),
+                "--seed",
+                "7",
+                "--fault",
+                "interlock@2.5s+0.3s",
+                *ARM,
+            ]
+        )
     assert code == 0, buf.getvalue()
     run_id = buf.getvalue().strip().splitlines()[-1]
     path = logs / f"{run_id}.gbrun"
@@ -45,9 +58,14 @@ async def test_replay_controls_and_the_guard_as_recorded(recorded):
     feed = ReplayFeed(path, speed=1.0)
     app = ReplayDashboard(feed)
     async with app.run_test(size=(120, 40)) as pilot:
-        await wait_for(pilot, lambda: app.last_snapshot is not None and app.last_snapshot.blocks > 5, "replayed blocks")
-        await wait_for(pilot, lambda: "REPLAY" in screen_text(app) and "as recorded" in screen_text(app),
-                       "the replay banner and the guard panel's source")
+        await wait_for(
+            pilot, lambda: app.last_snapshot is not None and app.last_snapshot.blocks > 5, "replayed blocks"
+        )
+        await wait_for(
+            pilot,
+            lambda: "REPLAY" in screen_text(app) and "as recorded" in screen_text(app),
+            "the replay banner and the guard panel's source",
+        )
         # pause: the play clock stands still
         await press(pilot, "space")
         assert feed.paused
@@ -65,8 +83,9 @@ async def test_replay_controls_and_the_guard_as_recorded(recorded):
         # from the start, jump from event to event up to the trip; at each stop the guard panel
         # shows the state the stored guard events give for that time (the reference here)
         await press(pilot, "space", "home")
-        await wait_for(pilot, lambda: feed.paused and feed.position() == 0.0 and not feed.seeking,
-                       "paused at the start")
+        await wait_for(
+            pilot, lambda: feed.paused and feed.position() == 0.0 and not feed.seeking, "paused at the start"
+        )
         seen = []
         for _ in range(60):
             await press(pilot, "n")

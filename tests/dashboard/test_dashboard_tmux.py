@@ -38,10 +38,12 @@ def test_live_in_a_terminal_arm_and_quit(tmux, tmp_path):
     config = bench_file(tmp_path)
     # COLUMNS / LINES inherited from the test runner would override the pane's real size; stdout
     # stays on the terminal (textual asks stdout for the terminal's size when it changes)
-    command = (f"cd {shlex.quote(str(ROOT))} && env -u COLUMNS -u LINES {shlex.quote(sys.executable)} -m bench live "
-               f"--config {shlex.quote(str(config))} "
-               f"--logs {shlex.quote(str(logs))} --operator smoke; "
-               f"echo $? > {shlex.quote(str(done))}; sleep 60")
+    command = (
+        f"cd {shlex.quote(str(ROOT))} && env -u COLUMNS -u LINES {shlex.quote(sys.executable)} -m bench live "
+        f"--config {shlex.quote(str(config))} "
+        f"--logs {shlex.quote(str(logs))} --operator smoke; "
+        f"echo $? > {shlex.quote(str(done))}; sleep 60"
+    )
     tmux.start(command)
     screen = tmux.wait_for("SIMULATED BENCH", timeout=90)
     assert "instruments" in screen, "at 120 x 40 the full layout shows the instruments panel"

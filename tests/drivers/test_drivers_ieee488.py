@@ -246,7 +246,9 @@ class TestIdentity:
         assert ident.serial == "" and ident.firmware == ""
 
     def test_other_field_order(self):
-        ident = parse_idn(b"QS-2 shutter controller,Quillmoor Instruments,fw 2.3", ("model", "maker", "firmware"))
+        ident = parse_idn(
+            b"QS-2 shutter controller,Quillmoor Instruments,fw 2.3", ("model", "maker", "firmware")
+        )
         assert ident.maker == "Quillmoor Instruments" and ident.model == "QS-2 shutter controller"
         assert ident.firmware == "fw 2.3" and ident.serial == ""
 

@@ -54,13 +54,17 @@ def bench_file(tmp_path):
     detector = serve({b"*IDN?": b"Loopback Devices,DG-3,0002,0.1\n"})
     pump = serve({b"*IDN?": b"Loopback Devices,LD-1,0001,0.1\n"})
     shutter = serve({b"ID": b"LS-1 shutter box,Loopback Devices,fw 0.1\r\n"}, terminator=b"\r")
-    ports = {name: s.getsockname()[1] for name, s in (("detector", detector), ("pump", pump), ("shutter", shutter))}
+    ports = {
+        name: s.getsockname()[1] for name, s in (("detector", detector), ("pump", pump), ("shutter", shutter))
+    }
     text = builtin_bench_path().read_text(encoding="utf-8").replace("simulated = true", "simulated = false")
-    resources = iter([
-        f'resource = "TCPIP::127.0.0.1::{ports["detector"]}::SOCKET"',
-        f'resource = "socket://127.0.0.1:{ports["pump"]}"',
-        f'resource = "socket://127.0.0.1:{ports["shutter"]}"',
-    ])
+    resources = iter(
+        [
+            f'resource = "TCPIP::127.0.0.1::{ports["detector"]}::SOCKET"',
+            f'resource = "socket://127.0.0.1:{ports["pump"]}"',
+            f'resource = "socket://127.0.0.1:{ports["shutter"]}"',
+        ]
+    )
     while 'resource = "simulated"' in text:
         text = text.replace('resource = "simulated"', next(resources), 1)
     path = tmp_path / "bench.toml"
@@ -104,7 +108,7 @@ def test_unreachable_instrument_gives_its_reason(bench_file, capsys):
     assert cmd.run(args_for(bench_file, no_scan=True)) == 1
     out = capsys.readouterr().out
     assert "VISA resources" not in out
-    pump_part = out[out.index("  pump"):]
+    pump_part = out[out.index("  pump") :]
     assert "not reached: pump instrument (socket://127.0.0.1:" in pump_part
     assert "could not open the port" in pump_part
     assert "DG-3" in out  # the others are still identified

@@ -487,7 +487,7 @@ class FakeDigitiser:
         if text == "SYST:ERR?":
             return b'0,"No error"\n'
         if text.startswith("ROUT:SCAN (@"):
-            self.scan = [int(c) for c in text[len("ROUT:SCAN (@"):-1].split(",")]
+            self.scan = [int(c) for c in text[len("ROUT:SCAN (@") : -1].split(",")]
             return None
         if text.startswith("FORM:DATA"):
             self.binary = "REAL" in text
@@ -514,8 +514,14 @@ class FakeDigitiser:
 def test_digitiser_fetch_binary_blocks_with_line_feeds(instrument, kind):
     dig = FakeDigitiser()
     inst = instrument(dig)
-    with open_instrument("detector", "digitiser", RESOURCES[kind](inst.port), "generic-digitiser", 2.0,
-                         {"channels": [1, 2], "sample_rate": "100 kHz"}) as drv:
+    with open_instrument(
+        "detector",
+        "digitiser",
+        RESOURCES[kind](inst.port),
+        "generic-digitiser",
+        2.0,
+        {"channels": [1, 2], "sample_rate": "100 kHz"},
+    ) as drv:
         drv.configure()
         assert drv.rate_hz == 100000.0
         assert drv.channel_names == ("probe", "reference")
@@ -533,8 +539,9 @@ def test_digitiser_fetch_binary_blocks_with_line_feeds(instrument, kind):
 def test_digitiser_fetch_ascii(instrument):
     dig = FakeDigitiser(n_sets=50)
     inst = instrument(dig)
-    with open_instrument("detector", "digitiser", visa_resource(inst.port), "generic-digitiser", 2.0,
-                         {"format": "ascii"}) as drv:
+    with open_instrument(
+        "detector", "digitiser", visa_resource(inst.port), "generic-digitiser", 2.0, {"format": "ascii"}
+    ) as drv:
         drv.configure(channels=(3, 1))
         got = drv.fetch(20)
         np.testing.assert_allclose(got.data, dig.data[:20][:, [2, 0]].astype(np.float64), rtol=0)
@@ -556,7 +563,9 @@ def test_digitiser_ascii_reply_where_a_block_was_expected(instrument, kind):
     dig = FakeDigitiser(n_sets=100)
     dig.binary = False  # the device sends ASCII, the driver expects REAL,32 blocks
     inst = instrument(dig)
-    with open_instrument("detector", "digitiser", RESOURCES[kind](inst.port), "generic-digitiser", 1.0) as drv:
+    with open_instrument(
+        "detector", "digitiser", RESOURCES[kind](inst.port), "generic-digitiser", 1.0
+    ) as drv:
         with pytest.raises(ReplyError, match="expected '#'"):
             drv.fetch(10)
         # the rest of the ASCII line was discarded: the next reply is read correctly
@@ -633,8 +642,14 @@ def test_closing_the_shutter_driver_only_releases_the_connection(instrument):
 def test_shutter_error_reply_is_reported(instrument):
     box = FakeShutters()
     inst = instrument(box, terminator=b"\r")
-    drv = open_instrument("shutter", "shutter", serial_resource(inst.port), "qs2-shutter", 1.0,
-                          {"shutters": {"probe": 1, "pump": 7}})
+    drv = open_instrument(
+        "shutter",
+        "shutter",
+        serial_resource(inst.port),
+        "qs2-shutter",
+        1.0,
+        {"shutters": {"probe": 1, "pump": 7}},
+    )
     try:
         with pytest.raises(InstrumentReportedError) as info:
             drv.close_shutter("pump")
@@ -667,7 +682,9 @@ def test_wavelength_source(instrument):
         return None
 
     inst = instrument(respond)
-    with open_instrument("wavelength", "wavelength-source", visa_resource(inst.port), "generic-wavelength", 1.0) as drv:
+    with open_instrument(
+        "wavelength", "wavelength-source", visa_resource(inst.port), "generic-wavelength", 1.0
+    ) as drv:
         assert drv.tuning_range() == (1.0e-6, 1.1e-6)
         drv.set_wavelength(1.05e-6)
         assert not drv.settled()

@@ -22,8 +22,12 @@ from simulated_instruments.instrument_servers import SimulatedBench
 def cfg():
     base = load_bench()
     # add the optional tunable probe source to the bench
-    text = base.text.replace("[guard]", '[instruments.wavelength]\ndriver = "wavelength-source"\n'
-                             'resource = "simulated"\nprofile = "generic-wavelength"\ntimeout = "1 s"\n\n[guard]', 1)
+    text = base.text.replace(
+        "[guard]",
+        '[instruments.wavelength]\ndriver = "wavelength-source"\n'
+        'resource = "simulated"\nprofile = "generic-wavelength"\ntimeout = "1 s"\n\n[guard]',
+        1,
+    )
     return load_bench_text(text, "demo + wavelength")
 
 
@@ -35,8 +39,14 @@ def sim(cfg):
 
 def _open(cfg, sim, role, timeout=None):
     inst = cfg.instruments[role]
-    return open_instrument(role, inst.driver, sim.resources[role], inst.profile,
-                           timeout if timeout is not None else inst.timeout, dict(inst.options))
+    return open_instrument(
+        role,
+        inst.driver,
+        sim.resources[role],
+        inst.profile,
+        timeout if timeout is not None else inst.timeout,
+        dict(inst.options),
+    )
 
 
 def test_identities(cfg, sim):

@@ -97,7 +97,9 @@ def test_milliamp_and_nanometre_units(tmp_path):
 
 
 def test_escapes_in_literal_strings(tmp_path):
-    text = MINIMAL_PUMP.replace("[errors]", "[transport]\nread_termination = '\\r\\n'\nwrite_termination = '\\x0d'\n\n[errors]")
+    text = MINIMAL_PUMP.replace(
+        "[errors]", "[transport]\nread_termination = '\\r\\n'\nwrite_termination = '\\x0d'\n\n[errors]"
+    )
     prof = load_profile(write(tmp_path, text))
     assert prof.transport.read_termination == b"\r\n"
     assert prof.transport.write_termination == b"\r"
@@ -116,32 +118,96 @@ def test_timeout_with_unit_and_number(tmp_path):
 @pytest.mark.parametrize(
     "text, key, words",
     [
-        (with_line("power = { send = \"MEAS:POW?\", reply = \"flaot\" }"), "commands.power.reply", "unknown reply format"),
-        (with_line("laser_colour = \"COL?\""), "commands.laser_colour", "not an operation of the 'pump' role"),
-        (MINIMAL_PUMP.replace('interlock = { send = "OUTP:INTL?", reply = "bool" }', ""), "commands.interlock", "missing"),
-        (with_line("set_current_limit = { send = \"LIM {amps}\" }"), "commands.set_current_limit.send", "unknown placeholder {amps}"),
-        (with_line("set_current_limit = { send = \"LIM 5\" }"), "commands.set_current_limit.send", "lacks the placeholder"),
-        (with_line("set_current_limit = { send = \"LIM {value:.6q}\" }"), "commands.set_current_limit.send", "bad placeholder format"),
-        (with_line("set_current_limit = { send = \"LIM {value\" }"), "commands.set_current_limit.send", "bad placeholder"),
-        (with_line("power = { send = \"MEAS:POW?\", reply = \"float\", unit = \"degC\" }"), "commands.power.unit", "not a unit of power"),
-        (with_line("power = { send = \"MEAS:POW?\", reply = \"float\", unit = \"blorps\" }"), "commands.power.unit", "not a unit pint knows"),
-        (with_line("power = { send = \"MEAS:POW?\", repy = \"float\" }"), "commands.power.repy", "unknown key"),
-        (with_line("power = { send = \"MEAS:POW?\", reply = \"bool\" }"), "commands.power.reply", "does not fit"),
-        (with_line("modulation_on = { send = \"MOD ON\", reply = { YES = 1 } }"), "commands.modulation_on.reply", "does not fit"),
-        (MINIMAL_PUMP.replace("role = \"pump\"", "role = \"laser\""), "profile.role", "unknown role"),
-        (MINIMAL_PUMP.replace("name = \"t\"\n", ""), "profile.name", "missing"),
+        (
+            with_line('power = { send = "MEAS:POW?", reply = "flaot" }'),
+            "commands.power.reply",
+            "unknown reply format",
+        ),
+        (with_line('laser_colour = "COL?"'), "commands.laser_colour", "not an operation of the 'pump' role"),
+        (
+            MINIMAL_PUMP.replace('interlock = { send = "OUTP:INTL?", reply = "bool" }', ""),
+            "commands.interlock",
+            "missing",
+        ),
+        (
+            with_line('set_current_limit = { send = "LIM {amps}" }'),
+            "commands.set_current_limit.send",
+            "unknown placeholder {amps}",
+        ),
+        (
+            with_line('set_current_limit = { send = "LIM 5" }'),
+            "commands.set_current_limit.send",
+            "lacks the placeholder",
+        ),
+        (
+            with_line('set_current_limit = { send = "LIM {value:.6q}" }'),
+            "commands.set_current_limit.send",
+            "bad placeholder format",
+        ),
+        (
+            with_line('set_current_limit = { send = "LIM {value" }'),
+            "commands.set_current_limit.send",
+            "bad placeholder",
+        ),
+        (
+            with_line('power = { send = "MEAS:POW?", reply = "float", unit = "degC" }'),
+            "commands.power.unit",
+            "not a unit of power",
+        ),
+        (
+            with_line('power = { send = "MEAS:POW?", reply = "float", unit = "blorps" }'),
+            "commands.power.unit",
+            "not a unit pint knows",
+        ),
+        (with_line('power = { send = "MEAS:POW?", repy = "float" }'), "commands.power.repy", "unknown key"),
+        (with_line('power = { send = "MEAS:POW?", reply = "bool" }'), "commands.power.reply", "does not fit"),
+        (
+            with_line('modulation_on = { send = "MOD ON", reply = { YES = 1 } }'),
+            "commands.modulation_on.reply",
+            "does not fit",
+        ),
+        (MINIMAL_PUMP.replace('role = "pump"', 'role = "laser"'), "profile.role", "unknown role"),
+        (MINIMAL_PUMP.replace('name = "t"\n', ""), "profile.name", "missing"),
         (MINIMAL_PUMP + "\n[extras]\nx = 1\n", "extras", "unknown section"),
-        (MINIMAL_PUMP.replace("[errors]", "[transport]\nread_termination = '\\q'\n\n[errors]"), "transport.read_termination", "bad escape"),
+        (
+            MINIMAL_PUMP.replace("[errors]", "[transport]\nread_termination = '\\q'\n\n[errors]"),
+            "transport.read_termination",
+            "bad escape",
+        ),
         # IEEE 488.2 message terminators are ASCII (LF, CR LF): a byte above 0x7f, or none at
         # all, is refused (found by the profile fuzzing in tests/reliability/test_reliability_fuzz.py)
-        (MINIMAL_PUMP.replace("[errors]", "[transport]\nwrite_termination = '\\x80'\n\n[errors]"),
-         "transport.write_termination", "ASCII"),
-        (MINIMAL_PUMP.replace("[errors]", "[transport]\nread_termination = ''\n\n[errors]"),
-         "transport.read_termination", "ASCII"),
-        (MINIMAL_PUMP.replace("[errors]", "[transport]\ntimeout = \"5 kg\"\n\n[errors]"), "transport.timeout", "expected a time"),
-        (MINIMAL_PUMP.replace("[errors]", "[transport]\nbaudrate = -1\n\n[errors]"), "transport.baudrate", "positive integer"),
-        (MINIMAL_PUMP.replace('query = "SYST:ERR?"', "drain_after_set = true"), "errors.drain_after_set", "needs errors.query"),
-        (MINIMAL_PUMP.replace("[commands]", "[commands]\nidentify = 5\n").replace('identify = { send = "*IDN?", reply = "idn" }\n', ""), "commands.identify", "expected a table"),
+        (
+            MINIMAL_PUMP.replace("[errors]", "[transport]\nwrite_termination = '\\x80'\n\n[errors]"),
+            "transport.write_termination",
+            "ASCII",
+        ),
+        (
+            MINIMAL_PUMP.replace("[errors]", "[transport]\nread_termination = ''\n\n[errors]"),
+            "transport.read_termination",
+            "ASCII",
+        ),
+        (
+            MINIMAL_PUMP.replace("[errors]", '[transport]\ntimeout = "5 kg"\n\n[errors]'),
+            "transport.timeout",
+            "expected a time",
+        ),
+        (
+            MINIMAL_PUMP.replace("[errors]", "[transport]\nbaudrate = -1\n\n[errors]"),
+            "transport.baudrate",
+            "positive integer",
+        ),
+        (
+            MINIMAL_PUMP.replace('query = "SYST:ERR?"', "drain_after_set = true"),
+            "errors.drain_after_set",
+            "needs errors.query",
+        ),
+        (
+            MINIMAL_PUMP.replace("[commands]", "[commands]\nidentify = 5\n").replace(
+                'identify = { send = "*IDN?", reply = "idn" }\n', ""
+            ),
+            "commands.identify",
+            "expected a table",
+        ),
     ],
 )
 def test_validation_errors_name_file_and_key(tmp_path, text, key, words):
@@ -155,8 +221,10 @@ def test_validation_errors_name_file_and_key(tmp_path, text, key, words):
 
 
 def test_enum_values_must_be_booleans(tmp_path):
-    text = MINIMAL_PUMP.replace('interlock = { send = "OUTP:INTL?", reply = "bool" }',
-                                'interlock = { send = "OUTP:INTL?", reply = { CLOSED = "yes" } }')
+    text = MINIMAL_PUMP.replace(
+        'interlock = { send = "OUTP:INTL?", reply = "bool" }',
+        'interlock = { send = "OUTP:INTL?", reply = { CLOSED = "yes" } }',
+    )
     with pytest.raises(ProfileError, match=r"commands\.interlock\.reply\.CLOSED: expected true or false"):
         load_profile(write(tmp_path, text))
 

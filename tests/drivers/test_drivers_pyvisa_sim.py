@@ -40,7 +40,12 @@ def pump():
 
 def test_identity(pump):
     ident = pump.identify()
-    assert (ident.maker, ident.model, ident.serial, ident.firmware) == ("Test Devices", "LDD-10", "SN0042", "2.1")
+    assert (ident.maker, ident.model, ident.serial, ident.firmware) == (
+        "Test Devices",
+        "LDD-10",
+        "SN0042",
+        "2.1",
+    )
 
 
 def test_setpoint_output_and_readbacks(pump):
@@ -103,8 +108,9 @@ def test_visa_transport_takes_the_backend_argument():
 @pytest.mark.parametrize("resource", ["ASRL7::INSTR", "TCPIP::127.0.0.1::5030::SOCKET"])
 def test_binary_block_with_line_feeds_over_visa(resource):
     backend = f"{DATA / 'digitiser.yaml'}@sim"
-    drv = open_instrument("detector", "digitiser", resource, "generic-digitiser", 2.0,
-                          {"channels": [1, 2]}, backend=backend)
+    drv = open_instrument(
+        "detector", "digitiser", resource, "generic-digitiser", 2.0, {"channels": [1, 2]}, backend=backend
+    )
     try:
         got = drv.fetch(2)
     finally:

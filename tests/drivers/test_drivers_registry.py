@@ -68,8 +68,14 @@ def test_unknown_option_names_the_key():
 
 
 def test_options_with_units_become_si():
-    drv = open_instrument("detector", "digitiser", "loop://", "generic-digitiser", 0.5,
-                          {"sample_rate": "100 kHz", "range": "2000 mV", "format": "ascii"})
+    drv = open_instrument(
+        "detector",
+        "digitiser",
+        "loop://",
+        "generic-digitiser",
+        0.5,
+        {"sample_rate": "100 kHz", "range": "2000 mV", "format": "ascii"},
+    )
     try:
         assert drv.rate_hz == pytest.approx(1e5) and drv.range_v == pytest.approx(2.0)
         assert drv.data_format == "ascii"

@@ -34,8 +34,14 @@ IMPORT_ALL = textwrap.dedent("""
 
 
 def test_drivers_and_simulator_import_nothing_from_bench():
-    out = subprocess.run([sys.executable, "-P", "-c", IMPORT_ALL], cwd=ROOT, capture_output=True, text=True,
-                         timeout=120, check=True).stdout.splitlines()
+    out = subprocess.run(
+        [sys.executable, "-P", "-c", IMPORT_ALL],
+        cwd=ROOT,
+        capture_output=True,
+        text=True,
+        timeout=120,
+        check=True,
+    ).stdout.splitlines()
     assert int(out[0]) >= 30  # every module was imported (the two packages have more than 30)
     assert out[1:] == [""], f"modules of bench imported by drivers / simulated_instruments: {out[1:]}"
 

@@ -53,16 +53,14 @@ def test_crlf_and_lf_are_different_terminators():
 
 def test_several_lines_in_one_feed_come_one_at_a_time():
     buf = LineBuffer(b"\n")
-    buf.feed(b"0,\"No error\"\n\n-222,\"Data out of range\"\n")
+    buf.feed(b'0,"No error"\n\n-222,"Data out of range"\n')
     assert buf.next_line() == b'0,"No error"'
     assert buf.next_line() == b""  # an empty line is a line
     assert buf.next_line() == b'-222,"Data out of range"'
     assert buf.next_line() is None
 
 
-@given(st.lists(st.binary(max_size=20).filter(lambda b: b"\r\n" not in b),
-                max_size=8),
-       st.data())
+@given(st.lists(st.binary(max_size=20).filter(lambda b: b"\r\n" not in b), max_size=8), st.data())
 def test_lines_come_out_the_same_however_the_bytes_are_cut(lines, data):
     stream = b"".join(line + b"\r\n" for line in lines)
     cuts = sorted(data.draw(st.lists(st.integers(0, len(stream)), max_size=10)))
@@ -98,7 +96,7 @@ def test_an_ieee_488_2_definite_length_block_read_with_take():
     buf = LineBuffer(b"\n")
     stream = block + b"\n" + b"+1.0\n"
     for i in range(0, len(stream), 7):  # arrives in pieces of 7 bytes
-        buf.feed(stream[i:i + 7])
+        buf.feed(stream[i : i + 7])
     assert buf.take(2) == b"#3"
     digits = int(b"#3"[1:])
     length = int(buf.take(digits))

@@ -100,8 +100,9 @@ def _one_run(cfg, params, seed, mode):
         model.advance_to(model.t + 0.025)  # past the driver's 20 ms soft start
         truth = model.truth()
         model.set_modulation(1.0 / default_period(params, mode, power))
-    state = with_baseline(with_dark(new_state(params, mode, {"pump_current": CURRENT, "pump_power": power}),
-                                    dark), baseline)
+    state = with_baseline(
+        with_dark(new_state(params, mode, {"pump_current": CURRENT, "pump_power": power}), dark), baseline
+    )
     for block in _blocks(model, int(SECONDS[mode] * RATE)):
         state, _ = update(state, block)
     (final,) = report(state)

@@ -82,7 +82,7 @@ def split(data, sizes, t0=0.0, first=0):
     n = data.shape[0]
     while i < n:
         m = sizes if isinstance(sizes, int) else sizes[k % len(sizes)]
-        out.append(Block("detector", k, t0 + i * DT, DT, first + i, CHANNELS, data[i:i + m]))
+        out.append(Block("detector", k, t0 + i * DT, DT, first + i, CHANNELS, data[i : i + m]))
         i += m
         k += 1
     return out
@@ -119,8 +119,11 @@ def probe_held(cfg):
     w = cfg.probe.beam_diameter / 2
     s = cfg.sample.sigma
     flux = cfg.probe.power / (math.pi * w * w) / (constants.h * constants.c / cfg.probe.wavelength)
-    return s.probe_absorption * flux / ((s.probe_absorption + s.probe_emission) * flux
-                                        + 1.0 / cfg.sample.upper_state_lifetime)
+    return (
+        s.probe_absorption
+        * flux
+        / ((s.probe_absorption + s.probe_emission) * flux + 1.0 / cfg.sample.upper_state_lifetime)
+    )
 
 
 # ------------------------------------------------------------------ watch
@@ -175,7 +178,7 @@ def test_watch_noise_comes_from_batch_means_and_is_honest_under_correlated_noise
         sigmas.append(q.sigma_noise)
         data = np.concatenate([b.data for b in blocks])
         s = (data[:, 0] - DARK.probe) / (data[:, 1] - DARK.reference)
-        used = s[int(math.ceil(params.step_settle_time / DT)):]
+        used = s[int(math.ceil(params.step_settle_time / DT)) :]
         naive.append(np.std(used) / np.mean(used) / math.sqrt(used.size))
     ratio = np.std(values, ddof=1) / np.mean(sigmas)
     assert 0.7 < ratio < 1.35
@@ -212,7 +215,10 @@ def _chopped_z(params, seeds, *, hz=50.0, truth=0.2, edge_phase=0.37, seconds=0.
     lnr, on = response(int(seconds * RATE), hz, truth, TAU, edge_phase=edge_phase)
     z = []
     for seed in seeds:
-        state, _ = feed(ready(params, "chopped"), make_blocks(lnr, on, np.random.default_rng(seed), size=6000, noise=noise))
+        state, _ = feed(
+            ready(params, "chopped"),
+            make_blocks(lnr, on, np.random.default_rng(seed), size=6000, noise=noise),
+        )
         q = report(state)[0].values["ln_ratio"]
         z.append((q.value - truth) / q.sigma_noise)
     return np.array(z)
@@ -248,13 +254,17 @@ def test_a_pump_still_ramping_up_is_left_out(params, mode):
     lnr, on = response(n, 50.0, 0.46, TAU)
     first_on = np.flatnonzero(on)
     ramp = np.zeros(n, bool)
-    ramp[first_on[0]:first_on[0] + int(0.5 / 50.0 * RATE)] = True
+    ramp[first_on[0] : first_on[0] + int(0.5 / 50.0 * RATE)] = True
     ramp &= on
     low = np.where(ramp, 0.9, 1.0)
     rng = np.random.default_rng(4)
-    data = np.column_stack([DARK.probe + S_OFF * np.exp(lnr * low) * REF + rng.normal(0, 6e-4, n),
-                            DARK.reference + REF + rng.normal(0, 6e-4, n),
-                            np.where(on, 0.5 * low, 0.0) + rng.normal(0, 5e-4, n)])
+    data = np.column_stack(
+        [
+            DARK.probe + S_OFF * np.exp(lnr * low) * REF + rng.normal(0, 6e-4, n),
+            DARK.reference + REF + rng.normal(0, 6e-4, n),
+            np.where(on, 0.5 * low, 0.0) + rng.normal(0, 5e-4, n),
+        ]
+    )
     state, _ = feed(ready(params, mode), split(data, 2000))
     est = report(state)[0]
     q = est.values["ln_ratio"]
@@ -270,9 +280,13 @@ def test_a_weak_noisy_pump_monitor_does_not_lose_cycles(params):
     n = int(0.3 * RATE)
     lnr, on = response(n, 50.0, 0.46, TAU)
     rng = np.random.default_rng(8)
-    data = np.column_stack([DARK.probe + S_OFF * np.exp(lnr) * REF + rng.normal(0, 6e-4, n),
-                            DARK.reference + REF + rng.normal(0, 6e-4, n),
-                            np.where(on, 0.01, 0.0) + rng.normal(0, 5e-4, n)])
+    data = np.column_stack(
+        [
+            DARK.probe + S_OFF * np.exp(lnr) * REF + rng.normal(0, 6e-4, n),
+            DARK.reference + REF + rng.normal(0, 6e-4, n),
+            np.where(on, 0.01, 0.0) + rng.normal(0, 5e-4, n),
+        ]
+    )
     state, _ = feed(ready(params.replace(pump_threshold_v=0.005), "chopped"), split(data, 2000))
     est = report(state)[0]
     assert est.extra["n_cycles"] >= 12  # of the 14 complete cycles after the first pump-on part
@@ -291,8 +305,9 @@ def test_decay_of_an_exact_exponential_gives_its_time_constant_and_ln_ratio(cfg,
     n = int(0.2 * RATE)
     decay_time = 1.0 / (1.0 / TAU + probe_rate(cfg))
     lnr, on = response(n, 50.0, 0.46, decay_time, edge_phase=edge_phase)
-    data = np.column_stack([DARK.probe + S_OFF * np.exp(lnr) * REF, np.full(n, DARK.reference + REF),
-                            np.where(on, 0.5, 0.0)])
+    data = np.column_stack(
+        [DARK.probe + S_OFF * np.exp(lnr) * REF, np.full(n, DARK.reference + REF), np.where(on, 0.5, 0.0)]
+    )
     state, _ = feed(ready(params, "decay", baseline=Baseline(S_OFF, 1e-12, 1, 0.0, 0.0)), split(data, 1000))
     (est,) = report(state)
     assert est.extra["decay_time_s"] == pytest.approx(decay_time, rel=1e-7)
@@ -302,7 +317,9 @@ def test_decay_of_an_exact_exponential_gives_its_time_constant_and_ln_ratio(cfg,
     # the first off sample comes lag = (1 - edge_phase) mod 1 sample intervals after the edge;
     # the fit's extrapolation assumes half an interval
     lag = (1.0 - edge_phase) % 1.0
-    assert est.extra["fit"]["amplitude"] == pytest.approx(0.46 * math.exp((0.5 - lag) * DT / decay_time), rel=1e-6)
+    assert est.extra["fit"]["amplitude"] == pytest.approx(
+        0.46 * math.exp((0.5 - lag) * DT / decay_time), rel=1e-6
+    )
     curve = est.extra["curve"]
     assert len(curve["t_s"]) == len(curve["ln_ratio"]) == len(curve["fit"]) > 10
 
@@ -407,8 +424,13 @@ def reference_fraction(p, beta_max, p_sat, absorbance=None, cfg=None):
     s0 = p / p_sat
     if absorbance is None:
         return local(s0)
-    sol = solve_ivp(lambda x, y: [-absorbance * y[0] * (1.0 - local(y[0]) / beta_max), local(y[0])],
-                    (0.0, 1.0), [s0, 0.0], rtol=1e-11, atol=1e-14)
+    sol = solve_ivp(
+        lambda x, y: [-absorbance * y[0] * (1.0 - local(y[0]) / beta_max), local(y[0])],
+        (0.0, 1.0),
+        [s0, 0.0],
+        rtol=1e-11,
+        atol=1e-14,
+    )
     return sol.y[1, -1]
 
 
@@ -425,8 +447,11 @@ def test_sweep_of_pump_power_recovers_the_saturation_parameters(params, cfg, thi
 
     def beta(p):
         return reference_fraction(p, 0.55, 2.2, par.pump_absorbance if thick else None, cfg)
+
     powers = [0.4, 0.8, 1.5, 2.5, 4.0, 6.0, 8.0]
-    state = _sweep_stream(par, powers, "pump_power", lambda p: k * (beta(p) - b_off), np.random.default_rng(3))
+    state = _sweep_stream(
+        par, powers, "pump_power", lambda p: k * (beta(p) - b_off), np.random.default_rng(3)
+    )
     (est,) = report(state)
     bm, ps = est.values["beta_max"], est.values["p_sat_w"]
     assert abs(bm.value - 0.55) < 4 * bm.sigma_noise
@@ -449,9 +474,16 @@ def test_sweep_steps_measured_by_chopping(params, cfg):
     k = (params.sigma_e + params.sigma_a) * params.length * params.n_total
     powers = [0.5, 1.5, 3.0, 6.0]
     b_off = probe_held(cfg)
-    state = _sweep_stream(params, powers, "pump_power",
-                          lambda p: k * (reference_fraction(p, 0.55, 2.2, None, cfg) - b_off),
-                          np.random.default_rng(4), n_step=6000, method="chopped", chop=50.0)
+    state = _sweep_stream(
+        params,
+        powers,
+        "pump_power",
+        lambda p: k * (reference_fraction(p, 0.55, 2.2, None, cfg) - b_off),
+        np.random.default_rng(4),
+        n_step=6000,
+        method="chopped",
+        chop=50.0,
+    )
     points = report(state)[0].extra["points"]
     assert [p["pump_power_w"] for p in points] == powers
     for p in points:
@@ -472,16 +504,23 @@ def test_sweep_of_probe_wavelength_fits_a_voigt_line(params):
         z0 = 1j * line["gamma_lorentz"] / (line["sigma_gauss"] * math.sqrt(2.0))
         return line["height"] * special.wofz(z).real / special.wofz(z0).real
 
-    state = _sweep_stream(params, waves, "probe_wavelength",
-                          lambda lam: params.length * peak_normalised_voigt(constants.c / lam),
-                          np.random.default_rng(5), n_step=2000)
+    state = _sweep_stream(
+        params,
+        waves,
+        "probe_wavelength",
+        lambda lam: params.length * peak_normalised_voigt(constants.c / lam),
+        np.random.default_rng(5),
+        n_step=2000,
+    )
     (est,) = report(state)
     spec = est.extra["fits"]["spectrum"]
     assert abs(spec["centre_hz"] - line["centre"]) < 4 * spec["centre_hz_sigma"]
     g_fwhm = 2 * math.sqrt(2 * math.log(2)) * line["sigma_gauss"]
     assert abs(spec["gaussian_fwhm_hz"] - g_fwhm) < 4 * spec["gaussian_fwhm_hz_sigma"]
     assert abs(spec["lorentzian_fwhm_hz"] - 2 * line["gamma_lorentz"]) < 4 * spec["lorentzian_fwhm_hz_sigma"]
-    assert est.values["line_centre_m"].value == pytest.approx(1031e-9, abs=4 * est.values["line_centre_m"].sigma)
+    assert est.values["line_centre_m"].value == pytest.approx(
+        1031e-9, abs=4 * est.values["line_centre_m"].sigma
+    )
     # no spectrum configured: away from the configured wavelength only ln R is known
     assert "beta" not in est.extra["points"][0]
 
@@ -494,13 +533,14 @@ def test_sweep_of_probe_wavelength_checks_mccumber_against_a_spectrum(cfg):
     # a 0.1 nm grid: linear interpolation of a coarser table departs from McCumber by more than
     # the 5e-5 relative precision of these ln R values, and the check would (rightly) notice
     lam = np.linspace(990e-9, 1060e-9, 701)
-    sa = 1.0e-24 * np.exp(-((lam - 1000e-9) / 25e-9) ** 2) + 0.02e-24
+    sa = 1.0e-24 * np.exp(-(((lam - 1000e-9) / 25e-9) ** 2)) + 0.02e-24
     # McCumber's relation written out with CODATA constants (D. E. McCumber, Phys. Rev. 136,
     # A954 (1964)), not the project's mccumber_emission
     se = sa * np.exp((epsilon - constants.h * constants.c / lam) / (constants.k * temperature))
     spectrum = CrossSectionSpectrum(lam, sa, se, "synthetic (McCumber-consistent)")
-    params = EstimatorParams.from_config(cfg, pump_threshold_v=0.25, spectrum=spectrum,
-                                         zero_line_energy=epsilon, temperature=temperature)
+    params = EstimatorParams.from_config(
+        cfg, pump_threshold_v=0.25, spectrum=spectrum, zero_line_energy=epsilon, temperature=temperature
+    )
     n2_l = 0.25 * params.n_total * params.length
     steps = np.linspace(1000e-9, 1050e-9, 8)
 
@@ -560,8 +600,15 @@ def test_sweep_is_the_same_in_any_blocking_between_steps(params):
     # (the step points agree to rounding; the saturation fit then agrees to 1e-9 when its model
     # describes the points, as here: a fit that is far off amplifies rounding to ~1e-8)
     beta = [fitting.thick_sample_fraction(p, 0.5, 2.0, params.pump_absorbance) for p in (0.5, 1.0, 2.0, 4.0)]
-    steps = [(p, np.concatenate([b.data for b in make_blocks(np.full(3000, k * b), np.ones(3000, bool), rng, size=3000)]))
-             for p, b in zip((0.5, 1.0, 2.0, 4.0), beta)]
+    steps = [
+        (
+            p,
+            np.concatenate(
+                [b.data for b in make_blocks(np.full(3000, k * b), np.ones(3000, bool), rng, size=3000)]
+            ),
+        )
+        for p, b in zip((0.5, 1.0, 2.0, 4.0), beta)
+    ]
     results = []
     for sizes in (3000, [7, 300, 1111, 13]):
         state, i = ready(params, "sweep"), 0
@@ -580,8 +627,10 @@ def _flags(params, mode="watch", baseline=BASE, dark=DARK, lnr=0.46, seconds=0.3
     n = int(seconds * RATE)
     on = np.ones(n, bool) if on is None else on
     values = np.full(n, lnr) if np.isscalar(lnr) else lnr
-    state, estimates = feed(ready(params, mode, baseline=baseline, dark=dark),
-                            make_blocks(values, on, np.random.default_rng(1), s_off=s_off))
+    state, estimates = feed(
+        ready(params, mode, baseline=baseline, dark=dark),
+        make_blocks(values, on, np.random.default_rng(1), s_off=s_off),
+    )
     return state, estimates, report(state)[0]
 
 
@@ -664,8 +713,9 @@ def test_bad_inputs_are_refused_with_the_argument_named(params):
 
 def test_a_gap_in_the_sample_index_restarts_the_settle_time(params):
     n = int(0.3 * RATE)
-    data = np.concatenate([b.data for b in make_blocks(np.full(n, 0.46), np.ones(n, bool),
-                                                       np.random.default_rng(2), size=n)])
+    data = np.concatenate(
+        [b.data for b in make_blocks(np.full(n, 0.46), np.ones(n, bool), np.random.default_rng(2), size=n)]
+    )
     blocks = split(data[:3000], 1000) + split(data[4000:], 1000, t0=4000 * DT, first=4000)
     state, _ = feed(ready(params, "watch"), blocks)
     (est,) = report(state)
@@ -685,6 +735,11 @@ def test_estimates_are_json_serialisable(params, mode):
         state = with_setting(state, pump_power=3.0)
     state, estimates = feed(state, split(data, 4000))
     for est in estimates + report(state):
-        text = json.dumps({"values": {k: q.as_dict() for k, q in est.values.items()},
-                           "flags": sorted(est.flags), "extra": dict(est.extra)})
+        text = json.dumps(
+            {
+                "values": {k: q.as_dict() for k, q in est.values.items()},
+                "flags": sorted(est.flags),
+                "extra": dict(est.extra),
+            }
+        )
         assert json.loads(text)["flags"] == sorted(est.flags)

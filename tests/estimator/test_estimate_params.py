@@ -103,13 +103,16 @@ def test_systematic_sigmas_agree_with_a_monte_carlo_propagation(params):
     }
     for key, sample in mc.items():
         assert vals[key].sigma_systematic == pytest.approx(np.std(sample), rel=0.03), key
-    assert vals["gain_db"].sigma_systematic == pytest.approx(np.std(10 * np.log10(mc["gain_linear"])), rel=0.03)
+    assert vals["gain_db"].sigma_systematic == pytest.approx(
+        np.std(10 * np.log10(mc["gain_linear"])), rel=0.03
+    )
     # the noise part is ln R's noise carried through the same formulas; totals add in quadrature
     for q in vals.values():
         assert q.sigma == pytest.approx(math.hypot(q.sigma_noise, q.sigma_systematic), rel=1e-12)
     assert vals["ln_ratio"].sigma_systematic == 0.0
     assert vals["beta"].sigma_noise == pytest.approx(
-        1e-5 / ((params.sigma_e + params.sigma_a) * params.length * params.n_total), rel=1e-12)
+        1e-5 / ((params.sigma_e + params.sigma_a) * params.length * params.n_total), rel=1e-12
+    )
 
 
 # ------------------------------------------------------------------ dark and baseline
@@ -117,7 +120,10 @@ def test_systematic_sigmas_agree_with_a_monte_carlo_propagation(params):
 
 def _noise_blocks(rng, n, levels, sigma, size=1000):
     data = np.column_stack([lv + rng.normal(0.0, sigma, n) for lv in levels])
-    return [Block("detector", k, i * 1e-5, 1e-5, i, CHANNELS, data[i:i + size]) for k, i in enumerate(range(0, n, size))]
+    return [
+        Block("detector", k, i * 1e-5, 1e-5, i, CHANNELS, data[i : i + size])
+        for k, i in enumerate(range(0, n, size))
+    ]
 
 
 def test_dark_and_baseline_means_and_standard_errors():
@@ -163,8 +169,10 @@ def test_pulsed_probe_is_corrected_to_the_small_signal_gain(params):
     pulsed = params.replace(probe_kind="pulsed", probe_peak=0.5 * f_sat)
     ln_r0 = 0.46
     ln_t0 = -sa * params.n_total * params.length
-    measured = math.log(_gaussian_energy_gain(math.exp(ln_r0 + ln_t0), 0.5 * f_sat, f_sat)
-                        / _gaussian_energy_gain(math.exp(ln_t0), 0.5 * f_sat, f_sat))
+    measured = math.log(
+        _gaussian_energy_gain(math.exp(ln_r0 + ln_t0), 0.5 * f_sat, f_sat)
+        / _gaussian_energy_gain(math.exp(ln_t0), 0.5 * f_sat, f_sat)
+    )
     assert measured < 0.95 * ln_r0  # the pulse saturates what it measures
     assert pulsed_small_signal_ln_ratio(measured, pulsed, se, sa) == pytest.approx(ln_r0, rel=1e-6)
     vals = figures(pulsed, measured, 1e-4)

@@ -100,9 +100,13 @@ def test_pump_sweep_finds_the_rate_equation_saturation(cfg, params):
     (est,) = report(state)
     s = cfg.sample.sigma
     beta_max = s.pump_absorption / (s.pump_absorption + s.pump_emission)
-    i_sat = (constants.h * constants.c / cfg.pump.wavelength
-             / ((s.pump_absorption + s.pump_emission) * cfg.sample.upper_state_lifetime))
-    p_sat = i_sat * math.pi * cfg.pump.beam_diameter ** 2 / 4
+    i_sat = (
+        constants.h
+        * constants.c
+        / cfg.pump.wavelength
+        / ((s.pump_absorption + s.pump_emission) * cfg.sample.upper_state_lifetime)
+    )
+    p_sat = i_sat * math.pi * cfg.pump.beam_diameter**2 / 4
     bm, ps = est.values["beta_max"], est.values["p_sat_w"]
     # the bench file is nominal here, so the estimate is held to 1 % (a 24-slice model)
     assert bm.value == pytest.approx(beta_max, rel=0.01)

@@ -148,8 +148,18 @@ def test_truth_rows_without_the_medium_transmission_fall_back_and_say_so(cfg):
     s = cfg.sample
     se, sa = s.sigma.probe_emission, s.sigma.probe_absorption
     n2 = 0.2 * s.n_total
-    old = [{"t": 1.0, "n2_avg": n2, "beta": 0.2, "tau": 6e-4, "pump_w": 5.0, "ln_ratio": 0.46,
-            "n_total": s.n_total, "length": s.length}]
+    old = [
+        {
+            "t": 1.0,
+            "n2_avg": n2,
+            "beta": 0.2,
+            "tau": 6e-4,
+            "pump_w": 5.0,
+            "ln_ratio": 0.46,
+            "n_total": s.n_total,
+            "length": s.length,
+        }
+    ]
     figs, source = truth_figures(old, cfg)
     assert "before the medium's transmission was stored" in source
     # Beer-Lambert of the medium's own absolute <N2> (Svelto sec. 2.4)
@@ -168,8 +178,15 @@ def test_the_report_draws_the_medium_own_gain_as_truth(cfg):
     from bench.report.estimate_figures import truth_series
 
     s = cfg.sample
-    row = {"t": 1.0, "pump_w": 5.0, "beta": 0.2, "ln_ratio": 0.46, "n_total": s.n_total, "length": s.length,
-           "ln_t_pumped": 0.5}
+    row = {
+        "t": 1.0,
+        "pump_w": 5.0,
+        "beta": 0.2,
+        "ln_ratio": 0.46,
+        "n_total": s.n_total,
+        "length": s.length,
+        "ln_t_pumped": 0.5,
+    }
     series = truth_series([row], s.sigma.probe_absorption)
     # IEC 60027-3: 10 log10 of the power gain exp(ln T)
     assert series["gain_db"][0] == pytest.approx(10 * math.log10(math.exp(0.5)), rel=1e-12)
@@ -183,14 +200,33 @@ def test_sweep_steps_of_an_old_run_take_the_truth_at_their_pump_power(cfg):
 
     class Rows:  # the part of a RunReader that sweep_steps reads
         def truth(self):
-            return [{"t": 1.0 + k, "pump_w": p, "beta": b, "n2_avg": b * cfg.sample.n_total, "ln_ratio": 2.3 * b}
-                    for k, (p, b) in enumerate([(1.0, 0.05), (2.0, 0.09), (2.0, 0.09), (3.0, 0.13)])]
+            return [
+                {"t": 1.0 + k, "pump_w": p, "beta": b, "n2_avg": b * cfg.sample.n_total, "ln_ratio": 2.3 * b}
+                for k, (p, b) in enumerate([(1.0, 0.05), (2.0, 0.09), (2.0, 0.09), (3.0, 0.13)])
+            ]
 
-    points = [{"pump_power_w": p, "pump_current_a": p + 0.6, "probe_wavelength_m": None, "ln_ratio": 2.3 * b,
-               "ln_ratio_sigma": 1e-5, "beta": b, "beta_sigma": 1e-3, "beta_sigma_noise": 1e-6}
-              for p, b in [(1.0, 0.05), (2.0, 0.09), (3.0, 0.13)]]  # no t_start / t_end: an old run
-    final = Estimate(t=9.0, mode="sweep", scope="cumulative", values=MappingProxyType({}), flags=frozenset(),
-                     n_samples=1, extra=MappingProxyType({"points": points}))
+    points = [
+        {
+            "pump_power_w": p,
+            "pump_current_a": p + 0.6,
+            "probe_wavelength_m": None,
+            "ln_ratio": 2.3 * b,
+            "ln_ratio_sigma": 1e-5,
+            "beta": b,
+            "beta_sigma": 1e-3,
+            "beta_sigma_noise": 1e-6,
+        }
+        for p, b in [(1.0, 0.05), (2.0, 0.09), (3.0, 0.13)]
+    ]  # no t_start / t_end: an old run
+    final = Estimate(
+        t=9.0,
+        mode="sweep",
+        scope="cumulative",
+        values=MappingProxyType({}),
+        flags=frozenset(),
+        n_samples=1,
+        extra=MappingProxyType({"points": points}),
+    )
     steps = sweep_steps(final, Rows(), cfg)
     assert [st["truth"]["beta"]["value"] for st in steps] == [0.05, 0.09, 0.13]
     assert all("pump power" in st["truth_by"] for st in steps)

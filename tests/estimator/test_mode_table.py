@@ -71,15 +71,21 @@ def _ingest(state, core, f, clock):
 
 
 def _add(core, item):
-    return dataclasses.replace(core, n=core.n + item.n, total=core.total + item.total,
-                               means=core.means + (item.total / item.n,), win_n=core.win_n + item.n)
+    return dataclasses.replace(
+        core,
+        n=core.n + item.n,
+        total=core.total + item.total,
+        means=core.means + (item.total / item.n,),
+        win_n=core.win_n + item.n,
+    )
 
 
 def _flush(state):
     core = state.core
     if core.open_n:
-        core = dataclasses.replace(core, n=core.n + core.open_n, total=core.total + core.open_sum,
-                                   open_id=-1, open_n=0, open_sum=0.0)
+        core = dataclasses.replace(
+            core, n=core.n + core.open_n, total=core.total + core.open_sum, open_id=-1, open_n=0, open_sum=0.0
+        )
     return dataclasses.replace(state, core=core)
 
 
@@ -95,8 +101,15 @@ def _estimate(state, core, scope, t, counts):
         values["ln_ratio"] = Quantity(math.log(mean / b.value), noise, noise, 0.0)
         extra.update(s_mean=mean, s_off=b.value)
     n = core.win_n if scope == "window" else core.n
-    return Estimate(t=t, mode=state.mode, scope=scope, values=MappingProxyType(values), flags=frozenset(flags),
-                    n_samples=n, extra=MappingProxyType(extra))
+    return Estimate(
+        t=t,
+        mode=state.mode,
+        scope=scope,
+        values=MappingProxyType(values),
+        flags=frozenset(flags),
+        n_samples=n,
+        extra=MappingProxyType(extra),
+    )
 
 
 HOLD = Mode(
@@ -134,8 +147,12 @@ def _blocks(rng, n, size, dt=1e-4):
     ref = 0.6 + 1e-3 * rng.standard_normal(n)
     probe = 0.8 * (1.0 + 0.02 * np.sin(np.arange(n) / 300.0)) + 1e-3 * rng.standard_normal(n)
     data = np.column_stack([probe, ref, np.full(n, 0.5)])
-    return [Block("detector", k // size, k * dt, dt, k, ("probe", "reference", "pump_monitor"), data[k:k + size])
-            for k in range(0, n, size)], data
+    return [
+        Block(
+            "detector", k // size, k * dt, dt, k, ("probe", "reference", "pump_monitor"), data[k : k + size]
+        )
+        for k in range(0, n, size)
+    ], data
 
 
 def test_a_mode_registered_in_the_table_runs_through_the_estimator(hold_mode, params):
@@ -156,7 +173,8 @@ def test_a_mode_registered_in_the_table_runs_through_the_estimator(hold_mode, pa
     assert final.mode == "hold" and final.n_samples == n
     assert final.values["ln_ratio"].value == pytest.approx(math.log(np.mean(s) / base.value), rel=1e-12)
     assert final.values["ln_ratio"].sigma_noise == pytest.approx(
-        np.std(means, ddof=1) / math.sqrt(means.size) / np.mean(s), rel=1e-9)
+        np.std(means, ddof=1) / math.sqrt(means.size) / np.mean(s), rel=1e-9
+    )
     # the stream's windows: one window and one cumulative estimate per finished window
     windows = [e for e in emitted if e.scope == "window"]
     assert windows and len(windows) == len(emitted) // 2
@@ -172,8 +190,20 @@ def test_a_mode_registered_in_the_table_records_and_replays(hold_mode, tmp_path)
     logs = tmp_path / "logs"
     buf = io.StringIO()
     with redirect_stdout(buf):  # the record command's --mode choices come from the table
-        code = main(["record", "--mode", "hold", "--seconds", "1.5", "--quiet", "--no-dark", "--logs", str(logs),
-                     *ARM])
+        code = main(
+            [
+                "record",
+                "--mode",
+                "hold",
+                "--seconds",
+                "1.5",
+                "--quiet",
+                "--no-dark",
+                "--logs",
+                str(logs),
+                *ARM,
+            ]
+        )
     out = buf.getvalue()
     assert code == 0, out
     run_id = out.strip().splitlines()[-1]
@@ -195,7 +225,9 @@ def test_a_mode_registered_in_the_table_records_and_replays(hold_mode, tmp_path)
     assert s.size == final.n_samples
     assert final.extra["s_mean"] == pytest.approx(np.mean(s), rel=1e-12)
     assert final.extra["s_off"] == pytest.approx(s_off, rel=1e-5)  # the event prints 6 digits
-    assert final.values["ln_ratio"].value == pytest.approx(math.log(np.mean(s) / final.extra["s_off"]), rel=1e-12)
+    assert final.values["ln_ratio"].value == pytest.approx(
+        math.log(np.mean(s) / final.extra["s_off"]), rel=1e-12
+    )
     # the replay of the stored run gives the live estimates again (the replay tests' 1e-9)
     result = replay(path)
     assert len(result.estimates) == len(live) and result.compared > 0

@@ -42,8 +42,12 @@ def test_rise_rate_is_the_rate_equation_relaxation_rate_at_the_back_face(cfg, pa
     photon = constants.h * constants.c / pump.wavelength  # CODATA via scipy
     intensity_back = power / (math.pi * w * w) * math.exp(-s.sigma.pump_absorption * s.n_total * s.length)
     w_p = (s.sigma.pump_absorption + s.sigma.pump_emission) * intensity_back / photon
-    w_s = (s.sigma.probe_emission + s.sigma.probe_absorption) * cfg.probe.power / (
-        math.pi * (cfg.probe.beam_diameter / 2) ** 2) / (constants.h * constants.c / cfg.probe.wavelength)
+    w_s = (
+        (s.sigma.probe_emission + s.sigma.probe_absorption)
+        * cfg.probe.power
+        / (math.pi * (cfg.probe.beam_diameter / 2) ** 2)
+        / (constants.h * constants.c / cfg.probe.wavelength)
+    )
     expected = w_p + w_s + 1 / s.upper_state_lifetime
     assert params.rise_rate(power) == pytest.approx(expected, rel=1e-9)
     assert params.rise_rate(None) == pytest.approx(w_s + 1 / s.upper_state_lifetime, rel=1e-9)
@@ -91,8 +95,10 @@ def test_default_periods_hold_three_settle_windows_and_are_round(cfg, params):
     check_timing(params, "decay", decay, power)
 
 
-@pytest.mark.parametrize("x, expected", [(0.0414, 0.05), (0.05, 0.05), (0.0301, 0.04), (1.1e-3, 1.2e-3),
-                                         (7.0, 8.0), (0.0099, 0.01)])
+@pytest.mark.parametrize(
+    "x, expected",
+    [(0.0414, 0.05), (0.05, 0.05), (0.0301, 0.04), (1.1e-3, 1.2e-3), (7.0, 8.0), (0.0099, 0.01)],
+)
 def test_nice_ceil(x, expected):
     assert nice_ceil(x) == pytest.approx(expected)
 
@@ -122,9 +128,31 @@ def test_record_refuses_a_bad_period_before_any_run_file(tmp_path):
     logs = tmp_path / "logs"
     t0 = time.monotonic()
     proc = subprocess.run(
-        [sys.executable, "-m", "bench", "record", "--mode", "chopped", "--period", "12 ms", "--seconds", "1",
-         "--logs", str(logs), "--operator", "t", "--eyewear-od", "940nm=5", "--eyewear-od", "1030nm=2",
-         "--confirm-setup"], capture_output=True, text=True, timeout=120)
+        [
+            sys.executable,
+            "-m",
+            "bench",
+            "record",
+            "--mode",
+            "chopped",
+            "--period",
+            "12 ms",
+            "--seconds",
+            "1",
+            "--logs",
+            str(logs),
+            "--operator",
+            "t",
+            "--eyewear-od",
+            "940nm=5",
+            "--eyewear-od",
+            "1030nm=2",
+            "--confirm-setup",
+        ],
+        capture_output=True,
+        text=True,
+        timeout=120,
+    )
     elapsed = time.monotonic() - t0
     assert proc.returncode == 2, proc.stderr
     assert "Traceback" not in proc.stderr
@@ -141,13 +169,16 @@ def test_run_period_follows_the_current(cfg):
     assert run_period(cfg, "chopped", default_current(cfg), 0.03) == 0.03
 
 
-@pytest.mark.parametrize("mode, period, words", [
-    ("chopped", "0 ms", "--period: '0 ms' is not a positive time"),
-    ("chopped", "fast", "--period"),
-    ("chopped", "3 A", "--period"),
-    ("watch", "50 ms", "--period: applies to chopped, decay and sweep modes"),
-    ("decay", "4 ms", "decay mode: a pump period of 4 ms"),
-])
+@pytest.mark.parametrize(
+    "mode, period, words",
+    [
+        ("chopped", "0 ms", "--period: '0 ms' is not a positive time"),
+        ("chopped", "fast", "--period"),
+        ("chopped", "3 A", "--period"),
+        ("watch", "50 ms", "--period: applies to chopped, decay and sweep modes"),
+        ("decay", "4 ms", "decay mode: a pump period of 4 ms"),
+    ],
+)
 def test_record_period_errors_name_the_option(cfg, mode, period, words):
     import argparse
 

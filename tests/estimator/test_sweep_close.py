@@ -29,8 +29,10 @@ def params():
 
 def _consumer(params) -> Consumer:
     c = Consumer(params, "sweep", traces=False)
-    c.state = est.with_baseline(est.with_dark(c.state, est.Dark(0.0, 0.0, 0.0, 0.0, 1000, 0.0)),
-                                est.Baseline(S_OFF, 1e-7, 10_000, 0.0, -0.1))
+    c.state = est.with_baseline(
+        est.with_dark(c.state, est.Dark(0.0, 0.0, 0.0, 0.0, 1000, 0.0)),
+        est.Baseline(S_OFF, 1e-7, 10_000, 0.0, -0.1),
+    )
     return c
 
 
@@ -40,8 +42,10 @@ def _blocks(levels, n_step, rng, size=1000):
     ref = np.full(lnr.size, 0.6) + 3.6e-4 * rng.standard_normal(lnr.size)
     probe = S_OFF * np.exp(lnr) * 0.6 + 3.6e-4 * rng.standard_normal(lnr.size)
     data = np.column_stack([probe, ref, np.full(lnr.size, 0.5)])
-    return [Block("detector", k // size, k * DT, DT, k, CHANNELS, data[k:k + size])
-            for k in range(0, lnr.size, size)]
+    return [
+        Block("detector", k // size, k * DT, DT, k, CHANNELS, data[k : k + size])
+        for k in range(0, lnr.size, size)
+    ]
 
 
 def _setting(t, current, params):
@@ -105,8 +109,10 @@ def test_a_step_settles_from_the_time_of_its_setting_however_the_data_are_blocke
     ref = 0.6 + 3.6e-4 * rng.standard_normal(lnr.size)
     probe = S_OFF * np.exp(lnr) * 0.6 + 3.6e-4 * rng.standard_normal(lnr.size)
     data = np.column_stack([probe, ref, np.full(lnr.size, 0.5)])
-    blocks = [Block("detector", k // size, k * DT, DT, k, CHANNELS, data[k:k + size])
-              for k in range(0, lnr.size, size)]
+    blocks = [
+        Block("detector", k // size, k * DT, DT, k, CHANNELS, data[k : k + size])
+        for k in range(0, lnr.size, size)
+    ]
     c = _consumer(params)
     c.apply(_setting(0.0, 2.0, params))
     told = False

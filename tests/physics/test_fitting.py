@@ -41,8 +41,9 @@ def test_decay_fit_agrees_with_plain_curve_fit_on_noisy_data():
     sigma = 2e-3 * (1.0 + t / 3e-3)
     y = 0.3 * np.exp(-t / 6e-4) + rng.normal(0.0, sigma)
     fit = fitting.fit_exponential_decay(t, y, sigma)
-    popt, pcov = optimize.curve_fit(lambda x, a, tau: a * np.exp(-x / tau), t, y, p0=[0.3, 6e-4],
-                                    sigma=sigma, absolute_sigma=False)
+    popt, pcov = optimize.curve_fit(
+        lambda x, a, tau: a * np.exp(-x / tau), t, y, p0=[0.3, 6e-4], sigma=sigma, absolute_sigma=False
+    )
     assert fit.values == pytest.approx(popt, rel=1e-6)
     assert fit.sigmas == pytest.approx(np.sqrt(np.diag(pcov)), rel=1e-4)
 
@@ -53,8 +54,9 @@ def test_decay_fit_sigma_is_calibrated_over_many_noisy_decays():
     # integrated by scipy.integrate.solve_ivp (Koechner sec. 1.4), not the fitted exponential
     rng = np.random.default_rng(11)
     t = np.linspace(0.0, 3e-3, 50)
-    decay = integrate.solve_ivp(lambda _, n: -n / 6e-4, (0.0, t[-1]), [0.5], t_eval=t,
-                                method="DOP853", rtol=1e-12, atol=1e-15).y[0]
+    decay = integrate.solve_ivp(
+        lambda _, n: -n / 6e-4, (0.0, t[-1]), [0.5], t_eval=t, method="DOP853", rtol=1e-12, atol=1e-15
+    ).y[0]
     taus, sigmas = [], []
     for _ in range(300):
         y = decay + rng.normal(0.0, 5e-3, t.size)
@@ -112,7 +114,12 @@ def _thin_sample_beta(p):
         phi = power / (AREA * H_NU)
         sol = integrate.solve_ivp(
             lambda t, b, phi=phi: (SIGMA_AP * (1 - b) - SIGMA_EP * b) * phi - b / TAU,
-            (0.0, 40 * TAU), [0.0], method="LSODA", rtol=1e-12, atol=1e-15)
+            (0.0, 40 * TAU),
+            [0.0],
+            method="LSODA",
+            rtol=1e-12,
+            atol=1e-15,
+        )
         out.append(sol.y[0, -1])
     return np.array(out)
 
@@ -133,8 +140,9 @@ def _thick_sample_beta(p, absorbance, slices=100):
             phi_in = phi0 * np.exp(-np.concatenate(([0.0], np.cumsum(alpha_dz)[:-1])))
             return phi_in * -np.expm1(-alpha_dz) / n_dz - b / TAU
 
-        sol = integrate.solve_ivp(rhs, (0.0, 40 * TAU), np.zeros(slices), method="DOP853",
-                                  rtol=1e-10, atol=1e-13)
+        sol = integrate.solve_ivp(
+            rhs, (0.0, 40 * TAU), np.zeros(slices), method="DOP853", rtol=1e-10, atol=1e-13
+        )
         out.append(sol.y[:, -1].mean())
     return np.array(out)
 
@@ -181,8 +189,14 @@ def test_thick_sample_fraction_matches_an_integration_of_the_pump_along_the_samp
 
     bmax, p_sat, absorbance = 0.87, 9.6, 1.0
     for p in (0.3, 4.0, 25.0):
-        sol = integrate.solve_ivp(lambda z, s: -absorbance * s / (1 + s), (0.0, 1.0), [p / p_sat],
-                                  dense_output=True, rtol=1e-12, atol=1e-14)
+        sol = integrate.solve_ivp(
+            lambda z, s: -absorbance * s / (1 + s),
+            (0.0, 1.0),
+            [p / p_sat],
+            dense_output=True,
+            rtol=1e-12,
+            atol=1e-14,
+        )
         z = np.linspace(0.0, 1.0, 20001)
         s = sol.sol(z)[0]
         local = bmax * s / (1 + s)
@@ -191,7 +205,8 @@ def test_thick_sample_fraction_matches_an_integration_of_the_pump_along_the_samp
     # an optically thin sample: the plain steady-state form (bench.physics.beta_of_pump)
     p = np.array([0.0, 0.5, 3.0, 30.0])
     assert fitting.thick_sample_fraction(p, bmax, p_sat, 1e-7) == pytest.approx(
-        physics.beta_of_pump(p, bmax, p_sat), rel=1e-6)
+        physics.beta_of_pump(p, bmax, p_sat), rel=1e-6
+    )
     # very strong pump: the whole sample bleaches to beta_max (no overflow on the way)
     assert fitting.thick_sample_fraction(1e7, bmax, p_sat, absorbance) == pytest.approx(bmax, rel=1e-5)
 
@@ -237,6 +252,7 @@ def test_voigt_fit_recovers_centre_and_both_widths():
     nu = np.linspace(constants.c / 1060e-9, constants.c / 1000e-9, 31)
     truth = dict(height=60.0, centre=constants.c / 1031e-9, sigma_gauss=1.6e12, gamma_lorentz=1.1e12)
     sigma = np.full(nu.size, 0.2)
+
     # data from the Faddeeva function, not from voigt_line: V(x) is proportional to
     # Re w((x + i gamma) / (sigma sqrt 2)) (B. H. Armstrong, J. Quant. Spectrosc. Radiat.
     # Transfer 7, 61 (1967); scipy.special.wofz), scaled to its peak

@@ -90,7 +90,8 @@ def test_unpumped_transmission_and_full_inversion_bound_the_gain():
     assert physics.net_gain(0.0, sa, nt, length) == physics.unpumped_transmission(sa, nt, length)
     full_ln_r = physics.ln_ratio_from_excited_density(nt, se, sa, length)
     assert physics.net_gain(full_ln_r, sa, nt, length) == pytest.approx(
-        physics.full_inversion_gain(se, nt, length), rel=1e-12)
+        physics.full_inversion_gain(se, nt, length), rel=1e-12
+    )
     # an optical density of 1 (base e) transmits 1/e
     assert physics.unpumped_transmission(1e-24, 1e26, 1e-2) == pytest.approx(math.exp(-1.0), rel=1e-14)
 
@@ -125,10 +126,12 @@ def test_mccumber_matches_a_two_manifold_boltzmann_model(temperature):
     # Phys. Rev. 136, A954 (1964)). Nothing in the model calls the project's McCumber code.
     sp = stark_model.spectra(temperature)
     assert sp.min_separation > 10  # neighbouring lines add nothing at a line centre
-    np.testing.assert_allclose(physics.mccumber_emission(sp.wavelength, sp.sigma_a, sp.epsilon, temperature),
-                               sp.sigma_e, rtol=1e-9)
-    np.testing.assert_allclose(physics.mccumber_absorption(sp.wavelength, sp.sigma_e, sp.epsilon, temperature),
-                               sp.sigma_a, rtol=1e-9)
+    np.testing.assert_allclose(
+        physics.mccumber_emission(sp.wavelength, sp.sigma_a, sp.epsilon, temperature), sp.sigma_e, rtol=1e-9
+    )
+    np.testing.assert_allclose(
+        physics.mccumber_absorption(sp.wavelength, sp.sigma_e, sp.epsilon, temperature), sp.sigma_a, rtol=1e-9
+    )
     # long wavelengths (h nu < epsilon) have more emission than absorption (McCumber 1964)
     longer = sp.wavelength > H * C / sp.epsilon
     assert longer.any() and np.all(sp.sigma_e[longer] > sp.sigma_a[longer])
@@ -167,7 +170,8 @@ def test_fuchtbauer_ladenburg_ignores_the_scale_and_follows_branching_and_lambda
     ref = physics.fuchtbauer_ladenburg(lam, spec, 1.8, 1e-3)
     np.testing.assert_allclose(physics.fuchtbauer_ladenburg(lam, 1e6 * spec, 1.8, 1e-3), ref, rtol=1e-12)
     np.testing.assert_allclose(
-        physics.fuchtbauer_ladenburg(lam, spec, 1.8, 1e-3, branching_ratio=0.25), 0.25 * ref, rtol=1e-12)
+        physics.fuchtbauer_ladenburg(lam, spec, 1.8, 1e-3, branching_ratio=0.25), 0.25 * ref, rtol=1e-12
+    )
     flat = physics.fuchtbauer_ladenburg(lam, np.ones_like(lam), 1.8, 1e-3)
     assert flat[-1] / flat[0] == pytest.approx((lam[-1] / lam[0]) ** 5, rel=1e-12)
 
@@ -197,8 +201,13 @@ def test_frantz_nodvik_matches_integration_of_the_amplifier_equation():
     # dF/dz = g0 F_sat (1 - exp(-F / F_sat)); integrate it with scipy's solve_ivp
     f_sat, g_coef, length = 6.7e3, 150.0, 0.02  # G0 = exp(3)
     for f_in in (1.0, 1e3, 2e4, 1e5):
-        sol = solve_ivp(lambda z, f: g_coef * f_sat * -np.expm1(-f / f_sat), (0.0, length), [f_in],
-                        rtol=1e-11, atol=1e-12 * f_in)
+        sol = solve_ivp(
+            lambda z, f: g_coef * f_sat * -np.expm1(-f / f_sat),
+            (0.0, length),
+            [f_in],
+            rtol=1e-11,
+            atol=1e-12 * f_in,
+        )
         expected = sol.y[0, -1]
         got = physics.frantz_nodvik_output(f_in, f_sat, math.exp(g_coef * length))
         assert got == pytest.approx(expected, rel=1e-7)
@@ -245,23 +254,43 @@ def _rhs(i_pump, i_probe):
     def f(_t, y):
         n2 = y[0]
         n1 = N_TOTAL - n2
-        return [(PUMP["sigma_a"] * n1 - PUMP["sigma_e"] * n2) * phi_p
-                + (PROBE["sigma_a"] * n1 - PROBE["sigma_e"] * n2) * phi_s - n2 / TAU]
+        return [
+            (PUMP["sigma_a"] * n1 - PUMP["sigma_e"] * n2) * phi_p
+            + (PROBE["sigma_a"] * n1 - PROBE["sigma_e"] * n2) * phi_s
+            - n2 / TAU
+        ]
 
     return f, phi_p, phi_s
 
 
 def _step(n2, phi_p, phi_s, dt):
-    return physics.rate_equation_step(n2, N_TOTAL, phi_p, PUMP["sigma_a"], PUMP["sigma_e"], TAU, dt,
-                                      probe_flux=phi_s, sigma_as=PROBE["sigma_a"], sigma_es=PROBE["sigma_e"])
+    return physics.rate_equation_step(
+        n2,
+        N_TOTAL,
+        phi_p,
+        PUMP["sigma_a"],
+        PUMP["sigma_e"],
+        TAU,
+        dt,
+        probe_flux=phi_s,
+        sigma_as=PROBE["sigma_a"],
+        sigma_es=PROBE["sigma_e"],
+    )
 
 
 def test_rate_equation_step_matches_solve_ivp_with_pump_and_probe():
     # reference integrator: scipy.integrate.solve_ivp on the rate equation (Koechner sec. 1.4)
     f, phi_p, phi_s = _rhs(3e8, 5e7)
     times = np.linspace(0.0, 4e-3, 9)
-    sol = solve_ivp(f, (0.0, times[-1]), [0.02 * N_TOTAL], t_eval=times, method="DOP853",
-                    rtol=1e-12, atol=1e-6 * N_TOTAL * 1e-9)
+    sol = solve_ivp(
+        f,
+        (0.0, times[-1]),
+        [0.02 * N_TOTAL],
+        t_eval=times,
+        method="DOP853",
+        rtol=1e-12,
+        atol=1e-6 * N_TOTAL * 1e-9,
+    )
     got = _step(0.02 * N_TOTAL, phi_p, phi_s, times)
     np.testing.assert_allclose(got, sol.y[0], rtol=1e-6)
 
@@ -273,8 +302,9 @@ def test_decay_with_zero_pump_is_exactly_exponential():
     n0 = 0.3 * N_TOTAL
     got = _step(n0, 0.0, 0.0, times)
     np.testing.assert_allclose(got, n0 * np.exp(-times / TAU), rtol=1e-13)
-    sol = solve_ivp(f, (0.0, times[-1]), [n0], t_eval=times, method="DOP853", rtol=1e-12,
-                    atol=1e-15 * N_TOTAL)
+    sol = solve_ivp(
+        f, (0.0, times[-1]), [n0], t_eval=times, method="DOP853", rtol=1e-12, atol=1e-15 * N_TOTAL
+    )
     np.testing.assert_allclose(got, sol.y[0], rtol=1e-6)
 
 
@@ -283,21 +313,31 @@ def test_long_step_converges_to_the_steady_state():
     i_pump, i_probe = 1e8, 2e6
     f, phi_p, phi_s = _rhs(i_pump, i_probe)
     root = brentq(lambda n2: f(0.0, [n2])[0], 0.0, N_TOTAL, xtol=1e-6, rtol=1e-14)
-    beta = physics.steady_state_fraction(i_pump, PUMP["wavelength"], PUMP["sigma_a"], PUMP["sigma_e"], TAU,
-                                         probe_intensity=i_probe, probe_wavelength=PROBE["wavelength"],
-                                         sigma_e_probe=PROBE["sigma_e"], sigma_a_probe=PROBE["sigma_a"])
+    beta = physics.steady_state_fraction(
+        i_pump,
+        PUMP["wavelength"],
+        PUMP["sigma_a"],
+        PUMP["sigma_e"],
+        TAU,
+        probe_intensity=i_probe,
+        probe_wavelength=PROBE["wavelength"],
+        sigma_e_probe=PROBE["sigma_e"],
+        sigma_a_probe=PROBE["sigma_a"],
+    )
     assert beta * N_TOTAL == pytest.approx(root, rel=1e-10)
     assert _step(0.0, phi_p, phi_s, 100 * TAU) == pytest.approx(beta * N_TOTAL, rel=1e-12)
 
 
 def test_steady_state_fraction_equals_saturation_form():
     # Koechner sec. 1.4: beta = beta_max (I / I_sat,p) / (1 + I / I_sat,p) for a weak probe
-    beta_max, i_sat = physics.pump_saturation_parameters(PUMP["wavelength"], PUMP["sigma_a"],
-                                                         PUMP["sigma_e"], TAU)
+    beta_max, i_sat = physics.pump_saturation_parameters(
+        PUMP["wavelength"], PUMP["sigma_a"], PUMP["sigma_e"], TAU
+    )
     assert beta_max == pytest.approx(0.8 / 0.96, rel=1e-14)
     intensities = np.logspace(5, 10, 11)
-    beta = physics.steady_state_fraction(intensities, PUMP["wavelength"], PUMP["sigma_a"],
-                                         PUMP["sigma_e"], TAU)
+    beta = physics.steady_state_fraction(
+        intensities, PUMP["wavelength"], PUMP["sigma_a"], PUMP["sigma_e"], TAU
+    )
     np.testing.assert_allclose(beta, physics.beta_of_pump(intensities, beta_max, i_sat), rtol=1e-12)
 
 
@@ -310,8 +350,9 @@ def test_pump_rate_is_sigma_times_photon_flux():
 def test_transparency_pump_intensity_reaches_the_probe_transparency():
     # Koechner sec. 1.4: pump needed for transparency at the probe, beta = beta_tr
     beta_tr = physics.transparency_fraction(PROBE["sigma_e"], PROBE["sigma_a"])
-    i_tr = physics.transparency_pump_intensity(PUMP["wavelength"], PUMP["sigma_a"], PUMP["sigma_e"], TAU,
-                                               beta_tr)
+    i_tr = physics.transparency_pump_intensity(
+        PUMP["wavelength"], PUMP["sigma_a"], PUMP["sigma_e"], TAU, beta_tr
+    )
     beta = physics.steady_state_fraction(i_tr, PUMP["wavelength"], PUMP["sigma_a"], PUMP["sigma_e"], TAU)
     assert beta == pytest.approx(beta_tr, rel=1e-12)
 
@@ -352,8 +393,10 @@ BAD_CALLS = [
     ("intensity", lambda: physics.fuchtbauer_ladenburg([1e-6, 2e-6], [0.0, 0.0], 1.5, 1e-3)),
     ("intensity", lambda: physics.fuchtbauer_ladenburg([1e-6, 2e-6], [1.0], 1.5, 1e-3)),
     ("refractive_index", lambda: physics.fuchtbauer_ladenburg([1e-6, 2e-6], [1.0, 1.0], 0.0, 1e-3)),
-    ("branching_ratio", lambda: physics.fuchtbauer_ladenburg([1e-6, 2e-6], [1.0, 1.0], 1.5, 1e-3,
-                                                             branching_ratio=1.5)),
+    (
+        "branching_ratio",
+        lambda: physics.fuchtbauer_ladenburg([1e-6, 2e-6], [1.0, 1.0], 1.5, 1e-3, branching_ratio=1.5),
+    ),
     ("f_in", lambda: physics.frantz_nodvik_output(-1.0, 1.0, 2.0)),
     ("g0", lambda: physics.frantz_nodvik_output(1.0, 1.0, 0.0)),
     ("f_out", lambda: physics.frantz_nodvik_small_signal_gain(1.0, 0.0, 1.0)),

@@ -40,11 +40,14 @@ fraction = st.floats(0.0, 1.0)
 HC_EV_M = constants.physical_constants["inverse meter-electron volt relationship"][0]
 
 
-@pytest.mark.parametrize(("wavelength", "ev"), [
-    (1064e-9, 1.16527),  # hc/e / 1064 nm = 1.239841984e-6 / 1.064e-6 eV, by hand
-    (976e-9, 1.27033),
-    (1239.841984e-9, 1.0),  # the wavelength of a 1 eV photon (CODATA hc/e)
-])
+@pytest.mark.parametrize(
+    ("wavelength", "ev"),
+    [
+        (1064e-9, 1.16527),  # hc/e / 1064 nm = 1.239841984e-6 / 1.064e-6 eV, by hand
+        (976e-9, 1.27033),
+        (1239.841984e-9, 1.0),  # the wavelength of a 1 eV photon (CODATA hc/e)
+    ],
+)
 def test_photon_energy_matches_codata(wavelength, ev):
     assert HC_EV_M == pytest.approx(1.239841984e-6, rel=1e-9)
     assert physics.photon_energy(wavelength) / constants.e == pytest.approx(ev, abs=1e-5)
@@ -68,10 +71,13 @@ def _probe_through_pumped_sample(n2_of_z, n_total, sigma_e, sigma_a, ell):
     law dI/dz = g(z) I integrated along z by scipy.integrate.solve_ivp, with the local gain
     coefficient g = sigma_e N2(z) - sigma_a (N_total - N2(z)) (Svelto, Principles of Lasers,
     sec. 2.8) and g = -sigma_a N_total unpumped."""
+
     def run(g):
-        sol = integrate.solve_ivp(lambda z, i: g(z) * i, (0.0, ell), [1.0], method="DOP853",
-                                  rtol=1e-12, atol=1e-300)
+        sol = integrate.solve_ivp(
+            lambda z, i: g(z) * i, (0.0, ell), [1.0], method="DOP853", rtol=1e-12, atol=1e-300
+        )
         return sol.y[0, -1]
+
     on = run(lambda z: sigma_e * n2_of_z(z) - sigma_a * (n_total - n2_of_z(z)))
     off = run(lambda z: -sigma_a * n_total)
     return on, off
@@ -79,8 +85,7 @@ def _probe_through_pumped_sample(n2_of_z, n_total, sigma_e, sigma_a, ell):
 
 @settings(max_examples=40, deadline=None)
 @given(sigma, sigma_or_zero, length, density, st.floats(0.0, 1.0), st.floats(0.05, 20.0))
-def test_excited_density_and_net_gain_against_beer_lambert_along_the_sample(se, sa, ell, nt, b0,
-                                                                           depth):
+def test_excited_density_and_net_gain_against_beer_lambert_along_the_sample(se, sa, ell, nt, b0, depth):
     # a pump absorbed along the sample leaves beta(z) = b0 exp(-z / (depth L)); the length
     # average of N2 comes from scipy.integrate.quad, ln R and the net gain from the probe
     # integrated through the sample (Koechner, Solid-State Laser Engineering, sec. 1.4)
@@ -96,8 +101,9 @@ def test_excited_density_and_net_gain_against_beer_lambert_along_the_sample(se, 
     got = physics.excited_density_from_ln_ratio(ln_r, se, sa, ell)
     assert math.isclose(got, mean_n2, rel_tol=1e-7, abs_tol=1e-10 / ((se + sa) * ell))
     assert math.isclose(physics.net_gain(ln_r, sa, nt, ell), on, rel_tol=1e-8)
-    assert math.isclose(physics.ln_ratio_from_excited_density(mean_n2, se, sa, ell), ln_r,
-                        rel_tol=1e-7, abs_tol=1e-10)
+    assert math.isclose(
+        physics.ln_ratio_from_excited_density(mean_n2, se, sa, ell), ln_r, rel_tol=1e-7, abs_tol=1e-10
+    )
 
 
 def test_net_gain_worked_number():
@@ -108,7 +114,8 @@ def test_net_gain_worked_number():
     ln_r = 0.4452
     assert physics.net_gain(ln_r, 0.12e-24, 1.4e26, 5e-3) == pytest.approx(1.4351, rel=1e-4)
     assert physics.excited_density_from_ln_ratio(ln_r, 2.0e-24, 0.12e-24, 5e-3) == pytest.approx(
-        0.42e26, rel=1e-9)
+        0.42e26, rel=1e-9
+    )
     assert physics.gain_coefficient(0.42e26, 1.4e26, 2.0e-24, 0.12e-24) == pytest.approx(72.24)
 
 
@@ -148,44 +155,84 @@ def _integrate_rate_equation(n0, nt, phi_p, sap, sep, tau, t_end, phi_s=0.0, sas
     """dN2/dt = (sap N1 - sep N2) Phi_p + (sas N1 - ses N2) Phi_s - N2 / tau, N1 = nt - N2
     (Koechner sec. 1.4), integrated by scipy.integrate.solve_ivp (LSODA handles the stiff
     cases)."""
+
     def rhs(t, n2):
         n1 = nt - n2
         return (sap * n1 - sep * n2) * phi_p + (sas * n1 - ses * n2) * phi_s - n2 / tau
-    sol = integrate.solve_ivp(rhs, (0.0, t_end), [n0], method="LSODA", rtol=1e-11,
-                              atol=1e-13 * nt)
+
+    sol = integrate.solve_ivp(rhs, (0.0, t_end), [n0], method="LSODA", rtol=1e-11, atol=1e-13 * nt)
     return sol.y[0, -1]
 
 
 @settings(max_examples=40, deadline=None)
-@given(intensity, wavelength, sigma, sigma_or_zero, lifetime, log_uniform(1e-4, 1e3),
-       sigma_or_zero, sigma_or_zero)
-def test_steady_state_fraction_is_where_the_rate_equation_settles(i_p, lam, sap, sep, tau,
-                                                                  probe_share, sas, ses):
+@given(
+    intensity,
+    wavelength,
+    sigma,
+    sigma_or_zero,
+    lifetime,
+    log_uniform(1e-4, 1e3),
+    sigma_or_zero,
+    sigma_or_zero,
+)
+def test_steady_state_fraction_is_where_the_rate_equation_settles(
+    i_p, lam, sap, sep, tau, probe_share, sas, ses
+):
     # reference: the rate equation integrated from the ground state for 60 lifetimes (every
     # relaxation rate is at least 1/tau, so the transient is below e^-60 of the start)
     i_s = probe_share * i_p
     lam_s = 1.08 * lam
-    expected = _integrate_rate_equation(0.0, 1.0, i_p / (HC_EV_M / lam * constants.e), sap, sep,
-                                        tau, 60 * tau, i_s / (HC_EV_M / lam_s * constants.e),
-                                        sas, ses)
-    got = physics.steady_state_fraction(i_p, lam, sap, sep, tau, probe_intensity=i_s,
-                                        probe_wavelength=lam_s, sigma_e_probe=ses,
-                                        sigma_a_probe=sas)
+    expected = _integrate_rate_equation(
+        0.0,
+        1.0,
+        i_p / (HC_EV_M / lam * constants.e),
+        sap,
+        sep,
+        tau,
+        60 * tau,
+        i_s / (HC_EV_M / lam_s * constants.e),
+        sas,
+        ses,
+    )
+    got = physics.steady_state_fraction(
+        i_p,
+        lam,
+        sap,
+        sep,
+        tau,
+        probe_intensity=i_s,
+        probe_wavelength=lam_s,
+        sigma_e_probe=ses,
+        sigma_a_probe=sas,
+    )
     assert math.isclose(got, expected, rel_tol=1e-6, abs_tol=1e-9)
 
 
 @settings(max_examples=40, deadline=None)
-@given(fraction, density, intensity, wavelength, sigma, sigma_or_zero, lifetime,
-       log_uniform(1e-9, 1e-1), sigma_or_zero, sigma_or_zero, log_uniform(1e-4, 1e2))
-def test_rate_equation_step_follows_the_integrated_transient(b, nt, i_p, lam, sap, sep, tau, dt,
-                                                             sas, ses, probe_share):
+@given(
+    fraction,
+    density,
+    intensity,
+    wavelength,
+    sigma,
+    sigma_or_zero,
+    lifetime,
+    log_uniform(1e-9, 1e-1),
+    sigma_or_zero,
+    sigma_or_zero,
+    log_uniform(1e-4, 1e2),
+)
+def test_rate_equation_step_follows_the_integrated_transient(
+    b, nt, i_p, lam, sap, sep, tau, dt, sas, ses, probe_share
+):
     # reference: scipy.integrate.solve_ivp of the same rate equation over the step
     phi = i_p / (HC_EV_M / lam * constants.e)
     phi_s = probe_share * phi
     n0 = b * nt
     expected = _integrate_rate_equation(n0, nt, phi, sap, sep, tau, dt, phi_s, sas, ses)
-    got = physics.rate_equation_step(n0, nt, phi, sap, sep, tau, dt, probe_flux=phi_s,
-                                     sigma_as=sas, sigma_es=ses)
+    got = physics.rate_equation_step(
+        n0, nt, phi, sap, sep, tau, dt, probe_flux=phi_s, sigma_as=sas, sigma_es=ses
+    )
     assert math.isclose(got, expected, rel_tol=1e-6, abs_tol=1e-9 * nt)
     assert 0.0 <= got <= nt * (1 + 1e-12)
 
@@ -206,8 +253,9 @@ def _fluence_through_amplifier(x_in, g0):
     Frantz & Nodvik, J. Appl. Phys. 34, 2346 (1963); Siegman, Lasers, sec. 10.2, from memory),
     integrated along the amplifier by scipy.integrate.solve_ivp in zeta = z / L."""
     g0_l = math.log(g0)
-    sol = integrate.solve_ivp(lambda zeta, u: -g0_l * np.expm1(-u), (0.0, 1.0), [x_in],
-                              method="DOP853", rtol=1e-12, atol=1e-300)
+    sol = integrate.solve_ivp(
+        lambda zeta, u: -g0_l * np.expm1(-u), (0.0, 1.0), [x_in], method="DOP853", rtol=1e-12, atol=1e-300
+    )
     return sol.y[0, -1]
 
 
@@ -238,9 +286,12 @@ def test_frantz_nodvik_gain_lies_between_one_and_g0_for_an_amplifier(x, g0):
 
 
 @settings(max_examples=40, deadline=None)
-@given(st.lists(st.floats(30.0, 900.0), min_size=1, max_size=4),
-       st.lists(st.floats(30.0, 600.0), min_size=1, max_size=3),
-       st.floats(9000.0, 11000.0), st.floats(20.0, 600.0))
+@given(
+    st.lists(st.floats(30.0, 900.0), min_size=1, max_size=4),
+    st.lists(st.floats(30.0, 600.0), min_size=1, max_size=3),
+    st.floats(9000.0, 11000.0),
+    st.floats(20.0, 600.0),
+)
 def test_mccumber_against_a_two_manifold_boltzmann_model(lower, upper, zero_line, temp):
     # reference: Boltzmann populations of Stark levels summed level by level
     # (tests/stark_model.py); detailed balance gives McCumber's relation line by line,
@@ -248,8 +299,9 @@ def test_mccumber_against_a_two_manifold_boltzmann_model(lower, upper, zero_line
     lower_cm, upper_cm = [0.0] + lower, [0.0] + upper
     rng = np.random.default_rng(len(lower) * 10 + len(upper))
     strength = rng.uniform(0.2, 1.0, (len(lower_cm), len(upper_cm))) * 1e-24
-    model = stark_model.spectra(temp, lower_cm=lower_cm, upper_cm=upper_cm,
-                                zero_line_cm=zero_line, strength=strength)
+    model = stark_model.spectra(
+        temp, lower_cm=lower_cm, upper_cm=upper_cm, zero_line_cm=zero_line, strength=strength
+    )
     assume(model.min_separation > 40)
     se = physics.mccumber_emission(model.wavelength, model.sigma_a, model.epsilon, temp)
     sa = physics.mccumber_absorption(model.wavelength, model.sigma_e, model.epsilon, temp)

@@ -71,8 +71,10 @@ def test_decreasing_emission_only_file_is_reversed_and_absorption_derived():
 
 
 def _stark_csv(model, column):
-    rows = [f"{float(lam) * 1e9!r},{float(value) / CM2!r}"
-            for lam, value in zip(model.wavelength, getattr(model, column))]
+    rows = [
+        f"{float(lam) * 1e9!r},{float(value) / CM2!r}"
+        for lam, value in zip(model.wavelength, getattr(model, column))
+    ]
     return f"wavelength [nm],{column} [cm^2]\n" + "\n".join(rows) + "\n"
 
 
@@ -84,12 +86,14 @@ def test_mccumber_derivation_matches_a_two_manifold_boltzmann_model(temperature)
     # epsilon = E_zl + kT ln(Z_l / Z_u).
     model = stark_model.spectra(temperature)
     assert model.min_separation > 40  # neighbouring Gaussian lines add < exp(-800) at a centre
-    from_a = parse_spectrum_text(_stark_csv(model, "sigma_a"), "stark_a.csv",
-                                 epsilon=model.epsilon, temperature=temperature)
+    from_a = parse_spectrum_text(
+        _stark_csv(model, "sigma_a"), "stark_a.csv", epsilon=model.epsilon, temperature=temperature
+    )
     assert from_a.derived == "sigma_e"
     np.testing.assert_allclose(from_a.sigma_e, model.sigma_e, rtol=1e-9)
-    from_e = parse_spectrum_text(_stark_csv(model, "sigma_e"), "stark_e.csv",
-                                 epsilon=model.epsilon, temperature=temperature)
+    from_e = parse_spectrum_text(
+        _stark_csv(model, "sigma_e"), "stark_e.csv", epsilon=model.epsilon, temperature=temperature
+    )
     assert from_e.derived == "sigma_a"
     np.testing.assert_allclose(from_e.sigma_a, model.sigma_a, rtol=1e-9)
 
@@ -119,16 +123,25 @@ def test_mccumber_worked_number_for_the_two_manifold_model():
 def _voigt_by_convolution(x, sigma, gamma):
     """Gaussian (standard deviation sigma) convolved with a Lorentzian (half width at half
     maximum gamma), both unit-area, by scipy.integrate.quad (Siegman, Lasers, sec. 3.3)."""
+
     def integrand(u, xx):
         gauss = math.exp(-0.5 * (u / sigma) ** 2) / (sigma * math.sqrt(2 * math.pi))
         lorentz = (gamma / math.pi) / ((xx - u) ** 2 + gamma**2)
         return gauss * lorentz
+
     out = []
     for xx in np.atleast_1d(x):
         lim = 40 * sigma
-        value, _ = integrate.quad(integrand, -lim, lim, args=(xx,),
-                                  points=[xx] if abs(xx) < lim else None,
-                                  epsabs=0.0, epsrel=1e-11, limit=400)
+        value, _ = integrate.quad(
+            integrand,
+            -lim,
+            lim,
+            args=(xx,),
+            points=[xx] if abs(xx) < lim else None,
+            epsabs=0.0,
+            epsrel=1e-11,
+            limit=400,
+        )
         out.append(value)
     return np.array(out)
 
@@ -150,7 +163,8 @@ def test_voigt_line_width_conventions():
     half_g = 0.8 * math.sqrt(2 * math.log(2))
     assert fitting.voigt_line(half_g, 1.0, 0.0, 0.8, 0.0) == pytest.approx(0.5, rel=1e-12)
     assert fitting.voigt_line(3.0, 1.0, 0.0, 0.8, 0.0) == pytest.approx(
-        math.exp(-0.5 * (3.0 / 0.8) ** 2), rel=1e-10)
+        math.exp(-0.5 * (3.0 / 0.8) ** 2), rel=1e-10
+    )
     assert fitting.voigt_line(0.6, 1.0, 0.0, 0.0, 0.6) == pytest.approx(0.5, rel=1e-12)
     lorentz = 0.36 / (4.0 + 0.36)  # gamma^2 / (x^2 + gamma^2) at x = 2, gamma = 0.6
     assert fitting.voigt_line(2.0, 1.0, 0.0, 0.0, 0.6) == pytest.approx(lorentz, rel=1e-12)
@@ -185,8 +199,10 @@ def test_spectrum_arrays_are_read_only():
 
 def test_text_with_comments_blank_lines_crlf_bom_and_other_column_order():
     # CSV line endings per RFC 4180 (CRLF); UTF-8 byte-order mark
-    text = ("\ufeff# invented\r\n\r\nsigma_e [1e-20 cm^2] , wavelength [um]\r\n"
-            "# mid comment\r\n2.0,1.03\r\n0.25,1.05\r\n")
+    text = (
+        "\ufeff# invented\r\n\r\nsigma_e [1e-20 cm^2] , wavelength [um]\r\n"
+        "# mid comment\r\n2.0,1.03\r\n0.25,1.05\r\n"
+    )
     spec = parse_spectrum_text(text, "mem.csv", epsilon=EPSILON, temperature=T_ROOM)
     np.testing.assert_allclose(spec.wavelength, [1030 * NM, 1050 * NM], rtol=1e-15)
     np.testing.assert_allclose(spec.sigma_e, [2.0e-24, 0.25e-24], rtol=1e-12)
@@ -204,47 +220,109 @@ def test_both_columns_ignore_mccumber_inputs():
 
 BAD_TEXTS = [
     ("no header", "# only a comment\n\n", r"mem\.csv line 3: the file ends before the header row"),
-    ("numbers instead of header", "1000,1e-20,1e-20\n1010,1e-20,1e-20\n",
-     r"mem\.csv line 1: header cell \"1000\" is not a column name with its unit"),
-    ("no unit brackets", "wavelength,sigma_a [cm^2]\n1000,1e-20\n1010,1e-20\n",
-     r"mem\.csv line 1: header cell \"wavelength\" is not a column name"),
-    ("unknown column", "# c\nwavelength [nm],sigma_x [cm^2]\n1000,1e-20\n1010,1e-20\n",
-     r"mem\.csv line 2: unknown column \"sigma_x\""),
-    ("duplicate column", "wavelength [nm],sigma_a [cm^2],sigma_a [cm^2]\n",
-     r"mem\.csv line 1: column \"sigma_a\" appears twice"),
-    ("no wavelength", "sigma_a [cm^2],sigma_e [cm^2]\n1,2\n3,4\n",
-     r"mem\.csv line 1: the header has no \"wavelength\" column"),
-    ("no cross-section", "wavelength [nm]\n1000\n1010\n",
-     r"mem\.csv line 1: the header has neither a \"sigma_a\" nor a \"sigma_e\" column"),
-    ("bad wavelength unit", "wavelength [kg],sigma_a [cm^2]\n1000,1e-20\n1010,1e-20\n",
-     r"mem\.csv line 1: unit \[kg\] of column \"wavelength\".*not a length"),
-    ("bad area unit", "wavelength [nm],sigma_a [cm]\n1000,1e-20\n1010,1e-20\n",
-     r"mem\.csv line 1: unit \[cm\] of column \"sigma_a\".*not an area"),
-    ("empty unit", "wavelength [],sigma_a [cm^2]\n1000,1e-20\n1010,1e-20\n",
-     r"mem\.csv line 1: unit \[\] of column \"wavelength\" is empty"),
-    ("huge exponent unit", "wavelength [nm],sigma_a [9**9**9 cm^2]\n1000,1\n1010,1\n",
-     r"mem\.csv line 1: unit .* exponents must be small numbers"),
-    ("non-number", f"{HEADER}\n1000,1e-20,2e-20\n1010,abc,2e-20\n",
-     r"mem\.csv line 3: \"abc\" in column \"sigma_a\" is not a number"),
-    ("not finite", f"{HEADER}\n1000,1e-20,2e-20\n1010,1e-20,nan\n",
-     r"mem\.csv line 3: \"nan\" in column \"sigma_e\" is not a finite number"),
-    ("wrong count", f"{HEADER}\n1000,1e-20,2e-20\n1010,1e-20\n",
-     r"mem\.csv line 3: 2 value\(s\), but the header on line 1 names 3 columns"),
-    ("negative", f"{HEADER}\n1000,1e-20,2e-20\n1010,-1e-20,2e-20\n",
-     r"mem\.csv line 3: sigma_a -1e-20 cm\^2 is negative"),
-    ("too short", f"{HEADER}\n190,1e-20,2e-20\n1010,1e-20,2e-20\n",
-     r"mem\.csv line 2: wavelength 190 nm is outside 200 nm to 20 µm"),
-    ("too long", "wavelength [um],sigma_a [cm^2]\n10,1e-20\n25,1e-20\n",
-     r"mem\.csv line 3: wavelength 25 um is outside 200 nm to 20 µm"),
-    ("one row", f"# c\n{HEADER}\n1000,1e-20,2e-20\n",
-     r"mem\.csv line 2: 1 data row\(s\) follow the header; a spectrum needs at least 2"),
-    ("duplicate wavelength", f"{HEADER}\n1000,1e-20,2e-20\n1010,1e-20,2e-20\n1010,1e-20,2e-20\n",
-     r"mem\.csv line 4: wavelength 1010 nm repeats line 3"),
-    ("not monotonic", f"{HEADER}\n1030,1e-20,2e-20\n1032.0,1e-20,2e-20\n1031.0,1e-20,2e-20\n",
-     (r"mem\.csv line 4: wavelength 1031\.0 nm is not beyond the previous 1032\.0 nm "
-      r"\(the wavelength column must be monotonic\)")),
-    ("not monotonic down", f"{HEADER}\n1040,1e-20,2e-20\n1032,1e-20,2e-20\n1035,1e-20,2e-20\n",
-     r"mem\.csv line 4: wavelength 1035 nm is not below the previous 1032 nm"),
+    (
+        "numbers instead of header",
+        "1000,1e-20,1e-20\n1010,1e-20,1e-20\n",
+        r"mem\.csv line 1: header cell \"1000\" is not a column name with its unit",
+    ),
+    (
+        "no unit brackets",
+        "wavelength,sigma_a [cm^2]\n1000,1e-20\n1010,1e-20\n",
+        r"mem\.csv line 1: header cell \"wavelength\" is not a column name",
+    ),
+    (
+        "unknown column",
+        "# c\nwavelength [nm],sigma_x [cm^2]\n1000,1e-20\n1010,1e-20\n",
+        r"mem\.csv line 2: unknown column \"sigma_x\"",
+    ),
+    (
+        "duplicate column",
+        "wavelength [nm],sigma_a [cm^2],sigma_a [cm^2]\n",
+        r"mem\.csv line 1: column \"sigma_a\" appears twice",
+    ),
+    (
+        "no wavelength",
+        "sigma_a [cm^2],sigma_e [cm^2]\n1,2\n3,4\n",
+        r"mem\.csv line 1: the header has no \"wavelength\" column",
+    ),
+    (
+        "no cross-section",
+        "wavelength [nm]\n1000\n1010\n",
+        r"mem\.csv line 1: the header has neither a \"sigma_a\" nor a \"sigma_e\" column",
+    ),
+    (
+        "bad wavelength unit",
+        "wavelength [kg],sigma_a [cm^2]\n1000,1e-20\n1010,1e-20\n",
+        r"mem\.csv line 1: unit \[kg\] of column \"wavelength\".*not a length",
+    ),
+    (
+        "bad area unit",
+        "wavelength [nm],sigma_a [cm]\n1000,1e-20\n1010,1e-20\n",
+        r"mem\.csv line 1: unit \[cm\] of column \"sigma_a\".*not an area",
+    ),
+    (
+        "empty unit",
+        "wavelength [],sigma_a [cm^2]\n1000,1e-20\n1010,1e-20\n",
+        r"mem\.csv line 1: unit \[\] of column \"wavelength\" is empty",
+    ),
+    (
+        "huge exponent unit",
+        "wavelength [nm],sigma_a [9**9**9 cm^2]\n1000,1\n1010,1\n",
+        r"mem\.csv line 1: unit .* exponents must be small numbers",
+    ),
+    (
+        "non-number",
+        f"{HEADER}\n1000,1e-20,2e-20\n1010,abc,2e-20\n",
+        r"mem\.csv line 3: \"abc\" in column \"sigma_a\" is not a number",
+    ),
+    (
+        "not finite",
+        f"{HEADER}\n1000,1e-20,2e-20\n1010,1e-20,nan\n",
+        r"mem\.csv line 3: \"nan\" in column \"sigma_e\" is not a finite number",
+    ),
+    (
+        "wrong count",
+        f"{HEADER}\n1000,1e-20,2e-20\n1010,1e-20\n",
+        r"mem\.csv line 3: 2 value\(s\), but the header on line 1 names 3 columns",
+    ),
+    (
+        "negative",
+        f"{HEADER}\n1000,1e-20,2e-20\n1010,-1e-20,2e-20\n",
+        r"mem\.csv line 3: sigma_a -1e-20 cm\^2 is negative",
+    ),
+    (
+        "too short",
+        f"{HEADER}\n190,1e-20,2e-20\n1010,1e-20,2e-20\n",
+        r"mem\.csv line 2: wavelength 190 nm is outside 200 nm to 20 µm",
+    ),
+    (
+        "too long",
+        "wavelength [um],sigma_a [cm^2]\n10,1e-20\n25,1e-20\n",
+        r"mem\.csv line 3: wavelength 25 um is outside 200 nm to 20 µm",
+    ),
+    (
+        "one row",
+        f"# c\n{HEADER}\n1000,1e-20,2e-20\n",
+        r"mem\.csv line 2: 1 data row\(s\) follow the header; a spectrum needs at least 2",
+    ),
+    (
+        "duplicate wavelength",
+        f"{HEADER}\n1000,1e-20,2e-20\n1010,1e-20,2e-20\n1010,1e-20,2e-20\n",
+        r"mem\.csv line 4: wavelength 1010 nm repeats line 3",
+    ),
+    (
+        "not monotonic",
+        f"{HEADER}\n1030,1e-20,2e-20\n1032.0,1e-20,2e-20\n1031.0,1e-20,2e-20\n",
+        (
+            r"mem\.csv line 4: wavelength 1031\.0 nm is not beyond the previous 1032\.0 nm "
+            r"\(the wavelength column must be monotonic\)"
+        ),
+    ),
+    (
+        "not monotonic down",
+        f"{HEADER}\n1040,1e-20,2e-20\n1032,1e-20,2e-20\n1035,1e-20,2e-20\n",
+        r"mem\.csv line 4: wavelength 1035 nm is not below the previous 1032 nm",
+    ),
 ]
 
 
@@ -255,11 +333,14 @@ def test_bad_text_gives_config_error_naming_file_and_line(label, text, message):
         parse_spectrum_text(text, "mem.csv", epsilon=EPSILON, temperature=T_ROOM)
 
 
-@pytest.mark.parametrize("epsilon, temperature, missing", [
-    (None, None, "sample.zero_line, sample.temperature"),
-    (EPSILON, None, "sample.temperature"),
-    (None, T_ROOM, "sample.zero_line"),
-])
+@pytest.mark.parametrize(
+    "epsilon, temperature, missing",
+    [
+        (None, None, "sample.zero_line, sample.temperature"),
+        (EPSILON, None, "sample.temperature"),
+        (None, T_ROOM, "sample.zero_line"),
+    ],
+)
 def test_mccumber_derivation_names_the_missing_keys(epsilon, temperature, missing):
     # the derivation needs the zero-line energy and temperature (McCumber 1964)
     with pytest.raises(ConfigError, match=re.escape(f"(missing: {missing})")) as info:
@@ -321,11 +402,18 @@ def test_any_text_gives_a_spectrum_or_a_config_error(text):
         _check_result(spec)
 
 
-_headers = st.sampled_from([
-    HEADER, "wavelength [um],sigma_e [1e-20 cm^2]", "sigma_a [m**2], wavelength [ nm ]",
-    "wavelength [nm],sigma_a [cm^2],sigma_e [cm^2],", "Wavelength [nm],Sigma_E [cm^2]",
-    "wavelength [1/0],sigma_a [cm^2]", "wavelength [10**99 m],sigma_a [cm^2]", "wavelength [nm]",
-])
+_headers = st.sampled_from(
+    [
+        HEADER,
+        "wavelength [um],sigma_e [1e-20 cm^2]",
+        "sigma_a [m**2], wavelength [ nm ]",
+        "wavelength [nm],sigma_a [cm^2],sigma_e [cm^2],",
+        "Wavelength [nm],Sigma_E [cm^2]",
+        "wavelength [1/0],sigma_a [cm^2]",
+        "wavelength [10**99 m],sigma_a [cm^2]",
+        "wavelength [nm]",
+    ]
+)
 _cells = st.one_of(
     st.floats(150.0, 2500.0).map(lambda v: f"{v:.1f}"),  # wavelength-like in nm
     st.floats(0.2, 2.5).map(lambda v: f"{v:.3f}"),  # wavelength-like in um
@@ -355,8 +443,12 @@ def _near_valid_files(draw):
 
 
 @settings(max_examples=300)
-@given(_near_valid_files(), st.sampled_from(["\n", "\r\n"]),
-       st.one_of(st.none(), st.just(EPSILON)), st.one_of(st.none(), st.floats(0.5, 600.0)))
+@given(
+    _near_valid_files(),
+    st.sampled_from(["\n", "\r\n"]),
+    st.one_of(st.none(), st.just(EPSILON)),
+    st.one_of(st.none(), st.floats(0.5, 600.0)),
+)
 def test_structured_fuzz_gives_a_spectrum_or_a_config_error(file, newline, epsilon, temperature):
     # robustness on near-valid files (common practice, no source)
     header, rows = file

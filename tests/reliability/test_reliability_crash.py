@@ -39,8 +39,20 @@ from bench.store import RunReader
 
 pytestmark = pytest.mark.skipif(not hasattr(signal, "SIGKILL"), reason="SIGKILL is POSIX only")
 
-RECORD = ["record", "--seconds", "60", "--operator", "t", "--eyewear-od", "940nm=5", "--eyewear-od", "1030nm=2",
-          "--confirm-setup", "--set", "guard.stale_after=2s"]
+RECORD = [
+    "record",
+    "--seconds",
+    "60",
+    "--operator",
+    "t",
+    "--eyewear-od",
+    "940nm=5",
+    "--eyewear-od",
+    "1030nm=2",
+    "--confirm-setup",
+    "--set",
+    "guard.stale_after=2s",
+]
 
 #: Environment variable that marks every process a recording under test starts.
 MARK = "GAINBENCH_CRASH_TEST_MARK"
@@ -74,8 +86,10 @@ def _wait_for(lines: queue.Queue, seen: list[str], done, deadline: float, proc, 
         except queue.Empty:
             line = ""
         if line is None:
-            raise AssertionError(f"gainbench record ended (exit {proc.poll()}) before the kill; "
-                                 f"output: {seen[-10:]}; stderr: {''.join(errors)[-2000:]}")
+            raise AssertionError(
+                f"gainbench record ended (exit {proc.poll()}) before the kill; "
+                f"output: {seen[-10:]}; stderr: {''.join(errors)[-2000:]}"
+            )
         if line:
             seen.append(line)
         if time.monotonic() > deadline:
@@ -102,8 +116,14 @@ def _digest(path: Path) -> str | None:
 def _record_and_kill(logs: Path, kill: Kill) -> None:
     token = uuid.uuid4().hex
     env = dict(os.environ, **{MARK: token})
-    proc = subprocess.Popen([sys.executable, "-m", "bench", *RECORD, "--logs", str(logs)], stdin=subprocess.DEVNULL,
-                            stdout=subprocess.PIPE, stderr=subprocess.PIPE, text=True, env=env)
+    proc = subprocess.Popen(
+        [sys.executable, "-m", "bench", *RECORD, "--logs", str(logs)],
+        stdin=subprocess.DEVNULL,
+        stdout=subprocess.PIPE,
+        stderr=subprocess.PIPE,
+        text=True,
+        env=env,
+    )
     lines: queue.Queue = queue.Queue()
     reader = threading.Thread(target=_lines, args=(proc.stdout, lines), daemon=True)
     reader.start()
@@ -113,11 +133,23 @@ def _record_and_kill(logs: Path, kill: Kill) -> None:
     deadline = time.monotonic() + 120.0  # a loaded machine starts the simulator slowly
     try:
         if kill.phase == "before_emission":
-            _wait_for(lines, seen, lambda: any(s.startswith("gainbench: run ") for s in seen), deadline, proc,
-                      errors)
+            _wait_for(
+                lines,
+                seen,
+                lambda: any(s.startswith("gainbench: run ") for s in seen),
+                deadline,
+                proc,
+                errors,
+            )
         elif kill.phase == "emitting":
-            _wait_for(lines, seen, lambda: sum(bool(_STATUS.match(s)) for s in seen) >= kill.status_lines,
-                      deadline, proc, errors)
+            _wait_for(
+                lines,
+                seen,
+                lambda: sum(bool(_STATUS.match(s)) for s in seen) >= kill.status_lines,
+                deadline,
+                proc,
+                errors,
+            )
         t_kill = time.monotonic() + kill.delay
         while time.monotonic() < t_kill and proc.poll() is None:  # the moment itself: data flows meanwhile
             time.sleep(0.01)
@@ -173,7 +205,8 @@ def _record_and_kill(logs: Path, kill: Kill) -> None:
             flush = load_bench().run.flush_interval
             assert newest is not None and newest >= status[-1] - flush - 1.0, (
                 f"newest stored detector sample at t = {newest} s, but the last status line said "
-                f"t = {status[-1]} s (flush interval {flush} s)")
+                f"t = {status[-1]} s (flush interval {flush} s)"
+            )
 
 
 def _kills(count: int, seed: int) -> list[Kill]:
@@ -181,8 +214,11 @@ def _kills(count: int, seed: int) -> list[Kill]:
     out = []
     for k in range(count):
         phase = "emitting" if k == 0 else rng.choices(PHASES, weights=(3, 4, 13))[0]
-        delay = {"starting": rng.uniform(0.0, 4.0), "before_emission": rng.uniform(0.0, 0.8),
-                 "emitting": rng.uniform(0.0, 1.5)}[phase]
+        delay = {
+            "starting": rng.uniform(0.0, 4.0),
+            "before_emission": rng.uniform(0.0, 0.8),
+            "emitting": rng.uniform(0.0, 1.5),
+        }[phase]
         out.append(Kill(phase, delay, status_lines=rng.randint(1, 4)))
     return out
 

@@ -112,8 +112,11 @@ def _well_formed_block(data: bytes, payload: bytes, terminator: bytes) -> bool:
         return False
     length = int(digits)
     start = 2 + d
-    return (length == len(payload) and data[start : start + length] == payload
-            and data[start + length :] == terminator)
+    return (
+        length == len(payload)
+        and data[start : start + length] == payload
+        and data[start + length :] == terminator
+    )
 
 
 def _block(payload: bytes, terminator: bytes, pad: int = 0) -> bytes:
@@ -166,8 +169,11 @@ test_block_parser_on_any_bytes, test_block_parser_on_any_bytes_many = fuzz(
 
 
 _MUTATIONS = st.lists(
-    st.tuples(st.sampled_from(["flip", "cut", "insert", "append", "delete"]), st.integers(0, 10_000),
-              st.binary(min_size=1, max_size=4)),
+    st.tuples(
+        st.sampled_from(["flip", "cut", "insert", "append", "delete"]),
+        st.integers(0, 10_000),
+        st.binary(min_size=1, max_size=4),
+    ),
     max_size=3,
 )
 
@@ -245,9 +251,30 @@ def _decimal_value(item: str) -> float | None:
 _NUMBER_TOKENS = st.one_of(
     st.floats(allow_nan=True, allow_infinity=True).map(repr),
     st.floats(width=32).map(lambda x: f"{x:.7g}"),
-    st.integers(-10**30, 10**30).map(str),
-    st.sampled_from(["1e 5", " 2.5E-3 ", "+.5", "-0", "1.", ".", "e5", "1e", "1_0", "nan", "inf", "0x10",
-                     "1e999", "-1e-999", "\t3\t", "１", "1,", "", " "]),
+    st.integers(-(10**30), 10**30).map(str),
+    st.sampled_from(
+        [
+            "1e 5",
+            " 2.5E-3 ",
+            "+.5",
+            "-0",
+            "1.",
+            ".",
+            "e5",
+            "1e",
+            "1_0",
+            "nan",
+            "inf",
+            "0x10",
+            "1e999",
+            "-1e-999",
+            "\t3\t",
+            "１",
+            "1,",
+            "",
+            " ",
+        ]
+    ),
     st.text(max_size=6),
 )
 _NUMBER_REPLIES = st.one_of(
@@ -306,8 +333,12 @@ def _single_values(reply):
 
 
 test_single_values, test_single_values_many = fuzz(
-    reply=st.one_of(st.binary(max_size=30), st.text(max_size=30), _NUMBER_TOKENS,
-                    _NUMBER_TOKENS.map(lambda s: s.encode("utf-8"))),
+    reply=st.one_of(
+        st.binary(max_size=30),
+        st.text(max_size=30),
+        _NUMBER_TOKENS,
+        _NUMBER_TOKENS.map(lambda s: s.encode("utf-8")),
+    ),
     examples=[{"reply": b"1e\t5"}, {"reply": b"1e999"}, {"reply": "1e\u20035"}],
 )(_single_values)
 
@@ -332,22 +363,27 @@ def _error_queue_replies(reply):
 
 test_error_queue_replies, test_error_queue_replies_many = fuzz(
     reply=st.one_of(
-        st.binary(max_size=60), st.text(max_size=60),
-        st.builds(lambda c, t, q: f"{c},{q}{t}{q}", st.integers(-500, 500), _ASCII_TEXT, st.sampled_from(['"', ""])),
+        st.binary(max_size=60),
+        st.text(max_size=60),
+        st.builds(
+            lambda c, t, q: f"{c},{q}{t}{q}", st.integers(-500, 500), _ASCII_TEXT, st.sampled_from(['"', ""])
+        ),
     ),
 )(_error_queue_replies)
 
 
 def _error_queue_round_trip(code, text, spaces):
     # SCPI 21.8 / IEEE 488.2 8.7.8: <code>,"<text>" with each quote in the text doubled
-    reply = f"{code}{spaces},{spaces}\"{text.replace(chr(34), chr(34) * 2)}\"\n".encode("ascii")
+    reply = f'{code}{spaces},{spaces}"{text.replace(chr(34), chr(34) * 2)}"\n'.encode("ascii")
     entry = parse_error_reply(reply)
     assert (entry.code, entry.text) == (code, text)
     assert entry.is_error == (code != 0)
 
 
 test_error_queue_round_trip, test_error_queue_round_trip_many = fuzz(
-    code=st.integers(-10**6, 10**6), text=_ASCII_TEXT, spaces=st.sampled_from(["", " ", "  "]),
+    code=st.integers(-(10**6), 10**6),
+    text=_ASCII_TEXT,
+    spaces=st.sampled_from(["", " ", "  "]),
 )(_error_queue_round_trip)
 
 
@@ -367,11 +403,15 @@ def _identity_replies(reply, fields):
         assert getattr(identity, name) == ("" if part == "0" else part)
 
 
-_IDN_FIELD = st.text(alphabet=st.characters(min_codepoint=32, max_codepoint=126, blacklist_characters=","),
-                     max_size=12)
+_IDN_FIELD = st.text(
+    alphabet=st.characters(min_codepoint=32, max_codepoint=126, blacklist_characters=","), max_size=12
+)
 test_identity_replies, test_identity_replies_many = fuzz(
-    reply=st.one_of(st.binary(max_size=60), st.text(max_size=60),
-                    st.lists(_IDN_FIELD, min_size=1, max_size=5).map(",".join)),
+    reply=st.one_of(
+        st.binary(max_size=60),
+        st.text(max_size=60),
+        st.lists(_IDN_FIELD, min_size=1, max_size=5).map(",".join),
+    ),
     fields=_FIELD_ORDERS,
 )(_identity_replies)
 
@@ -412,7 +452,8 @@ def _decode_every_line_format(index, line):
         value = codec.decode_line(command, line, policy)
     except InstrumentReportedError as exc:
         assert policy.reply_prefix and line.decode("ascii", "replace").strip().upper().startswith(
-            policy.reply_prefix.upper())
+            policy.reply_prefix.upper()
+        )
         assert str(exc).strip()
         return
     except ReplyError as exc:
@@ -427,9 +468,25 @@ def _decode_every_line_format(index, line):
 
 test_decode_every_line_format, test_decode_every_line_format_many = fuzz(
     index=st.integers(0, 10_000),
-    line=st.one_of(st.binary(max_size=80), _NUMBER_TOKENS.map(lambda s: s.encode("utf-8")),
-                   st.sampled_from([b"ERR 2 bad shutter", b"err", b"ERR", b"ERR x", b"OK", b"DONE", b"open",
-                                    b"ON", b"0,0,0", b"a,b", b"1,2,3"])),
+    line=st.one_of(
+        st.binary(max_size=80),
+        _NUMBER_TOKENS.map(lambda s: s.encode("utf-8")),
+        st.sampled_from(
+            [
+                b"ERR 2 bad shutter",
+                b"err",
+                b"ERR",
+                b"ERR x",
+                b"OK",
+                b"DONE",
+                b"open",
+                b"ON",
+                b"0,0,0",
+                b"a,b",
+                b"1,2,3",
+            ]
+        ),
+    ),
 )(_decode_every_line_format)
 
 
@@ -486,7 +543,7 @@ class _ScriptedTransport:
         while True:
             at = got.find(self.term) if self.term else -1
             if at >= 0:
-                self.buffer = got[at + len(self.term):] + self.buffer
+                self.buffer = got[at + len(self.term) :] + self.buffer
                 return got[:at]
             if not self.buffer:
                 raise InstrumentTimeout("no complete reply line before the deadline")
@@ -536,9 +593,22 @@ def _session_reads(index, replies, piece):
 _REPLY_PIECES = st.one_of(
     st.binary(max_size=60),
     st.builds(lambda p, t: _block(p, t), st.binary(max_size=48), st.sampled_from([b"\n", b"\r\n"])),
-    st.sampled_from([b'0,"No error"\n', b'-113,"Undefined header"\n', b"1\n", b"ON\n", b"OK\r\n",
-                     b"OPEN\r\n", b"ERR 2 bad\r\n", b"Quillmoor,QP-1,1,2\n", b"#0abc\n", b"#9999999999\n",
-                     b"1e\t5\n", b"1e999\n"]),
+    st.sampled_from(
+        [
+            b'0,"No error"\n',
+            b'-113,"Undefined header"\n',
+            b"1\n",
+            b"ON\n",
+            b"OK\r\n",
+            b"OPEN\r\n",
+            b"ERR 2 bad\r\n",
+            b"Quillmoor,QP-1,1,2\n",
+            b"#0abc\n",
+            b"#9999999999\n",
+            b"1e\t5\n",
+            b"1e999\n",
+        ]
+    ),
 )
 test_session_reads, test_session_reads_many = fuzz(
     index=st.integers(0, 10_000),
@@ -551,15 +621,80 @@ test_session_reads, test_session_reads_many = fuzz(
 # Command profiles
 # ============================================================================================
 
-_UNITS = ["A", "mA", "V", "mV", "degC", "K", "Hz", "kHz", "nm", "m", "s", "ms", "W", "kg", "furlong", "",
-          "m**99", "9**9**9", "1/0"]
-_COMMAND_KEYS = ["send", "reply", "unit", "scale", "token", "count", "fields", "values", "idempotent",
-                 "check_errors"]
-_REPLY_WORDS = ["float", "int", "bool", "text", "idn", "csv_floats", "ok", "enum", "block_f32le",
-                "block_i16be", "block_f64le", "nope"]
-_SEND_PARTS = st.sampled_from(["SOUR:CURR ", "{value:.6g}", "{value}", "{n}", "{hz:.3f}", "{count}", "{channels}",
-                               "{spec}", "{value:9999999999}", "{value:{n}}", "{value!r}", "{", "}", "{{", "?",
-                               "é", "ü", "OUTP", " ", ";", "{nope}", "{0}", "{value[0]}"])
+_UNITS = [
+    "A",
+    "mA",
+    "V",
+    "mV",
+    "degC",
+    "K",
+    "Hz",
+    "kHz",
+    "nm",
+    "m",
+    "s",
+    "ms",
+    "W",
+    "kg",
+    "furlong",
+    "",
+    "m**99",
+    "9**9**9",
+    "1/0",
+]
+_COMMAND_KEYS = [
+    "send",
+    "reply",
+    "unit",
+    "scale",
+    "token",
+    "count",
+    "fields",
+    "values",
+    "idempotent",
+    "check_errors",
+]
+_REPLY_WORDS = [
+    "float",
+    "int",
+    "bool",
+    "text",
+    "idn",
+    "csv_floats",
+    "ok",
+    "enum",
+    "block_f32le",
+    "block_i16be",
+    "block_f64le",
+    "nope",
+]
+_SEND_PARTS = st.sampled_from(
+    [
+        "SOUR:CURR ",
+        "{value:.6g}",
+        "{value}",
+        "{n}",
+        "{hz:.3f}",
+        "{count}",
+        "{channels}",
+        "{spec}",
+        "{value:9999999999}",
+        "{value:{n}}",
+        "{value!r}",
+        "{",
+        "}",
+        "{{",
+        "?",
+        "é",
+        "ü",
+        "OUTP",
+        " ",
+        ";",
+        "{nope}",
+        "{0}",
+        "{value[0]}",
+    ]
+)
 
 
 def _toml_string(text: str) -> str:
@@ -574,8 +709,11 @@ def _toml_value(value) -> str:
     if isinstance(value, bool):
         return "true" if value else "false"
     if isinstance(value, (int, float)):
-        return repr(value) if not isinstance(value, float) or math.isfinite(value) else \
-            {"nan": "nan", "inf": "inf", "-inf": "-inf"}[repr(value)]
+        return (
+            repr(value)
+            if not isinstance(value, float) or math.isfinite(value)
+            else {"nan": "nan", "inf": "inf", "-inf": "-inf"}[repr(value)]
+        )
     if isinstance(value, str):
         return _toml_string(value)
     if isinstance(value, list):
@@ -585,27 +723,41 @@ def _toml_value(value) -> str:
     raise AssertionError(value)
 
 
-_KEYS = st.one_of(st.sampled_from(["name", "role", "description", "timeout", "query", "OPEN", "SHUT", "x"]),
-                  st.text(min_size=1, max_size=8))
-_SCALARS = st.one_of(
-    st.booleans(), st.integers(-10**20, 10**20), st.floats(allow_nan=True, allow_infinity=True),
-    st.text(max_size=20), st.sampled_from(_UNITS + _REPLY_WORDS + ["\\n", "\\r\\n", "\\x0", "\\q", "2 s", "-1 s"]),
+_KEYS = st.one_of(
+    st.sampled_from(["name", "role", "description", "timeout", "query", "OPEN", "SHUT", "x"]),
+    st.text(min_size=1, max_size=8),
 )
-_TOML_VALUES = st.recursive(_SCALARS, lambda inner: st.one_of(
-    st.lists(inner, max_size=3), st.dictionaries(_KEYS, inner, max_size=3)), max_leaves=6)
+_SCALARS = st.one_of(
+    st.booleans(),
+    st.integers(-(10**20), 10**20),
+    st.floats(allow_nan=True, allow_infinity=True),
+    st.text(max_size=20),
+    st.sampled_from(_UNITS + _REPLY_WORDS + ["\\n", "\\r\\n", "\\x0", "\\q", "2 s", "-1 s"]),
+)
+_TOML_VALUES = st.recursive(
+    _SCALARS,
+    lambda inner: st.one_of(st.lists(inner, max_size=3), st.dictionaries(_KEYS, inner, max_size=3)),
+    max_leaves=6,
+)
 
 _COMMAND_ENTRIES = st.one_of(
     st.lists(_SEND_PARTS, max_size=4).map("".join),
     st.fixed_dictionaries(
         {"send": st.lists(_SEND_PARTS, min_size=1, max_size=4).map("".join)},
         optional={
-            "reply": st.one_of(st.sampled_from(_REPLY_WORDS), st.dictionaries(_KEYS, st.booleans(), max_size=2),
-                               _SCALARS),
+            "reply": st.one_of(
+                st.sampled_from(_REPLY_WORDS), st.dictionaries(_KEYS, st.booleans(), max_size=2), _SCALARS
+            ),
             "unit": st.one_of(st.sampled_from(_UNITS), _SCALARS),
-            "scale": _SCALARS, "token": _SCALARS, "count": _SCALARS, "values": _TOML_VALUES,
+            "scale": _SCALARS,
+            "token": _SCALARS,
+            "count": _SCALARS,
+            "values": _TOML_VALUES,
             "fields": st.one_of(st.lists(st.sampled_from([*IDN_FIELDS, "colour"]), max_size=5), _SCALARS),
-            "idempotent": _SCALARS, "check_errors": _SCALARS,
-        }),
+            "idempotent": _SCALARS,
+            "check_errors": _SCALARS,
+        },
+    ),
     _TOML_VALUES,
 )
 _ALL_OPS = sorted({op for ops in ROLES.values() for op in ops})
@@ -617,20 +769,50 @@ def _profile_documents(draw) -> str:
     ops = sorted(ROLES.get(role, ROLES["pump"]))
     doc: dict[str, dict] = {}
     if draw(st.integers(0, 9)):
-        doc["profile"] = draw(st.fixed_dictionaries({}, optional={
-            "name": st.one_of(st.just("fuzz"), _SCALARS), "role": st.just(role),
-            "description": _SCALARS, "colour": _SCALARS}))
+        doc["profile"] = draw(
+            st.fixed_dictionaries(
+                {},
+                optional={
+                    "name": st.one_of(st.just("fuzz"), _SCALARS),
+                    "role": st.just(role),
+                    "description": _SCALARS,
+                    "colour": _SCALARS,
+                },
+            )
+        )
     if draw(st.booleans()):
-        doc["transport"] = draw(st.fixed_dictionaries({}, optional={
-            "read_termination": _SCALARS, "write_termination": _SCALARS, "timeout": _SCALARS,
-            "baudrate": _SCALARS, "chunk_size": _SCALARS}))
+        doc["transport"] = draw(
+            st.fixed_dictionaries(
+                {},
+                optional={
+                    "read_termination": _SCALARS,
+                    "write_termination": _SCALARS,
+                    "timeout": _SCALARS,
+                    "baudrate": _SCALARS,
+                    "chunk_size": _SCALARS,
+                },
+            )
+        )
     if draw(st.booleans()):
-        doc["errors"] = draw(st.fixed_dictionaries({}, optional={
-            "query": st.one_of(st.just("SYST:ERR?"), _SCALARS), "drain_after_set": _SCALARS,
-            "max_entries": _SCALARS, "reply_prefix": _SCALARS}))
+        doc["errors"] = draw(
+            st.fixed_dictionaries(
+                {},
+                optional={
+                    "query": st.one_of(st.just("SYST:ERR?"), _SCALARS),
+                    "drain_after_set": _SCALARS,
+                    "max_entries": _SCALARS,
+                    "reply_prefix": _SCALARS,
+                },
+            )
+        )
     if draw(st.integers(0, 9)):
-        names = draw(st.lists(st.one_of(st.sampled_from(ops), st.sampled_from(_ALL_OPS), st.text(max_size=6)),
-                              max_size=8, unique=True))
+        names = draw(
+            st.lists(
+                st.one_of(st.sampled_from(ops), st.sampled_from(_ALL_OPS), st.text(max_size=6)),
+                max_size=8,
+                unique=True,
+            )
+        )
         required = [op for op, spec in ROLES.get(role, {}).items() if spec.required]
         if draw(st.booleans()):
             names = list(dict.fromkeys(required + names))
@@ -653,7 +835,9 @@ def _profile_documents(draw) -> str:
 def _check_profile_text(text: str, encoding_errors: bool = False) -> None:
     with tempfile.TemporaryDirectory() as d:
         path = Path(d) / "fuzz-profile.toml"
-        path.write_bytes(text.encode("utf-8", "surrogatepass") if not encoding_errors else text.encode("latin-1"))
+        path.write_bytes(
+            text.encode("utf-8", "surrogatepass") if not encoding_errors else text.encode("latin-1")
+        )
         before = _digest(path)
         try:
             profile = load_profile(path)
@@ -677,12 +861,18 @@ def _random_profiles(text):
 test_random_profiles, test_random_profiles_many = fuzz(
     text=_profile_documents(),
     examples=[
-        {"text": '[profile]\nname = "x"\nrole = "shutter"\n[commands]\nidentify = { send = "ID", reply = "text" }\nopen = "OPEN {n:9999999999}"\n'
-                 'close = "SHUT {n}"\nstate = { send = "ST {n}", reply = "bool" }\n'},
-        {"text": '[profile]\nname = "x"\nrole = "shutter"\n[commands]\nidentify = { send = "ID é", reply = "text" }\nopen = "OPEN {n}"\n'
-                 'close = "SHUT {n}"\nstate = { send = "ST {n}", reply = "bool" }\n'},
-        {"text": '[profile]\nname = "x"\nrole = "shutter"\n[errors]\nquery = "ERR?ü"\n[commands]\nidentify = { send = "ID", reply = "text" }\n'
-                 'open = "OPEN {n}"\nclose = "SHUT {n}"\nstate = { send = "ST {n}", reply = "bool" }\n'},
+        {
+            "text": '[profile]\nname = "x"\nrole = "shutter"\n[commands]\nidentify = { send = "ID", reply = "text" }\nopen = "OPEN {n:9999999999}"\n'
+            'close = "SHUT {n}"\nstate = { send = "ST {n}", reply = "bool" }\n'
+        },
+        {
+            "text": '[profile]\nname = "x"\nrole = "shutter"\n[commands]\nidentify = { send = "ID é", reply = "text" }\nopen = "OPEN {n}"\n'
+            'close = "SHUT {n}"\nstate = { send = "ST {n}", reply = "bool" }\n'
+        },
+        {
+            "text": '[profile]\nname = "x"\nrole = "shutter"\n[errors]\nquery = "ERR?ü"\n[commands]\nidentify = { send = "ID", reply = "text" }\n'
+            'open = "OPEN {n}"\nclose = "SHUT {n}"\nstate = { send = "ST {n}", reply = "bool" }\n'
+        },
     ],
 )(_random_profiles)
 
@@ -690,22 +880,44 @@ test_random_profiles, test_random_profiles_many = fuzz(
 _KEY_LINE = re.compile(r"^(\s*)([A-Za-z0-9_]+)(\s*=\s*)(.*)$")
 _LINE_MUTATIONS = st.lists(
     st.tuples(
-        st.sampled_from(["value", "value", "splice", "splice", "delete", "rename", "drop", "duplicate", "swap",
-                         "junk"]),
-        st.integers(0, 10_000), st.integers(0, 10_000),
+        st.sampled_from(
+            ["value", "value", "splice", "splice", "delete", "rename", "drop", "duplicate", "swap", "junk"]
+        ),
+        st.integers(0, 10_000),
+        st.integers(0, 10_000),
         st.one_of(
             _SCALARS.map(_toml_value),
             _TOML_VALUES.map(_toml_value),
-            st.builds(lambda x, u: _toml_string(f"{x:g} {u}".strip()),
-                      st.floats(allow_nan=True, allow_infinity=True), st.sampled_from(_UNITS + ["cm^-3", "cm^2",
-                                                                                            "W/A", "V/W", "%"])),
+            st.builds(
+                lambda x, u: _toml_string(f"{x:g} {u}".strip()),
+                st.floats(allow_nan=True, allow_infinity=True),
+                st.sampled_from(_UNITS + ["cm^-3", "cm^2", "W/A", "V/W", "%"]),
+            ),
             st.text(max_size=12),
         ),
-        st.one_of(st.text(min_size=1, max_size=10),
-                  st.sampled_from(["spectrum", "zero_line", "pulse_energy", "kind", "length", "options", "driver",
-                                   "resource", "profile", "transmission_jump", "seed", "simulated", "send"])),
+        st.one_of(
+            st.text(min_size=1, max_size=10),
+            st.sampled_from(
+                [
+                    "spectrum",
+                    "zero_line",
+                    "pulse_energy",
+                    "kind",
+                    "length",
+                    "options",
+                    "driver",
+                    "resource",
+                    "profile",
+                    "transmission_jump",
+                    "seed",
+                    "simulated",
+                    "send",
+                ]
+            ),
+        ),
     ),
-    min_size=1, max_size=4,
+    min_size=1,
+    max_size=4,
 )
 
 
@@ -749,7 +961,8 @@ def _mutated_builtin_profiles(index, mutations):
 
 
 test_mutated_builtin_profiles, test_mutated_builtin_profiles_many = fuzz(
-    index=st.integers(0, 100), mutations=_LINE_MUTATIONS,
+    index=st.integers(0, 100),
+    mutations=_LINE_MUTATIONS,
 )(_mutated_builtin_profiles)
 
 
@@ -766,10 +979,14 @@ def _profile_bytes(data):
 
 
 test_profile_bytes, test_profile_bytes_many = fuzz(
-    data=st.one_of(st.binary(max_size=200),
-                   st.builds(lambda t, m: _mutate_bytes(t, m),
-                             st.sampled_from([p.read_bytes() for p in sorted(BUILTIN_DIR.glob("*.toml"))]),
-                             _MUTATIONS)),
+    data=st.one_of(
+        st.binary(max_size=200),
+        st.builds(
+            lambda t, m: _mutate_bytes(t, m),
+            st.sampled_from([p.read_bytes() for p in sorted(BUILTIN_DIR.glob("*.toml"))]),
+            _MUTATIONS,
+        ),
+    ),
 )(_profile_bytes)
 
 
@@ -810,8 +1027,11 @@ def _check_bench_text(text: str, overrides=None) -> None:
         except ConfigError as exc:
             message = str(exc)
             # every error names the bench file (or the --set key, or the spectrum file it names)
-            assert (message.startswith(str(path)) or message.startswith("--set ")
-                    or message.startswith(str(Path(d)))), message
+            assert (
+                message.startswith(str(path))
+                or message.startswith("--set ")
+                or message.startswith(str(Path(d)))
+            ), message
         else:
             _check_finite(cfg)
         assert _digest(path) == before
@@ -821,7 +1041,9 @@ def _mutated_bench_files(mutations):
     _check_bench_text(_mutate_lines(_demo_text(), mutations))
 
 
-test_mutated_bench_files, test_mutated_bench_files_many = fuzz(mutations=_LINE_MUTATIONS)(_mutated_bench_files)
+test_mutated_bench_files, test_mutated_bench_files_many = fuzz(mutations=_LINE_MUTATIONS)(
+    _mutated_bench_files
+)
 
 
 @lru_cache(maxsize=1)
@@ -844,10 +1066,17 @@ def _bench_overrides(items):
 
 
 test_bench_overrides, test_bench_overrides_many = fuzz(
-    items=st.lists(st.tuples(st.one_of(st.integers(0, 1000), st.text(max_size=12)),
-                             st.one_of(st.text(max_size=15), st.sampled_from(["true", "1e400", "9" * 5000, "5 kg",
-                                                                            "-3 mm", "nan K", "2 kHz"]))),
-                   min_size=1, max_size=3),
+    items=st.lists(
+        st.tuples(
+            st.one_of(st.integers(0, 1000), st.text(max_size=12)),
+            st.one_of(
+                st.text(max_size=15),
+                st.sampled_from(["true", "1e400", "9" * 5000, "5 kg", "-3 mm", "nan K", "2 kHz"]),
+            ),
+        ),
+        min_size=1,
+        max_size=3,
+    ),
 )(_bench_overrides)
 
 
@@ -864,8 +1093,11 @@ def _csv_cfg() -> BenchConfig:
     return load_bench()
 
 
-_CELLS = st.one_of(st.floats(allow_nan=True, allow_infinity=True).map(repr), st.text(max_size=5),
-                   st.sampled_from(["", "on", "OFF", "yes", "1e999", " 1.5 ", '"2.5"', "#", "1_0"]))
+_CELLS = st.one_of(
+    st.floats(allow_nan=True, allow_infinity=True).map(repr),
+    st.text(max_size=5),
+    st.sampled_from(["", "on", "OFF", "yes", "1e999", " 1.5 ", '"2.5"', "#", "1_0"]),
+)
 
 
 @st.composite
@@ -875,30 +1107,46 @@ def _csv_files(draw):
     header = ["time", "ch1", "ch2"] + (["trig"] if draw(st.booleans()) else [])
     header += draw(st.lists(st.sampled_from(["ch3", "note", "x"]), max_size=2))
     order = draw(st.permutations(header))
-    lines = [draw(st.text(alphabet="0123456789 .,;:-+=/", max_size=20)) for _ in range(draw(st.integers(0, 3)))]
+    lines = [
+        draw(st.text(alphabet="0123456789 .,;:-+=/", max_size=20)) for _ in range(draw(st.integers(0, 3)))
+    ]
     lines.append(delimiter.join(order))
     t = draw(st.floats(-1.0, 1.0))
     expected = []  # (time, probe, reference, pump) of every data row, or None for a bad row
     for _ in range(draw(st.integers(0, 40))):
-        kind = draw(st.sampled_from(["good"] * 8 + ["gap", "jitter", "irregular", "back", "bad", "short", "blank",
-                                                     "comment"]))
+        kind = draw(
+            st.sampled_from(
+                ["good"] * 8 + ["gap", "jitter", "irregular", "back", "bad", "short", "blank", "comment"]
+            )
+        )
         if kind == "blank":
             lines.append(draw(st.sampled_from(["", " ", delimiter * 2])))
             continue
         if kind == "comment":
             lines.append("# " + draw(st.text(max_size=10)).replace("\n", " ").replace("\r", " "))
             continue
-        step = {"gap": draw(st.integers(2, 4)), "jitter": 1 + draw(st.floats(-0.2, 0.2)),
-                "irregular": 1.5, "back": -1}.get(kind, 1)
+        step = {
+            "gap": draw(st.integers(2, 4)),
+            "jitter": 1 + draw(st.floats(-0.2, 0.2)),
+            "irregular": 1.5,
+            "back": -1,
+        }.get(kind, 1)
         t = t + step * _CSV_DT
-        values = {"time": repr(t), "ch1": repr(draw(st.floats(-5, 5))), "ch2": repr(draw(st.floats(-5, 5))),
-                  "trig": draw(st.sampled_from(["0", "4.9", "on", "off", "0.5", "0.51"])),
-                  "ch3": "1", "note": "n", "x": ""}
+        values = {
+            "time": repr(t),
+            "ch1": repr(draw(st.floats(-5, 5))),
+            "ch2": repr(draw(st.floats(-5, 5))),
+            "trig": draw(st.sampled_from(["0", "4.9", "on", "off", "0.5", "0.51"])),
+            "ch3": "1",
+            "note": "n",
+            "x": "",
+        }
         cells = [values[c] for c in order]
         used = [order.index(c) for c in ("time", "ch1", "ch2", "trig") if c in order]
         if kind == "bad":  # a cell of a column the import reads that is not a finite number
-            cells[draw(st.sampled_from(used))] = draw(st.sampled_from(["x", "", "1e999", "nan", "-inf", "--",
-                                                                       "1.2.3", "0x1", "ja"]))
+            cells[draw(st.sampled_from(used))] = draw(
+                st.sampled_from(["x", "", "1e999", "nan", "-inf", "--", "1.2.3", "0x1", "ja"])
+            )
         if kind == "short":
             cells = cells[: draw(st.integers(1, max(used)))]
         line = delimiter.join(cells)
@@ -909,8 +1157,12 @@ def _csv_files(draw):
             expected.append(None)
         else:
             trig = values["trig"]
-            pump = {"on": 1.0, "off": 0.0}.get(trig, 1.0 if trig not in ("on", "off") and float(trig) > 0.5 else 0.0)
-            expected.append((t, float(values["ch1"]), float(values["ch2"]), pump if "trig" in header else None))
+            pump = {"on": 1.0, "off": 0.0}.get(
+                trig, 1.0 if trig not in ("on", "off") and float(trig) > 0.5 else 0.0
+            )
+            expected.append(
+                (t, float(values["ch1"]), float(values["ch2"]), pump if "trig" in header else None)
+            )
     newline = draw(st.sampled_from(["\n", "\r\n"]))
     bom = "\ufeff" if draw(st.booleans()) else ""
     return bom + newline.join(lines) + newline, expected
@@ -957,7 +1209,9 @@ def _check_imported(run: Path, expected, with_pump: bool) -> None:
     times = np.concatenate([b.times() for b in blocks])
     dt = blocks[0].dt
     # every sample sits within a quarter interval of its file time (the import's documented rule)
-    assert np.all(np.abs(times - (np.array([row[0] for row in expected]) - t0)) <= 0.25 * dt * (1 + 1e-9) + 1e-12)
+    assert np.all(
+        np.abs(times - (np.array([row[0] for row in expected]) - t0)) <= 0.25 * dt * (1 + 1e-9) + 1e-12
+    )
 
 
 def _csv_import_of_generated_files(file, block_size):
@@ -966,7 +1220,8 @@ def _csv_import_of_generated_files(file, block_size):
 
 
 test_csv_import_of_generated_files, test_csv_import_of_generated_files_many = fuzz(
-    file=_csv_files(), block_size=st.integers(1, 16),
+    file=_csv_files(),
+    block_size=st.integers(1, 16),
 )(_csv_import_of_generated_files)
 
 
@@ -975,9 +1230,12 @@ def _csv_import_of_any_text(text):
 
 
 test_csv_import_of_any_text, test_csv_import_of_any_text_many = fuzz(
-    text=st.one_of(st.text(max_size=300),
-                   st.lists(st.lists(_CELLS, max_size=5).map(",".join), max_size=12).map(
-                       lambda rows: "time,ch1,ch2,trig\n" + "\n".join(rows))),
+    text=st.one_of(
+        st.text(max_size=300),
+        st.lists(st.lists(_CELLS, max_size=5).map(",".join), max_size=12).map(
+            lambda rows: "time,ch1,ch2,trig\n" + "\n".join(rows)
+        ),
+    ),
 )(_csv_import_of_any_text)
 
 
@@ -990,7 +1248,9 @@ _WAL_BLOCKS = 12
 
 def _wal_block(seq: int) -> Block:
     rng = np.random.default_rng(seq)
-    return Block("detector", seq, seq * 0.064, 1e-3, seq * 64, ("probe", "reference"), rng.normal(size=(64, 2)))
+    return Block(
+        "detector", seq, seq * 0.064, 1e-3, seq * 64, ("probe", "reference"), rng.normal(size=(64, 2))
+    )
 
 
 @lru_cache(maxsize=1)
@@ -1053,8 +1313,11 @@ def _damaged_wal(flips):
 
 
 test_damaged_wal, test_damaged_wal_many = fuzz(
-    flips=st.lists(st.tuples(st.one_of(st.integers(0, 64), st.integers(0, 1 << 30)), st.integers(0, 7)),
-                   min_size=1, max_size=6),
+    flips=st.lists(
+        st.tuples(st.one_of(st.integers(0, 64), st.integers(0, 1 << 30)), st.integers(0, 7)),
+        min_size=1,
+        max_size=6,
+    ),
 )(_damaged_wal)
 
 

@@ -47,10 +47,18 @@ CURRENT = 6.0
 
 #: (kind, role or None, duration in real seconds or None), with weights.
 FAULTS = [
-    (("drop", "detector", None), 2), (("drop", "pump", None), 2), (("drop", "shutter", None), 1),
-    (("garble", "detector", 0.3), 2), (("garble", "pump", None), 2), (("garble", "pump", 0.5), 1),
-    (("slow", "pump", None), 1), (("slow", "pump", 3.0), 1), (("slow", "detector", None), 1),
-    (("interlock", None, 1.0), 2), (("overtemp", None, 1.5), 1), (("saturate", None, 0.5), 2),
+    (("drop", "detector", None), 2),
+    (("drop", "pump", None), 2),
+    (("drop", "shutter", None), 1),
+    (("garble", "detector", 0.3), 2),
+    (("garble", "pump", None), 2),
+    (("garble", "pump", 0.5), 1),
+    (("slow", "pump", None), 1),
+    (("slow", "pump", 3.0), 1),
+    (("slow", "detector", None), 1),
+    (("interlock", None, 1.0), 2),
+    (("overtemp", None, 1.5), 1),
+    (("saturate", None, 0.5), 2),
     (("error", "pump", None), 1),
 ]
 
@@ -131,16 +139,25 @@ def _operate(m: Measurement, soak: Soak, schedule, until: float) -> None:
 
 def _run_soak(tmp_path, *, speed: float, sim_seconds: float, mean_gap: float, seed: int):
     text = builtin_bench_path().read_text(encoding="utf-8")
-    cfg = load_bench_text(text, "soak bench", overrides={
-        "instruments.detector.options.sample_rate": "2 kHz",
-        # real seconds on an accelerated bench (the measurement scales it by the speed); a
-        # loaded test machine stalls a reader for less than this
-        "guard.stale_after": "2 s",
-    })
+    cfg = load_bench_text(
+        text,
+        "soak bench",
+        overrides={
+            "instruments.detector.options.sample_rate": "2 kHz",
+            # real seconds on an accelerated bench (the measurement scales it by the speed); a
+            # loaded test machine stalls a reader for less than this
+            "guard.stale_after": "2 s",
+        },
+    )
     rng = random.Random(seed)
     soak = Soak()
-    m = Measurement(cfg, speed=speed, log_dir=tmp_path, seed=seed,
-                    settings={"pump_current": CURRENT, "pump_power": cfg.pump.power_at(CURRENT)})
+    m = Measurement(
+        cfg,
+        speed=speed,
+        log_dir=tmp_path,
+        seed=seed,
+        settings={"pump_current": CURRENT, "pump_power": cfg.pump.power_at(CURRENT)},
+    )
     stop = threading.Event()
     poller = threading.Thread(target=_poll_pump, args=(m, stop, soak), name="soak-pump-poll", daemon=True)
     with m:
@@ -203,8 +220,11 @@ def _check_shutter_closed_while_unreachable(events, unreachable, clock_start: fl
     """Every stretch in which the pump could not be reached and a trip fell ends with the off
     command confirmed, and no trip in it went without the shutter being closed."""
     for a, b in unreachable:
-        trips = [e for e in events if e.kind == "trip" and e.data.get("from") != "tripped"
-                 and a <= clock_start + e.t / speed <= b]
+        trips = [
+            e
+            for e in events
+            if e.kind == "trip" and e.data.get("from") != "tripped" and a <= clock_start + e.t / speed <= b
+        ]
         for e in trips:
             assert "CloseShutter" in (e.data.get("actions") or ()), e.text
 
@@ -214,7 +234,9 @@ def _check_pump_never_on_unguarded(soak: Soak, intervals, truth, speed: float, c
         return any(a <= t1 and t0 <= b + OFF_ALLOWANCE for a, b in intervals)
 
     bad = [(t0, t1) for t0, t1, on in soak.readings if on and not allowed(t0, t1)]
-    assert not bad, f"pump output read on outside emission (+{OFF_ALLOWANCE} s): {bad[:5]} of {len(soak.readings)}"
+    assert not bad, (
+        f"pump output read on outside emission (+{OFF_ALLOWANCE} s): {bad[:5]} of {len(soak.readings)}"
+    )
     powered = [row["t"] for row in truth if row.get("pump_w", 0.0) > 1e-9]
     bad_truth = [t for t in powered if not allowed(clock_start + t / speed, clock_start + t / speed)]
     assert not bad_truth, f"the simulator shows pump power outside emission at run times {bad_truth[:5]}"
@@ -227,53 +249,84 @@ def _check_nothing_lost_silently(path, speed: float) -> dict:
         blocks = [(b.seq, b.first_index, b.n, b.t0, b.t_end) for b in r.iter_blocks(source="detector")]
         events = r.events()
     gaps = {e.data["first_index"]: e for e in events if e.kind == "gap"}
-    causes = [e.t for e in events if e.kind == "fault" and e.data.get("source") == "detector"
-              and (not e.data.get("ok", True) or "overflow" in e.text)]
+    causes = [
+        e.t
+        for e in events
+        if e.kind == "fault"
+        and e.data.get("source") == "detector"
+        and (not e.data.get("ok", True) or "overflow" in e.text)
+    ]
     dropped = max((e.data["by_source"].get("detector", 0) for e in events if e.kind == "drop"), default=0)
     holes, seq_jumps, end, prev = [], 0, 0, None
     for seq, first, n, t0, t_end in blocks:
         if prev is not None:
             seq_jumps += seq - prev[0] - 1
         if first != end:
-            holes.append((first, first - end, seq - (prev[0] if prev else -1) - 1, prev[4] if prev else 0.0, t_end))
+            holes.append(
+                (first, first - end, seq - (prev[0] if prev else -1) - 1, prev[4] if prev else 0.0, t_end)
+            )
         end, prev = first + n, (seq, first, n, t0, t_end)
     assert blocks, "no detector data was stored"
-    assert seq_jumps <= dropped, f"{seq_jumps} detector blocks missing from the run but {dropped} reported dropped"
+    assert seq_jumps <= dropped, (
+        f"{seq_jumps} detector blocks missing from the run but {dropped} reported dropped"
+    )
     slack = 5.0 * speed  # run-clock s: a slow reply is held 3 real s, the digitiser's timeout is 2 s
     for first, missing, seqs_missing, t_before, t_after in holes:
         assert missing > 0, f"detector samples overlap at index {first}"
         gap = gaps.get(first)
-        assert gap is not None and gap.data["missing"] == missing, f"hole of {missing} before {first} not logged"
+        assert gap is not None and gap.data["missing"] == missing, (
+            f"hole of {missing} before {first} not logged"
+        )
         if seqs_missing:
             continue  # blocks dropped by a full queue (counted above)
         assert any(t_before - slack <= t <= t_after + slack for t in causes), (
             f"{missing} sample sets lost before index {first} (run time {t_before:.1f} - {t_after:.1f} s) "
-            "with no detector fault logged nearby")
+            "with no detector fault logged nearby"
+        )
     assert len(gaps) == len(holes), "gap events for holes that are not in the run"
     stored = sum(b[2] for b in blocks)
-    return {"blocks": len(blocks), "stored": stored, "holes": len(holes), "lost": sum(h[1] for h in holes),
-            "end": end, "dropped_blocks": dropped, "events": events}
+    return {
+        "blocks": len(blocks),
+        "stored": stored,
+        "holes": len(holes),
+        "lost": sum(h[1] for h in holes),
+        "end": end,
+        "dropped_blocks": dropped,
+        "events": events,
+    }
 
 
 def _soak_and_check(tmp_path, speed, sim_seconds, mean_gap, seed, min_emissions):
-    m, soak, clock_start = _run_soak(tmp_path, speed=speed, sim_seconds=sim_seconds, mean_gap=mean_gap, seed=seed)
+    m, soak, clock_start = _run_soak(
+        tmp_path, speed=speed, sim_seconds=sim_seconds, mean_gap=mean_gap, seed=seed
+    )
     figures = _check_nothing_lost_silently(m.run_path, speed)
     events = figures.pop("events")
     with RunReader(m.run_path) as r:
         truth = r.truth()
     unreachable = _pump_unreachable(events, clock_start, speed)
     _check_shutter_closed_while_unreachable(events, unreachable, clock_start, speed)
-    _check_pump_never_on_unguarded(soak, _emitting_intervals(events, clock_start, speed) + unreachable, truth, speed,
-                                   clock_start)
-    trips = [e for e in events if e.kind in ("guard", "trip") and e.data.get("to") == "tripped"
-             and e.data.get("from") != "tripped"]
+    _check_pump_never_on_unguarded(
+        soak, _emitting_intervals(events, clock_start, speed) + unreachable, truth, speed, clock_start
+    )
+    trips = [
+        e
+        for e in events
+        if e.kind in ("guard", "trip") and e.data.get("to") == "tripped" and e.data.get("from") != "tripped"
+    ]
     # the soak did what it is for: faults went in, the guard tripped, and emission resumed after trips
-    assert len(soak.injected) >= 3 and trips and soak.emits >= min_emissions, (soak.injected, len(trips), soak.emits)
+    assert len(soak.injected) >= 3 and trips and soak.emits >= min_emissions, (
+        soak.injected,
+        len(trips),
+        soak.emits,
+    )
     assert soak.readings, "the pump output was never read"
     assert figures["stored"] >= 0.5 * figures["end"], figures  # most of the data made it
-    print(f"\nsoak speed {speed:g}, {sim_seconds:g} simulated s: {len(soak.injected)} faults "
-          f"({len(soak.inject_errors)} injections reported an error), {len(trips)} trips, {soak.emits} emissions, "
-          f"{len(soak.readings)} pump readings ({soak.unreadable} unreadable), {figures}")
+    print(
+        f"\nsoak speed {speed:g}, {sim_seconds:g} simulated s: {len(soak.injected)} faults "
+        f"({len(soak.inject_errors)} injections reported an error), {len(trips)} trips, {soak.emits} emissions, "
+        f"{len(soak.readings)} pump readings ({soak.unreadable} unreadable), {figures}"
+    )
     return figures
 
 

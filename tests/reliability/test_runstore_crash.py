@@ -72,8 +72,13 @@ def _lines(stream, out: queue.Queue) -> None:
 @pytest.mark.skipif(not hasattr(signal, "SIGKILL"), reason="SIGKILL is POSIX only")
 def test_kill_9_loses_at_most_the_last_flush_and_the_file_opens(tmp_path):
     env = dict(os.environ, PYTHONPATH=str(Path(__file__).resolve().parents[2]))
-    proc = subprocess.Popen([sys.executable, "-c", CHILD, str(tmp_path)], stdout=subprocess.PIPE,
-                            stderr=subprocess.PIPE, text=True, env=env)
+    proc = subprocess.Popen(
+        [sys.executable, "-c", CHILD, str(tmp_path)],
+        stdout=subprocess.PIPE,
+        stderr=subprocess.PIPE,
+        text=True,
+        env=env,
+    )
     lines: queue.Queue = queue.Queue()
     threading.Thread(target=_lines, args=(proc.stdout, lines), daemon=True).start()
     deadline = time.monotonic() + 60.0

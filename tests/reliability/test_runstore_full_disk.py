@@ -71,8 +71,13 @@ def _sha(path: Path) -> str:
 @pytest.fixture
 def cut_off(tmp_path) -> Path:
     env = dict(os.environ, PYTHONPATH=str(Path(__file__).resolve().parents[2]))
-    proc = subprocess.run([sys.executable, "-c", CHILD, str(tmp_path), str(LIMIT)], capture_output=True,
-                          text=True, env=env, timeout=120)
+    proc = subprocess.run(
+        [sys.executable, "-c", CHILD, str(tmp_path), str(LIMIT)],
+        capture_output=True,
+        text=True,
+        env=env,
+        timeout=120,
+    )
     assert proc.returncode == 0, proc.stderr
     path = Path(proc.stdout.strip().splitlines()[-1])
     head = path.read_bytes()[:100]

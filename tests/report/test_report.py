@@ -64,8 +64,10 @@ def _bench_file(directory):
     """The demo bench with a sample label that is markup, and a guard that waits 3 s, not 0.5 s,
     for fresh pump readings (a loaded test machine would otherwise trip before arming)."""
     text = builtin_bench_path().read_text(encoding="utf-8")
-    for old, new in (('stale_after = "0.5 s"', 'stale_after = "3 s"'),
-                     ('label = "Yb:FHW-7 (invented Yb-doped tungstate, demo only)"', f'label = "{HOSTILE_LABEL}"')):
+    for old, new in (
+        ('stale_after = "0.5 s"', 'stale_after = "3 s"'),
+        ('label = "Yb:FHW-7 (invented Yb-doped tungstate, demo only)"', f'label = "{HOSTILE_LABEL}"'),
+    ):
         assert old in text, old
         text = text.replace(old, new)
     path = directory / "bench.toml"
@@ -75,8 +77,20 @@ def _bench_file(directory):
 
 def _record(logs, *extra, operator="tester", may_trip=False):
     bench = _bench_file(logs)
-    code, out, err = _cli(["record", "--quiet", "--config", str(bench), "--logs", str(logs), "--operator", operator,
-                           *ARM, *extra])
+    code, out, err = _cli(
+        [
+            "record",
+            "--quiet",
+            "--config",
+            str(bench),
+            "--logs",
+            str(logs),
+            "--operator",
+            operator,
+            *ARM,
+            *extra,
+        ]
+    )
     found = re.search(r"gainbench: run (\S+) on ", out)
     assert found, out + err
     run_id = found.group(1)
@@ -96,14 +110,19 @@ def runs(tmp_path_factory):
         # run by an operator whose name is markup, to check that the page escapes it
         "watch": _record(logs, "--mode", "watch", "--seconds", "1.5", operator=HOSTILE),
         # the interlock opens while the pump emits
-        "tripped": _record(logs, "--mode", "watch", "--seconds", "3", "--fault", "interlock@2.5s+0.3s",
-                           may_trip=True),
+        "tripped": _record(
+            logs, "--mode", "watch", "--seconds", "3", "--fault", "interlock@2.5s+0.3s", may_trip=True
+        ),
         "decay": _record(logs, "--mode", "decay", "--seconds", "1.5"),
         "sweep": _record(logs, "--mode", "sweep", "--seconds", "2.4", "--steps", "4"),
     }
-    code, text, err = _cli(["replay", out["decay"], "--logs", str(logs), "--headless", "--set", "sample.length=5.1mm"])
+    code, text, err = _cli(
+        ["replay", out["decay"], "--logs", str(logs), "--headless", "--set", "sample.length=5.1mm"]
+    )
     assert code == 0, text + err
-    digests = {name: hashlib.sha256((logs / f"{rid}.gbrun").read_bytes()).hexdigest() for name, rid in out.items()}
+    digests = {
+        name: hashlib.sha256((logs / f"{rid}.gbrun").read_bytes()).hexdigest() for name, rid in out.items()
+    }
     return logs, out, digests
 
 
@@ -113,8 +132,9 @@ def reports(runs, tmp_path_factory):
     built = {}
     for name, rid in ids.items():
         built[name] = build_report(rid, log_dir=logs, buckets=300)
-    built["decay-all"] = build_report(ids["decay"], tmp_path_factory.mktemp("all"), analysis="all", log_dir=logs,
-                                      buckets=300)
+    built["decay-all"] = build_report(
+        ids["decay"], tmp_path_factory.mktemp("all"), analysis="all", log_dir=logs, buckets=300
+    )
     return built
 
 
@@ -215,7 +235,11 @@ def _check_trips(page: Page, path) -> list:
         assert trip.data["reason"] in page.text
         latency = trip.data.get("latency_s")
         assert (f"{latency * 1e3:.1f} ms" if latency is not None else "unknown") in page.text
-    acks = [e for e in events if e.kind == "guard" and e.data.get("from") == "tripped" and e.data.get("to") == "safe"]
+    acks = [
+        e
+        for e in events
+        if e.kind == "guard" and e.data.get("from") == "tripped" and e.data.get("to") == "safe"
+    ]
     for ack in acks:
         assert f"by {ack.who} at t = {ack.t:.3f} s" in page.text
     if len(acks) < len(trips):
@@ -334,13 +358,27 @@ def test_reading_for_a_report_never_changes_the_run_file(runs, reports):
 def test_the_command_line_writes_the_report_and_prints_its_path(runs, tmp_path):
     logs, ids, _ = runs
     out = tmp_path / "cli"
-    code, text, err = _cli(["report", ids["decay"][:15], "--logs", str(logs), "--out", str(out),
-                            "--analysis", "2", "--buckets", "100"])
+    code, text, err = _cli(
+        [
+            "report",
+            ids["decay"][:15],
+            "--logs",
+            str(logs),
+            "--out",
+            str(out),
+            "--analysis",
+            "2",
+            "--buckets",
+            "100",
+        ]
+    )
     assert code == 0, err
     assert text.strip() == str(out / "report.html")
     page = Page((out / "report.html").read_text(encoding="utf-8"))
     assert "analysis 2 (reanalysis)" in page.text
-    code, text, err = _cli(["report", ids["decay"], "--logs", str(logs), "--analysis", "9", "--out", str(out)])
+    code, text, err = _cli(
+        ["report", ids["decay"], "--logs", str(logs), "--analysis", "9", "--out", str(out)]
+    )
     assert code == 2 and "has no analysis 9" in err
 
 
@@ -357,7 +395,9 @@ def _wavelength_sweep_run(log_dir):
     dark = Dark(0.003, 0.0, 0.002, 0.0, 1000, 0.0)
     line = (40.0, constants.c / 1031e-9, 1.5e12, 1.0e12)
     rng = np.random.default_rng(11)
-    state = with_baseline(with_dark(new_state(params, "sweep"), dark), Baseline(s_off, 1e-7, 10_000, 0.0, -0.1))
+    state = with_baseline(
+        with_dark(new_state(params, "sweep"), dark), Baseline(s_off, 1e-7, 10_000, 0.0, -0.1)
+    )
     writer = RunWriter.from_config(cfg, mode="sweep", log_dir=log_dir)
     writer.append_event(Event(0.0, "note", HOSTILE, who="<b>someone</b>"))
     i = seq = 0
@@ -369,8 +409,15 @@ def _wavelength_sweep_run(log_dir):
         vp = dark.probe + s_off * math.exp(lnr) * ref + rng.normal(0.0, 6e-4, n_step)
         data = np.column_stack([vp, vr, np.full(n_step, 0.5)])
         for k in range(0, n_step, 500):
-            block = Block("detector", seq, (i + k) * dt, dt, i + k, ("probe", "reference", "pump_monitor"),
-                          data[k:k + 500])
+            block = Block(
+                "detector",
+                seq,
+                (i + k) * dt,
+                dt,
+                i + k,
+                ("probe", "reference", "pump_monitor"),
+                data[k : k + 500],
+            )
             writer.append_block(block)
             state, estimates = update(state, block)
             writer.append_estimates(estimates)
@@ -400,8 +447,17 @@ def test_a_figure_whose_stored_data_are_malformed_is_named_not_fatal(tmp_path):
 
     cfg = load_bench()
     writer = RunWriter.from_config(cfg, mode="decay", log_dir=tmp_path / "logs")
-    writer.append_estimates([Estimate(1.0, "decay", "cumulative", {"tau_s": Quantity(6e-4, 1e-6, 1e-6, 0.0)},
-                                      extra={"curve": {"t_s": [1e-4, 2e-4]}, "fit": {}})])  # no ln_ratio
+    writer.append_estimates(
+        [
+            Estimate(
+                1.0,
+                "decay",
+                "cumulative",
+                {"tau_s": Quantity(6e-4, 1e-6, 1e-6, 0.0)},
+                extra={"curve": {"t_s": [1e-4, 2e-4]}, "fit": {}},
+            )
+        ]
+    )  # no ln_ratio
     writer.close()
     raw, page = _page(build_report(writer.path, buckets=20))
     assert 'Figure "Lifetime fit" could not be drawn' in page.text and "KeyError" in page.text
@@ -412,8 +468,12 @@ def test_the_drawn_voigt_line_has_the_fitted_width():
     # a line of known parameters; its half-maximum width, measured on the drawn curve, must match
     # the Olivero-Longbothum FWHM (0.02 %) computed by bench.physics.fitting.voigt_fwhm
     sg, gl, nu0 = 1.5e12, 1.0e12, constants.c / 1031e-9
-    spec = {"peak_gain_change_per_m": 40.0, "centre_hz": nu0,
-            "gaussian_fwhm_hz": 2 * math.sqrt(2 * math.log(2)) * sg, "lorentzian_fwhm_hz": 2 * gl}
+    spec = {
+        "peak_gain_change_per_m": 40.0,
+        "centre_hz": nu0,
+        "gaussian_fwhm_hz": 2 * math.sqrt(2 * math.log(2)) * sg,
+        "lorentzian_fwhm_hz": 2 * gl,
+    }
     lam = np.linspace(990e-9, 1075e-9, 200_001)
     y = spectrum_curve(spec, lam)
     assert y.max() == pytest.approx(40.0, rel=1e-6)
@@ -433,7 +493,7 @@ def test_the_decimator_matches_a_plain_min_max_per_bucket():
     i = 0
     while i < t.size:
         n = int(rng.integers(1, 900))
-        dec.add(t[i:i + n], {"v": v[i:i + n]})
+        dec.add(t[i : i + n], {"v": v[i : i + n]})
         i += n
     tr = dec.result()
     assert tr.edges.size - 1 <= 64 and tr.samples == t.size
@@ -466,11 +526,22 @@ def test_guard_states_follow_accepted_transitions_only():
     def guard(t, frm, to, accepted=True, kind="guard"):
         return Event(t, kind, f"{frm} -> {to}", data={"from": frm, "to": to, "accepted": accepted})
 
-    events = [guard(0.1, "safe", "safe"), guard(1.0, "safe", "armed"), guard(1.1, "armed", "emitting", False),
-              guard(1.2, "armed", "emitting"), guard(2.0, "emitting", "tripped", kind="trip"),
-              guard(2.5, "tripped", "safe"), Event(2.7, "note", "a note")]
-    assert guard_segments(events, 3.0) == [(0.0, 1.0, "safe"), (1.0, 1.2, "armed"), (1.2, 2.0, "emitting"),
-                                           (2.0, 2.5, "tripped"), (2.5, 3.0, "safe")]
+    events = [
+        guard(0.1, "safe", "safe"),
+        guard(1.0, "safe", "armed"),
+        guard(1.1, "armed", "emitting", False),
+        guard(1.2, "armed", "emitting"),
+        guard(2.0, "emitting", "tripped", kind="trip"),
+        guard(2.5, "tripped", "safe"),
+        Event(2.7, "note", "a note"),
+    ]
+    assert guard_segments(events, 3.0) == [
+        (0.0, 1.0, "safe"),
+        (1.0, 1.2, "armed"),
+        (1.2, 2.0, "emitting"),
+        (2.0, 2.5, "tripped"),
+        (2.5, 3.0, "safe"),
+    ]
 
 
 def test_pump_intervals_come_from_the_drivers_output_state():

@@ -19,8 +19,15 @@ class FakeDigitiser:
 
 
 def reader(min_block: float, speed: float = 1.0, max_sets: int = 65536) -> DetectorReader:
-    return DetectorReader(FakeDigitiser(), queue.Queue(), RunClock(speed), DropCounter(), threading.Event(),
-                          max_sets=max_sets, min_block=min_block)
+    return DetectorReader(
+        FakeDigitiser(),
+        queue.Queue(),
+        RunClock(speed),
+        DropCounter(),
+        threading.Event(),
+        max_sets=max_sets,
+        min_block=min_block,
+    )
 
 
 def block(n: int) -> Block:

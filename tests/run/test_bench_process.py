@@ -29,8 +29,13 @@ OVERRIDES = {"guard.stale_after": "3 s"}
 def remote(log_dir) -> RemoteMeasurement:
     cfg = load_bench(overrides=OVERRIDES)
     current = default_current(cfg)
-    return RemoteMeasurement(cfg, settings={"pump_current": current, "pump_power": cfg.pump.power_at(current)},
-                             log_dir=log_dir, seed=5, operator="tester")
+    return RemoteMeasurement(
+        cfg,
+        settings={"pump_current": current, "pump_power": cfg.pump.power_at(current)},
+        log_dir=log_dir,
+        seed=5,
+        operator="tester",
+    )
 
 
 def wait_for(condition, what: str, timeout: float = 30.0) -> None:

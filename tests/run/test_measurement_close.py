@@ -41,8 +41,9 @@ def test_a_late_close_stores_every_block_read_and_replay_analyses_them(slow_anal
     base = load_bench()  # a loaded test machine may stall a reader: not a staleness test
     cfg = load_bench_text(base.text, base.source, overrides={"guard.stale_after": "2 s"})
     current = default_current(cfg)
-    m = Measurement(cfg, settings={"pump_current": current, "pump_power": cfg.pump.power_at(current)},
-                    log_dir=tmp_path)
+    m = Measurement(
+        cfg, settings={"pump_current": current, "pump_power": cfg.pump.power_at(current)}, log_dir=tmp_path
+    )
     with m:
         m.capture_baseline(0.05)
         m.arm(answers_from_flags("tester", ODS, True), "tester")

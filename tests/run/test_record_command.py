@@ -44,9 +44,13 @@ def test_interactive_record_uses_the_operator_named_at_the_checklist(tmp_path):
 
     logs = tmp_path / "logs"
     master, slave = pty.openpty()
-    proc = subprocess.Popen(_gainbench("record", "--seconds", "2", "--logs", str(logs), "--set",
-                                       "guard.stale_after=2s"),
-                            stdin=slave, stdout=slave, stderr=slave, close_fds=True)
+    proc = subprocess.Popen(
+        _gainbench("record", "--seconds", "2", "--logs", str(logs), "--set", "guard.stale_after=2s"),
+        stdin=slave,
+        stdout=slave,
+        stderr=slave,
+        close_fds=True,
+    )
     os.close(slave)
     seen = ""
     answered = 0
@@ -87,8 +91,12 @@ def test_interactive_record_uses_the_operator_named_at_the_checklist(tmp_path):
 
 def test_a_negative_current_is_refused_before_a_run_is_created(tmp_path):
     logs = tmp_path / "logs"
-    done = subprocess.run(_gainbench("record", "--current=-1A", "--logs", str(logs), *ARM), capture_output=True,
-                          text=True, timeout=120)
+    done = subprocess.run(
+        _gainbench("record", "--current=-1A", "--logs", str(logs), *ARM),
+        capture_output=True,
+        text=True,
+        timeout=120,
+    )
     assert done.returncode == 2, done.stderr
     assert "Traceback" not in done.stderr and "--current" in done.stderr, done.stderr
     assert not logs.exists() or not list(logs.iterdir())
@@ -98,8 +106,12 @@ def _interrupt_after(tmp_path, after: float) -> tuple[int, str]:
     import signal
 
     logs = tmp_path / f"logs-{after:.2f}"
-    proc = subprocess.Popen(_gainbench("record", "--seconds", "30", "--logs", str(logs), *ARM),
-                            stdout=subprocess.PIPE, stderr=subprocess.PIPE, text=True)
+    proc = subprocess.Popen(
+        _gainbench("record", "--seconds", "30", "--logs", str(logs), *ARM),
+        stdout=subprocess.PIPE,
+        stderr=subprocess.PIPE,
+        text=True,
+    )
     try:
         with pytest.raises(subprocess.TimeoutExpired):
             proc.wait(after)  # the Ctrl-C comes this long after the start
@@ -130,8 +142,14 @@ def test_a_trip_not_acknowledged_ends_with_status_4(tmp_path):
 
     with serve_external(tmp_path) as (bench, resources):
         logs = tmp_path / "logs"
-        proc = subprocess.Popen(_gainbench("record", "--config", str(bench), "--seconds", "60", "--no-dark", "--logs",
-                                           str(logs), *ARM), stdout=subprocess.PIPE, stderr=subprocess.PIPE, text=True)
+        proc = subprocess.Popen(
+            _gainbench(
+                "record", "--config", str(bench), "--seconds", "60", "--no-dark", "--logs", str(logs), *ARM
+            ),
+            stdout=subprocess.PIPE,
+            stderr=subprocess.PIPE,
+            text=True,
+        )
         try:
             _read_until(proc, r"guard emitting", timeout=60)
             # the simulated interlock opens and stays open: the trip cannot be acknowledged
@@ -146,5 +164,7 @@ def test_a_trip_not_acknowledged_ends_with_status_4(tmp_path):
     with RunReader(run_file) as r:
         assert r.status == "complete"
         assert any(e.kind == "trip" for e in r.events())
-    helptext = subprocess.run(_gainbench("record", "--help"), capture_output=True, text=True, timeout=60).stdout
+    helptext = subprocess.run(
+        _gainbench("record", "--help"), capture_output=True, text=True, timeout=60
+    ).stdout
     assert re.search(r"^\s*4\s+the guard tripped", helptext, re.M), helptext

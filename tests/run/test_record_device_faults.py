@@ -24,8 +24,9 @@ from bench.store import RunReader
 
 
 def _record(*args: str, timeout: float = 120) -> subprocess.CompletedProcess:
-    return subprocess.run([sys.executable, "-m", "bench", "record", *args], capture_output=True, text=True,
-                          timeout=timeout)
+    return subprocess.run(
+        [sys.executable, "-m", "bench", "record", *args], capture_output=True, text=True, timeout=timeout
+    )
 
 
 def _events(logs):
@@ -52,7 +53,9 @@ def test_an_error_left_in_the_queue_is_cleared_at_start_not_blamed_on_the_run(tm
     # the simulated driver pushes its error at once, before any run connects
     with serve_external(tmp_path, "--fault", "error:pump@0s") as (bench, resources):
         logs = tmp_path / "logs"
-        done = _record("--config", str(bench), "--seconds", "1", "--no-dark", "--logs", str(logs), "--quiet", *ARM)
+        done = _record(
+            "--config", str(bench), "--seconds", "1", "--no-dark", "--logs", str(logs), "--quiet", *ARM
+        )
         assert done.returncode == 0, done.stderr
         status, events = _events(logs)
         assert status == "complete"
@@ -67,7 +70,9 @@ def test_a_digitiser_left_acquiring_does_not_block_the_next_run(tmp_path):
     with serve_external(tmp_path) as (bench, resources):
         plain_query(resources["detector"], "INIT")  # as a run that crashed leaves it
         logs = tmp_path / "logs"
-        done = _record("--config", str(bench), "--seconds", "1", "--no-dark", "--logs", str(logs), "--quiet", *ARM)
+        done = _record(
+            "--config", str(bench), "--seconds", "1", "--no-dark", "--logs", str(logs), "--quiet", *ARM
+        )
         assert done.returncode == 0, done.stderr
         status, events = _events(logs)
         assert status == "complete"
@@ -78,9 +83,25 @@ def test_the_driver_switching_its_output_off_by_itself_trips(tmp_path):
     # "another connection sends the off command": a second client of the simulated driver
     with serve_external(tmp_path) as (bench, resources):
         logs = tmp_path / "logs"
-        proc = subprocess.Popen([sys.executable, "-m", "bench", "record", "--config", str(bench), "--seconds", "30",
-                                 "--no-dark", "--logs", str(logs), *ARM],
-                                stdout=subprocess.PIPE, stderr=subprocess.PIPE, text=True)
+        proc = subprocess.Popen(
+            [
+                sys.executable,
+                "-m",
+                "bench",
+                "record",
+                "--config",
+                str(bench),
+                "--seconds",
+                "30",
+                "--no-dark",
+                "--logs",
+                str(logs),
+                *ARM,
+            ],
+            stdout=subprocess.PIPE,
+            stderr=subprocess.PIPE,
+            text=True,
+        )
         try:
             _read_until(proc, r"guard emitting", timeout=60)
             assert plain_query(resources["pump"], "OUTP?") == "1"
@@ -97,4 +118,3 @@ def test_the_driver_switching_its_output_off_by_itself_trips(tmp_path):
         assert plain_query(resources["pump"], "OUTP?") == "0"
         # the trip came soon after the reading that showed it (within the guard's grace and a poll)
         assert trips[0].data.get("latency_s") is not None and trips[0].data["latency_s"] < 1.0
-

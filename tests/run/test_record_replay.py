@@ -73,7 +73,10 @@ def test_reanalysis_is_stored_beside_the_original(recorded, capsys):
     with RunReader(path) as r:
         live = r.final_estimate(1)
         n_blocks = r.block_count()
-    assert main(["replay", run_id, "--logs", str(logs), "--headless", "--json", "--set", "sample.length=5.1mm"]) == 0
+    assert (
+        main(["replay", run_id, "--logs", str(logs), "--headless", "--json", "--set", "sample.length=5.1mm"])
+        == 0
+    )
     out = json.loads(capsys.readouterr().out)
     with RunReader(path) as r:
         assert r.block_count() == n_blocks  # raw data untouched

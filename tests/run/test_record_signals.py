@@ -41,15 +41,18 @@ def _read_until(proc: subprocess.Popen, pattern: str, timeout: float) -> list[st
         lines.append(line.rstrip("\n"))
         if re.search(pattern, line):
             return lines
-    raise AssertionError(f"no line matching {pattern!r} within {timeout} s; got {lines!r}; "
-                         f"stderr: {proc.stderr.read() if proc.poll() is not None else ''}")
+    raise AssertionError(
+        f"no line matching {pattern!r} within {timeout} s; got {lines!r}; "
+        f"stderr: {proc.stderr.read() if proc.poll() is not None else ''}"
+    )
 
 
 @contextlib.contextmanager
 def serve_external(tmp_path, *sim_args: str):
     """`gainbench sim serve` in its own process, and a bench file that points at it."""
-    proc = subprocess.Popen(_gainbench("sim", "serve", *sim_args), stdout=subprocess.PIPE, stderr=subprocess.PIPE,
-                            text=True)
+    proc = subprocess.Popen(
+        _gainbench("sim", "serve", *sim_args), stdout=subprocess.PIPE, stderr=subprocess.PIPE, text=True
+    )
     try:
         resources = {}
         deadline = time.monotonic() + 30
@@ -65,7 +68,9 @@ def serve_external(tmp_path, *sim_args: str):
             head = f"[instruments.{role}]"
             start = text.index(head)
             stop = text.index('resource = "simulated"', start)
-            text = text[:stop] + f'resource = "{resources[role]}"' + text[stop + len('resource = "simulated"'):]
+            text = (
+                text[:stop] + f'resource = "{resources[role]}"' + text[stop + len('resource = "simulated"') :]
+            )
         bench = tmp_path / "external.toml"
         bench.write_text(text, encoding="utf-8")
         yield bench, resources
@@ -105,14 +110,18 @@ def plain_query(resource: str, command: str) -> str:
         rm.close()
 
 
-@pytest.mark.parametrize(("sig", "status"), [(signal.SIGINT, 130), (signal.SIGTERM, 143), (signal.SIGHUP, 129)])
+@pytest.mark.parametrize(
+    ("sig", "status"), [(signal.SIGINT, 130), (signal.SIGTERM, 143), (signal.SIGHUP, 129)]
+)
 def test_ctrl_c_or_termination_leaves_the_pump_off(external_sim, tmp_path, sig, status):
     # Ctrl-C, `kill PID` (SIGTERM) and a closed terminal (SIGHUP) all end the run as a quit does
     bench, resources = external_sim
     logs = tmp_path / "logs"
     proc = subprocess.Popen(
         _gainbench("record", "--config", str(bench), "--seconds", "60", "--logs", str(logs), *ARM),
-        stdout=subprocess.PIPE, stderr=subprocess.PIPE, text=True,
+        stdout=subprocess.PIPE,
+        stderr=subprocess.PIPE,
+        text=True,
     )
     try:
         _read_until(proc, r"guard emitting", timeout=60)
@@ -136,7 +145,9 @@ def test_kill_9_loses_at_most_the_last_flush_interval(tmp_path):
     logs = tmp_path / "logs"
     proc = subprocess.Popen(
         _gainbench("record", "--seconds", "60", "--logs", str(logs), *ARM),
-        stdout=subprocess.PIPE, stderr=subprocess.PIPE, text=True,
+        stdout=subprocess.PIPE,
+        stderr=subprocess.PIPE,
+        text=True,
     )
     try:
         lines = _read_until(proc, r"guard emitting", timeout=60)
@@ -165,7 +176,9 @@ def test_simulator_stops_when_its_parent_is_killed(tmp_path):
     logs = tmp_path / "logs"
     proc = subprocess.Popen(
         _gainbench("record", "--seconds", "60", "--logs", str(logs), *ARM),
-        stdout=subprocess.PIPE, stderr=subprocess.PIPE, text=True,
+        stdout=subprocess.PIPE,
+        stderr=subprocess.PIPE,
+        text=True,
     )
     try:
         _read_until(proc, r"guard emitting", timeout=60)
@@ -202,8 +215,12 @@ def _double_ctrl_c(external_sim, tmp_path, tries: int) -> None:
         gap = _DOUBLE_GAPS[k % len(_DOUBLE_GAPS)]
         logs = tmp_path / f"logs{k}"
         proc = subprocess.Popen(
-            _gainbench("record", "--config", str(bench), "--seconds", "60", "--no-dark", "--logs", str(logs), *ARM),
-            stdout=subprocess.PIPE, stderr=subprocess.PIPE, text=True,
+            _gainbench(
+                "record", "--config", str(bench), "--seconds", "60", "--no-dark", "--logs", str(logs), *ARM
+            ),
+            stdout=subprocess.PIPE,
+            stderr=subprocess.PIPE,
+            text=True,
         )
         try:
             try:
@@ -226,8 +243,10 @@ def _double_ctrl_c(external_sim, tmp_path, tries: int) -> None:
         with RunReader(run_file) as r:
             status = r.status
         if (proc.returncode, output, status) != (130, "0", "complete"):
-            failures.append(f"try {k} (gap {gap * 1e3:.1f} ms): exit {proc.returncode}, pump OUTP? {output}, "
-                            f"run {status}; stderr: {proc.stderr.read()[-400:]}")
+            failures.append(
+                f"try {k} (gap {gap * 1e3:.1f} ms): exit {proc.returncode}, pump OUTP? {output}, "
+                f"run {status}; stderr: {proc.stderr.read()[-400:]}"
+            )
     assert not failures, f"{len(failures)} of {tries} tries failed:\n" + "\n".join(failures)
 
 
@@ -250,7 +269,10 @@ def test_terminal_ctrl_c_on_the_built_in_bench_ends_the_run_without_faults(tmp_p
     logs = tmp_path / "logs"
     proc = subprocess.Popen(
         _gainbench("record", "--seconds", "60", "--logs", str(logs), *ARM),
-        stdout=subprocess.PIPE, stderr=subprocess.PIPE, text=True, start_new_session=True,
+        stdout=subprocess.PIPE,
+        stderr=subprocess.PIPE,
+        text=True,
+        start_new_session=True,
     )
     try:
         _read_until(proc, r"guard emitting", timeout=60)

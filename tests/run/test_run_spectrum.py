@@ -47,8 +47,12 @@ def _bench_text() -> str:
 def _expected_sigma() -> dict[str, float]:
     rows = np.array([[float(x) for x in line.split(",")] for line in SPECTRUM.splitlines()[2:]])
     lam, sa, se = rows[:, 0], rows[:, 1] * 1e-4, rows[:, 2] * 1e-4  # nm, cm^2 -> m^2
-    return {"probe_emission": float(np.interp(1030, lam, se)), "probe_absorption": float(np.interp(1030, lam, sa)),
-            "pump_absorption": float(np.interp(940, lam, sa)), "pump_emission": float(np.interp(940, lam, se))}
+    return {
+        "probe_emission": float(np.interp(1030, lam, se)),
+        "probe_absorption": float(np.interp(1030, lam, sa)),
+        "pump_absorption": float(np.interp(940, lam, sa)),
+        "pump_emission": float(np.interp(940, lam, se)),
+    }
 
 
 @pytest.fixture(scope="module")
@@ -63,8 +67,19 @@ def recorded(tmp_path_factory):
     try:
         buf = io.StringIO()
         with redirect_stdout(buf):
-            code = main(["record", "--config", str(Path("..") / "bench" / "bench.toml"), "--seconds", "1",
-                         "--quiet", "--logs", "logs", *ARM])
+            code = main(
+                [
+                    "record",
+                    "--config",
+                    str(Path("..") / "bench" / "bench.toml"),
+                    "--seconds",
+                    "1",
+                    "--quiet",
+                    "--logs",
+                    "logs",
+                    *ARM,
+                ]
+            )
     finally:
         os.chdir(here)
     assert code == 0, buf.getvalue()
@@ -97,7 +112,9 @@ def test_replay_gives_the_same_estimates_after_the_spectrum_file_changed(recorde
     root, path = recorded
     csv = root / "bench" / "spectra" / "xs.csv"
     if change == "edited":
-        csv.write_text(SPECTRUM.replace("2.60e-20", "5.00e-20").replace("1.60e-20", "0.40e-20"), encoding="utf-8")
+        csv.write_text(
+            SPECTRUM.replace("2.60e-20", "5.00e-20").replace("1.60e-20", "0.40e-20"), encoding="utf-8"
+        )
     else:
         csv.unlink(missing_ok=True)
     try:
@@ -119,8 +136,9 @@ def test_replay_gives_the_same_estimates_after_the_spectrum_file_changed(recorde
 def test_a_run_without_a_stored_spectrum_still_reads_the_file(recorded, tmp_path):
     root, _ = recorded
     cfg = load_bench(root / "bench" / "bench.toml")
-    w = RunWriter.create(tmp_path, bench_text=cfg.text, bench_source=cfg.source,
-                         meta={"bench_overrides": dict(cfg.overrides)})  # as an older gainbench wrote it
+    w = RunWriter.create(
+        tmp_path, bench_text=cfg.text, bench_source=cfg.source, meta={"bench_overrides": dict(cfg.overrides)}
+    )  # as an older gainbench wrote it
     w.close()
     with RunReader(w.path) as r:
         assert "spectrum" not in r.meta
@@ -148,7 +166,9 @@ def test_a_derived_column_is_derived_again_only_for_a_corrected_temperature(tmp_
 
     source = Path(__file__).parents[1] / "data" / "spectra" / "absorption_only.csv"
     eps = float(physics.photon_energy(975e-9))
-    stored = spectra.StoredSpectrum.from_stored(spectra.stored_form(source, epsilon=eps, temperature=295.0), "run")
+    stored = spectra.StoredSpectrum.from_stored(
+        spectra.stored_form(source, epsilon=eps, temperature=295.0), "run"
+    )
     assert stored.spectrum(eps, 295.0) is stored.table  # as recorded: the stored table itself
     direct = spectra.load_spectrum(source, epsilon=eps, temperature=300.0)
     again = stored.spectrum(eps, 300.0)  # a re-analysis with sample.temperature corrected
@@ -165,8 +185,9 @@ def test_the_text_and_overrides_alone_find_the_spectrum_from_another_folder(reco
     cfg = load_bench(root / "bench" / "bench.toml")
     monkeypatch.chdir(tmp_path)
     (tmp_path / "copy.toml").write_text(cfg.text, encoding="utf-8")
-    again = load_bench_text(cfg.text, str(tmp_path / "copy.toml"), overrides=dict(cfg.overrides),
-                            base_dir=tmp_path)
+    again = load_bench_text(
+        cfg.text, str(tmp_path / "copy.toml"), overrides=dict(cfg.overrides), base_dir=tmp_path
+    )
     assert again.sample.sigma == cfg.sample.sigma
 
 

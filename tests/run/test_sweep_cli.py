@@ -40,14 +40,25 @@ def _thin_sample_p_sat(cfg) -> float:
     s = cfg.sample
     h_nu = constants.h * constants.c / cfg.pump.wavelength
     i_sat = h_nu / ((s.sigma.pump_absorption + s.sigma.pump_emission) * s.upper_state_lifetime)
-    return i_sat * math.pi * cfg.pump.beam_diameter ** 2 / 4
+    return i_sat * math.pi * cfg.pump.beam_diameter**2 / 4
 
 
 @pytest.mark.parametrize("seed", [11, pytest.param(12, marks=pytest.mark.slow)])  # the second in the slow set
 def test_sweep_has_every_step_and_a_fit_that_matches_the_rate_equations(tmp_path, capsys, seed):
     logs = tmp_path / "logs"
-    code = main(["record", "--mode", "sweep", "--logs", str(logs), "--quiet", *ARM,
-                 "--set", f"simulation.seed={seed}"])
+    code = main(
+        [
+            "record",
+            "--mode",
+            "sweep",
+            "--logs",
+            str(logs),
+            "--quiet",
+            *ARM,
+            "--set",
+            f"simulation.seed={seed}",
+        ]
+    )
     assert code == 0
     run_id = capsys.readouterr().out.strip().splitlines()[-1]
     assert main(["summary", run_id, "--logs", str(logs), "--json"]) == 0

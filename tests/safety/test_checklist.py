@@ -57,10 +57,25 @@ def run(answers, readings=GOOD_READINGS, operator="ana", items=None, clock=None)
 def test_items_in_order_one_eyewear_item_per_wavelength():
     items = cl.checklist_items(CFG)
     assert [i.id for i in items] == [
-        "interlock", "eyewear@940nm", "eyewear@1030nm", "beam_enclosed", "beam_dumps", "warning_sign",
-        "mount_temperature", "current_limit",
+        "interlock",
+        "eyewear@940nm",
+        "eyewear@1030nm",
+        "beam_enclosed",
+        "beam_dumps",
+        "warning_sign",
+        "mount_temperature",
+        "current_limit",
     ]
-    assert [i.kind for i in items] == ["check", "eyewear", "eyewear", "confirm", "confirm", "confirm", "check", "check"]
+    assert [i.kind for i in items] == [
+        "check",
+        "eyewear",
+        "eyewear",
+        "confirm",
+        "confirm",
+        "confirm",
+        "check",
+        "check",
+    ]
     assert items[1].lasers == ("pump",) and items[2].lasers == ("probe",)
 
 
@@ -75,7 +90,9 @@ def test_required_od_matches_a_hand_calculation():
     assert items["eyewear@940nm"].required_od == 4
     assert "OD 3.88 exact" in items["eyewear@940nm"].note
     assert items["eyewear@1030nm"].required_od == 0
-    assert math.log10((8.82 / (math.pi * 3.5e-3**2)) / (10 * 10 ** (0.002 * 240))) == pytest.approx(3.880, abs=1e-3)
+    assert math.log10((8.82 / (math.pi * 3.5e-3**2)) / (10 * 10 ** (0.002 * 240))) == pytest.approx(
+        3.880, abs=1e-3
+    )
 
 
 def test_prompts_show_the_caution_and_wavelength():
@@ -88,9 +105,15 @@ def test_prompts_show_the_caution_and_wavelength():
 
 
 def test_the_simulated_bench_asks_the_same_questions():
-    real = load_bench(overrides={"bench.simulated": "false", **{
-        f"instruments.{role}.resource": f"TCPIP::192.0.2.{k}::5025::SOCKET"  # TEST-NET-1 (RFC 5737)
-        for k, role in enumerate(("detector", "pump", "shutter"), start=1)}})
+    real = load_bench(
+        overrides={
+            "bench.simulated": "false",
+            **{
+                f"instruments.{role}.resource": f"TCPIP::192.0.2.{k}::5025::SOCKET"  # TEST-NET-1 (RFC 5737)
+                for k, role in enumerate(("detector", "pump", "shutter"), start=1)
+            },
+        }
+    )
     assert CFG.simulated and not real.simulated
     assert cl.checklist_items(real) == cl.checklist_items(CFG)
 
@@ -108,8 +131,9 @@ def test_a_wavelength_the_tool_cannot_evaluate_refuses_arming():
     items = cl.checklist_items(cfg)
     eyewear = [i for i in items if i.kind == cl.EYEWEAR and i.required_od is None]
     assert eyewear and "cannot compute" in eyewear[0].prompt
-    result = cl.evaluate(items, ca.answers_from_flags("ana", {2900e-9: 7, 1030e-9: 2}, True), GOOD_READINGS, "ana",
-                         FakeClock())
+    result = cl.evaluate(
+        items, ca.answers_from_flags("ana", {2900e-9: 7, 1030e-9: 2}, True), GOOD_READINGS, "ana", FakeClock()
+    )
     assert not result.passed
     assert any("could not be computed" in r for r in result.refusals)
 
@@ -240,7 +264,9 @@ def test_each_result_arms_the_guard_once():
 # Flags and the terminal
 
 
-@pytest.mark.parametrize(("text", "expected"), [("976nm=5", (976e-9, 5.0)), (" 1.03 um = 2.5 ", (1030e-9, 2.5))])
+@pytest.mark.parametrize(
+    ("text", "expected"), [("976nm=5", (976e-9, 5.0)), (" 1.03 um = 2.5 ", (1030e-9, 2.5))]
+)
 def test_parse_eyewear_flag(text, expected):
     wavelength, od = ca.parse_eyewear_flag(text)
     assert wavelength == pytest.approx(expected[0]) and od == expected[1]
@@ -276,7 +302,9 @@ def test_interactive_asks_one_at_a_time_and_dates_each_answer():
     input_fn, asked = scripted(["5", "2", "yes", "y", "YES"])
     shown: list[str] = []
     clock = FakeClock(step=1.0)
-    answers = ca.run_interactive(items, input_fn, shown.append, operator="ana", readings=GOOD_READINGS, clock=clock)
+    answers = ca.run_interactive(
+        items, input_fn, shown.append, operator="ana", readings=GOOD_READINGS, clock=clock
+    )
     assert len(asked) == 5  # the three checks are shown, not asked
     assert "940 nm" in asked[0] and "OD 4 or more" in asked[0]
     assert "1030 nm" in asked[1]

@@ -43,8 +43,12 @@ def check_probe_floor(r):
     if not low.any():
         return None
     i = int(np.argmax(low))
-    return TripCondition(PROBE_LOW, f"probe signal {probe[i]:.3g} V is below its floor {PROBE_FLOOR:g} V at "
-                         f"t={r.t[i]:.3f} s", float(r.t[i]), DETECTOR)
+    return TripCondition(
+        PROBE_LOW,
+        f"probe signal {probe[i]:.3g} V is below its floor {PROBE_FLOOR:g} V at t={r.t[i]:.3f} s",
+        float(r.t[i]),
+        DETECTOR,
+    )
 
 
 def probe_floor_holds(e):
@@ -54,7 +58,11 @@ def probe_floor_holds(e):
 
 
 PROBE_FLOOR_RECORD = Condition(
-    PROBE_LOW, DETECTOR_FEED, (PROBE,), check=check_probe_floor, still_holds=probe_floor_holds,
+    PROBE_LOW,
+    DETECTOR_FEED,
+    (PROBE,),
+    check=check_probe_floor,
+    still_holds=probe_floor_holds,
     summary="trips when the probe signal falls below its floor; clears on a fresh block above it",
 )
 
@@ -111,13 +119,17 @@ class MemoryPump:
 def detector_block(t0: float, probe: np.ndarray, seq: int = 0) -> Block:
     n = probe.shape[0]
     data = np.column_stack([probe, np.full(n, 0.6), np.full(n, 0.5)])
-    return Block("detector", seq, t0, 1.0 / RATE, int(round(t0 * RATE)), (PROBE, REFERENCE, PUMP_MONITOR), data)
+    return Block(
+        "detector", seq, t0, 1.0 / RATE, int(round(t0 * RATE)), (PROBE, REFERENCE, PUMP_MONITOR), data
+    )
 
 
 def emitting_guard(clock: Clock, events: list) -> tuple[GuardedPump, TripMonitor, MemoryPump]:
     monitor = TripMonitor(CFG, started_at=0.0)
     pump = MemoryPump()
-    gp = GuardedPump(pump, clock=clock, monitor=monitor, max_current=CFG.max_current, event_sink=events.append)
+    gp = GuardedPump(
+        pump, clock=clock, monitor=monitor, max_current=CFG.max_current, event_sink=events.append
+    )
     gp.start()
     clock.t = 0.05
     gp.arm(ChecklistResult(True, [], [], "ana", clock.t, uuid.uuid4().hex), who="ana")
@@ -206,8 +218,14 @@ def test_a_pump_reading_of_the_output_on_while_not_emitting_commands_it_off_agai
     clock, events = Clock(), []
     monitor = TripMonitor(CFG, started_at=0.0)
     pump = MemoryPump()
-    gp = GuardedPump(pump, clock=clock, monitor=monitor, max_current=CFG.max_current, event_sink=events.append,
-                     sleep=lambda s: None)
+    gp = GuardedPump(
+        pump,
+        clock=clock,
+        monitor=monitor,
+        max_current=CFG.max_current,
+        event_sink=events.append,
+        sleep=lambda s: None,
+    )
     pump.stuck_on = True  # every off command is accepted and the output stays on
     clock.t = 1.0
     gp.start()

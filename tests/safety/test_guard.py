@@ -31,8 +31,9 @@ def passed(at: float, operator: str = "ana") -> ChecklistResult:
 
 
 def failed(at: float, operator: str = "ana") -> ChecklistResult:
-    return ChecklistResult(False, ["eyewear OD 3 at 940 nm is below the OD 4 required"], [], operator, at,
-                           uuid.uuid4().hex)
+    return ChecklistResult(
+        False, ["eyewear OD 3 at 940 nm is below the OD 4 required"], [], operator, at, uuid.uuid4().hex
+    )
 
 
 @dataclass
@@ -126,8 +127,11 @@ def test_expected_covers_every_pair_and_so_does_the_table():
         assert set(g.TRANSITIONS[state]) == set(g.EVENT_TYPES), state
 
 
-@pytest.mark.parametrize(("state", "kind"), sorted(EXPECTED, key=lambda p: (p[0], p[1].__name__)),
-                         ids=lambda x: x if isinstance(x, str) else x.__name__)
+@pytest.mark.parametrize(
+    ("state", "kind"),
+    sorted(EXPECTED, key=lambda p: (p[0], p[1].__name__)),
+    ids=lambda x: x if isinstance(x, str) else x.__name__,
+)
 def test_every_state_event_pair(state, kind):
     accepted, after, actions = EXPECTED[(state, kind)]
     d = drive(state)

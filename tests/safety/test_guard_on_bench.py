@@ -25,14 +25,14 @@ from bench.store import RunReader
 LATENCY_BOUND = 0.100
 
 
-
-
 @pytest.fixture
 def emitting(tmp_path):
     # stale readings get their own test below; a loaded machine must not trip the others
     cfg = load_bench_text(load_bench().text, "demo", overrides={"guard.stale_after": "2 s"})
     current = 6.0
-    m = Measurement(cfg, log_dir=tmp_path, settings={"pump_current": current, "pump_power": cfg.pump.power_at(current)})
+    m = Measurement(
+        cfg, log_dir=tmp_path, settings={"pump_current": current, "pump_power": cfg.pump.power_at(current)}
+    )
     with m:
         m.capture_baseline(0.1)
         result = m.arm(answers_from_flags("tester", {940e-9: 5, 1030e-9: 2}, True), "tester")

@@ -51,7 +51,9 @@ def test_random_sequences_never_emit_without_a_fresh_passed_checklist(steps):
             if reuse and previous is not None:
                 result = previous
             else:
-                result = ChecklistResult(ok, [] if ok else ["refused"], [], "ana", now - age, uuid.uuid4().hex)
+                result = ChecklistResult(
+                    ok, [] if ok else ["refused"], [], "ana", now - age, uuid.uuid4().hex
+                )
                 previous = result
             event = g.Arm(result, who)
         elif name == "emit":

@@ -123,8 +123,15 @@ def make(**kwargs):
     clock = kwargs.pop("clock", None) or FakeClock()
     pump = kwargs.pop("pump", None) or FakePump(clock)
     events: list = []
-    gp = GuardedPump(pump, g.Guard(), clock=clock, event_sink=events.append, sleep=lambda s: None,
-                     max_current=9.0, **kwargs)
+    gp = GuardedPump(
+        pump,
+        g.Guard(),
+        clock=clock,
+        event_sink=events.append,
+        sleep=lambda s: None,
+        max_current=9.0,
+        **kwargs,
+    )
     pump.guarded = gp
     return gp, pump, clock, events
 
@@ -214,7 +221,9 @@ def test_off_command_failure_closes_the_shutter_and_is_logged_loudly(caplog):
     assert len(offs) >= 3  # retried (the follow-up trip tries again)
     faults = [e for e in events if e.kind == "fault"]
     assert faults and "OFF COMMAND FAILED" in faults[0].text and faults[0].data["shutter_closed"] is True
-    assert any(r.levelno == logging.CRITICAL and "OFF COMMAND FAILED" in r.getMessage() for r in caplog.records)
+    assert any(
+        r.levelno == logging.CRITICAL and "OFF COMMAND FAILED" in r.getMessage() for r in caplog.records
+    )
     assert gp.state == g.TRIPPED and g.PUMP_OFF_FAILED in gp.held
     trip = [e for e in events if e.kind == "trip"][0]
     assert trip.data["pump_off_ok"] is False and trip.data["latency_s"] is None
@@ -372,7 +381,9 @@ def test_acknowledge_refused_until_fresh_readings_show_the_condition_cleared():
     gp, pump, clock, events = make(clock=clock, monitor=monitor)
     gp.start()
     arm_and_emit(gp, clock)
-    gp.trip_on(monitor.feed_pump(pump_block(clock(), interlock=0.0, on=1.0), output_off_since=gp.output_off_since))
+    gp.trip_on(
+        monitor.feed_pump(pump_block(clock(), interlock=0.0, on=1.0), output_off_since=gp.output_off_since)
+    )
     assert gp.state == g.TRIPPED and not pump.on
     with pytest.raises(g.GuardRefused, match="interlock"):
         gp.acknowledge("ana")
@@ -462,8 +473,12 @@ def test_two_threads_never_switch_on_outside_emitting():
 
 
 # Arming and emitting are listed twice so that random sequences often reach emission.
-OPS = st.lists(st.sampled_from(["arm", "emit", "arm", "emit", "stop", "disarm", "trip", "ack", "fail_off", "heal",
-                                "interlock"]), max_size=30)
+OPS = st.lists(
+    st.sampled_from(
+        ["arm", "emit", "arm", "emit", "stop", "disarm", "trip", "ack", "fail_off", "heal", "interlock"]
+    ),
+    max_size=30,
+)
 
 
 @settings(max_examples=300, deadline=None)
@@ -529,7 +544,9 @@ def feed_drop(monitor, t_off: float) -> list:
     data = np.column_stack([probe, np.full(n, 0.6)])
     found = []
     for k in range(0, n, 1000):
-        found += monitor.feed_detector(Block("detector", k, float(t[k]), 1 / rate, k, (P, R), data[k:k + 1000]), 2.0)
+        found += monitor.feed_detector(
+            Block("detector", k, float(t[k]), 1 / rate, k, (P, R), data[k : k + 1000]), 2.0
+        )
     return found
 
 

@@ -84,7 +84,7 @@ def test_od_1550nm_1w_2mm_10s():
         (1300.0, 40.0),  # ANSI Z136.1, 1200-1400 nm, t >= 10 s: 5 C_C = 40 mW/cm^2 (from memory)
         (1550.0, 100.0),  # ANSI Z136.1, 1400 nm and up, t >= 10 s: 100 mW/cm^2 (from memory)
         (2000.0, 100.0),  # same band rule
-        (800.0, 10 ** 0.2),  # 2006/25/EC Table 2.3, row 700-1050 nm: 1 C_A mW/cm^2, C_A = 10^0.2
+        (800.0, 10**0.2),  # 2006/25/EC Table 2.3, row 700-1050 nm: 1 C_A mW/cm^2, C_A = 10^0.2
     ],
 )
 def test_long_exposure_limits(wavelength_nm, expected_mw_per_cm2):
@@ -114,7 +114,7 @@ def test_1400_to_1500_and_1800_to_2600_nm_quarter_power_law():
 def test_near_infrared_short_exposure_uses_c_a_and_c_c():
     # 2006/25/EC Table 2.2, row 700-1050 nm: H = 1.8 C_A t^0.75 mJ/cm^2 (C_A(900) = 10^0.4);
     # row 1050-1400 nm: 9 C_C t^0.75 mJ/cm^2 (C_C(1300) = 8, C_C(1100) = 1).
-    assert ls.mpe(900 * NM, 1.0).radiant_exposure == pytest.approx(18.0 * 10 ** 0.4)
+    assert ls.mpe(900 * NM, 1.0).radiant_exposure == pytest.approx(18.0 * 10**0.4)
     assert ls.mpe(1300 * NM, 1.0).radiant_exposure == pytest.approx(90.0 * 8.0)
     assert ls.mpe(1100 * NM, 1.0).radiant_exposure == pytest.approx(90.0)
 
@@ -162,8 +162,7 @@ def test_photochemical_with_c_b_and_thermal_elsewhere():
         (500.0, 3e4, 10.0),  # C_B = 10: photochemical and thermal limits equal
     ],
 )
-def test_photochemical_limit_beyond_100_s_is_one_c_b_watt_per_m2(wavelength_nm, t,
-                                                                 expected_w_per_m2):
+def test_photochemical_limit_beyond_100_s_is_one_c_b_watt_per_m2(wavelength_nm, t, expected_w_per_m2):
     # The pre-2000 small-source form (100 C_B J/m^2 up to 1e4 s, then 0.01 C_B W/m^2) gives
     # 0.1 W/m^2 at 1000 s and 0.01 W/m^2 at 2e4 s: 1 and 2 OD stricter than the Directive.
     assert ls.mpe(wavelength_nm * NM, t).irradiance == pytest.approx(expected_w_per_m2, rel=1e-9)
@@ -186,7 +185,7 @@ def test_photochemical_od_for_a_blue_beam_over_a_working_day():
 def test_correction_factors():
     # 2006/25/EC Table 2.5 (as reproduced in Norwegian regulation section 11-5).
     assert ls.correction_c_a(700 * NM) == pytest.approx(1.0)
-    assert ls.correction_c_a(1050 * NM) == pytest.approx(10 ** 0.7)  # 5.01
+    assert ls.correction_c_a(1050 * NM) == pytest.approx(10**0.7)  # 5.01
     assert ls.correction_c_a(1050 * NM) == pytest.approx(5.01, abs=0.005)
     assert ls.correction_c_a(1200 * NM) == pytest.approx(5.0)
     assert ls.correction_c_a(550 * NM) == pytest.approx(1.0)
@@ -291,8 +290,7 @@ def test_a_strong_step_edge_is_pointed_out():
 def test_shortest_duration_follows_the_row_of_an_edge_wavelength():
     # 1050 nm is in the 700-1050 nm row, which Table 2.2 starts at 18 us (from memory);
     # 1400 nm is in the 1050-1400 nm row (50 us), 1500 nm in the 1400-1500 nm row (1 ms).
-    assert ls.mpe(1050 * NM, 18e-6).radiant_exposure == pytest.approx(
-        18.0 * 5.011872 * 18e-6**0.75, rel=1e-6)
+    assert ls.mpe(1050 * NM, 18e-6).radiant_exposure == pytest.approx(18.0 * 5.011872 * 18e-6**0.75, rel=1e-6)
     assert ls.mpe(1400 * NM, 50e-6).radiant_exposure == pytest.approx(720.0 * 50e-6**0.75)
     with pytest.raises(ValueError, match="exposure_time"):
         ls.mpe(1500 * NM, 0.5e-3)
@@ -312,7 +310,7 @@ def test_limiting_aperture_rules():
     assert ls.limiting_aperture(1400.001 * NM, 10.0) == pytest.approx(3.5 * MM)
     assert ls.limiting_aperture(1550 * NM, 0.1) == pytest.approx(1 * MM)
     assert ls.limiting_aperture(1550 * NM, 1.0) == pytest.approx(1.5 * MM)
-    assert ls.limiting_aperture(1550 * NM, 4.0) == pytest.approx(1.5 * MM * 4.0 ** 0.375)
+    assert ls.limiting_aperture(1550 * NM, 4.0) == pytest.approx(1.5 * MM * 4.0**0.375)
     assert ls.limiting_aperture(2600 * NM, 1e4) == pytest.approx(3.5 * MM)
 
 
@@ -406,8 +404,17 @@ def test_requirement_is_frozen_and_states_edition_and_caution():
 
 def test_caution_text_defers_to_lso_and_standards():
     text = ls.caution_text()
-    for word in ("calculation aid", "interlock", "LSO", "ANSI Z136.1", "IEC 60825-1", "EN 207",
-                 "L-rating", "diffuse reflections", "pulsed"):
+    for word in (
+        "calculation aid",
+        "interlock",
+        "LSO",
+        "ANSI Z136.1",
+        "IEC 60825-1",
+        "EN 207",
+        "L-rating",
+        "diffuse reflections",
+        "pulsed",
+    ):
         assert word.lower() in text.lower(), word
 
 
@@ -510,14 +517,37 @@ def test_command_text_shows_radiant_exposure_when_the_limit_is_one(cli, capsys):
 
 
 def test_command_json_output(cli, capsys):
-    status = cli(["safety", "--wavelength", "1550 nm", "--power", "1 W", "--beam-diameter", "2 mm",
-                  "--exposure", "10s", "--json"])
+    status = cli(
+        [
+            "safety",
+            "--wavelength",
+            "1550 nm",
+            "--power",
+            "1 W",
+            "--beam-diameter",
+            "2 mm",
+            "--exposure",
+            "10s",
+            "--json",
+        ]
+    )
     data = json.loads(capsys.readouterr().out)
     assert status == 0
     assert set(data) == {
-        "wavelength_m", "power_w", "beam_diameter_m", "exposure_s", "mpe_w_per_m2",
-        "mpe_j_per_m2", "aperture_diameter_m", "aperture_fraction", "exposure_w_per_m2",
-        "od_exact", "od_required", "standard", "formula", "caution",
+        "wavelength_m",
+        "power_w",
+        "beam_diameter_m",
+        "exposure_s",
+        "mpe_w_per_m2",
+        "mpe_j_per_m2",
+        "aperture_diameter_m",
+        "aperture_fraction",
+        "exposure_w_per_m2",
+        "od_exact",
+        "od_required",
+        "standard",
+        "formula",
+        "caution",
     }
     assert data["wavelength_m"] == pytest.approx(1550e-9)
     assert data["power_w"] == pytest.approx(1.0)
@@ -561,7 +591,7 @@ def test_command_worked_case_940_nm(cli, capsys):
     # -> OD 4.
     status = cli(["safety", "--wavelength", "940nm", "--power", "10W", "--beam-diameter", "2mm"])
     out = capsys.readouterr().out
-    od = math.log10(_pupil_irradiance(10.0, 2 * MM, 7 * MM) / (10 * 10 ** 0.48))
+    od = math.log10(_pupil_irradiance(10.0, 2 * MM, 7 * MM) / (10 * 10**0.48))
     assert status == 0
     assert f"{od:.2f}" == "3.93"
     assert "30.2 W/m^2 (3.02 mW/cm^2)" in out
@@ -586,8 +616,7 @@ def test_command_worked_case_532_nm(cli, capsys):
     [
         # Edges belong to the row below (intervals a < lambda <= b); by hand from 2006/25/EC:
         # 1050 nm, Table 2.3 row 700-1050 nm: 10 C_A, C_A = 10^0.7 -> 50.12 W/m^2, 7 mm.
-        ("1050 nm", "10 s", 10 * 10**0.7, 7.0,
-         "Table 2.3 (exposure >= 10 s), row 700 < lambda <= 1050"),
+        ("1050 nm", "10 s", 10 * 10**0.7, 7.0, "Table 2.3 (exposure >= 10 s), row 700 < lambda <= 1050"),
         # 1400 nm, Table 2.3 row 1050-1400 nm: 10 C_A C_C = 10 * 5 * 8 = 400 W/m^2, 7 mm.
         ("1400 nm", "10 s", 400.0, 7.0, "Table 2.3 (exposure >= 10 s), row 1050 < lambda <= 1400"),
         # 1500 nm, 1 s, Table 2.2 row 1400-1500 nm: H = 5600 t^0.25 = 5600 J/m^2 -> 5600 W/m^2;
@@ -600,8 +629,20 @@ def test_command_worked_case_532_nm(cli, capsys):
     ],
 )
 def test_command_on_band_edges(cli, capsys, wavelength, exposure, mpe_w_per_m2, aperture_mm, row):
-    status = cli(["safety", "--wavelength", wavelength, "--power", "1 W", "--beam-diameter", "2 mm",
-                  "--exposure", exposure, "--json"])
+    status = cli(
+        [
+            "safety",
+            "--wavelength",
+            wavelength,
+            "--power",
+            "1 W",
+            "--beam-diameter",
+            "2 mm",
+            "--exposure",
+            exposure,
+            "--json",
+        ]
+    )
     data = json.loads(capsys.readouterr().out)
     assert status == 0
     assert data["mpe_w_per_m2"] == pytest.approx(mpe_w_per_m2, rel=1e-9)
@@ -624,8 +665,7 @@ def test_command_accepts_units_with_and_without_space(cli, capsys):
     first = json.loads(capsys.readouterr().out)
     cli(["safety", "--wavelength", "976 nm", "--power", "10 W", "--beam-diameter", "2 mm", "--json"])
     second = json.loads(capsys.readouterr().out)
-    cli(["safety", "--wavelength", "0.976 um", "--power", "10000 mW", "--beam-diameter", "0.2 cm",
-         "--json"])
+    cli(["safety", "--wavelength", "0.976 um", "--power", "10000 mW", "--beam-diameter", "0.2 cm", "--json"])
     third = json.loads(capsys.readouterr().out)
     assert first == second
     assert third["od_exact"] == pytest.approx(first["od_exact"])

@@ -37,19 +37,36 @@ def test_the_check_passes_within_the_factor_and_names_both_figures_outside_it():
 
 
 def _weak_cfg():
-    return load_bench_text(load_bench().text, "demo", overrides={"pump.slope_efficiency": "1e-6 W/A",
-                                                                 "guard.stale_after": "2 s"})
+    return load_bench_text(
+        load_bench().text, "demo", overrides={"pump.slope_efficiency": "1e-6 W/A", "guard.stale_after": "2 s"}
+    )
 
 
 def test_record_trips_on_a_calibration_that_disagrees_with_the_drivers_power_reading(tmp_path):
     logs = tmp_path / "logs"
-    done = subprocess.run([sys.executable, "-m", "bench", "record", "--seconds", "3", "--logs", str(logs), "--quiet",
-                           *ARM, "--set", "pump.slope_efficiency=1e-6W/A",
-                           # the override lowers the eyewear OD the checklist asks for, which is
-                           # refused without this flag (tests/test_bad_input.py); given, the
-                           # guard's comparison with the driver's reading is the next layer
-                           "--accept-lower-od"],
-                          capture_output=True, text=True, timeout=180)
+    done = subprocess.run(
+        [
+            sys.executable,
+            "-m",
+            "bench",
+            "record",
+            "--seconds",
+            "3",
+            "--logs",
+            str(logs),
+            "--quiet",
+            *ARM,
+            "--set",
+            "pump.slope_efficiency=1e-6W/A",
+            # the override lowers the eyewear OD the checklist asks for, which is
+            # refused without this flag (tests/test_bad_input.py); given, the
+            # guard's comparison with the driver's reading is the next layer
+            "--accept-lower-od",
+        ],
+        capture_output=True,
+        text=True,
+        timeout=180,
+    )
     assert "guard TRIPPED: pump power calibration disagrees" in done.stdout, done.stdout + done.stderr
     (run_file,) = logs.glob("*.gbrun")
     with RunReader(run_file) as r:
@@ -61,12 +78,12 @@ def test_record_trips_on_a_calibration_that_disagrees_with_the_drivers_power_rea
     assert max(row["pump_w"] for row in truth) > 1.0
 
 
-
-
 def test_without_a_driver_power_reading_the_pump_monitor_is_compared(tmp_path):
     cfg = _weak_cfg()
     current = 6.0
-    m = Measurement(cfg, log_dir=tmp_path, settings={"pump_current": current, "pump_power": cfg.pump.power_at(current)})
+    m = Measurement(
+        cfg, log_dir=tmp_path, settings={"pump_current": current, "pump_power": cfg.pump.power_at(current)}
+    )
     with m:
         session = m.instruments["pump"].session
         has = session.has
@@ -85,8 +102,12 @@ def test_without_a_driver_power_reading_the_pump_monitor_is_compared(tmp_path):
 def test_a_right_calibration_does_not_trip(tmp_path, mode):
     cfg = load_bench_text(load_bench().text, "demo", overrides={"guard.stale_after": "2 s"})
     current = 6.0
-    m = Measurement(cfg, mode=mode, log_dir=tmp_path,
-                    settings={"pump_current": current, "pump_power": cfg.pump.power_at(current)})
+    m = Measurement(
+        cfg,
+        mode=mode,
+        log_dir=tmp_path,
+        settings={"pump_current": current, "pump_power": cfg.pump.power_at(current)},
+    )
     with m:
         m.capture_baseline(0.1)
         assert m.arm(answers_from_flags("tester", {940e-9: 5, 1030e-9: 2}, True), "tester").passed

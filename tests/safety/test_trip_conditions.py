@@ -42,8 +42,10 @@ RANGE = 2.0  # V
 
 def pump_block(t0, current=5.0, setpoint=5.0, on=1.0, temp_c=25.0, interlock=1.0, n=1, dt=0.0, seq=0):
     """A pump block; any argument may be an array of n samples."""
-    cols = [np.broadcast_to(np.asarray(v, dtype=float), (n,))
-            for v in (current, setpoint, on, np.asarray(temp_c, dtype=float) + zero_Celsius, interlock)]
+    cols = [
+        np.broadcast_to(np.asarray(v, dtype=float), (n,))
+        for v in (current, setpoint, on, np.asarray(temp_c, dtype=float) + zero_Celsius, interlock)
+    ]
     return Block("pump", seq, t0, dt, -1, PUMP_CHANNELS, np.column_stack(cols))
 
 
@@ -90,10 +92,12 @@ def test_normal_readings_raise_nothing():
     detector = blocks(tt, cols, [2000] * 250)
     for i in range(50):  # the pump polled at 10 Hz, the detector read every 20 ms in between
         t = 0.1 * i
-        found += m.feed_pump(pump_block(t, current=5.0 + 0.05 * math.sin(i), setpoint=5.0, temp_c=25.0 + 0.1 * i / 50,
-                                        seq=i), output_off_since=None)
+        found += m.feed_pump(
+            pump_block(t, current=5.0 + 0.05 * math.sin(i), setpoint=5.0, temp_c=25.0 + 0.1 * i / 50, seq=i),
+            output_off_since=None,
+        )
         found += m.comm_result("pump", True, t)
-        found += feed_all(m, detector[5 * i:5 * i + 5])
+        found += feed_all(m, detector[5 * i : 5 * i + 5])
         found += m.comm_result("detector", True, t + 0.09)
         found += m.check_stale(t + 0.099)
     assert found == []
@@ -116,7 +120,13 @@ def test_interlock_open_seen_at_the_first_open_sample():
 
 @pytest.mark.parametrize(
     ("temp_c", "trips", "word"),
-    [(36.0, True, "above"), (14.0, True, "below"), (34.9, False, ""), (15.1, False, ""), (float("nan"), True, "not a number")],
+    [
+        (36.0, True, "above"),
+        (14.0, True, "below"),
+        (34.9, False, ""),
+        (15.1, False, ""),
+        (float("nan"), True, "not a number"),
+    ],
 )
 def test_mount_temperature_window(temp_c, trips, word):
     m = TripMonitor(CFG)
@@ -173,8 +183,10 @@ def test_not_following_inside_one_vectorised_block():
 
 
 @settings(max_examples=200, deadline=None)
-@given(st.lists(st.tuples(st.floats(0.0, 0.05), st.sampled_from([0.0, 2.0, 5.0])), min_size=1, max_size=60),
-       st.floats(0.0, 0.1))
+@given(
+    st.lists(st.tuples(st.floats(0.0, 0.05), st.sampled_from([0.0, 2.0, 5.0])), min_size=1, max_size=60),
+    st.floats(0.0, 0.1),
+)
 def test_settled_mask_matches_a_plain_loop(steps, settle):
     times = np.cumsum([s[0] for s in steps])
     target = np.array([s[1] for s in steps])
@@ -193,8 +205,11 @@ def test_settled_mask_matches_a_plain_loop(steps, settle):
 def test_output_on_after_the_guard_commanded_it_off():
     m = TripMonitor(CFG, settle_time=0.2)
     assert m.feed_pump(pump_block(10.1, current=0.0, on=1.0), output_off_since=10.0) == []  # within grace
-    (c,) = [x for x in m.feed_pump(pump_block(10.5, current=0.0, on=1.0), output_off_since=10.0)
-            if x.condition == tc.OUTPUT_UNEXPECTED]
+    (c,) = [
+        x
+        for x in m.feed_pump(pump_block(10.5, current=0.0, on=1.0), output_off_since=10.0)
+        if x.condition == tc.OUTPUT_UNEXPECTED
+    ]
     assert c.seen_at == 10.5
     m2 = TripMonitor(CFG)
     found = m2.feed_pump(pump_block(10.5, on=1.0), output_off_since=None)  # commanded on
@@ -219,8 +234,13 @@ def test_output_off_while_the_guard_commands_it_on():
 
 @pytest.mark.parametrize(
     ("channel", "value", "trips"),
-    [(PROBE, 1.92, True), (PROBE, 1.85, False), (REFERENCE, -1.95, True), (PUMP_MONITOR, 2.0, True),
-     (PROBE, float("nan"), True)],
+    [
+        (PROBE, 1.92, True),
+        (PROBE, 1.85, False),
+        (REFERENCE, -1.95, True),
+        (PUMP_MONITOR, 2.0, True),
+        (PROBE, float("nan"), True),
+    ],
 )
 def test_detector_near_full_scale(channel, value, trips):
     # 95 % of 2 V is 1.9 V.
@@ -327,7 +347,9 @@ def test_no_jump_trip_when_the_pump_changed():
     assert feed_all(TripMonitor(CFG), blocks(t, cols, [2000] * 5), pump_steady=False) == []
 
 
-@pytest.mark.parametrize("noted_at", [0.02, 0.08])  # command before the step, and after it by the readings' clock
+@pytest.mark.parametrize(
+    "noted_at", [0.02, 0.08]
+)  # command before the step, and after it by the readings' clock
 def test_commanded_change_excuses_a_jump_within_the_lag_allowance(noted_at):
     # The step shows in the readings at 0.05 s; the guard noted its command at ``noted_at``:
     # a command reaches the driver late, and a digitiser's time stamps can be off from the
@@ -336,7 +358,8 @@ def test_commanded_change_excuses_a_jump_within_the_lag_allowance(noted_at):
     strict = TripMonitor(CFG, settle_time=0.005, lag_allowance=0.0)
     strict.note_pump_change(noted_at)
     assert [x.condition for x in feed_all(strict, blocks(t, cols, [2000] * 5, names=(PROBE, REFERENCE)))] == [
-        tc.TRANSMISSION_JUMP]
+        tc.TRANSMISSION_JUMP
+    ]
     allowing = TripMonitor(CFG, settle_time=0.005, lag_allowance=0.04)
     allowing.note_pump_change(noted_at)
     assert feed_all(allowing, blocks(t, cols, [2000] * 5, names=(PROBE, REFERENCE))) == []

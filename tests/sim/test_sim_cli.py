@@ -21,7 +21,9 @@ ROOT = os.path.dirname(os.path.dirname(os.path.dirname(os.path.abspath(__file__)
 def start(*args: str) -> subprocess.Popen:
     return subprocess.Popen(
         [sys.executable, "-m", "bench", "sim", "serve", *args],
-        cwd=ROOT, stdout=subprocess.PIPE, stderr=subprocess.PIPE,
+        cwd=ROOT,
+        stdout=subprocess.PIPE,
+        stderr=subprocess.PIPE,
     )
 
 
@@ -54,7 +56,9 @@ def test_serve_prints_resources_and_stops_on_signal(sig):
         assert roles["shutter"].startswith("socket://127.0.0.1:")
         rm = pyvisa.ResourceManager("@py")
         try:
-            pump = rm.open_resource(roles["pump"], read_termination="\n", write_termination="\n", timeout=2000)
+            pump = rm.open_resource(
+                roles["pump"], read_termination="\n", write_termination="\n", timeout=2000
+            )
             assert pump.query("*IDN?").startswith("Quillmoor Instruments,QP-40")
             pump.close()
         finally:

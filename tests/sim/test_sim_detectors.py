@@ -46,11 +46,11 @@ def test_noise_level_amplifier_shot_and_quantisation():
     m = model({"simulation.relative_intensity_noise": "0.0", **QUIET}, sample_rate=100e3, voltage_range=2.0)
     sim = m.cfg.simulation
     data, _ = m.generate(60000)
-    step = 2 * 2.0 / 2 ** sim.adc_bits
+    step = 2 * 2.0 / 2**sim.adc_bits
     for col, signal in ((0, sim.probe_signal), (1, sim.reference_signal)):
-        want = math.sqrt(sim.detector_noise ** 2 + SHOT_COEFFICIENT * signal + step ** 2 / 12)
+        want = math.sqrt(sim.detector_noise**2 + SHOT_COEFFICIENT * signal + step**2 / 12)
         assert data[:, col].std() == pytest.approx(want, rel=0.02)
-    monitor_want = math.sqrt(sim.detector_noise ** 2 + step ** 2 / 12)
+    monitor_want = math.sqrt(sim.detector_noise**2 + step**2 / 12)
     assert data[:, 2].std() == pytest.approx(monitor_want, rel=0.02)
 
 
@@ -59,7 +59,7 @@ def test_readings_are_whole_adc_steps(full_scale):
     # two's complement ADC: every reading is a whole number of steps 2R / 2**bits
     m = model(voltage_range=full_scale)
     data, _ = m.generate(5000)
-    step = 2 * full_scale / 2 ** m.cfg.simulation.adc_bits
+    step = 2 * full_scale / 2**m.cfg.simulation.adc_bits
     codes = data / step
     np.testing.assert_array_equal(codes, np.round(codes))
     assert np.all(np.abs(codes) <= 2 ** (m.cfg.simulation.adc_bits - 1))
@@ -72,7 +72,7 @@ def test_adc_clips_at_full_scale():
     # positive full scale reads R - 1 step, negative full scale -R (two's complement)
     v = np.array([-5.0, -2.0, -1.99999, 0.0, 1.99999, 2.0, 7.0])
     out = adc(v.copy(), 2.0, 16)
-    step = 4.0 / 2 ** 16
+    step = 4.0 / 2**16
     assert out[0] == -2.0 and out[1] == -2.0
     assert out[-1] == 2.0 - step and out[-2] == 2.0 - step
     assert out[3] == 0.0
@@ -87,7 +87,7 @@ def test_saturation_clips_and_pushes_one_error_per_episode():
     data, _ = m.generate(10000)  # 0.1 s
     t = np.arange(10000) / 100e3
     inside = ((t >= 0.01) & (t < 0.03)) | ((t >= 0.06) & (t < 0.07))
-    step = 4.0 / 2 ** 16
+    step = 4.0 / 2**16
     assert np.all(data[inside, 0] == 2.0 - step)
     assert np.all(data[~inside, 0] < 1.0)
     errors = m.pop_device_errors()

@@ -34,10 +34,18 @@ def medium(length=L, slices=24, sep=SEP) -> GainMedium:
 
 def flux_drive(flux: float, *, modulation: SquareWave | None = None, probe: bool = False) -> Drive:
     """A drive whose 'current' is the incident pump flux itself (slope 1, no threshold)."""
-    return Drive(envelope=Envelope.constant(flux), modulation=modulation, pump_gate=Gate(), probe_gate=Gate(),
-                 slope=1.0, threshold=0.0, flux_per_watt=1.0,
-                 probe_up=SAS * PHI_S if probe else 0.0, probe_k=(SAS + SES) * PHI_S if probe else 0.0,
-                 ramp_piece=TAU / 4)
+    return Drive(
+        envelope=Envelope.constant(flux),
+        modulation=modulation,
+        pump_gate=Gate(),
+        probe_gate=Gate(),
+        slope=1.0,
+        threshold=0.0,
+        flux_per_watt=1.0,
+        probe_up=SAS * PHI_S if probe else 0.0,
+        probe_k=(SAS + SES) * PHI_S if probe else 0.0,
+        ramp_piece=TAU / 4,
+    )
 
 
 def analytic_beta(phi_p, phi_s=0.0, sas=SAS, ses=SES, sep=SEP):
@@ -139,7 +147,9 @@ def test_four_level_limit():
     w_tau = SAP * PHI * TAU
     assert tl.mean() / N == pytest.approx(w_tau / (1 + w_tau), rel=2e-6)
     assert thin.probe_ln_transmission(np.zeros(2), 0.0, SES) == 0.0
-    assert thin.probe_ln_transmission(tl.state(), 0.0, SES) == pytest.approx(SES * 5e-9 * tl.mean(), rel=1e-12)
+    assert thin.probe_ln_transmission(tl.state(), 0.0, SES) == pytest.approx(
+        SES * 5e-9 * tl.mean(), rel=1e-12
+    )
 
 
 def test_adaptive_steps_match_a_fine_reference():

@@ -177,7 +177,9 @@ def test_mount_temperature_follows_current():
     m.set_pump(current=5.0, on=True)
     m.advance_to(sim.thermal_time_constant)
     rise = sim.mount_heating * 5.0
-    assert m.mount_temperature() == pytest.approx(sim.ambient_temperature + rise * (1 - math.exp(-1)), abs=0.01)
+    assert m.mount_temperature() == pytest.approx(
+        sim.ambient_temperature + rise * (1 - math.exp(-1)), abs=0.01
+    )
     m.set_modulation(100.0)  # half the mean current
     m.advance_to(m.t + 30 * sim.thermal_time_constant)
     assert m.mount_temperature() == pytest.approx(sim.ambient_temperature + rise / 2, abs=1e-3)
@@ -265,8 +267,21 @@ def test_truth_fields():
     m.advance_to(0.1)
     tr = m.truth()
     s = CFG.sample
-    assert set(tr) == {"t", "n2_avg", "beta", "tau", "pump_w", "ln_ratio", "n_total", "length",
-                       "ln_t_pumped", "ln_t_unpumped", "gain_per_m", "n2_probe_only", "inputs_steady_s"}
+    assert set(tr) == {
+        "t",
+        "n2_avg",
+        "beta",
+        "tau",
+        "pump_w",
+        "ln_ratio",
+        "n_total",
+        "length",
+        "ln_t_pumped",
+        "ln_t_unpumped",
+        "gain_per_m",
+        "n2_probe_only",
+        "inputs_steady_s",
+    }
     assert tr["t"] == pytest.approx(0.1)
     assert tr["beta"] == pytest.approx(tr["n2_avg"] / s.n_total)
     assert tr["tau"] == s.upper_state_lifetime and tr["length"] == s.length
@@ -280,8 +295,12 @@ def test_truth_fields():
     slices = m.slice_densities()
     dz = s.length / slices.size
     se, sa = s.sigma.probe_emission, s.sigma.probe_absorption
-    assert tr["ln_t_pumped"] == pytest.approx(float(np.sum(se * slices - sa * (s.n_total - slices)) * dz), rel=1e-12)
-    assert tr["ln_t_unpumped"] == pytest.approx((se * n2_off - sa * (s.n_total - n2_off)) * s.length, rel=1e-12)
+    assert tr["ln_t_pumped"] == pytest.approx(
+        float(np.sum(se * slices - sa * (s.n_total - slices)) * dz), rel=1e-12
+    )
+    assert tr["ln_t_unpumped"] == pytest.approx(
+        (se * n2_off - sa * (s.n_total - n2_off)) * s.length, rel=1e-12
+    )
     assert tr["ln_ratio"] == pytest.approx(tr["ln_t_pumped"] - tr["ln_t_unpumped"], rel=1e-9)
     assert tr["gain_per_m"] == pytest.approx(tr["ln_t_pumped"] / s.length, rel=1e-12)
     assert tr["n2_probe_only"] == n2_off

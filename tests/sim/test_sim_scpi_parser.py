@@ -50,13 +50,20 @@ class Toy:
         def reset():
             self.resets += 1
 
-        self.table = CommandTable(common_commands("Maker,Toy,1,0", reset, self.errors) + [
-            Command("[SOURce]:CURRent:LIMit", set=set_limit, query=lambda p: fmt(self.limit)),
-            Command("[SOURce]:CURRent[:LEVel]", set=set_current, query=lambda p: fmt(self.current)),
-            Command("OUTPut[:STATe]", set=set_output, query=lambda p: "1" if self.output else "0"),
-            Command("FETCh:DATA", query=lambda p: definite_block(b"\x00\n\x01" * int(number(p[0])))),
-            Command("ROUTe:SCAN", set=lambda p: None, query=lambda p: ",".join(map(str, channel_list(p[0], 3)))),
-        ])
+        self.table = CommandTable(
+            common_commands("Maker,Toy,1,0", reset, self.errors)
+            + [
+                Command("[SOURce]:CURRent:LIMit", set=set_limit, query=lambda p: fmt(self.limit)),
+                Command("[SOURce]:CURRent[:LEVel]", set=set_current, query=lambda p: fmt(self.current)),
+                Command("OUTPut[:STATe]", set=set_output, query=lambda p: "1" if self.output else "0"),
+                Command("FETCh:DATA", query=lambda p: definite_block(b"\x00\n\x01" * int(number(p[0])))),
+                Command(
+                    "ROUTe:SCAN",
+                    set=lambda p: None,
+                    query=lambda p: ",".join(map(str, channel_list(p[0], 3))),
+                ),
+            ]
+        )
 
     def session(self) -> ScpiSession:
         return ScpiSession(self.table, self.errors)
@@ -84,7 +91,7 @@ def test_byte_by_byte(toy):
     s = toy.session()
     replies = []
     for i in range(len(MESSAGE)):
-        replies += s.receive(MESSAGE[i:i + 1])
+        replies += s.receive(MESSAGE[i : i + 1])
     assert replies == REPLIES
 
 

@@ -73,8 +73,11 @@ def test_idn_over_pyvisa(sim, rm):
 
 
 def test_wavelength_source_when_configured(rm):
-    text = CFG.text.replace("[guard]", '[instruments.wavelength]\ndriver = "tunable-source"\n'
-                            'resource = "simulated"\nprofile = "qw1-source"\n\n[guard]')
+    text = CFG.text.replace(
+        "[guard]",
+        '[instruments.wavelength]\ndriver = "tunable-source"\n'
+        'resource = "simulated"\nprofile = "qw1-source"\n\n[guard]',
+    )
     cfg = load_bench_text(text, "with-source.toml")
     with SimulatedBench(cfg, speed=10.0) as bench:
         src = open_scpi(rm, bench.resources["wavelength"])
@@ -145,8 +148,10 @@ def test_ascii_fetch_and_truth(sim, rm):
     det = open_scpi(rm, sim.resources["detector"])
     try:
         det.write("CONF:RATE 10000;:FORM:DATA ASC;:INIT")
-        wait_for(lambda: int(det.query("FETC:POS?")) == 0 and float(det.query("SYST:TIME?")) > 0.01,
-                 what="10 ms of acquisition")
+        wait_for(
+            lambda: int(det.query("FETC:POS?")) == 0 and float(det.query("SYST:TIME?")) > 0.01,
+            what="10 ms of acquisition",
+        )
         values = [float(v) for v in det.query("FETC:DATA? 10").split(",")]
         assert len(values) == 30
         truth = det.query("SIM:TRUTH?").split(",")
@@ -268,7 +273,9 @@ def test_garbled_replies(rm):
         port = serial.serial_for_url(bench.resources["shutter"], timeout=2)
         try:
             first = pump.query("*IDN?")
-            assert not first.startswith("Quillmoor") and len(first) == len("Quillmoor Instruments,QP-40,QP40S1123,2.1.4")
+            assert not first.startswith("Quillmoor") and len(first) == len(
+                "Quillmoor Instruments,QP-40,QP40S1123,2.1.4"
+            )
             assert pump.query("*IDN?").startswith("Quillmoor Instruments,QP-40")  # one reply only
             port.write(b"ID\r")
             line = port.readline()
@@ -296,7 +303,7 @@ def test_saturation_over_the_socket(rm):
             wait_for(lambda: float(det.query("SYST:TIME?")) > 0.02, what="20 ms of acquisition")
             det.write("FETC:DATA? 100")
             probe = np.frombuffer(read_block(det), dtype="<f4")
-            assert np.all(probe == np.float32(1.0 - 2.0 / 2 ** 16))
+            assert np.all(probe == np.float32(1.0 - 2.0 / 2**16))
             assert det.query("SYST:ERR?") == '101,"Input over range"'
         finally:
             det.close()
@@ -332,8 +339,10 @@ def test_close_switches_the_pump_off(rm):
         pump.query("*IDN?")
     pump.close()
     bench.close()  # idempotent
-    wait_for(lambda: not [t for t in threading.enumerate() if t.name.startswith("sim-")],
-             what="the bench's threads to end")
+    wait_for(
+        lambda: not [t for t in threading.enumerate() if t.name.startswith("sim-")],
+        what="the bench's threads to end",
+    )
 
 
 def test_fault_on_a_missing_instrument_is_refused():

@@ -38,7 +38,7 @@ def test_whole_and_byte_by_byte():
     s = ShutterSession(hw)
     out = []
     for i in range(len(MESSAGE)):
-        out += s.receive(MESSAGE[i:i + 1])
+        out += s.receive(MESSAGE[i : i + 1])
     assert out == REPLIES
     assert hw.chopping[2] == 50.0 and hw.open[1] is False
 

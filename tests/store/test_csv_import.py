@@ -62,7 +62,9 @@ def test_import_holds_the_file_samples(tmp_path, cfg):
         blocks = list(r.iter_blocks())
     # a block also starts at the first pump-on sample (row 5000), so the baseline is taken before it
     assert [b.n for b in blocks] == [5_000, 10_000, 10_000]
-    assert all(b.channels == ("probe", "reference", "pump_monitor") and b.source == "detector" for b in blocks)
+    assert all(
+        b.channels == ("probe", "reference", "pump_monitor") and b.source == "detector" for b in blocks
+    )
     assert [b.first_index for b in blocks] == [0, 5_000, 15_000]
     data = np.vstack([b.data for b in blocks])
     # The same file read by pandas (independent reader) gives the same numbers.
@@ -132,7 +134,10 @@ def _rows(n, start=0, dt=DT):
         (HEADER + _rows(5) + "1e-5,,0.6,0\n", "line 7, column 'CH1 (V)': is empty"),
         (HEADER + _rows(5) + "1e-5,nan,0.6,0\n", "line 7, column 'CH1 (V)': 'nan' is not a finite number"),
         (HEADER + _rows(5) + "1e-5,0.8\n", "line 7: has 2 fields, so no column 'CH2 (V)'"),
-        (HEADER + _rows(5) + "4e-6,0.8,0.6,0\n", "line 7, column 'Time (s)': time 4e-06 is not after the previous"),
+        (
+            HEADER + _rows(5) + "4e-6,0.8,0.6,0\n",
+            "line 7, column 'Time (s)': time 4e-06 is not after the previous",
+        ),
         (HEADER + _rows(3000) + _rows(5, start=2999.5), "line 3002, column 'Time (s)': irregular sampling"),
     ],
 )
@@ -179,9 +184,23 @@ def test_import_of_dev_zero_is_refused_quickly_with_bounded_memory(tmp_path):
 
     env = dict(os.environ, PYTHONPATH=str(Path(__file__).resolve().parents[2]))
     proc = subprocess.run(
-        [sys.executable, "-m", "bench", "import", "/dev/zero", "--logs", str(tmp_path / "logs"),
-         "--columns", "time=t,probe=p,reference=r,pump_on=m"],
-        capture_output=True, text=True, env=env, timeout=120, preexec_fn=limit)
+        [
+            sys.executable,
+            "-m",
+            "bench",
+            "import",
+            "/dev/zero",
+            "--logs",
+            str(tmp_path / "logs"),
+            "--columns",
+            "time=t,probe=p,reference=r,pump_on=m",
+        ],
+        capture_output=True,
+        text=True,
+        env=env,
+        timeout=120,
+        preexec_fn=limit,
+    )
     assert proc.returncode == 2, proc.stderr[-2000:]
     assert "/dev/zero: line 1 holds NUL characters: a binary file, not CSV text" in proc.stderr
     assert "Traceback" not in proc.stderr

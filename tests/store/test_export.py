@@ -29,19 +29,45 @@ def run(tmp_path):
         for seq in range(5):
             data = rng.normal(0.5, 0.01, size=(300, 2))
             w.append_block(Block("detector", seq, seq * 3e-3, 1e-5, seq * 300, ("probe", "reference"), data))
-            w.append_block(Block("pump", seq, seq * 3e-3 + 1e-4, 0.0, -1, ("pump_current", "mount_temp"),
-                                 np.array([[2.0 + seq, 298.15]])))
-        w.append_estimates([
-            Estimate(0.005, "watch", "window", {"beta": Quantity(0.3, 0.02, 0.02, 0.0)}, frozenset({"low_snr"}), 500),
-            Estimate(0.01, "watch", "cumulative",
-                     {"beta": Quantity(0.31, 0.01, 0.008, 0.006), "tau_s": Quantity(6e-4, 1e-5, 1e-5, 0.0)},
-                     frozenset(), 1500, {"fit": [1, 2]}),
-        ])
+            w.append_block(
+                Block(
+                    "pump",
+                    seq,
+                    seq * 3e-3 + 1e-4,
+                    0.0,
+                    -1,
+                    ("pump_current", "mount_temp"),
+                    np.array([[2.0 + seq, 298.15]]),
+                )
+            )
+        w.append_estimates(
+            [
+                Estimate(
+                    0.005,
+                    "watch",
+                    "window",
+                    {"beta": Quantity(0.3, 0.02, 0.02, 0.0)},
+                    frozenset({"low_snr"}),
+                    500,
+                ),
+                Estimate(
+                    0.01,
+                    "watch",
+                    "cumulative",
+                    {"beta": Quantity(0.31, 0.01, 0.008, 0.006), "tau_s": Quantity(6e-4, 1e-5, 1e-5, 0.0)},
+                    frozenset(),
+                    1500,
+                    {"fit": [1, 2]},
+                ),
+            ]
+        )
         w.append_event(Event(0.0, "run", "started"))
         w.append_event(Event(0.002, "setting", "pump current 2 A", "ada", {"current_a": 2.0}))
         path = w.path
     with open_for_analysis(path, "reanalysis", {"sample.length": "5.1 mm"}) as a:
-        a.append_estimates(Estimate(0.01, "watch", "cumulative", {"beta": Quantity(0.33, 0.01)}, frozenset(), 1500))
+        a.append_estimates(
+            Estimate(0.01, "watch", "cumulative", {"beta": Quantity(0.33, 0.01)}, frozenset(), 1500)
+        )
     return path
 
 
@@ -109,7 +135,9 @@ def test_estimates_flattened_with_every_analysis(run, tmp_path, fmt):
     export_run(run, fmt, "estimates", out)
     got = _read_csv_exact(out) if fmt == "csv" else pd.read_parquet(out)
     assert list(got.columns[:7]) == ["t", "mode", "scope", "analysis", "analysis_kind", "n_samples", "flags"]
-    assert {"beta_value", "beta_sigma", "beta_sigma_noise", "beta_sigma_systematic", "tau_s_value"} <= set(got.columns)
+    assert {"beta_value", "beta_sigma", "beta_sigma_noise", "beta_sigma_systematic", "tau_s_value"} <= set(
+        got.columns
+    )
     assert got["analysis"].tolist() == [1, 1, 2]
     assert got["analysis_kind"].tolist() == ["live", "live", "reanalysis"]
     assert got["beta_value"].tolist() == [0.3, 0.31, 0.33]

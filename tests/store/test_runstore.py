@@ -50,20 +50,35 @@ class FakeClock:
         return self.now
 
 
-def _block(seq: int, source: str = "detector", n: int = 500, t0: float | None = None, exact32: bool = False) -> Block:
+def _block(
+    seq: int, source: str = "detector", n: int = 500, t0: float | None = None, exact32: bool = False
+) -> Block:
     rng = np.random.default_rng(seq)
     if exact32:  # 16-bit ADC codes times a power-of-two step: exact in float32
         data = rng.integers(-32768, 32768, size=(n, 2)) * 2.0**-14
     else:
         data = rng.normal(0.5, 0.01, size=(n, 2))
-    return Block(source=source, seq=seq, t0=seq * n * 1e-5 if t0 is None else t0, dt=1e-5,
-                 first_index=seq * n, channels=("probe", "reference"), data=data)
+    return Block(
+        source=source,
+        seq=seq,
+        t0=seq * n * 1e-5 if t0 is None else t0,
+        dt=1e-5,
+        first_index=seq * n,
+        channels=("probe", "reference"),
+        data=data,
+    )
 
 
 def _estimate(t: float, beta: float, scope: str = "cumulative") -> Estimate:
-    return Estimate(t=t, mode="watch", scope=scope,
-                    values={"beta": Quantity(beta, 0.01, 0.008, 0.006), "ln_ratio": Quantity(0.2, 0.003, 0.003, 0.0)},
-                    flags=frozenset({"low_snr"}), n_samples=int(t * 1e5), extra={"window_s": 0.1})
+    return Estimate(
+        t=t,
+        mode="watch",
+        scope=scope,
+        values={"beta": Quantity(beta, 0.01, 0.008, 0.006), "ln_ratio": Quantity(0.2, 0.003, 0.003, 0.0)},
+        flags=frozenset({"low_snr"}),
+        n_samples=int(t * 1e5),
+        extra={"window_s": 0.1},
+    )
 
 
 def _writer(tmp_path: Path, **kw) -> RunWriter:
@@ -74,8 +89,13 @@ def _writer(tmp_path: Path, **kw) -> RunWriter:
 
 
 def test_round_trip_of_every_record(tmp_path):
-    with _writer(tmp_path, operator="ada", mode="chopped", simulated=True,
-                 instruments={"detector": "MAKER,DIG-1,123,1.0"}) as w:
+    with _writer(
+        tmp_path,
+        operator="ada",
+        mode="chopped",
+        simulated=True,
+        instruments={"detector": "MAKER,DIG-1,123,1.0"},
+    ) as w:
         blocks = [_block(i, exact32=i % 2 == 0) for i in range(6)] + [_block(0, source="pump", n=1, t0=0.001)]
         for b in blocks:
             w.append_block(b)
@@ -136,7 +156,9 @@ def test_stored_dtype_column_follows_the_data(tmp_path):
         path = w.path
     with closing(sqlite3.connect(path)) as c:
         assert c.execute("SELECT seq, dtype, length(data) FROM blocks ORDER BY seq").fetchall() == [
-            (0, "<f4", 500 * 2 * 4), (1, "<f8", 500 * 2 * 8)]
+            (0, "<f4", 500 * 2 * 4),
+            (1, "<f8", 500 * 2 * 8),
+        ]
 
 
 def test_file_layout_follows_the_sqlite_format(tmp_path):
@@ -162,8 +184,13 @@ def test_run_ids_from_start_time_and_sample_with_suffix_when_taken(tmp_path):
         w = _writer(tmp_path, sample_id=sample)
         names.append(w.run_id)
         w.close()
-    assert names == ["20260304-050607-S1", "20260304-050607-S1-2", "20260304-050607-S1-3",
-                     "20260304-050607-run", "20260304-050607-a-b-c-d"]
+    assert names == [
+        "20260304-050607-S1",
+        "20260304-050607-S1-2",
+        "20260304-050607-S1-3",
+        "20260304-050607-run",
+        "20260304-050607-a-b-c-d",
+    ]
 
 
 def test_flush_policy_commits_by_time_on_appends_and_when_asked(tmp_path):
@@ -232,7 +259,11 @@ def test_window_and_source_selection(tmp_path):
         path = w.path
     with RunReader(path) as r:
         assert [(b.source, b.seq) for b in r.iter_blocks(start=1.0, stop=3.0)] == [
-            ("logger", 0), ("detector", 1), ("detector", 2), ("pump", 0)]
+            ("logger", 0),
+            ("detector", 1),
+            ("detector", 2),
+            ("pump", 0),
+        ]
         assert [b.seq for b in r.iter_blocks(source="detector", start=3.0005)] == [3, 4]
         assert [b.source for b in r.iter_blocks(start=5.99, stop=7.0)] == ["logger"]
         assert list(r.iter_blocks(start=6.01, stop=7.0)) == []
@@ -266,8 +297,13 @@ def test_reanalysis_is_stored_beside_the_original(tmp_path):
         assert [e.values["beta"].value for e in r.estimates(2)] == [0.40, 0.41]
         analyses = r.analyses()
         assert [(a["id"], a["kind"], a["estimates"]) for a in analyses] == [
-            (1, "live", 2), (2, "reanalysis", 2), (3, "replay", 1)]
-        assert analyses[1]["overrides"] == {"sample.length": "5.1 mm"} and analyses[1]["note"] == "longer sample"
+            (1, "live", 2),
+            (2, "reanalysis", 2),
+            (3, "replay", 1),
+        ]
+        assert (
+            analyses[1]["overrides"] == {"sample.length": "5.1 mm"} and analyses[1]["note"] == "longer sample"
+        )
         assert r.final_estimate(2).values["beta"].value == 0.41
         summary = r.summary()
         assert summary["beta_analysis"] == 3 and summary["beta"] == 0.31
@@ -284,8 +320,14 @@ def test_recorded_rows_cannot_be_changed_even_by_hand(tmp_path):
         w.append_estimates(_estimate(0.01, 0.3))
         path = w.path
     with closing(sqlite3.connect(path)) as c:
-        for sql in ("UPDATE blocks SET t0 = 1", "DELETE FROM blocks", "UPDATE events SET text = 'y'",
-                    "DELETE FROM estimates", "UPDATE estimates SET t = 0", "UPDATE analyses SET kind = 'replay'"):
+        for sql in (
+            "UPDATE blocks SET t0 = 1",
+            "DELETE FROM blocks",
+            "UPDATE events SET text = 'y'",
+            "DELETE FROM estimates",
+            "UPDATE estimates SET t = 0",
+            "UPDATE analyses SET kind = 'replay'",
+        ):
             with pytest.raises(sqlite3.IntegrityError, match="never"):
                 c.execute(sql)
 
@@ -329,7 +371,9 @@ def test_resolve_run_by_path_id_and_prefix(tmp_path):
     assert resolve_run(ids[0], logs) == logs / f"{ids[0]}.gbrun"
     assert resolve_run("20260304-050607-T", logs).name == f"{ids[2]}.gbrun"
     assert resolve_run(str(logs / f"{ids[1]}.gbrun"), logs) == logs / f"{ids[1]}.gbrun"
-    with pytest.raises(RunStoreError, match=r"'20260304-050607-S' matches 2 runs in .*S1, 20260304-050607-S2; give"):
+    with pytest.raises(
+        RunStoreError, match=r"'20260304-050607-S' matches 2 runs in .*S1, 20260304-050607-S2; give"
+    ):
         resolve_run("20260304-050607-S", logs)
     with pytest.raises(RunStoreError, match=r"no run matches '1999' in .*\(3 runs there"):
         resolve_run("1999", logs)
@@ -379,8 +423,9 @@ def test_the_run_file_is_built_aside_and_renamed_only_once_complete(tmp_path, mo
     def publish(temp: Path, path: Path) -> None:
         # Just before the rename: nothing has the final name yet, and the temporary file alone
         # (no journal beside it) is a complete run that SQLite finds intact.
-        seen.update(temp=temp, final_existed=path.exists(), names=_names(temp.parent),
-                    head=temp.read_bytes()[:100])
+        seen.update(
+            temp=temp, final_existed=path.exists(), names=_names(temp.parent), head=temp.read_bytes()[:100]
+        )
         with RunReader(temp) as r:
             r.integrity_check()
             seen["run_id"] = r.meta["run_id"]
@@ -408,8 +453,11 @@ def test_the_run_file_is_built_aside_and_renamed_only_once_complete(tmp_path, mo
         assert r.status == "incomplete" and r.run_id == w.run_id and r.block_count() == 0
     w.append_block(_block(0))
     w.flush()
-    assert _names(logs) == ["20260304-050607-S1.gbrun", "20260304-050607-S1.gbrun-shm",
-                            "20260304-050607-S1.gbrun-wal"]
+    assert _names(logs) == [
+        "20260304-050607-S1.gbrun",
+        "20260304-050607-S1.gbrun-shm",
+        "20260304-050607-S1.gbrun-wal",
+    ]
     assert Path(f"{w.path}-wal").stat().st_size > 0  # the commit went beside the final name
     w.close()
     assert _names(logs) == ["20260304-050607-S1.gbrun"]
@@ -427,11 +475,25 @@ def _fail_at_rename(monkeypatch):
     monkeypatch.setattr(writer_module, "_publish", publish)
 
 
-@pytest.mark.parametrize("fail, kw, error, message", [
-    (_fail_in_schema, {}, RunStoreError, r"20260304-050607-S1\.gbrun: cannot create the run file \(SQLite: table meta"),
-    (_fail_at_rename, {}, RunStoreError, r"20260304-050607-S1\.gbrun: cannot create the run file \(Permission denied"),
-    (None, {"meta": {"thing": object()}}, ValueError, r"meta\['thing'\].*cannot be stored as JSON"),
-], ids=["schema", "rename", "bad-meta"])
+@pytest.mark.parametrize(
+    "fail, kw, error, message",
+    [
+        (
+            _fail_in_schema,
+            {},
+            RunStoreError,
+            r"20260304-050607-S1\.gbrun: cannot create the run file \(SQLite: table meta",
+        ),
+        (
+            _fail_at_rename,
+            {},
+            RunStoreError,
+            r"20260304-050607-S1\.gbrun: cannot create the run file \(Permission denied",
+        ),
+        (None, {"meta": {"thing": object()}}, ValueError, r"meta\['thing'\].*cannot be stored as JSON"),
+    ],
+    ids=["schema", "rename", "bad-meta"],
+)
 def test_a_failed_creation_leaves_no_file_at_all(tmp_path, monkeypatch, fail, kw, error, message):
     if fail is not None:
         fail(monkeypatch)
@@ -469,8 +531,13 @@ def _killed_creation(logs: Path, when: str) -> None:
     """Run a child that creates a run and dies at ``when`` by os._exit: like SIGKILL, it runs no
     cleanup (no finally, no atexit, no SQLite close); the OS closes its files. Portable."""
     env = dict(os.environ, PYTHONPATH=str(Path(__file__).resolve().parents[2]))
-    proc = subprocess.run([sys.executable, "-c", KILLED_CHILD, str(logs), when], capture_output=True,
-                          text=True, env=env, timeout=120)
+    proc = subprocess.run(
+        [sys.executable, "-c", KILLED_CHILD, str(logs), when],
+        capture_output=True,
+        text=True,
+        env=env,
+        timeout=120,
+    )
     assert proc.returncode == 9, proc.stderr
 
 
@@ -485,8 +552,9 @@ def test_a_creation_killed_before_the_rename_leaves_no_run(tmp_path, capsys):
     assert main(["runs", "--logs", str(logs)]) == 0
     assert capsys.readouterr().out.strip() == f"no runs in {logs}"
     # The leftover keeps its id taken; the next run of that second gets the next id.
-    with RunWriter.create(logs, bench_text="[bench]\n", sample_id="S1",
-                          start_time=datetime(2026, 3, 4, 5, 6, 7, tzinfo=UTC)) as w:
+    with RunWriter.create(
+        logs, bench_text="[bench]\n", sample_id="S1", start_time=datetime(2026, 3, 4, 5, 6, 7, tzinfo=UTC)
+    ) as w:
         assert w.run_id == "20260304-050607-S1-2"
     (row,) = list_runs(logs)
     assert row["id"] == "20260304-050607-S1-2" and row["status"] == "complete"
@@ -496,8 +564,11 @@ def test_a_run_killed_after_a_commit_keeps_it_beside_the_final_name(tmp_path):
     # WAL mode survives the rename: the commit made after it is in <run>.gbrun-wal.
     logs = tmp_path / "logs"
     _killed_creation(logs, "after_commit")
-    assert _names(logs) == ["20260304-050607-S1.gbrun", "20260304-050607-S1.gbrun-shm",
-                            "20260304-050607-S1.gbrun-wal"]
+    assert _names(logs) == [
+        "20260304-050607-S1.gbrun",
+        "20260304-050607-S1.gbrun-shm",
+        "20260304-050607-S1.gbrun-wal",
+    ]
     with RunReader(logs / "20260304-050607-S1.gbrun") as r:
         r.integrity_check()
         assert r.status == "incomplete" and r.block_count() == 1

@@ -40,8 +40,9 @@ def _make_run(log_dir: Path) -> Path:
             rng = np.random.default_rng(seq)
             data = rng.normal(size=(64, 2)) if seq % 2 else rng.integers(0, 4096, size=(64, 2)) * 2.0**-12
             w.append_block(Block("detector", seq, seq * 64e-5, 1e-5, seq * 64, ("probe", "reference"), data))
-        w.append_estimates(Estimate(0.002, "watch", "cumulative", {"beta": Quantity(0.3, 0.01)},
-                                    frozenset({"low_snr"})))
+        w.append_estimates(
+            Estimate(0.002, "watch", "cumulative", {"beta": Quantity(0.3, 0.01)}, frozenset({"low_snr"}))
+        )
         w.append_event(Event(0.001, "note", "fuzz me", data={"k": 1}))
         w.append_truth(0.001, {"beta": 0.3})
         path = w.path
@@ -149,7 +150,9 @@ def test_foreign_sqlite_database(tmp_path):
         c.execute("CREATE TABLE sensors (t REAL, v REAL)")
         c.execute("CREATE TABLE meta (key TEXT, value TEXT)")
         c.commit()
-    _expect_error(path, "is not a gainbench run file: a SQLite database of another program (tables: meta, sensors)")
+    _expect_error(
+        path, "is not a gainbench run file: a SQLite database of another program (tables: meta, sensors)"
+    )
 
 
 def test_gainbench_id_but_missing_tables(valid):
@@ -253,9 +256,15 @@ def test_fuzz_truncation(cut):
 
 
 @_FUZZ
-@given(flips=st.lists(
-    st.tuples(st.one_of(st.integers(0, 32767), st.integers(0, len(_valid_bytes()) - 1)), st.integers(0, 7)),
-    min_size=1, max_size=8))
+@given(
+    flips=st.lists(
+        st.tuples(
+            st.one_of(st.integers(0, 32767), st.integers(0, len(_valid_bytes()) - 1)), st.integers(0, 7)
+        ),
+        min_size=1,
+        max_size=8,
+    )
+)
 def test_fuzz_bit_flips(flips):
     data = bytearray(_valid_bytes())
     for position, bit in flips:

@@ -56,8 +56,17 @@ def test_sustains_two_channels_at_one_msps_with_flat_memory(tmp_path, kind):
     stored = 0
     wall0, cpu0 = time.perf_counter(), time.process_time()
     for seq in range(n_blocks):
-        w.append_block(Block("detector", seq, seq * BLOCK / RATE, 1 / RATE, seq * BLOCK, ("probe", "reference"),
-                             pool[seq % len(pool)]))
+        w.append_block(
+            Block(
+                "detector",
+                seq,
+                seq * BLOCK / RATE,
+                1 / RATE,
+                seq * BLOCK,
+                ("probe", "reference"),
+                pool[seq % len(pool)],
+            )
+        )
         w.flush_if_due()
         if seq == n_blocks // 6:
             rss_warm = proc.memory_info().rss
@@ -71,8 +80,10 @@ def test_sustains_two_channels_at_one_msps_with_flat_memory(tmp_path, kind):
     size = w.path.stat().st_size
     raw = _raw_disk_mb_per_s(tmp_path, min(size, 512 << 20))
     data_mb = n_blocks * BLOCK * 2 * 8 / 1e6  # as float64 sample values
-    print(f"\n{kind}: {data_mb / wall:.0f} MB/s of float64 sample values ({size / wall / 1e6:.0f} MB/s to the "
-          f"file, {size / 1e6:.0f} MB); CPU {cpu / SECONDS * 100:.1f} % of one core per second of recorded data "
-          f"(needed: {2 * 8 * RATE / 1e6:.0f} MB/s); raw disk {raw:.0f} MB/s; RSS growth after warm-up "
-          f"{(rss_end - rss_warm) / 1e6:.1f} MB")
+    print(
+        f"\n{kind}: {data_mb / wall:.0f} MB/s of float64 sample values ({size / wall / 1e6:.0f} MB/s to the "
+        f"file, {size / 1e6:.0f} MB); CPU {cpu / SECONDS * 100:.1f} % of one core per second of recorded data "
+        f"(needed: {2 * 8 * RATE / 1e6:.0f} MB/s); raw disk {raw:.0f} MB/s; RSS growth after warm-up "
+        f"{(rss_end - rss_warm) / 1e6:.1f} MB"
+    )
     assert rss_end - rss_warm < 64e6

@@ -75,7 +75,10 @@ class ChoppedCore:
     open_isum: float = 0.0
     open_msum: float = 0.0
     open_m2sum: float = 0.0
-    last_on_monitor: tuple[float, float] = (math.nan, 0.0)  # last finished on segment: monitor mean, its variance
+    last_on_monitor: tuple[float, float] = (
+        math.nan,
+        0.0,
+    )  # last finished on segment: monitor mean, its variance
     recent: tuple[Segment, ...] = ()  # the last two finished segments
     win: ScalarStats = ScalarStats()
     cum: ScalarStats = ScalarStats()
@@ -126,7 +129,9 @@ def ingest(state: EstimatorState, core: ChoppedCore, f: Frame, clock: Clock) -> 
     else:
         cnt = np.bincount(seg, weights=w, minlength=nseg)
         sm = np.bincount(seg, weights=np.where(w, f.s, 0.0), minlength=nseg)
-        isum = np.bincount(seg, weights=np.where(w, np.arange(f.i0, f.i0 + f.n, dtype=np.float64), 0.0), minlength=nseg)
+        isum = np.bincount(
+            seg, weights=np.where(w, np.arange(f.i0, f.i0 + f.n, dtype=np.float64), 0.0), minlength=nseg
+        )
         msum = np.bincount(seg, weights=np.where(w, f.monitor, 0.0), minlength=nseg)
         m2sum = np.bincount(seg, weights=np.where(w, f.monitor * f.monitor, 0.0), minlength=nseg)
     starts = [f.i0] + [f.i0 + int(e) for e in f.edges]
@@ -166,16 +171,26 @@ def ingest(state: EstimatorState, core: ChoppedCore, f: Frame, clock: Clock) -> 
         finished.append(Segment(start, end, ons[j], n_j, mean, centre, res, after[j], mon[0], steady))
     last = nseg - 1
     new_core = dataclasses.replace(
-        core, open_start=starts[last], open_on=ons[last], open_after_edge=after[last],
-        open_n=float(cnt[last]), open_sum=float(sm[last]), open_isum=float(isum[last]),
-        open_msum=float(msum[last]), open_m2sum=float(m2sum[last]), last_on_monitor=last_on)
+        core,
+        open_start=starts[last],
+        open_on=ons[last],
+        open_after_edge=after[last],
+        open_n=float(cnt[last]),
+        open_sum=float(sm[last]),
+        open_isum=float(isum[last]),
+        open_msum=float(msum[last]),
+        open_m2sum=float(m2sum[last]),
+        last_on_monitor=last_on,
+    )
     for sgm in finished:
         if not sgm.on and sgm.n > 0:
             items.append(OffLevel(sgm.end, sgm))
         recent.append(sgm)
         if len(recent) > 3:
             recent.pop(0)
-        cyc = _cycle(recent, sgm.end, first_pair=len(recent) == 2 and not recent[0].after_edge and recent[0].on)
+        cyc = _cycle(
+            recent, sgm.end, first_pair=len(recent) == 2 and not recent[0].after_edge and recent[0].on
+        )
         if cyc is not None and not recent[-2].steady:
             cyc = None  # the pump was still ramping up (a soft start): not a settled cycle
         if cyc is not None:
@@ -184,8 +199,13 @@ def ingest(state: EstimatorState, core: ChoppedCore, f: Frame, clock: Clock) -> 
         elif len(recent) >= 2 and recent[-2].on and not sgm.on:
             # before the first steady cycle the pump is still coming up: expected, not a fault
             items.append(Skipped(sgm.end, "skip" if warm else "warmup"))
-    new_core = dataclasses.replace(new_core, recent=tuple(recent[-2:]), ref_sum=core.ref_sum + f.ref_sum,
-                                   ref_n=core.ref_n + f.n, warm=warm)
+    new_core = dataclasses.replace(
+        new_core,
+        recent=tuple(recent[-2:]),
+        ref_sum=core.ref_sum + f.ref_sum,
+        ref_n=core.ref_n + f.n,
+        warm=warm,
+    )
     return new_core, items
 
 
@@ -225,15 +245,25 @@ def add(core: ChoppedCore, item: Cycle | OffLevel) -> ChoppedCore:
         ds, dsq, dn = core.off_dsum, core.off_dsq, core.off_dn
         if math.isfinite(d):
             ds, dsq, dn = ds + d, dsq + d * d, dn + 1
-        return dataclasses.replace(core, win=core.win.add(x, n), cum=core.cum.add(x, n),
-                                   frac_sum=core.frac_sum + frac, win_corr=core.win_corr + corr,
-                                   cum_corr=core.cum_corr + corr, off_dsum=ds, off_dsq=dsq, off_dn=dn)
+        return dataclasses.replace(
+            core,
+            win=core.win.add(x, n),
+            cum=core.cum.add(x, n),
+            frac_sum=core.frac_sum + frac,
+            win_corr=core.win_corr + corr,
+            cum_corr=core.cum_corr + corr,
+            off_dsum=ds,
+            off_dsq=dsq,
+            off_dn=dn,
+        )
     if isinstance(item, OffLevel):
         # the pump-off level, less the residual of the last gain decay (ln R from the cycles so far)
         a = core.cum.mean() if core.cum.k else 0.0
         seg = item.segment
         m = seg.mean * math.exp(-a * seg.residual)
-        return dataclasses.replace(core, win_off=core.win_off.add(m, seg.n), cum_off=core.cum_off.add(m, seg.n))
+        return dataclasses.replace(
+            core, win_off=core.win_off.add(m, seg.n), cum_off=core.cum_off.add(m, seg.n)
+        )
     return core
 
 
@@ -316,8 +346,15 @@ def estimate(state: EstimatorState, core: ChoppedCore, scope: str, t: float, cou
             flags.add("baseline_stale")
     if b is not None and t - b.t > p.baseline_max_age:
         flags.add("baseline_stale")
-    return Estimate(t=t, mode=state.mode, scope=scope, values=MappingProxyType(values), flags=frozenset(flags),
-                    n_samples=int(stats.n_samples), extra=MappingProxyType(extra))
+    return Estimate(
+        t=t,
+        mode=state.mode,
+        scope=scope,
+        values=MappingProxyType(values),
+        flags=frozenset(flags),
+        n_samples=int(stats.n_samples),
+        extra=MappingProxyType(extra),
+    )
 
 
 def reset_window(core: ChoppedCore) -> ChoppedCore:
@@ -338,6 +375,7 @@ def _settle(params: EstimatorParams, settings: Mapping[str, Any]) -> tuple[float
 
 # -- timing: each half-period holds SETTLE_SHARE settle windows by default ----------------------
 
+
 def _half_periods(params: EstimatorParams, pump_power: float | None) -> tuple[float, float]:
     return params.rise_settle(pump_power), params.off_settle()
 
@@ -346,17 +384,21 @@ def _default_half(params: EstimatorParams, pump_power: float | None, rise: float
     return timing.SETTLE_SHARE * max(rise, off)
 
 
-def _refusal(params: EstimatorParams, period: float, pump_power: float | None, rise: float, off: float) -> str | None:
+def _refusal(
+    params: EstimatorParams, period: float, pump_power: float | None, rise: float, off: float
+) -> str | None:
     half = 0.5 * period
     if half > rise and half > off:
         return None
     power = "no pump power" if not pump_power else f"{pump_power:.3g} W of pump"
     ms = 1e3
-    return (f"chopped mode: a pump period of {period * ms:.4g} ms has half-periods of {half * ms:.4g} ms, "
-            f"but the pump-on part is used only from {rise * ms:.3g} ms after its edge ({power}) and the "
-            f"pump-off part from {off * ms:.3g} ms after its edge: no settled data. It needs a period above "
-            f"{2 * max(rise, off) * ms:.3g} ms; the default is "
-            f"{timing.default_period(params, 'chopped', pump_power) * ms:.4g} ms")
+    return (
+        f"chopped mode: a pump period of {period * ms:.4g} ms has half-periods of {half * ms:.4g} ms, "
+        f"but the pump-on part is used only from {rise * ms:.3g} ms after its edge ({power}) and the "
+        f"pump-off part from {off * ms:.3g} ms after its edge: no settled data. It needs a period above "
+        f"{2 * max(rise, off) * ms:.3g} ms; the default is "
+        f"{timing.default_period(params, 'chopped', pump_power) * ms:.4g} ms"
+    )
 
 
 TIMING = Timing(half_periods=_half_periods, default_half=_default_half, refusal=_refusal)

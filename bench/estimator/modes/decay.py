@@ -101,7 +101,10 @@ class CurveStats:
             d.ref_var if d.reference == "baseline" else self.ref_common,
             self.n_samples + d.n_samples,
             tuple(sorted(tails.items())),
-            level, level_var, level_tails, level_ln_off,
+            level,
+            level_var,
+            level_tails,
+            level_ln_off,
         )
 
     def tail_residual(self, tail0: int, dt: float, tau: float, of_levels: bool = False) -> float:
@@ -144,7 +147,10 @@ class DecayCore:
     # settled samples of the open on part: n, sum ln S, sum ln S^2, sum monitor, sum monitor^2
     on_open: tuple[float, float, float, float, float] = (0.0, 0.0, 0.0, 0.0, 0.0)
     on_open_after_edge: bool = False  # the open on part started at a rising edge
-    last_on_monitor: tuple[float, float] = (math.nan, 0.0)  # last finished on part: monitor mean, its variance
+    last_on_monitor: tuple[float, float] = (
+        math.nan,
+        0.0,
+    )  # last finished on part: monitor mean, its variance
     on_levels: tuple[tuple[int, float, float, float], ...] = ()  # (edge, n, sum, sum sq) of open decays
     ref_sum: float = 0.0  # dark-corrected reference volts, summed over samples
     ref_n: int = 0
@@ -186,8 +192,11 @@ def ingest(state: EstimatorState, core: DecayCore, f: Frame, clock: Clock) -> tu
         after0 = core.on_open_after_edge
         last_on = core.last_on_monitor
     last = nseg - 1
-    on_open = ((float(on_c[last]), float(on_1[last]), float(on_2[last]), float(on_m[last]), float(on_mm[last]))
-               if f.on[-1] else (0.0, 0.0, 0.0, 0.0, 0.0))
+    on_open = (
+        (float(on_c[last]), float(on_1[last]), float(on_2[last]), float(on_m[last]), float(on_mm[last]))
+        if f.on[-1]
+        else (0.0, 0.0, 0.0, 0.0, 0.0)
+    )
     levels = {} if f.start_is_edge else {e: (n_, a_, b_) for e, n_, a_, b_ in core.on_levels}
     for e in off_local:
         j = int(seg[e]) - 1
@@ -197,8 +206,14 @@ def ingest(state: EstimatorState, core: DecayCore, f: Frame, clock: Clock) -> tu
             last_on = mon
             if steady:  # not while the pump still ramps up (soft start)
                 levels[f.i0 + int(e)] = (float(on_c[j]), float(on_1[j]), float(on_2[j]))
-    core = dataclasses.replace(core, on_open=on_open, on_open_after_edge=(last > 0) or after0,
-                               last_on_monitor=last_on, ref_sum=core.ref_sum + f.ref_sum, ref_n=core.ref_n + f.n)
+    core = dataclasses.replace(
+        core,
+        on_open=on_open,
+        on_open_after_edge=(last > 0) or after0,
+        last_on_monitor=last_on,
+        ref_sum=core.ref_sum + f.ref_sum,
+        ref_n=core.ref_n + f.n,
+    )
     if off_local.size == 0 and carry_edge < 0:
         return dataclasses.replace(core, open_edge=-1, open_sums=None, on_levels=()), []
     # the last on->off edge index for each sample (global), -1 if none known
@@ -221,11 +236,13 @@ def ingest(state: EstimatorState, core: DecayCore, f: Frame, clock: Clock) -> tu
     if not finite.all():
         key, sv = key[finite], sv[finite]
     size = n_rows * width
-    sums = np.stack([
-        np.bincount(key, minlength=size).astype(np.float64),
-        np.bincount(key, weights=sv, minlength=size),
-        np.bincount(key, weights=sv * sv, minlength=size),
-    ]).reshape(3, n_rows, width)
+    sums = np.stack(
+        [
+            np.bincount(key, minlength=size).astype(np.float64),
+            np.bincount(key, weights=sv, minlength=size),
+            np.bincount(key, weights=sv * sv, minlength=size),
+        ]
+    ).reshape(3, n_rows, width)
     if carry_edge >= 0 and core.open_sums is not None:
         sums[:, 0, :] += core.open_sums
     row_edges = [carry_edge] + [f.i0 + int(e) for e in off_local]
@@ -241,16 +258,28 @@ def ingest(state: EstimatorState, core: DecayCore, f: Frame, clock: Clock) -> tu
         if later.size:
             end = min(end, int(later[0]))
         if end - 1 <= last_index:
-            items.append(_finish_decay(state, core, e, end, sums[:, d, :], fit_n, tail0, dt,
-                                       levels.get(e, (0.0, 0.0, 0.0))))
+            items.append(
+                _finish_decay(
+                    state, core, e, end, sums[:, d, :], fit_n, tail0, dt, levels.get(e, (0.0, 0.0, 0.0))
+                )
+            )
         else:
             new_open_edge, new_open = e, sums[:, d, :].copy()
     kept = ((new_open_edge, *levels[new_open_edge]),) if new_open_edge in levels else ()
     return dataclasses.replace(core, open_edge=new_open_edge, open_sums=new_open, on_levels=kept), items
 
 
-def _finish_decay(state: EstimatorState, core: DecayCore, edge: int, end: int, sums: np.ndarray, fit_n: int,
-                  tail0: int, dt: float, on_sums: tuple[float, float, float] = (0.0, 0.0, 0.0)) -> Decay | Skipped:
+def _finish_decay(
+    state: EstimatorState,
+    core: DecayCore,
+    edge: int,
+    end: int,
+    sums: np.ndarray,
+    fit_n: int,
+    tail0: int,
+    dt: float,
+    on_sums: tuple[float, float, float] = (0.0, 0.0, 0.0),
+) -> Decay | Skipped:
     p = state.params
     nb = core.n_bins
     b = end - 1
@@ -287,7 +316,9 @@ def _finish_decay(state: EstimatorState, core: DecayCore, edge: int, end: int, s
         on_var = max(on_2 - on_1 * m_on, 0.0) / (on_n - 1) / on_n
     else:
         on_n = 0.0
-    return Decay(b, c, lnr, ss, use, ref_var, float(np.sum(c) + tc), tail_n, on_n, on_level, on_var, float(ln_off))
+    return Decay(
+        b, c, lnr, ss, use, ref_var, float(np.sum(c) + tc), tail_n, on_n, on_level, on_var, float(ln_off)
+    )
 
 
 def add(core: DecayCore, item: Decay) -> DecayCore:
@@ -390,8 +421,9 @@ def _decay_fit(state: EstimatorState, core: DecayCore, stats: CurveStats, dt: fl
     }
 
 
-def _decay_level(state: EstimatorState, core: DecayCore, stats: CurveStats,
-                 fit: Mapping[str, Any]) -> tuple[float, float] | None:
+def _decay_level(
+    state: EstimatorState, core: DecayCore, stats: CurveStats, fit: Mapping[str, Any]
+) -> tuple[float, float] | None:
     """(ln R(0), its noise sigma) from the settled pump-on level before each decay, or None.
 
     Just before the pump goes off, ln R is the settled pump-on level, so ``ln R(0)`` is the
@@ -425,8 +457,9 @@ def _decay_level(state: EstimatorState, core: DecayCore, stats: CurveStats,
     return lnr0, sn
 
 
-def _lifetime_from_decay(p: EstimatorParams, decay_time: float, sigma: float,
-                         wavelength: float | None) -> tuple[float, float, float]:
+def _lifetime_from_decay(
+    p: EstimatorParams, decay_time: float, sigma: float, wavelength: float | None
+) -> tuple[float, float, float]:
     """(lifetime, its sigma, probe-stimulated rate) from the fitted decay time.
 
     With the pump off, a CW probe keeps stimulating transitions, so the inversion decays at
@@ -468,8 +501,9 @@ def estimate(state: EstimatorState, core: DecayCore, scope: str, t: float, count
             values = figures(p, lnr0, sn0, wl)
             extra["ln_ratio_from"] = "on_level"
         else:
-            values = with_ln_ratio_systematic(figures(p, fit["amplitude"], fit["amplitude_sigma"], wl),
-                                               fit["amplitude_edge_sys"])
+            values = with_ln_ratio_systematic(
+                figures(p, fit["amplitude"], fit["amplitude_sigma"], wl), fit["amplitude_edge_sys"]
+            )
             extra["ln_ratio_from"] = "fit"
         tau, tau_sigma, probe_rate = _lifetime_from_decay(p, fit["tau"], fit["tau_sigma"], wl)
         xs = p.cross_sections_at(wl)
@@ -485,7 +519,9 @@ def estimate(state: EstimatorState, core: DecayCore, scope: str, t: float, count
             flags.add("low_snr")
         if not (fit["tau"] >= p.snr_min * fit["tau_sigma"]):
             flags.add("low_snr")
-        extra["fit"] = {k: float(fit[k]) for k in ("amplitude", "amplitude_sigma", "tau", "tau_sigma", "chi2_reduced")}
+        extra["fit"] = {
+            k: float(fit[k]) for k in ("amplitude", "amplitude_sigma", "tau", "tau_sigma", "chi2_reduced")
+        }
         extra["fit"]["dof"] = int(fit["dof"])
         if scope == "cumulative":
             model = fit["amplitude"] * np.exp(-fit["t"] / fit["tau"])
@@ -495,8 +531,15 @@ def estimate(state: EstimatorState, core: DecayCore, scope: str, t: float, count
                 "sigma": [float(v) for v in fit["sigma"]],
                 "fit": [float(v) for v in model],
             }
-    return Estimate(t=t, mode=state.mode, scope=scope, values=MappingProxyType(values), flags=frozenset(flags),
-                    n_samples=int(stats.n_samples), extra=MappingProxyType(extra))
+    return Estimate(
+        t=t,
+        mode=state.mode,
+        scope=scope,
+        values=MappingProxyType(values),
+        flags=frozenset(flags),
+        n_samples=int(stats.n_samples),
+        extra=MappingProxyType(extra),
+    )
 
 
 def new_core(params: EstimatorParams, settings: Mapping[str, Any], clock: Clock | None) -> DecayCore | None:
@@ -519,8 +562,16 @@ def flush(state: EstimatorState) -> EstimatorState:
         if state.clock.next_index - core.open_edge >= fit_n:
             p = state.params
             tail0 = int(math.ceil(p.decay_tail_start / state.clock.dt))
-            item = _finish_decay(state, core, core.open_edge, state.clock.next_index, core.open_sums, fit_n, tail0,
-                                 state.clock.dt)
+            item = _finish_decay(
+                state,
+                core,
+                core.open_edge,
+                state.clock.next_index,
+                core.open_sums,
+                fit_n,
+                tail0,
+                state.clock.dt,
+            )
             core = add(core, item)
     return dataclasses.replace(state, core=core)
 
@@ -531,6 +582,7 @@ def _settle(params: EstimatorParams, settings: Mapping[str, Any]) -> tuple[float
 
 # -- timing: the pump-off half holds the decay record, the pump-on half a settled on level ---------
 
+
 def _half_periods(params: EstimatorParams, pump_power: float | None) -> tuple[float, float]:
     return params.rise_settle(pump_power), params.decay_fit_span
 
@@ -539,15 +591,19 @@ def _default_half(params: EstimatorParams, pump_power: float | None, rise: float
     return max(params.decay_record, (1.0 + timing.DECAY_ON_SHARE) * rise)
 
 
-def _refusal(params: EstimatorParams, period: float, pump_power: float | None, rise: float, off: float) -> str | None:
+def _refusal(
+    params: EstimatorParams, period: float, pump_power: float | None, rise: float, off: float
+) -> str | None:
     half = 0.5 * period
     if not half < off:
         return None
     ms = 1e3
-    return (f"decay mode: a pump period of {period * ms:.4g} ms leaves {half * ms:.4g} ms after each pump-off "
-            f"edge, shorter than the {off * ms:.3g} ms of decay that is fitted: no decay can be "
-            f"used. It needs a period of at least {2 * off * ms:.3g} ms; the default is "
-            f"{timing.default_period(params, 'decay', pump_power) * ms:.4g} ms")
+    return (
+        f"decay mode: a pump period of {period * ms:.4g} ms leaves {half * ms:.4g} ms after each pump-off "
+        f"edge, shorter than the {off * ms:.3g} ms of decay that is fitted: no decay can be "
+        f"used. It needs a period of at least {2 * off * ms:.3g} ms; the default is "
+        f"{timing.default_period(params, 'decay', pump_power) * ms:.4g} ms"
+    )
 
 
 TIMING = Timing(half_periods=_half_periods, default_half=_default_half, refusal=_refusal)

@@ -63,8 +63,11 @@ class SweepCore:
 
 def step_mode(settings_or_method: Mapping[str, Any] | str) -> Mode:
     """The `Mode` each step of a sweep is measured as (its ``method``)."""
-    method = (settings_or_method if isinstance(settings_or_method, str)
-              else settings_or_method.get("method", DEFAULT_METHOD))
+    method = (
+        settings_or_method
+        if isinstance(settings_or_method, str)
+        else settings_or_method.get("method", DEFAULT_METHOD)
+    )
     return mode_of(method)
 
 
@@ -121,8 +124,9 @@ def _make_point(state: EstimatorState, core: SweepCore) -> dict[str, Any] | None
     return point
 
 
-def _saturation_fit(x: np.ndarray, y: np.ndarray, s: np.ndarray, absorbance: float | None,
-                    b_off: float) -> tuple[fitting.FitResult, float | None]:
+def _saturation_fit(
+    x: np.ndarray, y: np.ndarray, s: np.ndarray, absorbance: float | None, b_off: float
+) -> tuple[fitting.FitResult, float | None]:
     """Fit the pump-induced change ``y`` (beta less the probe-held ``b_off``) with the saturation
     form; (fit, the absorbance used).
 
@@ -185,16 +189,24 @@ def _sweep_fits(state: EstimatorState, points: tuple[Mapping[str, Any], ...]) ->
                     d_ps = 0.5 * (hi.value("p_sat") - lo.value("p_sat")) / stretch
                     sys_bm, sys_ps = math.hypot(sys_bm, d_bm), math.hypot(sys_ps, d_ps)
             grid = np.linspace(0.0, float(np.max(x)) * 1.1, 50)
-            curve = b_off + (fitting.thick_sample_fraction(grid, bm - b_off, ps * stretch, a_eff) if a is not None
-                             else physics.beta_of_pump(grid, bm - b_off, ps * stretch))
+            curve = b_off + (
+                fitting.thick_sample_fraction(grid, bm - b_off, ps * stretch, a_eff)
+                if a is not None
+                else physics.beta_of_pump(grid, bm - b_off, ps * stretch)
+            )
             out["saturation"] = {
-                "model": "thick" if a is not None else "thin", "pump_absorbance": a,
-                "beta_max": bm, "beta_max_sigma_noise": fit.sigma("beta_max"),
+                "model": "thick" if a is not None else "thin",
+                "pump_absorbance": a,
+                "beta_max": bm,
+                "beta_max_sigma_noise": fit.sigma("beta_max"),
                 "beta_max_sigma_systematic": sys_bm,
-                "p_sat_w": ps, "p_sat_w_sigma_noise": fit.sigma("p_sat") / stretch,
+                "p_sat_w": ps,
+                "p_sat_w_sigma_noise": fit.sigma("p_sat") / stretch,
                 "p_sat_w_sigma_systematic": sys_ps,
-                "probe_rate_per_s": w_probe, "beta_probe_held": b_off,
-                "chi2_reduced": fit.chi2_reduced, "dof": fit.dof,
+                "probe_rate_per_s": w_probe,
+                "beta_probe_held": b_off,
+                "chi2_reduced": fit.chi2_reduced,
+                "dof": fit.dof,
                 "curve": {"pump_power_w": [float(v) for v in grid], "beta": [float(v) for v in curve]},
             }
     # gain spectrum over probe wavelength
@@ -215,21 +227,32 @@ def _sweep_fits(state: EstimatorState, points: tuple[Mapping[str, Any], ...]) ->
             nu0 = fit.value("centre")
             sg, gl = fit.value("sigma_gauss"), fit.value("gamma_lorentz")
             out["spectrum"] = {
-                "peak_gain_change_per_m": fit.value("height"), "peak_gain_change_per_m_sigma": fit.sigma("height"),
-                "centre_hz": nu0, "centre_hz_sigma": fit.sigma("centre"),
-                "centre_m": constants.c / nu0, "centre_m_sigma": constants.c / nu0**2 * fit.sigma("centre"),
+                "peak_gain_change_per_m": fit.value("height"),
+                "peak_gain_change_per_m_sigma": fit.sigma("height"),
+                "centre_hz": nu0,
+                "centre_hz_sigma": fit.sigma("centre"),
+                "centre_m": constants.c / nu0,
+                "centre_m_sigma": constants.c / nu0**2 * fit.sigma("centre"),
                 "gaussian_fwhm_hz": 2.0 * math.sqrt(2.0 * math.log(2.0)) * sg,
                 "gaussian_fwhm_hz_sigma": 2.0 * math.sqrt(2.0 * math.log(2.0)) * fit.sigma("sigma_gauss"),
-                "lorentzian_fwhm_hz": 2.0 * gl, "lorentzian_fwhm_hz_sigma": 2.0 * fit.sigma("gamma_lorentz"),
+                "lorentzian_fwhm_hz": 2.0 * gl,
+                "lorentzian_fwhm_hz_sigma": 2.0 * fit.sigma("gamma_lorentz"),
                 "voigt_fwhm_hz": fitting.voigt_fwhm(sg, gl),
-                "chi2_reduced": fit.chi2_reduced, "dof": fit.dof,
+                "chi2_reduced": fit.chi2_reduced,
+                "dof": fit.dof,
             }
         if p.spectrum is not None and p.zero_line_energy is not None:
             try:
                 xs = [p.spectrum.at(v) for v in lam]
                 check = fitting.mccumber_consistency(
-                    lam, y * p.length, s * p.length, [x[0] for x in xs], [x[1] for x in xs],
-                    p.zero_line_energy, p.temperature)
+                    lam,
+                    y * p.length,
+                    s * p.length,
+                    [x[0] for x in xs],
+                    [x[1] for x in xs],
+                    p.zero_line_energy,
+                    p.temperature,
+                )
             except (ValueError, GainbenchError) as exc:  # a wavelength outside the spectrum is reported
                 out["mccumber_error"] = str(exc)
             else:
@@ -245,16 +268,22 @@ def estimate(state: EstimatorState, core: SweepCore, scope: str, t: float, count
     fits = core.fits
     sat = fits.get("saturation")
     if sat is not None:
-        values["beta_max"] = quantity(sat["beta_max"], sat["beta_max_sigma_noise"], sat["beta_max_sigma_systematic"])
-        values["p_sat_w"] = quantity(sat["p_sat_w"], sat["p_sat_w_sigma_noise"], sat["p_sat_w_sigma_systematic"])
+        values["beta_max"] = quantity(
+            sat["beta_max"], sat["beta_max_sigma_noise"], sat["beta_max_sigma_systematic"]
+        )
+        values["p_sat_w"] = quantity(
+            sat["p_sat_w"], sat["p_sat_w_sigma_noise"], sat["p_sat_w_sigma_systematic"]
+        )
     spec = fits.get("spectrum")
     if spec is not None:
         values["line_centre_m"] = quantity(spec["centre_m"], spec["centre_m_sigma"])
         values["gaussian_fwhm_hz"] = quantity(spec["gaussian_fwhm_hz"], spec["gaussian_fwhm_hz_sigma"])
         values["lorentzian_fwhm_hz"] = quantity(spec["lorentzian_fwhm_hz"], spec["lorentzian_fwhm_hz_sigma"])
     extra = dict(est.extra)
-    extra["step"] = {"pump_power_w": state.settings.get("pump_power"),
-                     "probe_wavelength_m": state.settings.get("probe_wavelength")}
+    extra["step"] = {
+        "pump_power_w": state.settings.get("pump_power"),
+        "probe_wavelength_m": state.settings.get("probe_wavelength"),
+    }
     extra["points"] = [dict(pt) for pt in core.points]
     extra["fits"] = _plain(fits)
     return dataclasses.replace(est, values=MappingProxyType(values), extra=MappingProxyType(extra))

@@ -89,16 +89,23 @@ def _ingest(state: EstimatorState, core: WatchCore, f: Frame, clock: Clock) -> t
 
 def _add(core: WatchCore, item: Batch) -> WatchCore:
     n_b, m_b = item.n, item.mean
-    return WatchCore(core.open_id, core.open_n, core.open_sum, win=core.win.add(n_b, m_b),
-                      cum=core.cum.add(n_b, m_b))
+    return WatchCore(
+        core.open_id, core.open_n, core.open_sum, win=core.win.add(n_b, m_b), cum=core.cum.add(n_b, m_b)
+    )
 
 
 def flush_core(core: WatchCore) -> WatchCore:
     """Count the open batch (for reports and step ends)."""
     if core.open_n > 0:
         m = core.open_sum / core.open_n
-        core = dataclasses.replace(core, cum=core.cum.add(core.open_n, m), win=core.win.add(core.open_n, m),
-                                   open_n=0.0, open_sum=0.0, open_id=-1)
+        core = dataclasses.replace(
+            core,
+            cum=core.cum.add(core.open_n, m),
+            win=core.win.add(core.open_n, m),
+            open_n=0.0,
+            open_sum=0.0,
+            open_id=-1,
+        )
     return core
 
 
@@ -121,8 +128,15 @@ def estimate(state: EstimatorState, core: WatchCore, scope: str, t: float, count
         flags |= snr_flags(values, state.params, stats.k)
     elif stats.k == 1:
         flags.add("low_snr")
-    return Estimate(t=t, mode=state.mode, scope=scope, values=MappingProxyType(values), flags=frozenset(flags),
-                    n_samples=int(stats.n), extra=MappingProxyType(extra))
+    return Estimate(
+        t=t,
+        mode=state.mode,
+        scope=scope,
+        values=MappingProxyType(values),
+        flags=frozenset(flags),
+        n_samples=int(stats.n),
+        extra=MappingProxyType(extra),
+    )
 
 
 def _reset_window(core: WatchCore) -> WatchCore:

@@ -93,8 +93,17 @@ def fit_exponential_decay(t, y, sigma=None, *, tau_guess: float | None = None) -
     a0 = float(max(v[np.argmin(u)], 1e-3) * np.exp(np.min(u)))
     try:
         popt, pcov = optimize.curve_fit(
-            model, u, v, p0=[a0, 1.0], sigma=w, absolute_sigma=False, jac=jac,
-            method="lm", maxfev=2000, xtol=1e-12, ftol=1e-12,
+            model,
+            u,
+            v,
+            p0=[a0, 1.0],
+            sigma=w,
+            absolute_sigma=False,
+            jac=jac,
+            method="lm",
+            maxfev=2000,
+            xtol=1e-12,
+            ftol=1e-12,
         )
     except (RuntimeError, optimize.OptimizeWarning) as exc:
         raise ValueError(f"y: the exponential fit did not converge ({exc})") from None

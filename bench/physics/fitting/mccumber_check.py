@@ -50,8 +50,10 @@ class McCumberCheck:
     dof: int
 
     def as_dict(self) -> dict:
-        return {k: (bool(v) if isinstance(v, (bool, np.bool_)) else (int(v) if k == "dof" else float(v)))
-                for k, v in self.__dict__.items()}
+        return {
+            k: (bool(v) if isinstance(v, (bool, np.bool_)) else (int(v) if k == "dof" else float(v)))
+            for k, v in self.__dict__.items()
+        }
 
 
 def _scale_fit(y: np.ndarray, s: np.ndarray, shape: np.ndarray) -> tuple[float, float, float]:
@@ -65,8 +67,9 @@ def _scale_fit(y: np.ndarray, s: np.ndarray, shape: np.ndarray) -> tuple[float, 
     return k, 1.0 / math.sqrt(sxx), float(r @ r)
 
 
-def mccumber_consistency(wavelength, ln_ratio, sigma, sigma_a, sigma_e, epsilon: float,
-                         temperature: float, *, p_min: float = 0.01) -> McCumberCheck:
+def mccumber_consistency(
+    wavelength, ln_ratio, sigma, sigma_a, sigma_e, epsilon: float, temperature: float, *, p_min: float = 0.01
+) -> McCumberCheck:
     """Check a measured gain spectrum against the McCumber relation (see `McCumberCheck`).
 
     Parameters

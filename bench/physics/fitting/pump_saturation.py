@@ -115,6 +115,7 @@ def fit_saturation(p, beta, sigma, *, absorbance: float | None = None) -> FitRes
     p_scale = float(np.max(pa))
 
     if absorbance is None:
+
         def model(x, bmax, ps):
             return physics.beta_of_pump(x, bmax, ps)
 
@@ -122,6 +123,7 @@ def fit_saturation(p, beta, sigma, *, absorbance: float | None = None) -> FitRes
             s = x / ps
             return np.column_stack([s / (1.0 + s), -bmax * s / (ps * (1.0 + s) ** 2)])
     else:
+
         def model(x, bmax, ps):
             return thick_sample_fraction(x, bmax, ps, absorbance)
 
@@ -148,9 +150,19 @@ def fit_saturation(p, beta, sigma, *, absorbance: float | None = None) -> FitRes
     ps0 = float(np.clip(ps0, 1e-3, 1e3))
     try:
         popt, pcov = optimize.curve_fit(
-            model, x, ba, p0=[bmax0, ps0], sigma=sa, absolute_sigma=True, jac=jac,
-            bounds=([0.0, 1e-9], [1.0, np.inf]), method="trf", maxfev=5000,
-            xtol=1e-12, ftol=1e-12, gtol=1e-12,
+            model,
+            x,
+            ba,
+            p0=[bmax0, ps0],
+            sigma=sa,
+            absolute_sigma=True,
+            jac=jac,
+            bounds=([0.0, 1e-9], [1.0, np.inf]),
+            method="trf",
+            maxfev=5000,
+            xtol=1e-12,
+            ftol=1e-12,
+            gtol=1e-12,
         )
     except (RuntimeError, ValueError) as exc:
         raise ValueError(f"beta: the saturation fit did not converge ({exc})") from None

@@ -33,8 +33,10 @@ def voigt_line(x, height, centre, sigma_gauss, gamma_lorentz):
     if not (sigma_gauss >= 0 and gamma_lorentz >= 0 and sigma_gauss + gamma_lorentz > 0):
         raise ValueError("sigma_gauss, gamma_lorentz: must be zero or positive, not both zero")
     x = np.asarray(x, dtype=np.float64)
-    return height * special.voigt_profile(x - centre, sigma_gauss, gamma_lorentz) / special.voigt_profile(
-        0.0, sigma_gauss, gamma_lorentz
+    return (
+        height
+        * special.voigt_profile(x - centre, sigma_gauss, gamma_lorentz)
+        / special.voigt_profile(0.0, sigma_gauss, gamma_lorentz)
     )
 
 
@@ -106,9 +108,19 @@ def fit_voigt(x, y, sigma) -> FitResult:
 
     try:
         popt, pcov = optimize.curve_fit(
-            model, u, v, p0=[h0, c0, s0, g0], sigma=w, absolute_sigma=True,
+            model,
+            u,
+            v,
+            p0=[h0, c0, s0, g0],
+            sigma=w,
+            absolute_sigma=True,
             bounds=([-np.inf, -np.inf, tiny, tiny], [np.inf, np.inf, np.inf, np.inf]),
-            method="trf", maxfev=20000, x_scale="jac", xtol=1e-12, ftol=1e-12, gtol=1e-12,
+            method="trf",
+            maxfev=20000,
+            x_scale="jac",
+            xtol=1e-12,
+            ftol=1e-12,
+            gtol=1e-12,
         )
     except (RuntimeError, ValueError) as exc:
         raise ValueError(f"y: the Voigt fit did not converge ({exc})") from None

@@ -1,6 +1,6 @@
 """The guard on a live bench: the trip monitor, the guarded pump, and the checks' threads.
 
-`BenchChecks` is what a `bench.run.measurement.Measurement` holds for the guard. It makes the
+`GuardChecks` is what a `bench.run.measurement.Measurement` holds for the guard. It makes the
 `TripMonitor` (its limits scaled to the run clock of an accelerated simulated bench) and the
 `GuardedPump` (which commands the pump off at once), and runs the checks where the readings
 arrive, never behind the consumer:
@@ -49,7 +49,7 @@ MONITOR_SPAN = 0.01
 STALE_POLL = 0.05
 
 
-class BenchChecks:
+class GuardChecks:
     """The guard's monitor, guarded pump and checks for one live run (see the module notes).
 
     Parameters
@@ -71,9 +71,18 @@ class BenchChecks:
         Returns the estimator's mode and settings now (they change during a run).
     """
 
-    def __init__(self, cfg: BenchConfig, pump: Any, shutter: Any, clock: Any, *, speed: float,
-                 event_sink: Callable[[Event], None], stop: threading.Event,
-                 mode: Callable[[], tuple[str, Mapping[str, Any]]]) -> None:
+    def __init__(
+        self,
+        cfg: BenchConfig,
+        pump: Any,
+        shutter: Any,
+        clock: Any,
+        *,
+        speed: float,
+        event_sink: Callable[[Event], None],
+        stop: threading.Event,
+        mode: Callable[[], tuple[str, Mapping[str, Any]]],
+    ) -> None:
         self.cfg = cfg
         self.pump = pump
         self.clock = clock
@@ -93,7 +102,11 @@ class BenchChecks:
         self.monitor = TripMonitor(guard_cfg, started_at=clock.now(), lag_allowance=POLL_SPAN * speed)
         self.pump_access = PumpAccess()
         self.guarded_pump = GuardedPump.from_config(
-            GuardPumpPort(pump, self.pump_access), cfg, shutter=shutter, clock=clock.now, event_sink=event_sink,
+            GuardPumpPort(pump, self.pump_access),
+            cfg,
+            shutter=shutter,
+            clock=clock.now,
+            event_sink=event_sink,
             monitor=self.monitor,
         )
         self.guarded_pump.start(who="gainbench (start: pump output off)")
@@ -114,13 +127,20 @@ class BenchChecks:
             k = max(1, min(block.n, int(round(MONITOR_SPAN / block.dt)) if block.dt > 0 else 1))
             self._monitor_level = (block.t_end, float(np.mean(block.column(PUMP_MONITOR)[-k:])))
         if block.source == "pump":
-            found = mon.feed_pump(block, output_off_since=gp.output_off_since,
-                                  output_on_since=gp.output_on_since, received_at=now)
+            found = mon.feed_pump(
+                block,
+                output_off_since=gp.output_off_since,
+                output_on_since=gp.output_on_since,
+                received_at=now,
+            )
         elif block.source == "detector" and self.detector_range is not None:
             mode = mode_of(self.mode()[0])  # held at one level the whole run: steady and never stepped
-            found = mon.feed_detector(block, self.detector_range,
-                                      pump_steady=mode.pump_steady(self.mode()[1]) and not mode.steps_pump,
-                                      received_at=now)
+            found = mon.feed_detector(
+                block,
+                self.detector_range,
+                pump_steady=mode.pump_steady(self.mode()[1]) and not mode.steps_pump,
+                received_at=now,
+            )
         else:
             return
         if found:
@@ -137,8 +157,10 @@ class BenchChecks:
     # -- the threads ----------------------------------------------------------------------------
     def start_threads(self) -> None:
         """Start the stale-reading watchdog and the pump checks."""
-        self._threads = [threading.Thread(target=self._watch_stale, name="guard-watch", daemon=True),
-                         threading.Thread(target=self._pump_checks, name="pump-checks", daemon=True)]
+        self._threads = [
+            threading.Thread(target=self._watch_stale, name="guard-watch", daemon=True),
+            threading.Thread(target=self._pump_checks, name="pump-checks", daemon=True),
+        ]
         for thread in self._threads:
             thread.start()
 
@@ -189,8 +211,14 @@ class BenchChecks:
         now = self.clock.now()
         found = self.monitor.feed_error_queue("pump driver", [(e.code, e.text) for e in entries], now)
         for condition in found[:1]:
-            self.event_sink(Event(now, "fault", condition.reason, data={
-                "source": "pump", "errors": [[e.code, e.text] for e in entries]}))
+            self.event_sink(
+                Event(
+                    now,
+                    "fault",
+                    condition.reason,
+                    data={"source": "pump", "errors": [[e.code, e.text] for e in entries]},
+                )
+            )
         self.guarded_pump.trip_on(found[:1])
 
     def check_power_calibration(self) -> None:
@@ -226,10 +254,20 @@ class BenchChecks:
                 found += mon.feed_power(expected, measured, current, "the pump driver's power reading", now)
         level = self._monitor_level
         per_watt = self.monitor_per_watt
-        if (level is not None and per_watt and self._pump_steady() and level[0] > max(on_since, t_i)
-                and now - level[0] < 1.0):
-            found += mon.feed_power(expected, level[1] / per_watt, current,
-                                    f"the pump monitor ({level[1]:.4g} V at {per_watt:.4g} V/W)", now)
+        if (
+            level is not None
+            and per_watt
+            and self._pump_steady()
+            and level[0] > max(on_since, t_i)
+            and now - level[0] < 1.0
+        ):
+            found += mon.feed_power(
+                expected,
+                level[1] / per_watt,
+                current,
+                f"the pump monitor ({level[1]:.4g} V at {per_watt:.4g} V/W)",
+                now,
+            )
         if found:
             gp.trip_on(found[:1])
 
