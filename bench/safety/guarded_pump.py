@@ -64,6 +64,7 @@ from bench.safety.guard import (
     StopEmission,
     Trip,
 )
+from bench.safety.pump_off import close_shutter, command_off, off_failed_event
 from bench.safety.pump_protocols import OffReport, Performed, PumpOutput, Shutter
 from bench.safety.trip_monitor import TripMonitor
 
@@ -531,76 +532,25 @@ class GuardedPump:
         self._commanded_on = False
         if self._off_since is None:
             self._off_since = start
-        errors: list[str] = []
-        attempts = 0
-        while True:
-            attempts += 1
-            ok = False
-            try:
-                self._pump.output(False)
-                done_at = self._clock()
-                if not self.verify_off:
-                    ok = True
-                else:
-                    try:
-                        still_on = self._pump.output_is_on()
-                    except Exception as exc:  # a failed read-back counts as a failed attempt
-                        errors.append(f"read-back failed: {type(exc).__name__}: {exc}")
-                    else:
-                        if reads_exactly(still_on, False):
-                            ok = True
-                        else:
-                            errors.append("the output still reads on after the off command")
-            except Exception as exc:  # any driver failure: retry, then the shutter
-                errors.append(f"{type(exc).__name__}: {exc}")
-            if ok:
-                self._off_since = done_at
-                return OffReport(True, attempts, done_at)
-            if attempts >= self.off_attempts or self._clock() - start >= self.off_deadline:
-                return OffReport(False, attempts, None, "; ".join(errors))
-            self._sleep(self.retry_pause)
+        report = command_off(
+            self._pump,
+            self._clock,
+            self._sleep,
+            verify=self.verify_off,
+            attempts=self.off_attempts,
+            deadline=self.off_deadline,
+            pause=self.retry_pause,
+        )
+        if report.ok:
+            self._off_since = report.done_at
+        return report
 
     def _close_shutter(self, done: Performed, why: str, name: str | None = None) -> bool:
-        name = name or self.shutter_name
-        if self._shutter is None:
-            return False
-        try:
-            self._shutter.close_shutter(name)
-        except Exception as exc:  # any controller failure: logged loudly, never stops the off path
-            detail = f"{type(exc).__name__}: {exc}"
-            done.faults.append(
-                Event(
-                    self._clock(),
-                    "fault",
-                    f"CLOSING THE {name.upper()} SHUTTER FAILED ({why}): {detail}",
-                    data=MappingProxyType({"shutter": name, "error": detail}),
-                )
-            )
-            return False
-        return True
+        return close_shutter(self._shutter, name or self.shutter_name, why, self._clock, done.faults)
 
     def _off_fault(self, report: OffReport, shutter_closed: bool) -> Event:
-        if shutter_closed:
-            after = f"the {self.shutter_name} shutter was closed"
-        elif self._shutter is None:
-            after = "no pump shutter is configured"
-        else:
-            after = f"the {self.shutter_name} shutter could not be closed either"
-        text = (
-            f"PUMP OUTPUT OFF COMMAND FAILED after {report.attempts} attempts ({report.error}); {after}. "
-            "SWITCH THE PUMP OFF AT THE DRIVER (key switch or emergency stop) AND CHECK THE HARDWARE INTERLOCK."
-        )
-        return Event(
-            self._clock(),
-            "fault",
-            text,
-            data=MappingProxyType(
-                {
-                    "error": report.error,
-                    "attempts": report.attempts,
-                    "shutter_closed": shutter_closed,
-                }
-            ),
+        return off_failed_event(
+            report, shutter_closed, self.shutter_name, self._shutter is not None, self._clock()
         )
 
     def _record(self, event: Event) -> None:

@@ -261,7 +261,7 @@ def test_a_watch_run_reports_its_estimates_with_their_uncertainties(runs, report
     _check_trips(page, logs / f"{ids['watch']}.gbrun")
     with RunReader(logs / f"{ids['watch']}.gbrun") as r:
         final = r.final_estimate()
-    from bench.report.html import pm_text, quantity_cells
+    from bench.report.html_format import pm_text, quantity_cells
 
     beta = final.values["beta"]
     assert pm_text(beta.value, beta.sigma) in page.text
@@ -297,7 +297,7 @@ def test_a_decay_run_has_the_lifetime_fit(runs, reports):
     _check_trips(page, logs / f"{ids['decay']}.gbrun")
     with RunReader(logs / f"{ids['decay']}.gbrun") as r:
         tau = r.final_estimate(1).values["tau_s"]
-    from bench.report.html import quantity_cells
+    from bench.report.html_format import quantity_cells
 
     assert quantity_cells(tau.value * 1e3, tau.sigma * 1e3, tau.sigma_noise * 1e3, 0.0)[0] in page.text
     # default: the live analysis only, but the page lists the re-analysis and its overrides
@@ -316,7 +316,7 @@ def test_a_reanalysis_shows_its_overrides_and_both_estimates(runs, reports):
     assert "parameter as recorded override used sample.length 5 mm 5.1mm" in page.text
     with RunReader(logs / f"{ids['decay']}.gbrun") as r:
         b1, b2 = r.final_estimate(1).values["beta"], r.final_estimate(2).values["beta"]
-    from bench.report.html import pm_text
+    from bench.report.html_format import pm_text
 
     assert pm_text(b1.value, b1.sigma) in page.text and pm_text(b2.value, b2.sigma) in page.text
     # beta = ln R / ((sigma_e + sigma_a) L N) + beta_off: the same ln R over 5.1 mm instead of
@@ -340,7 +340,7 @@ def test_a_sweep_run_has_the_saturation_fit(runs, reports):
     with RunReader(logs / f"{ids['sweep']}.gbrun") as r:
         final = r.final_estimate()
     # four steps: three closed ones are fitted, and the fit's figures are in the table
-    from bench.report.html import quantity_cells
+    from bench.report.html_format import quantity_cells
 
     for key in ("beta_max", "p_sat_w"):
         q = final.values[key]
