@@ -6,6 +6,7 @@ A profile lets a user adapt gainbench to the instrument on their bench without c
     name = "generic-pump"
     role = "pump"
     description = "SCPI diode driver"
+    # driver = "lockin"        # a driver with operations of its own (drivers/roles.py)
 
     [transport]
     read_termination = "\\n"
@@ -47,7 +48,7 @@ from types import MappingProxyType
 from typing import Any
 
 from drivers.errors import DriverConfigError, ProfileError
-from drivers.roles import PLACEHOLDER_SAMPLES, ROLES, Operation
+from drivers.roles import DRIVER_OPERATIONS, PLACEHOLDER_SAMPLES, ROLES, Operation, operations
 
 #: The folder of built-in profiles.
 BUILTIN_DIR = Path(__file__).resolve().parent / "profiles"
@@ -163,6 +164,8 @@ class Profile:
     errors: ErrorPolicy
     commands: Mapping[str, Command]
     options: Mapping[str, Any]
+    #: The driver whose own operations it defines (`drivers.roles.DRIVER_OPERATIONS`), or "".
+    driver: str = ""
 
     def has(self, op: str) -> bool:
         return op in self.commands
@@ -241,7 +244,7 @@ def _build(doc: dict[str, Any], path: str, want_role: str | None) -> Profile:
         if key not in _SECTIONS:
             raise ProfileError(path, key, f"unknown section; expected one of {sorted(_SECTIONS)}")
     head = _table(doc, "profile", path, required=True)
-    _only_keys(head, {"name", "role", "description"}, path, "profile")
+    _only_keys(head, {"name", "role", "description", "driver"}, path, "profile")
     name = _string(head, "name", path, "profile", required=True)
     role = _string(head, "role", path, "profile", required=True)
     if role not in ROLES:
@@ -253,25 +256,43 @@ def _build(doc: dict[str, Any], path: str, want_role: str | None) -> Profile:
             f"this profile is for the {role!r} role but is used for the {want_role!r} role",
         )
     description = _string(head, "description", path, "profile") or ""
+    driver = _string(head, "driver", path, "profile") or ""
+    if driver:
+        if driver not in DRIVER_OPERATIONS:
+            raise ProfileError(
+                path,
+                "profile.driver",
+                f"no driver {driver!r} has operations of its own; expected one of "
+                f"{sorted(DRIVER_OPERATIONS)}, or leave it out for the {role!r} role's operations",
+            )
+        if DRIVER_OPERATIONS[driver][0] != role:
+            raise ProfileError(
+                path,
+                "profile.driver",
+                f"the {driver!r} driver is for the {DRIVER_OPERATIONS[driver][0]!r} role, not {role!r}",
+            )
     transport = _transport(_table(doc, "transport", path), path)
     errors = _errors(_table(doc, "errors", path), path)
-    operations = ROLES[role]
+    ops_table = operations(role, driver)
     raw_commands = _table(doc, "commands", path, required=True)
     commands: dict[str, Command] = {}
     for op, entry in raw_commands.items():
-        if op not in operations:
+        if op not in ops_table:
+            whose = f"the {driver!r} driver" if driver else f"the {role!r} role"
             raise ProfileError(
                 path,
                 f"commands.{op}",
-                f"not an operation of the {role!r} role; expected one of {sorted(operations)}",
+                f"not an operation of {whose}; expected one of {sorted(ops_table)}",
             )
-        commands[op] = _command(op, entry, operations[op], errors, path)
-    missing = [op for op, spec in operations.items() if spec.required and op not in commands]
+        commands[op] = _command(op, entry, ops_table[op], errors, path)
+    missing = [op for op, spec in ops_table.items() if spec.required and op not in commands]
     if missing:
         raise ProfileError(
             path,
             f"commands.{missing[0]}",
-            f"missing; the {role!r} role needs {', '.join(missing)}",
+            f"missing; the {driver!r} driver needs {', '.join(missing)}"
+            if driver
+            else f"missing; the {role!r} role needs {', '.join(missing)}",
         )
     options = _table(doc, "options", path)
     return Profile(
@@ -283,6 +304,7 @@ def _build(doc: dict[str, Any], path: str, want_role: str | None) -> Profile:
         errors=errors,
         commands=MappingProxyType(commands),
         options=MappingProxyType(dict(options)),
+        driver=driver,
     )
 
 

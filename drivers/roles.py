@@ -84,6 +84,28 @@ DETECTOR: dict[str, Operation] = {
     "sim_fault": _op(False, ("spec",), idempotent=False),
 }
 
+#: A lock-in amplifier referenced to the pump modulation (driver ``lockin``, role ``detector``):
+#: one demodulated reading per exchange, X and Y in V rms. A profile for it says
+#: ``driver = "lockin"`` in its ``[profile]`` table (see `DRIVER_OPERATIONS`).
+LOCKIN: dict[str, Operation] = {
+    "read_xy": _query(("csv_floats",), required=True, kind="voltage", idempotent=True),
+    # R in V rms and theta in the unit of the driver's option phase_unit (degrees by default):
+    # one reply holds two kinds of quantity, so it takes no profile unit
+    "read_r_theta": _query(("csv_floats",)),
+    "set_time_constant": _op(False, ("value",), kind="time"),
+    "time_constant": _query(_NUMBER_REPLIES, kind="time"),
+    "set_filter_order": _op(False, ("value",)),
+    "filter_order": _query(("int",)),
+    "set_sensitivity": _op(False, ("value",), kind="voltage"),
+    "sensitivity": _query(_NUMBER_REPLIES, kind="voltage"),
+    "reference_frequency": _query(("float",), kind="frequency"),
+    "read_aux": _query(("float",), kind="voltage", placeholders=("n",)),
+    "overload": _query(_BOOL_REPLIES),
+    "clock": _query(("float",), kind="time"),
+    "sim_truth": _query(("csv_floats",)),
+    "sim_fault": _op(False, ("spec",), idempotent=False),
+}
+
 PUMP: dict[str, Operation] = {
     "set_current": _op(True, ("value",), kind="current"),
     "current_setpoint": _query(("float",), required=True, kind="current"),
@@ -128,6 +150,22 @@ ROLES: dict[str, dict[str, Operation]] = {
         "wavelength": WAVELENGTH,
     }.items()
 }
+
+#: Driver name -> its own operations, for drivers whose role's table does not fit them (a
+#: detector that is not a ring-buffer digitiser). A profile naming ``driver`` in its
+#: ``[profile]`` table is checked against this table (common operations included) instead of
+#: its role's.
+DRIVER_OPERATIONS: dict[str, tuple[str, dict[str, Operation]]] = {
+    "lockin": ("detector", {**COMMON, **LOCKIN}),
+}
+
+
+def operations(role: str, driver: str | None = None) -> dict[str, Operation]:
+    """The operations a profile for ``role`` (and, if given, ``driver``) may and must define."""
+    if driver:
+        return DRIVER_OPERATIONS[driver][1]
+    return ROLES[role]
+
 
 #: Placeholder name -> a sample value used to check a command's format specification.
 PLACEHOLDER_SAMPLES: dict[str, object] = {

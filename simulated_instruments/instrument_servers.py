@@ -27,6 +27,7 @@ from simulated_instruments.clock import SimClock
 from simulated_instruments.device_errors import DEVICE_FAULT, DeviceError
 from simulated_instruments.digitiser_device import Digitiser
 from simulated_instruments.faults import MODEL_KINDS, Fault, as_fault
+from simulated_instruments.lockin_device import LockInDevice
 from simulated_instruments.optical_setup import BenchModel
 from simulated_instruments.pump_device import PumpDriverDevice
 from simulated_instruments.server import HOST, InstrumentServer, ReplyFaults
@@ -39,6 +40,9 @@ from simulated_instruments.wavelength_device import WavelengthSource
 JOIN_TIMEOUT = 2.0
 #: Real seconds between the background catch-ups of the model (see `SimulatedBench`).
 KEEP_UP = 0.025
+#: The detector's driver (bench file) -> the simulated instrument that serves it; the
+#: digitiser for any other driver.
+DETECTOR_DEVICES = {"lockin": LockInDevice}
 
 
 class SimulatedBench:
@@ -78,8 +82,10 @@ class SimulatedBench:
         )
         for f in parsed:
             self._check_role(f)
+        detector_entry = cfg.instruments.get("detector")
+        detector_device = DETECTOR_DEVICES.get(getattr(detector_entry, "driver", ""), Digitiser)
         devices = {
-            "detector": lambda: Digitiser(self.core, inject=self.inject),
+            "detector": lambda: detector_device(self.core, inject=self.inject),
             "pump": lambda: PumpDriverDevice(self.core),
             "shutter": lambda: ShutterController(self.core),
             "wavelength": lambda: WavelengthSource(self.core),

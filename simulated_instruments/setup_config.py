@@ -58,9 +58,11 @@ class PumpSetup(Protocol):
 
 
 class InstrumentSetup(Protocol):
-    """One instrument entry: the simulator reads the detector's ``sample_rate`` and ``range``."""
+    """One instrument entry: the simulator reads the detector's ``sample_rate`` and ``range``,
+    and its ``driver`` (which simulated detector to serve)."""
 
     options: Mapping[str, Any]
+    driver: str
 
 
 class SimulationSetup(Protocol):

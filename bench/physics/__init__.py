@@ -3,7 +3,8 @@
 The gain physics of a pumped quasi-three-level medium is split by topic: `saturation`
 (photons, saturation, transparency, probe weakness), `gain` (ln R <-> inversion <-> gain and
 its units), `cross_section_relations` (McCumber, Füchtbauer-Ladenburg), `frantz_nodvik`
-(pulsed probes) and `rate_equations` (the pumped manifold); `constants` holds h, c and k_B, and
+(pulsed probes), `rate_equations` (the pumped manifold) and `lockin_response` (the
+response to a square-wave pump at its modulation frequency, the lock-in reading, lifetime fits); `constants` holds h, c and k_B, and
 `arguments` the checks they share. Besides them: `fitting` (models fitted to data), `spectra`
 (cross-section spectrum files) and `beam` (beam profiles).
 
@@ -53,6 +54,18 @@ from bench.physics.gain import (
     per_m_to_per_cm,
     unpumped_transmission,
 )
+from bench.physics.lockin_response import (
+    LifetimeFit,
+    first_order_fundamental,
+    fit_lifetime_from_phase,
+    ln_ratio_from_lockin,
+    lockin_reading,
+    rc_settle_time,
+    square_wave_edges,
+    square_wave_fundamental,
+    square_wave_mean,
+    square_wave_state,
+)
 from bench.physics.rate_equations import (
     beta_of_pump,
     probe_held_fraction,
@@ -72,6 +85,16 @@ from bench.physics.saturation import (
 )
 
 __all__ = [
+    "first_order_fundamental",
+    "fit_lifetime_from_phase",
+    "LifetimeFit",
+    "ln_ratio_from_lockin",
+    "lockin_reading",
+    "rc_settle_time",
+    "square_wave_edges",
+    "square_wave_fundamental",
+    "square_wave_mean",
+    "square_wave_state",
     "C",
     "H",
     "K_B",
