@@ -33,6 +33,9 @@ from drivers.transports.base import TransportSpec, open_transport
 #: The resource string that stands for "start the simulated bench and use its resources".
 SIMULATED = "simulated"
 
+#: The VISA library an instrument opens through when none is named: pyvisa-py.
+DEFAULT_VISA_LIBRARY = "@py"
+
 
 @dataclass(frozen=True)
 class DriverInfo:
@@ -221,8 +224,9 @@ def open_instrument(
     options : mapping, optional
         Driver options from the bench file; they override the profile's ``[options]``.
     backend : str, optional
-        VISA library (``"@py"`` by default; ``"file.yaml@sim"`` for pyvisa-sim). Overrides the
-        ``visa_backend`` option.
+        VISA library for a VISA resource: ``"@py"`` (pyvisa-py, the default), ``""`` (pyvisa's
+        default: the installed vendor library), a library path, or ``"file.yaml@sim"``
+        (pyvisa-sim). Overrides the ``visa_backend`` option; None (not ``""``) means not given.
     """
     if not isinstance(resource, str) or not resource.strip():
         raise InstrumentError(f"no resource given for driver {driver!r}", role=role)
@@ -240,7 +244,7 @@ def open_instrument(
         raise ValueError(f"timeout_s: expected a number of seconds > 0, got {timeout_s!r}")
     timeout = float(timeout_s) if timeout_s is not None else prof.transport.timeout_s
     merged: dict[str, Any] = {**prof.options, **(options or {})}
-    visa_backend = backend or merged.get("visa_backend") or "@py"
+    visa_backend = backend if backend is not None else merged.get("visa_backend", DEFAULT_VISA_LIBRARY)
     spec = TransportSpec(
         resource=resource,
         timeout_s=timeout,
@@ -261,3 +265,10 @@ def open_instrument(
     except BaseException:
         session.close()
         raise
+
+
+def visa_library_of(driver: Driver) -> str | None:
+    """The VISA library ``driver``'s instrument was opened through, in words (``"pyvisa-py
+    0.8.1"``), or None when its transport is not a VISA one (a serial port)."""
+    library = getattr(getattr(driver.session, "transport", None), "library", None)
+    return library if isinstance(library, str) else None

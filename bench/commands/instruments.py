@@ -1,5 +1,6 @@
-"""`gainbench instruments`: list visible VISA resources and serial ports, then open each
-configured instrument and print its identity, or the reason it could not be reached."""
+"""`gainbench instruments`: say which VISA library the bench uses, list visible VISA resources
+and serial ports, then open each configured instrument and print its identity, or the reason
+it could not be reached."""
 
 from __future__ import annotations
 
@@ -25,8 +26,9 @@ def configure(parser: argparse.ArgumentParser) -> None:
         "--visa-backend",
         metavar="LIB",
         default=None,
-        help='VISA library for listing and opening VISA resources: "@py" (pyvisa-py, the '
-        'default), "" (an installed vendor library) or its path',
+        help="VISA library for listing and opening VISA resources, over the bench file's "
+        '[bench] visa_library: "@py" (pyvisa-py, the default), "" (an installed vendor '
+        'library), its path, or "devices.yaml@sim" (pyvisa-sim)',
     )
     parser.add_argument(
         "--no-scan",
@@ -52,15 +54,38 @@ def visa_resources(backend: str) -> tuple[list[str], str, list[str]]:
     return found, why, notes
 
 
+def library_in_use(library: str) -> tuple[str, str]:
+    """(what pyvisa opened for ``library``, in words; "" or why it cannot be used)."""
+    try:
+        from drivers.transports.visa import describe_library, resource_manager
+    except ImportError as exc:
+        return "", f"pyvisa is not installed ({exc}); install it with `pip install pyvisa pyvisa-py`"
+    try:
+        return describe_library(resource_manager(library).visalib), ""
+    except GainbenchError as exc:
+        return "", exc.detail or str(exc)
+
+
+def print_library(library: str) -> None:
+    """``VISA library ('@py'): pyvisa-py 0.8.1``, or why it cannot be used."""
+    used, why = library_in_use(library)
+    print(f"VISA library ({library!r}): {used or 'cannot be used: ' + why}")
+
+
 def _list_without_network_discovery(pyvisa, backend: str) -> list[str]:
     """Resources on local buses (serial, USB, GPIB) only.
 
     pyvisa-py's full listing also searches the network for LAN instruments by sending VXI-11
     broadcasts and mDNS queries to every interface. A tool beside a lab network must not send
     traffic nobody asked for, so TCPIP instruments are never searched for: name them by their
-    address in the bench file (``TCPIP::192.0.2.10::5025::SOCKET``).
+    address in the bench file (``TCPIP::192.0.2.10::5025::SOCKET``). pyvisa-sim's resources
+    are its device file's and send nothing, so all of them are listed.
     """
-    if backend in ("@py", "py", "@ivi-py"):
+    from drivers.transports.visa import resource_manager
+
+    rm = None if backend in ("@py", "py", "@ivi-py") else resource_manager(backend)
+    package = "pyvisa_py" if rm is None else type(rm.visalib).__module__.split(".")[0]
+    if package == "pyvisa_py":
         from pyvisa_py.sessions import Session
 
         found: list[str] = []
@@ -72,7 +97,8 @@ def _list_without_network_discovery(pyvisa, backend: str) -> list[str]:
             except Exception:  # one bus failing (no USB permissions, ...) must not hide the others
                 continue
         return sorted(set(found))
-    rm = pyvisa.ResourceManager(backend)
+    if package == "pyvisa_sim":
+        return list(rm.list_resources("?*"))
     return [r for r in rm.list_resources("?*") if not r.upper().startswith("TCPIP")]
 
 
@@ -121,14 +147,30 @@ def resolved_resources(cfg) -> Iterator[tuple[Mapping[str, str], str]]:
         yield out, ""
 
 
+def _visa_kind(resource: str) -> bool:
+    from drivers.transports.base import transport_kind
+
+    try:
+        return transport_kind(resource) == "visa"
+    except ValueError:
+        return False
+
+
 def identify_all(cfg, resources: Mapping[str, str], note: str, backend: str | None) -> int:
-    """Open each configured instrument and print its identity; the number that failed."""
+    """Open each configured instrument and print its identity; the number that failed.
+
+    VISA instruments open through ``backend`` if given, else the bench's library
+    (``[bench] visa_library``); one that names a library of its own says so.
+    """
     from drivers.registry import open_instrument
 
     failed = 0
     for role, inst in cfg.instruments.items():
         resource = resources.get(role, inst.resource)
+        library = backend if backend is not None else cfg.visa_library_for(role)
         head = f"  {role:<11} {inst.driver} via {resource} (profile {inst.profile})"
+        if backend is None and library != cfg.visa_library and _visa_kind(resource):
+            head += f" (VISA library {library!r})"
         if resource.lower() == "simulated":
             print(
                 f"{head}\n      not reached: {note or 'the simulated bench gave no resource for this role'}"
@@ -138,7 +180,7 @@ def identify_all(cfg, resources: Mapping[str, str], note: str, backend: str | No
         options = dict(inst.options)
         try:
             with open_instrument(
-                role, inst.driver, resource, inst.profile, inst.timeout, options, backend=backend
+                role, inst.driver, resource, inst.profile, inst.timeout, options, backend=library
             ) as drv:
                 identity = drv.identify()
                 latency = drv.stats.last_latency_s
@@ -154,8 +196,9 @@ def run(args: argparse.Namespace) -> int:
 
     cfg = load_bench(args.config)
     backend = args.visa_backend
+    listing = cfg.visa_library if backend is None else backend
     if not args.no_scan:
-        listing = "@py" if backend is None else backend
+        print_library(listing)
         found, why, notes = visa_resources(listing)
         print(f"VISA resources ({listing or 'default library'}):")
         if why:
@@ -174,7 +217,9 @@ def run(args: argparse.Namespace) -> int:
             print(f"  {line}")
         if not ports and not why:
             print("  none found")
-    print(f"Instruments of {cfg.source}:")
     with resolved_resources(cfg) as (resources, note):
+        if args.no_scan and any(_visa_kind(r) for r in resources.values()):
+            print_library(listing)
+        print(f"Instruments of {cfg.source}:")
         failed = identify_all(cfg, resources, note, backend)
     return 1 if failed else 0

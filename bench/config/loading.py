@@ -11,6 +11,8 @@ from pathlib import Path
 from bench.config.model import BenchConfig
 from bench.config.sections import build_bench
 from bench.config.toml_reader import BenchFileReader, apply_overrides
+from bench.config.visa_library import KEY as VISA_LIBRARY_KEY
+from bench.config.visa_library import check_visa_library, split_library
 from bench.errors import ConfigError
 
 #: A bench file is a few kB; more than this is the wrong file (or a device that never ends).
@@ -54,6 +56,10 @@ def load_bench(path: str | Path | None = None, overrides: Mapping[str, str] | No
         # only the text and the overrides (the simulated bench, the bench process) read the
         # text elsewhere, so the resolved path goes with the overrides.
         cfg = replace(cfg, overrides={**cfg.overrides, "sample.spectrum": str(spectrum.resolve())})
+    check_visa_library(cfg.visa_library, source, text, overridden=VISA_LIBRARY_KEY in cfg.overrides)
+    if split_library(cfg.visa_library)[0]:
+        # a library file's path made absolute goes with the overrides too, for the same reason
+        cfg = replace(cfg, overrides={**cfg.overrides, VISA_LIBRARY_KEY: cfg.visa_library})
     return cfg
 
 

@@ -140,3 +140,12 @@ class BenchConfig:
     overrides: Mapping[str, str] = field(default_factory=dict)
     #: The folder relative file names in ``text`` were read from (spectrum files).
     base_dir: Path | None = None
+    #: ``[bench] visa_library``: the VISA library (pyvisa's specification, a path in it made
+    #: absolute) every VISA instrument opens through; "@py" (pyvisa-py) by default.
+    visa_library: str = "@py"
+
+    def visa_library_for(self, role: str) -> str:
+        """The VISA library the instrument of ``role`` opens through: the bench's, or the
+        instrument's own ``visa_backend`` option when the bench names none."""
+        own = self.instruments[role].options.get("visa_backend")
+        return str(own) if own is not None else self.visa_library

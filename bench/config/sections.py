@@ -39,6 +39,8 @@ from bench.config.model import (
     SimulationConfig,
 )
 from bench.config.toml_reader import BenchFileReader
+from bench.config.visa_library import KEY as VISA_LIBRARY_KEY
+from bench.config.visa_library import read_visa_library
 from bench.errors import ConfigError
 from bench.physics import photon_energy, spectra
 
@@ -64,6 +66,7 @@ def build_bench(r: BenchFileReader, text: str, base_dir: Path) -> BenchConfig:
     r.table("bench")
     name = r.string("bench.name")
     simulated = r.boolean("bench.simulated", False)
+    visa_library = read_visa_library(r, base_dir)
     sample = _sample(r, base_dir)
     probe = _probe(r)
     pump = _pump(r)
@@ -90,6 +93,7 @@ def build_bench(r: BenchFileReader, text: str, base_dir: Path) -> BenchConfig:
             if inst.resource != "simulated":
                 raise r.fail(f"instruments.{role}.resource", 'a simulated bench needs resource = "simulated"')
     _refuse_simulator_on_a_real_bench(r, simulated, instruments)
+    _refuse_two_visa_libraries(r, instruments)
     return BenchConfig(
         source=r.source,
         text=text,
@@ -102,7 +106,24 @@ def build_bench(r: BenchFileReader, text: str, base_dir: Path) -> BenchConfig:
         guard=guard,
         run=run,
         simulation=simulation,
+        visa_library=visa_library,
     )
+
+
+def _refuse_two_visa_libraries(r: BenchFileReader, instruments: dict[str, InstrumentConfig]) -> None:
+    """An instrument's own ``visa_backend`` option (kept from before ``[bench] visa_library``)
+    must not name another library than the bench's, when the bench names one."""
+    if r.get(VISA_LIBRARY_KEY, None) is None:
+        return
+    for role, inst in instruments.items():
+        own = inst.options.get("visa_backend")
+        if own is not None and own != r.get(VISA_LIBRARY_KEY):
+            raise r.fail(
+                f"instruments.{role}.options",
+                f"visa_backend = {own!r} differs from {VISA_LIBRARY_KEY} = {r.get(VISA_LIBRARY_KEY)!r}; "
+                "every VISA instrument of a bench opens through one library: name it once, in "
+                f"{VISA_LIBRARY_KEY}",
+            )
 
 
 def _sample(r: BenchFileReader, base_dir: Path) -> SampleConfig:

@@ -16,7 +16,7 @@ from bench.errors import ConfigError, GainbenchError
 from bench.records import Event
 from bench.run.errors import MeasurementError
 from bench.run.simulator_process import SimulatorProcess
-from drivers.registry import open_instrument
+from drivers.registry import open_instrument, visa_library_of
 from simulated_instruments.instrument_servers import SimulatedBench
 from simulated_instruments.setup_config import SimulatorSetupError
 
@@ -60,12 +60,19 @@ def open_instruments(
 ) -> None:
     """Open every configured instrument that has a resource through the driver registry, ask
     its identity and empty its error queue (what it holds is from before this run; noted as an
-    event through ``on_event``). Fills ``instruments`` and ``identities`` by role."""
+    event through ``on_event``). Fills ``instruments`` and ``identities`` by role. VISA
+    instruments open through the bench's ``[bench] visa_library``."""
     for role, inst in cfg.instruments.items():
         if role not in resources:
             continue
         driver = open_instrument(
-            role, inst.driver, resources[role], inst.profile, inst.timeout, dict(inst.options)
+            role,
+            inst.driver,
+            resources[role],
+            inst.profile,
+            inst.timeout,
+            dict(inst.options),
+            backend=cfg.visa_library_for(role),
         )
         instruments[role] = driver
         try:
@@ -98,8 +105,25 @@ def open_truth_connection(cfg: BenchConfig, sim):
     """A detector connection of its own to the simulator, for its truth queries."""
     inst = cfg.instruments["detector"]
     return open_instrument(
-        "detector", inst.driver, sim.resources["detector"], inst.profile, inst.timeout, dict(inst.options)
+        "detector",
+        inst.driver,
+        sim.resources["detector"],
+        inst.profile,
+        inst.timeout,
+        dict(inst.options),
+        backend=cfg.visa_library_for("detector"),
     )
+
+
+def visa_libraries(instruments: Mapping[str, Any]) -> dict[str, str]:
+    """Role -> the VISA library its instrument was opened through, in words, for each one
+    opened through VISA (stored in a run's metadata beside the instruments' identities)."""
+    out = {}
+    for role, driver in instruments.items():
+        library = visa_library_of(driver)
+        if library is not None:
+            out[role] = library
+    return out
 
 
 def close_instruments(instruments: Mapping[str, Any], sim) -> None:

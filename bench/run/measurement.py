@@ -42,6 +42,7 @@ from bench.run.instrument_setup import (
     needs_simulator,
     open_instruments,
     simulated_resources,
+    visa_libraries,
 )
 from bench.run.preflight import override_events
 from bench.run.readers import (
@@ -175,7 +176,11 @@ class Measurement:
                 mode=self.mode,
                 instruments=self.identities,
                 log_dir=self.log_dir,
-                meta={"speed": self.speed, "faults": list(self.faults)},
+                meta={
+                    "speed": self.speed,
+                    "faults": list(self.faults),
+                    "visa_library": visa_libraries(self.instruments),
+                },
             )
             self.store.set_meta(
                 estimator_mode=self.mode,

@@ -2,7 +2,9 @@
 
 The default library is pyvisa-py (``"@py"``), so no vendor VISA is needed; any installed
 library works too (``backend=""`` or its path), and pyvisa-sim (``"devices.yaml@sim"``) for
-tests. Reads go straight to the VISA library's read call in a loop against the deadline:
+tests. Each library has one pyvisa ``ResourceManager`` per process (`resource_manager`),
+shared by every transport opened through it and closed at exit. Reads go straight to the VISA
+library's read call in a loop against the deadline:
 
 - `read_line` keeps the termination character enabled, so each low-level read ends at it;
 - `read_exact` switches the termination character off, so a 0x0A inside binary data never
@@ -20,9 +22,12 @@ transport looks at the socket underneath, when there is one, to tell "instrument
 
 from __future__ import annotations
 
+import atexit
 import os
 import select
 import socket
+import threading
+from importlib import metadata
 
 import pyvisa
 from pyvisa import constants
@@ -40,6 +45,90 @@ from drivers.transports.line_buffer import LineBuffer, LineTooLong
 #: Shortest timeout handed to the VISA library (ms); 0 would mean "do not wait at all".
 _MIN_TIMEOUT_MS = 1
 
+#: The VISA library used when none is named: pyvisa-py, which needs no vendor installation.
+DEFAULT_LIBRARY = "@py"
+
+#: Library specification -> its ResourceManager in this process (see `resource_manager`).
+_MANAGERS: dict[str, pyvisa.ResourceManager] = {}
+_MANAGERS_LOCK = threading.Lock()
+
+
+def resource_manager(library: str = DEFAULT_LIBRARY, *, role: str = "", resource: str = ""):
+    """This process's one ``ResourceManager`` for ``library``, opened on first use.
+
+    Opening a VISA library (loading a vendor library, parsing a pyvisa-sim device file) is
+    costly, so every transport opened through the same library shares one manager; they are
+    closed at exit (`close_resource_managers`). ``library`` is pyvisa's specification:
+    ``"@py"``, ``""`` (pyvisa's own default: an installed vendor library, else pyvisa-py;
+    pyvisa is then called with no argument), a library path, or ``"devices.yaml@sim"``.
+    ``role`` and ``resource`` name the instrument in errors.
+
+    Raises
+    ------
+    InterfaceUnavailable
+        The library cannot be loaded (no such file, an unknown backend, a bad device file).
+    """
+    with _MANAGERS_LOCK:
+        rm = _MANAGERS.get(library)
+        if rm is not None and _is_open(rm):
+            return rm
+        try:
+            rm = pyvisa.ResourceManager(library) if library else pyvisa.ResourceManager()
+        except (OSError, ValueError) as exc:  # LibraryError is an OSError; a bad yaml a ValueError
+            first_line = (str(exc).strip().splitlines() or [""])[0][:300]
+            raise InterfaceUnavailable(
+                f'VISA library {library!r} cannot be used ({first_line}); the default "@py" needs '
+                'pyvisa-py (`pip install pyvisa-py`), "...@sim" needs pyvisa-sim',
+                role=role,
+                resource=resource,
+            ) from None
+        _MANAGERS[library] = rm
+        return rm
+
+
+def _is_open(rm) -> bool:
+    try:
+        _ = rm.session  # pyvisa raises InvalidSession once the manager is closed
+    except pyvisa.errors.InvalidSession:
+        return False
+    return True
+
+
+def close_resource_managers() -> None:
+    """Close every ResourceManager `resource_manager` opened (and the resources on them)."""
+    with _MANAGERS_LOCK:
+        managers = list(_MANAGERS.values())
+        _MANAGERS.clear()
+    for rm in managers:
+        try:
+            rm.close()
+        except Exception:  # at exit a library may already be half torn down; nothing is left to do
+            pass
+
+
+atexit.register(close_resource_managers)
+
+
+def describe_library(visalib) -> str:
+    """What pyvisa opened, in words: ``"pyvisa-py 0.8.1"``, ``"pyvisa-sim 0.7.1 serving
+    /lab/devices.yaml"``, ``"vendor VISA library /usr/lib/libvisa.so"`` (from ``rm.visalib``)."""
+    package = type(visalib).__module__.split(".")[0]
+    path = str(getattr(visalib, "library_path", "") or "")
+    if package == "pyvisa_py":
+        return f"pyvisa-py {_version('pyvisa-py')}".rstrip()
+    if package == "pyvisa_sim":
+        return f"pyvisa-sim {_version('pyvisa-sim')}".rstrip() + (f" serving {path}" if path else "")
+    if type(visalib).__name__ == "IVIVisaLibrary":
+        return f"vendor VISA library {path}".rstrip()
+    return f"{type(visalib).__name__} ({package}) {path}".rstrip()
+
+
+def _version(distribution: str) -> str:
+    try:
+        return metadata.version(distribution)
+    except metadata.PackageNotFoundError:
+        return ""
+
 
 class VisaTransport:
     """A pyvisa message-based resource behind the common transport interface.
@@ -53,7 +142,8 @@ class VisaTransport:
     read_termination, write_termination : bytes
         Line endings; the last byte of ``read_termination`` is the VISA termination character.
     backend : str
-        VISA library: ``"@py"`` (default), ``""``, a path, or ``"file.yaml@sim"``.
+        VISA library: ``"@py"`` (default), ``""``, a path, or ``"file.yaml@sim"``; its
+        ResourceManager is shared with every other transport on it (`resource_manager`).
     chunk_size : int
         Most bytes asked of the library per read call (64 KiB by default: large enough for
         full speed on loopback, small enough that a read cut off by the timeout loses little).
@@ -70,7 +160,7 @@ class VisaTransport:
         timeout_s: float = 2.0,
         read_termination: bytes = b"\n",
         write_termination: bytes = b"\n",
-        backend: str = "@py",
+        backend: str = DEFAULT_LIBRARY,
         chunk_size: int = 1 << 16,
         baudrate: int | None = None,
         role: str = "",
@@ -96,22 +186,12 @@ class VisaTransport:
         self._is_serial = resource.strip().upper().startswith("ASRL")
         self._termchar_on: bool | None = None
         self._res = None
-        self._rm = self._resource_manager()
+        self._rm = resource_manager(self.backend, role=self.role, resource=self.resource)
+        #: The library this transport goes through, in words (`describe_library`).
+        self.library = describe_library(self._rm.visalib)
         self._open()
 
     # -- opening -----------------------------------------------------------------------
-
-    def _resource_manager(self) -> pyvisa.ResourceManager:
-        try:
-            return pyvisa.ResourceManager(self.backend)
-        except (OSError, ValueError) as exc:  # LibraryError is an OSError; a bad yaml a ValueError
-            first_line = (str(exc).strip().splitlines() or [""])[0][:300]
-            raise InterfaceUnavailable(
-                f'VISA library {self.backend!r} cannot be used ({first_line}); the default "@py" needs '
-                'pyvisa-py (`pip install pyvisa-py`), "...@sim" needs pyvisa-sim',
-                role=self.role,
-                resource=self.resource,
-            ) from None
 
     def _open(self) -> None:
         kwargs: dict[str, object] = {
