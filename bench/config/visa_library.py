@@ -4,7 +4,7 @@ The value is pyvisa's library specification, ``PATH@BACKEND`` with either part o
 
 - ``"@py"``: pyvisa-py, the pure-Python library (the default; no vendor installation needed);
 - ``""``: pyvisa's own default, the installed vendor VISA library (pyvisa-py if none is found);
-- ``"/opt/visa/libvisa.so"``: that vendor library file;
+- ``"vendor/libvisa.so"`` (or an absolute path): that vendor library file;
 - ``"devices.yaml@sim"``: pyvisa-sim, serving the instruments a device file describes.
 
 A relative path resolves against the bench file's folder, as the other relative paths in a
