@@ -47,7 +47,7 @@ from types import MappingProxyType
 from typing import Any
 
 from drivers.errors import DriverConfigError, ProfileError
-from drivers.roles import PLACEHOLDER_SAMPLES, ROLES, Operation
+from drivers.roles import PLACEHOLDER_SAMPLES, ROLES, Operation, missing_operations
 
 #: The folder of built-in profiles.
 BUILTIN_DIR = Path(__file__).resolve().parent / "profiles"
@@ -209,7 +209,7 @@ def resolve_profile_path(name_or_path: str | Path) -> Path:
     )
 
 
-def load_profile(name_or_path: str | Path, *, role: str | None = None) -> Profile:
+def load_profile(name_or_path: str | Path, *, role: str | None = None, driver: str | None = None) -> Profile:
     """Read and validate a profile by built-in name or path.
 
     Parameters
@@ -218,25 +218,28 @@ def load_profile(name_or_path: str | Path, *, role: str | None = None) -> Profil
         ``"generic-pump"`` or ``"my_profiles/ld-driver.toml"``.
     role : str, optional
         The role the caller needs; a profile for another role is a `ProfileError`.
+    driver : str, optional
+        The driver that will use it: the profile must define what that driver needs
+        (`drivers.roles.DRIVER_NEEDS`); without one, what some driver of its role needs.
     """
     path = resolve_profile_path(name_or_path)
     try:
         text = path.read_text(encoding="utf-8")
     except (OSError, UnicodeDecodeError) as exc:
         raise ProfileError(str(path), "", f"cannot be read ({exc})") from None
-    return parse_profile(text, str(path), role=role)
+    return parse_profile(text, str(path), role=role, driver=driver)
 
 
-def parse_profile(text: str, path: str, *, role: str | None = None) -> Profile:
-    """Validate profile TOML ``text``; ``path`` names it in errors."""
+def parse_profile(text: str, path: str, *, role: str | None = None, driver: str | None = None) -> Profile:
+    """Validate profile TOML ``text``; ``path`` names it in errors (``driver`` as in `load_profile`)."""
     try:
         doc = tomllib.loads(text)
     except tomllib.TOMLDecodeError as exc:
         raise ProfileError(path, "", f"not valid TOML ({exc})") from None
-    return _build(doc, path, role)
+    return _build(doc, path, role, driver)
 
 
-def _build(doc: dict[str, Any], path: str, want_role: str | None) -> Profile:
+def _build(doc: dict[str, Any], path: str, want_role: str | None, driver: str | None = None) -> Profile:
     for key in doc:
         if key not in _SECTIONS:
             raise ProfileError(path, key, f"unknown section; expected one of {sorted(_SECTIONS)}")
@@ -266,12 +269,13 @@ def _build(doc: dict[str, Any], path: str, want_role: str | None) -> Profile:
                 f"not an operation of the {role!r} role; expected one of {sorted(operations)}",
             )
         commands[op] = _command(op, entry, operations[op], errors, path)
-    missing = [op for op, spec in operations.items() if spec.required and op not in commands]
+    needed_by, missing = missing_operations(role, commands, driver)
     if missing:
+        whose = f"the {needed_by!r} driver of the {role!r} role" if needed_by else f"the {role!r} role"
         raise ProfileError(
             path,
-            f"commands.{missing[0]}",
-            f"missing; the {role!r} role needs {', '.join(missing)}",
+            f"commands.{missing[0].split(' or ')[0]}",
+            f"missing; {whose} needs {', '.join(missing)}",
         )
     options = _table(doc, "options", path)
     return Profile(

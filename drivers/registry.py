@@ -167,7 +167,7 @@ def check_instrument(role: str, driver: str, profile: str, options: Mapping[str,
             f"{role!r}: {', '.join(n for n, i in known_drivers().items() if i.role == role) or '(none)'}",
             role=role,
         )
-    prof = load_profile(profile, role=cls.ROLE)
+    prof = load_profile(profile, role=cls.ROLE, driver=cls.DRIVER_NAME)
     merged: dict[str, Any] = {**prof.options, **(options or {})}
     transport = _Unconnected()
     session = Session(
@@ -217,7 +217,7 @@ def open_instrument(
             resource=resource,
         )
     cls = driver_class(driver, role=role, resource=resource)
-    prof = load_profile(profile, role=cls.ROLE)
+    prof = load_profile(profile, role=cls.ROLE, driver=cls.DRIVER_NAME)
     if timeout_s is not None and not (isinstance(timeout_s, (int, float)) and timeout_s > 0):
         raise ValueError(f"timeout_s: expected a number of seconds > 0, got {timeout_s!r}")
     timeout = float(timeout_s) if timeout_s is not None else prof.transport.timeout_s
