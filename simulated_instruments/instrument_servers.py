@@ -27,6 +27,7 @@ from simulated_instruments.clock import SimClock
 from simulated_instruments.device_errors import DEVICE_FAULT, DeviceError
 from simulated_instruments.digitiser_device import Digitiser
 from simulated_instruments.faults import MODEL_KINDS, Fault, as_fault
+from simulated_instruments.meter_device import Meter
 from simulated_instruments.optical_setup import BenchModel
 from simulated_instruments.pump_device import PumpDriverDevice
 from simulated_instruments.server import HOST, InstrumentServer, ReplyFaults
@@ -78,8 +79,11 @@ class SimulatedBench:
         )
         for f in parsed:
             self._check_role(f)
+        #: The detector device by the bench file's driver (a digitiser unless it names another).
+        detector_devices = {"meter": Meter}
+        detector = detector_devices.get(getattr(cfg.instruments.get("detector"), "driver", ""), Digitiser)
         devices = {
-            "detector": lambda: Digitiser(self.core, inject=self.inject),
+            "detector": lambda: detector(self.core, inject=self.inject),
             "pump": lambda: PumpDriverDevice(self.core),
             "shutter": lambda: ShutterController(self.core),
             "wavelength": lambda: WavelengthSource(self.core),

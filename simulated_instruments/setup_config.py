@@ -58,8 +58,10 @@ class PumpSetup(Protocol):
 
 
 class InstrumentSetup(Protocol):
-    """One instrument entry: the simulator reads the detector's ``sample_rate`` and ``range``."""
+    """One instrument entry: the simulator reads the detector's ``sample_rate`` and ``range``,
+    and its ``driver`` (``"meter"`` serves a polled meter instead of the digitiser)."""
 
+    driver: str
     options: Mapping[str, Any]
 
 
