@@ -30,6 +30,7 @@ def test_builtin_drivers_are_registered_with_their_roles():
     roles = {name: info.role for name, info in drivers.items() if info.cls is not None}
     assert roles == {
         "digitiser": "detector",
+        "meter": "detector",
         "pump-driver": "pump",
         "shutter": "shutter",
         "wavelength-source": "wavelength",
