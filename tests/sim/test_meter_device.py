@@ -16,6 +16,7 @@ from pathlib import Path
 import numpy as np
 import pytest
 
+from bench.cli import main
 from bench.config import load_bench
 from drivers.errors import InstrumentReportedError
 from drivers.registry import open_instrument
@@ -142,3 +143,9 @@ def test_truth_and_clock_count_from_power_on(cfg, sim):
         assert 0 <= t_meter <= sim.now() + 1e-9
         assert truth["t"] >= t_meter
         assert truth["tau"] == pytest.approx(0.6e-3)  # upper_state_lifetime of the bench file
+
+
+def test_gainbench_instruments_identifies_the_meter(capsys):
+    assert main(["instruments", "--config", str(METER_BENCH), "--no-scan"]) == 0
+    out = capsys.readouterr().out
+    assert "meter via" in out and "QM-3" in out and "QP-40" in out
