@@ -6,7 +6,6 @@ A profile lets a user adapt gainbench to the instrument on their bench without c
     name = "generic-pump"
     role = "pump"
     description = "SCPI diode driver"
-    # driver = "lockin"        # a driver with operations of its own (drivers/roles.py)
 
     [transport]
     read_termination = "\\n"
@@ -48,7 +47,7 @@ from types import MappingProxyType
 from typing import Any
 
 from drivers.errors import DriverConfigError, ProfileError
-from drivers.roles import DRIVER_OPERATIONS, PLACEHOLDER_SAMPLES, ROLES, Operation, operations
+from drivers.roles import PLACEHOLDER_SAMPLES, ROLES, Operation, missing_operations
 
 #: The folder of built-in profiles.
 BUILTIN_DIR = Path(__file__).resolve().parent / "profiles"
@@ -164,8 +163,6 @@ class Profile:
     errors: ErrorPolicy
     commands: Mapping[str, Command]
     options: Mapping[str, Any]
-    #: The driver whose own operations it defines (`drivers.roles.DRIVER_OPERATIONS`), or "".
-    driver: str = ""
 
     def has(self, op: str) -> bool:
         return op in self.commands
@@ -212,7 +209,7 @@ def resolve_profile_path(name_or_path: str | Path) -> Path:
     )
 
 
-def load_profile(name_or_path: str | Path, *, role: str | None = None) -> Profile:
+def load_profile(name_or_path: str | Path, *, role: str | None = None, driver: str | None = None) -> Profile:
     """Read and validate a profile by built-in name or path.
 
     Parameters
@@ -221,30 +218,33 @@ def load_profile(name_or_path: str | Path, *, role: str | None = None) -> Profil
         ``"generic-pump"`` or ``"my_profiles/ld-driver.toml"``.
     role : str, optional
         The role the caller needs; a profile for another role is a `ProfileError`.
+    driver : str, optional
+        The driver that will use it: the profile must define what that driver needs
+        (`drivers.roles.DRIVER_NEEDS`); without one, what some driver of its role needs.
     """
     path = resolve_profile_path(name_or_path)
     try:
         text = path.read_text(encoding="utf-8")
     except (OSError, UnicodeDecodeError) as exc:
         raise ProfileError(str(path), "", f"cannot be read ({exc})") from None
-    return parse_profile(text, str(path), role=role)
+    return parse_profile(text, str(path), role=role, driver=driver)
 
 
-def parse_profile(text: str, path: str, *, role: str | None = None) -> Profile:
-    """Validate profile TOML ``text``; ``path`` names it in errors."""
+def parse_profile(text: str, path: str, *, role: str | None = None, driver: str | None = None) -> Profile:
+    """Validate profile TOML ``text``; ``path`` names it in errors (``driver`` as in `load_profile`)."""
     try:
         doc = tomllib.loads(text)
     except tomllib.TOMLDecodeError as exc:
         raise ProfileError(path, "", f"not valid TOML ({exc})") from None
-    return _build(doc, path, role)
+    return _build(doc, path, role, driver)
 
 
-def _build(doc: dict[str, Any], path: str, want_role: str | None) -> Profile:
+def _build(doc: dict[str, Any], path: str, want_role: str | None, driver: str | None = None) -> Profile:
     for key in doc:
         if key not in _SECTIONS:
             raise ProfileError(path, key, f"unknown section; expected one of {sorted(_SECTIONS)}")
     head = _table(doc, "profile", path, required=True)
-    _only_keys(head, {"name", "role", "description", "driver"}, path, "profile")
+    _only_keys(head, {"name", "role", "description"}, path, "profile")
     name = _string(head, "name", path, "profile", required=True)
     role = _string(head, "role", path, "profile", required=True)
     if role not in ROLES:
@@ -256,43 +256,26 @@ def _build(doc: dict[str, Any], path: str, want_role: str | None) -> Profile:
             f"this profile is for the {role!r} role but is used for the {want_role!r} role",
         )
     description = _string(head, "description", path, "profile") or ""
-    driver = _string(head, "driver", path, "profile") or ""
-    if driver:
-        if driver not in DRIVER_OPERATIONS:
-            raise ProfileError(
-                path,
-                "profile.driver",
-                f"no driver {driver!r} has operations of its own; expected one of "
-                f"{sorted(DRIVER_OPERATIONS)}, or leave it out for the {role!r} role's operations",
-            )
-        if DRIVER_OPERATIONS[driver][0] != role:
-            raise ProfileError(
-                path,
-                "profile.driver",
-                f"the {driver!r} driver is for the {DRIVER_OPERATIONS[driver][0]!r} role, not {role!r}",
-            )
     transport = _transport(_table(doc, "transport", path), path)
     errors = _errors(_table(doc, "errors", path), path)
-    ops_table = operations(role, driver)
+    operations = ROLES[role]
     raw_commands = _table(doc, "commands", path, required=True)
     commands: dict[str, Command] = {}
     for op, entry in raw_commands.items():
-        if op not in ops_table:
-            whose = f"the {driver!r} driver" if driver else f"the {role!r} role"
+        if op not in operations:
             raise ProfileError(
                 path,
                 f"commands.{op}",
-                f"not an operation of {whose}; expected one of {sorted(ops_table)}",
+                f"not an operation of the {role!r} role; expected one of {sorted(operations)}",
             )
-        commands[op] = _command(op, entry, ops_table[op], errors, path)
-    missing = [op for op, spec in ops_table.items() if spec.required and op not in commands]
+        commands[op] = _command(op, entry, operations[op], errors, path)
+    needed_by, missing = missing_operations(role, commands, driver)
     if missing:
+        whose = f"the {needed_by!r} driver of the {role!r} role" if needed_by else f"the {role!r} role"
         raise ProfileError(
             path,
-            f"commands.{missing[0]}",
-            f"missing; the {driver!r} driver needs {', '.join(missing)}"
-            if driver
-            else f"missing; the {role!r} role needs {', '.join(missing)}",
+            f"commands.{missing[0].split(' or ')[0]}",
+            f"missing; {whose} needs {', '.join(missing)}",
         )
     options = _table(doc, "options", path)
     return Profile(
@@ -304,7 +287,6 @@ def _build(doc: dict[str, Any], path: str, want_role: str | None) -> Profile:
         errors=errors,
         commands=MappingProxyType(commands),
         options=MappingProxyType(dict(options)),
-        driver=driver,
     )
 
 

@@ -24,9 +24,8 @@ from typing import Any, TypeVar
 
 import drivers.instruments
 from drivers.base import Driver
-from drivers.errors import InstrumentError, InterfaceUnavailable, ProfileError
-from drivers.profile import Profile, load_profile
-from drivers.roles import DRIVER_OPERATIONS
+from drivers.errors import InstrumentError, InterfaceUnavailable
+from drivers.profile import load_profile
 from drivers.session import Session
 from drivers.transports.base import TransportSpec, open_transport
 
@@ -148,21 +147,6 @@ class _Unconnected:
         pass
 
 
-def _check_profile_driver(prof: Profile, cls: type[Driver], role: str, resource: str = "") -> None:
-    """A profile written for one driver's own operations serves that driver only, and a driver
-    with operations of its own needs a profile written for them."""
-    own = cls.DRIVER_NAME if cls.DRIVER_NAME in DRIVER_OPERATIONS else ""
-    if prof.driver != own:
-        wanted = f'driver = "{own}" in its [profile] table' if own else f"the {cls.ROLE!r} role's operations"
-        raise ProfileError(
-            prof.path,
-            "profile.driver",
-            f"profile {prof.name!r} is written for "
-            + (f"the {prof.driver!r} driver" if prof.driver else f"the {prof.role!r} role's operations")
-            + f", but the {cls.DRIVER_NAME!r} driver needs a profile with {wanted}",
-        )
-
-
 def check_instrument(role: str, driver: str, profile: str, options: Mapping[str, Any] | None = None) -> None:
     """What `open_instrument` would refuse before sending anything, without opening a transport.
 
@@ -186,8 +170,7 @@ def check_instrument(role: str, driver: str, profile: str, options: Mapping[str,
             f"{role!r}: {', '.join(n for n, i in known_drivers().items() if i.role == role) or '(none)'}",
             role=role,
         )
-    prof = load_profile(profile, role=cls.ROLE)
-    _check_profile_driver(prof, cls, role)
+    prof = load_profile(profile, role=cls.ROLE, driver=cls.DRIVER_NAME)
     merged: dict[str, Any] = {**prof.options, **(options or {})}
     transport = _Unconnected()
     session = Session(
@@ -238,8 +221,7 @@ def open_instrument(
             resource=resource,
         )
     cls = driver_class(driver, role=role, resource=resource)
-    prof = load_profile(profile, role=cls.ROLE)
-    _check_profile_driver(prof, cls, role, resource)
+    prof = load_profile(profile, role=cls.ROLE, driver=cls.DRIVER_NAME)
     if timeout_s is not None and not (isinstance(timeout_s, (int, float)) and timeout_s > 0):
         raise ValueError(f"timeout_s: expected a number of seconds > 0, got {timeout_s!r}")
     timeout = float(timeout_s) if timeout_s is not None else prof.transport.timeout_s

@@ -59,20 +59,23 @@ COMMON: dict[str, Operation] = {
     "clear_errors": _op(),
 }
 
+#: The detector role's operations: those of every detector driver (a digitiser read from its
+#: ring buffer, a polled meter). Which of them a profile must define depends on the driver
+#: that uses it: see `DRIVER_NEEDS`.
 DETECTOR: dict[str, Operation] = {
-    "set_rate": _op(True, ("value",), kind="frequency"),
+    # digitiser (ring buffer of sample sets)
+    "set_rate": _op(False, ("value",), kind="frequency"),
     "rate": _query(_NUMBER_REPLIES, kind="frequency"),
-    "set_channels": _op(True, ("channels",)),
+    "set_channels": _op(False, ("channels",)),
     "set_range": _op(False, ("value",), kind="voltage"),
     "range": _query(_NUMBER_REPLIES, kind="voltage"),
     "format_binary": _op(),
     "format_ascii": _op(),
-    "start": _op(True, idempotent=False),
-    "stop": _op(True),
-    "position": _query(("int",), required=True),
+    "start": _op(False, idempotent=False),
+    "stop": _op(False),
+    "position": _query(("int",)),
     "fetch": _query(
         ("block_f32le", "block_f32be", "block_f64le", "block_i16le", "block_i16be", "csv_floats"),
-        required=True,
         kind="voltage",
         placeholders=("count",),
         idempotent=False,
@@ -80,15 +83,21 @@ DETECTOR: dict[str, Operation] = {
     "fetch_ascii": _query(("csv_floats",), kind="voltage", placeholders=("count",), idempotent=False),
     "lost": _query(("int",)),
     "clock": _query(("float",), kind="time"),
+    # polled meter (one reading of every channel per exchange)
+    "read_all": _query(("csv_floats",), kind="voltage"),
+    "read_channel": _query(("float",), kind="voltage", placeholders=("n",)),
+    "set_averages": _op(False, ("value",)),
+    "averages": _query(_NUMBER_REPLIES),
+    # simulated bench only
     "sim_truth": _query(("csv_floats",)),
     "sim_fault": _op(False, ("spec",), idempotent=False),
 }
 
 #: A lock-in amplifier referenced to the pump modulation (driver ``lockin``, role ``detector``):
-#: one demodulated reading per exchange, X and Y in V rms. A profile for it says
-#: ``driver = "lockin"`` in its ``[profile]`` table (see `DRIVER_OPERATIONS`).
+#: one demodulated reading per exchange, X and Y in V rms (``read_xy`` is what `DRIVER_NEEDS`
+#: asks of a lock-in profile). Part of the detector role's operations.
 LOCKIN: dict[str, Operation] = {
-    "read_xy": _query(("csv_floats",), required=True, kind="voltage", idempotent=True),
+    "read_xy": _query(("csv_floats",), kind="voltage", idempotent=True),
     # R in V rms and theta in the unit of the driver's option phase_unit (degrees by default):
     # one reply holds two kinds of quantity, so it takes no profile unit
     "read_r_theta": _query(("csv_floats",)),
@@ -144,27 +153,64 @@ WAVELENGTH: dict[str, Operation] = {
 ROLES: dict[str, dict[str, Operation]] = {
     role: {**COMMON, **ops}
     for role, ops in {
-        "detector": DETECTOR,
+        "detector": {**DETECTOR, **LOCKIN},
         "pump": PUMP,
         "shutter": SHUTTER,
         "wavelength": WAVELENGTH,
     }.items()
 }
 
-#: Driver name -> its own operations, for drivers whose role's table does not fit them (a
-#: detector that is not a ring-buffer digitiser). A profile naming ``driver`` in its
-#: ``[profile]`` table is checked against this table (common operations included) instead of
-#: its role's.
-DRIVER_OPERATIONS: dict[str, tuple[str, dict[str, Operation]]] = {
-    "lockin": ("detector", {**COMMON, **LOCKIN}),
+
+@dataclass(frozen=True)
+class DriverNeeds:
+    """What a profile must define for one driver, beyond its role's required operations."""
+
+    #: Operations it must define, every one.
+    all_of: tuple[str, ...] = ()
+    #: Groups of operations of which it must define at least one each (alternatives).
+    one_of: tuple[tuple[str, ...], ...] = ()
+
+    def missing(self, defined) -> list[str]:
+        """What is missing from the operations ``defined``: names, and ``"a or b"`` for a group."""
+        out = [op for op in self.all_of if op not in defined]
+        for group in self.one_of:
+            if not any(op in defined for op in group):
+                out.append(" or ".join(group))
+        return out
+
+
+#: Driver name -> the operations a profile used with it must define (beyond the role's
+#: required ones). A role with one driver needs nothing here: its required operations are in
+#: its table. A detector profile is checked against the driver named with it (the bench
+#: file's ``driver``); loaded without one, it must serve at least one detector driver.
+DRIVER_NEEDS: dict[str, DriverNeeds] = {
+    "digitiser": DriverNeeds(all_of=("set_rate", "set_channels", "start", "stop", "position", "fetch")),
+    "meter": DriverNeeds(one_of=(("read_all", "read_channel"),)),
+    "lockin": DriverNeeds(all_of=("read_xy",)),
 }
 
+#: Role -> the drivers of ``DRIVER_NEEDS`` that serve it.
+ROLE_DRIVERS: dict[str, tuple[str, ...]] = {"detector": ("digitiser", "meter", "lockin")}
 
-def operations(role: str, driver: str | None = None) -> dict[str, Operation]:
-    """The operations a profile for ``role`` (and, if given, ``driver``) may and must define."""
-    if driver:
-        return DRIVER_OPERATIONS[driver][1]
-    return ROLES[role]
+
+def missing_operations(role: str, defined, driver: str | None = None) -> tuple[str, list[str]]:
+    """What a profile for ``role`` lacks: ``(driver it was checked for, missing operations)``.
+
+    The role's required operations first, then what ``driver`` needs (`DRIVER_NEEDS`). With
+    no driver (or one not in the table), a role with several drivers (`ROLE_DRIVERS`) is
+    checked against the driver it fits best: nothing is missing when it serves any of them.
+    """
+    base = [op for op, spec in ROLES[role].items() if spec.required and op not in defined]
+    if driver in DRIVER_NEEDS:
+        return driver, base + DRIVER_NEEDS[driver].missing(defined)
+    best: tuple[str, list[str]] = ("", base)
+    for name in ROLE_DRIVERS.get(role, ()):
+        lack = base + DRIVER_NEEDS[name].missing(defined)
+        if not best[0] or len(lack) < len(best[1]):
+            best = (name, lack)
+        if not lack:
+            return name, lack
+    return best
 
 
 #: Placeholder name -> a sample value used to check a command's format specification.

@@ -28,6 +28,7 @@ from simulated_instruments.device_errors import DEVICE_FAULT, DeviceError
 from simulated_instruments.digitiser_device import Digitiser
 from simulated_instruments.faults import MODEL_KINDS, Fault, as_fault
 from simulated_instruments.lockin_device import LockInDevice
+from simulated_instruments.meter_device import Meter
 from simulated_instruments.optical_setup import BenchModel
 from simulated_instruments.pump_device import PumpDriverDevice
 from simulated_instruments.server import HOST, InstrumentServer, ReplyFaults
@@ -42,7 +43,6 @@ JOIN_TIMEOUT = 2.0
 KEEP_UP = 0.025
 #: The detector's driver (bench file) -> the simulated instrument that serves it; the
 #: digitiser for any other driver.
-DETECTOR_DEVICES = {"lockin": LockInDevice}
 
 
 class SimulatedBench:
@@ -82,10 +82,11 @@ class SimulatedBench:
         )
         for f in parsed:
             self._check_role(f)
-        detector_entry = cfg.instruments.get("detector")
-        detector_device = DETECTOR_DEVICES.get(getattr(detector_entry, "driver", ""), Digitiser)
+        #: The detector device by the bench file's driver (a digitiser unless it names another).
+        detector_devices = {"meter": Meter, "lockin": LockInDevice}
+        detector = detector_devices.get(getattr(cfg.instruments.get("detector"), "driver", ""), Digitiser)
         devices = {
-            "detector": lambda: detector_device(self.core, inject=self.inject),
+            "detector": lambda: detector(self.core, inject=self.inject),
             "pump": lambda: PumpDriverDevice(self.core),
             "shutter": lambda: ShutterController(self.core),
             "wavelength": lambda: WavelengthSource(self.core),

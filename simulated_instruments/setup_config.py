@@ -59,8 +59,10 @@ class PumpSetup(Protocol):
 
 class InstrumentSetup(Protocol):
     """One instrument entry: the simulator reads the detector's ``sample_rate`` and ``range``,
-    and its ``driver`` (which simulated detector to serve)."""
+    and its ``driver`` (which simulated detector to serve: ``"meter"`` a polled meter, ``"lockin"``
+    a lock-in amplifier, otherwise the digitiser)."""
 
+    driver: str
     options: Mapping[str, Any]
     driver: str
 

@@ -36,7 +36,8 @@ between setting changes, not modulated), ``steps_pump`` (the mode changes the pu
 purpose during a run), ``timing`` (the modulation rule of a modulated mode: default period and
 check, `bench.estimator.timing`), ``period`` (which of the dashboard's periods it modulates
 with), ``settings`` (settings only this mode accepts), ``step_figure`` (what a sweep step
-measured as in this mode gives) and its words for ``record --help`` and the dashboard.
+measured as in this mode gives), ``polled`` (it takes a polled detector's one-sample blocks,
+`bench.estimator.state.POLL_TICK`) and its words for ``record --help`` and the dashboard.
 """
 
 from __future__ import annotations
@@ -106,6 +107,9 @@ class Mode:
     restart: Callable[[Any], Any] | None = None
     close_step: Callable[[Any], Any] = _no_close
     step_figure: Callable[[Any, Any], tuple[float, float, int, float] | None] | None = None
+    #: It takes a polled stream (one-sample blocks at their own, irregular times: a meter),
+    #: with batches and windows by time span; a mode that needs a sample interval does not.
+    polled: bool = False
 
     def __post_init__(self) -> None:
         if not (isinstance(self.name, str) and self.name.isidentifier()):

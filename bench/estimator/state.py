@@ -10,6 +10,13 @@ in the sample index or the first sample of the stream are not used.
 
 The sample-index grid (`Clock`) fixes batches, segments, decays and windows, so that feeding the
 same samples in blocks of any size gives the same estimates.
+
+A polled stream (a meter: one-sample blocks, ``dt = 0``, each at its own time) has no sample
+interval. Its grid is one of time: index i is ``origin + i * POLL_TICK``, and each reading
+takes the index of its own time (rounded to `POLL_TICK`), so batches and windows are spans of
+time and the settle times count time, with the real times of the readings and nothing made up
+in between. A gap is a jump in the blocks' ``first_index`` (the reader numbers its requests: a
+request without a reading leaves one out), not a jump in time.
 """
 
 from __future__ import annotations
@@ -26,7 +33,10 @@ from bench.estimator.capture import Baseline, Dark
 from bench.estimator.params import EstimatorParams
 from bench.records import PROBE, PUMP_MONITOR, REFERENCE, Block
 
-__all__ = ["Clock", "Pump", "Counts", "EstimatorState", "Frame", "new_clock", "make_frame"]
+__all__ = ["Clock", "Pump", "Counts", "EstimatorState", "Frame", "new_clock", "make_frame", "POLL_TICK"]
+
+#: Time resolution (s) of the grid of a polled stream: one index per microsecond.
+POLL_TICK = 1e-6
 
 
 @dataclass(frozen=True)
@@ -38,6 +48,10 @@ class Clock:
     batch: int  # samples per batch
     window: int  # samples per window (a whole number of batches)
     next_index: int  # first index not yet processed
+    #: A polled stream: indices are `POLL_TICK` steps of time, each block one reading.
+    polled: bool = False
+    #: Polled: the request number (``first_index``) the next reading should have; -1 unknown.
+    next_request: int = -1
 
     def time(self, index: float) -> float:
         return self.origin + index * self.dt
@@ -124,10 +138,14 @@ def make_frame(state: EstimatorState, block: Block, mode) -> tuple[Frame | None,
     clock = state.clock
     if n == 0:
         return None, clock, state.pump  # type: ignore[return-value]
+    first = clock is None
+    polled = clock.polled if clock is not None else block.dt == 0
+    if polled:
+        clock, i0, gap = _polled_position(p, clock, block)
+        return _frame(state, block, mode, clock, i0, first, gap)
     dt = block.dt if block.dt > 0 else (clock.dt if clock is not None else 0.0)
     if not dt > 0:
         raise ValueError(f"block: block {block.seq} has no sample interval (dt = 0) and none is known yet")
-    first = clock is None
     if first:
         clock = new_clock(p, block.t0, dt)
         i0 = 0
@@ -145,7 +163,40 @@ def make_frame(state: EstimatorState, block: Block, mode) -> tuple[Frame | None,
             )
     gap = (not first) and i0 > clock.next_index
     clock = dataclasses.replace(clock, next_index=i0 + n)
+    return _frame(state, block, mode, clock, i0, first, gap)
 
+
+def _polled_position(p: EstimatorParams, clock: Clock | None, block: Block) -> tuple[Clock, int, bool]:
+    """Clock after a polled reading, its index on the time grid, and whether requests were lost."""
+    if block.n != 1 or block.dt != 0:
+        raise ValueError(
+            f"block: block {block.seq} from {block.source} has {block.n} samples at dt = {block.dt!r} s, "
+            "but this stream is polled: one reading (n = 1, dt = 0) per block"
+        )
+    if not math.isfinite(block.t0):
+        raise ValueError(f"block: block {block.seq} has no finite time (t0 = {block.t0!r})")
+    request = block.first_index
+    if clock is None:
+        clock = dataclasses.replace(new_clock(p, block.t0, POLL_TICK), polled=True)
+        i0, gap = 0, False
+    else:
+        i0 = int(round((block.t0 - clock.origin) / POLL_TICK))
+        if i0 < clock.next_index:
+            raise ValueError(
+                f"block: block {block.seq} at t = {block.t0!r} s is not after the reading before it "
+                f"(t = {clock.time(clock.next_index - 1)!r} s): repeated or out of order"
+            )
+        gap = request >= 0 and clock.next_request >= 0 and request > clock.next_request
+    nxt = request + 1 if request >= 0 else -1
+    return dataclasses.replace(clock, next_index=i0 + 1, next_request=nxt), i0, gap
+
+
+def _frame(
+    state: EstimatorState, block: Block, mode, clock: Clock, i0: int, first: bool, gap: bool
+) -> tuple[Frame, Clock, Pump]:
+    """The frame of ``block`` at index ``i0`` of ``clock`` (already advanced past it)."""
+    p = state.params
+    n = block.n
     vp = block.column(PROBE)
     vr = block.column(REFERENCE)
     vm = block.column(PUMP_MONITOR)

@@ -197,6 +197,14 @@ def update(state: EstimatorState, block: Block) -> tuple[EstimatorState, list[Es
     if PROBE not in block.channels:
         return _setting_block(state, block), []
     mode = mode_of(state.mode)
+    if not mode.polled and (
+        (state.clock is not None and state.clock.polled) or (state.clock is None and block.dt == 0)
+    ):
+        raise ValueError(
+            f"block: block {block.seq} from {block.source} is a polled reading (dt = 0), and "
+            f"{state.mode} mode needs sampled data; polled detectors work in "
+            f"{', '.join(name for name, m in MODES.items() if m.polled)} mode"
+        )
     frame, clock, pump = make_frame(state, block, mode)
     if frame is None:
         return state, []

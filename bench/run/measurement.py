@@ -48,6 +48,7 @@ from bench.run.preflight import override_events
 from bench.run.readers import (
     DetectorReader,
     DropCounter,
+    MeterReader,
     PumpReader,
     Reader,
     RunClock,
@@ -152,8 +153,22 @@ class Measurement:
             reason = "stopped"
         self.close(reason=reason)
 
+    def _check_mode(self, mode: str) -> None:
+        """A polled detector (a meter) gives one reading at a time: only a mode that takes
+        such a stream (`bench.estimator.mode.Mode.polled`) can run on it."""
+        from bench.estimator.mode import MODES, mode_of
+
+        driver = self.cfg.instruments["detector"].driver if "detector" in self.cfg.instruments else ""
+        if driver == "meter" and not mode_of(mode).polled:
+            fits = ", ".join(name for name, m in MODES.items() if m.polled)
+            raise MeasurementError(
+                f"{mode} mode needs a sampled detector (a digitiser); the detector of this bench "
+                f"is a polled meter (instruments.detector.driver = {driver!r}), which works in {fits} mode"
+            )
+
     def open(self) -> None:
         cfg = self.cfg
+        self._check_mode(self.mode)
         # Threads waiting on an instrument's reply get the interpreter back within 0.5 ms
         # instead of the default 5 ms: the guard's exchanges with the pump are several
         # hand-overs each, and trip latency is what this buys (a little throughput is the cost).
@@ -221,18 +236,7 @@ class Measurement:
             drop_totals=self.drops.totals,
         )
         self.consumer.extra["identities"] = dict(self.identities)
-        rate = float(detector.rate_hz)
-        # A fetch returns what is waiting, up to this: enough to catch up on a backlog at once.
-        fetch = self.fetch_sets or int(min(65536, max(1024, rate * self.speed * 0.25)))
-        det_reader = DetectorReader(
-            detector,
-            self.data_q,
-            self.clock,
-            self.drops,
-            self.stop_flag,
-            max_sets=fetch,
-            min_block=self.min_block,
-        )
+        det_reader = self._detector_reader(detector)
         # The pump's readings have a queue of their own, served first: a trip condition must not
         # wait behind a backlog of detector blocks.
         pump_reader = PumpReader(
@@ -280,6 +284,23 @@ class Measurement:
                 args=(self.cfg, self.sim, self.readers[0], self.stop_flag, self.control_q.put),
             )
             self._truth_thread.start()
+
+    def _detector_reader(self, detector) -> Reader:
+        """The detector's reader, by its driver: a polled meter, else the digitiser's."""
+        if self.cfg.instruments["detector"].driver == "meter":
+            return MeterReader(detector, self.data_q, self.clock, self.drops, self.stop_flag)
+        rate = float(detector.rate_hz)
+        # A fetch returns what is waiting, up to this: enough to catch up on a backlog at once.
+        fetch = self.fetch_sets or int(min(65536, max(1024, rate * self.speed * 0.25)))
+        return DetectorReader(
+            detector,
+            self.data_q,
+            self.clock,
+            self.drops,
+            self.stop_flag,
+            max_sets=fetch,
+            min_block=self.min_block,
+        )
 
     def close(self, reason: str = "stopped") -> None:
         """Pump off first, then stop the threads, then close the run file. Safe to call twice.
@@ -488,6 +509,7 @@ class Measurement:
         return text
 
     def set_mode(self, mode: str, settings: Mapping[str, Any] | None = None, who: str = "gainbench") -> None:
+        self._check_mode(mode)
         self.mode = mode
         self.settings = dict(settings or {})
         self.control_q.put(

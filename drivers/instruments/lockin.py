@@ -9,8 +9,8 @@ time-stamped at the request and at the reply (``time.monotonic``); the midpoint 
 reading's time. Overload (an output beyond the sensitivity's full scale) is reported with the
 reading when the profile can ask for it; it flags the reading, it says nothing about the pump.
 
-The profile is written for this driver's own operations (``driver = "lockin"`` in its
-``[profile]`` table; `drivers.roles.LOCKIN`).
+Its operations are the detector role's lock-in ones (`drivers.roles.LOCKIN`); a profile used
+with it must define ``read_xy`` (`drivers.roles.DRIVER_NEEDS`).
 """
 
 from __future__ import annotations
@@ -95,7 +95,7 @@ class LockIn(Driver):
         if not self.session.has("read_xy"):
             raise DriverConfigError(
                 f"{self._where('profile')}: profile {self.profile_name} has no read_xy; "
-                'a lock-in profile says driver = "lockin" and defines commands.read_xy'
+                "a lock-in profile defines commands.read_xy"
             )
 
     # -- options -----------------------------------------------------------------------

@@ -31,6 +31,7 @@ def test_builtin_drivers_are_registered_with_their_roles():
     assert roles == {
         "digitiser": "detector",
         "lockin": "detector",
+        "meter": "detector",
         "pump-driver": "pump",
         "shutter": "shutter",
         "wavelength-source": "wavelength",

@@ -177,4 +177,5 @@ MODE = Mode(
     cli_words="watch: steady pump",
     describe="watch, steady pump",
     step_figure=step_figure,
+    polled=True,
 )
