@@ -314,7 +314,7 @@ class _Status:
         tt = "" if tau is None else f" | tau {tau.value * 1e3:.4g} ± {tau.sigma * 1e3:.2g} ms"
         flags = f" | flags {','.join(sorted(est.flags))}" if est is not None and est.flags else ""
         text = (
-            f"t {snap.t:7.2f} s | {rate / 1e3:7.1f} k samples/s | drops {snap.drops} | "
+            f"t {snap.t:7.2f} s | {_rate_text(rate)} | drops {snap.drops} | "
             f"guard {snap.guard_state} | {b}{g}{tt}{flags}"
         )
         if self.quiet and not final:
@@ -325,3 +325,11 @@ class _Status:
             width = shutil.get_terminal_size().columns
             text = text[: max(20, width - 1)].ljust(max(20, width - 1))
         print(text, end=end, file=sys.stdout, flush=True)
+
+
+def _rate_text(rate: float) -> str:
+    """Samples per second as read at a glance: ``"  99.9 k samples/s"`` for a digitiser,
+    ``"  20.0 samples/s"`` for a polled meter."""
+    if rate >= 1e3:
+        return f"{rate / 1e3:7.1f} k samples/s"
+    return f"{rate:7.1f} samples/s"
