@@ -96,6 +96,27 @@ class Driver:
     def _where(self, name: str) -> str:
         return f"instruments.{self.session.role}.options.{name}"
 
+    def _option_channel_names(self, default: dict[int, str]) -> dict[int, str]:
+        """Option ``channel_names`` (``{ 1 = "probe", 2 = "reference" }``): channel number -> the
+        name of its column, checked, or ``default``."""
+        value = self.options.get("channel_names", default)
+        if not isinstance(value, dict):
+            raise DriverConfigError(
+                f'{self._where("channel_names")}: expected a table such as {{ 1 = "probe" }}'
+            )
+        names: dict[int, str] = {}
+        for key, name in value.items():
+            try:
+                number = int(key)
+            except (TypeError, ValueError):
+                raise DriverConfigError(
+                    f"{self._where('channel_names')}.{key}: expected a channel number"
+                ) from None
+            if not isinstance(name, str) or not name.strip():
+                raise DriverConfigError(f"{self._where('channel_names')}.{key}: expected a channel name")
+            names[number] = name.strip()
+        return names
+
     def _option_quantity(self, name: str, kind: str, default: float | None) -> float | None:
         """Option ``name`` as an SI float: a number (already SI) or text with a unit (``"100 kHz"``)."""
         if name not in self.options:

@@ -70,7 +70,7 @@ class Digitiser(Driver):
         self.range_v: float | None = self._option_quantity("range", "voltage", None)
         self.data_format: str = self._option_format()
         self.channels: tuple[int, ...] = self._option_channels()
-        self.names_by_channel: dict[int, str] = self._option_names()
+        self.names_by_channel: dict[int, str] = self._option_channel_names(DEFAULT_CHANNEL_NAMES)
         for name, value in (("sample_rate", self.rate_hz), ("range", self.range_v)):
             if value is not None and not value > 0:
                 raise DriverConfigError(f"{self._where(name)}: {self.options[name]!r} is not positive")
@@ -98,25 +98,6 @@ class Digitiser(Driver):
             return _check_channels(value)
         except ValueError as exc:
             raise DriverConfigError(f"{self._where('channels')}: {exc}") from None
-
-    def _option_names(self) -> dict[int, str]:
-        value = self.options.get("channel_names", DEFAULT_CHANNEL_NAMES)
-        if not isinstance(value, dict):
-            raise DriverConfigError(
-                f'{self._where("channel_names")}: expected a table such as {{ 1 = "probe" }}'
-            )
-        names: dict[int, str] = {}
-        for key, name in value.items():
-            try:
-                number = int(key)
-            except (TypeError, ValueError):
-                raise DriverConfigError(
-                    f"{self._where('channel_names')}.{key}: expected a channel number"
-                ) from None
-            if not isinstance(name, str) or not name.strip():
-                raise DriverConfigError(f"{self._where('channel_names')}.{key}: expected a channel name")
-            names[number] = name.strip()
-        return names
 
     # -- operations --------------------------------------------------------------------
 

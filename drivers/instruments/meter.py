@@ -87,7 +87,7 @@ class Meter(Driver):
                 "(commands.set_averages); remove the option or add the command"
             )
         self.channels: tuple[int, ...] = self._option_channels()
-        self.names_by_channel: dict[int, str] = self._option_names()
+        self.names_by_channel: dict[int, str] = self._option_channel_names(DEFAULT_CHANNEL_NAMES)
         if not (self.session.has("read_all") or self.session.has("read_channel")):
             raise DriverConfigError(
                 f"instruments.{self.session.role}.profile: profile {self.profile_name} has neither "
@@ -118,25 +118,6 @@ class Meter(Driver):
         if len(set(value)) != len(value):
             raise DriverConfigError(f"{self._where('channels')}: {list(value)} names a channel twice")
         return tuple(int(c) for c in value)
-
-    def _option_names(self) -> dict[int, str]:
-        value = self.options.get("channel_names", DEFAULT_CHANNEL_NAMES)
-        if not isinstance(value, dict):
-            raise DriverConfigError(
-                f'{self._where("channel_names")}: expected a table such as {{ 1 = "probe" }}'
-            )
-        names: dict[int, str] = {}
-        for key, name in value.items():
-            try:
-                number = int(key)
-            except (TypeError, ValueError):
-                raise DriverConfigError(
-                    f"{self._where('channel_names')}.{key}: expected a channel number"
-                ) from None
-            if not isinstance(name, str) or not name.strip():
-                raise DriverConfigError(f"{self._where('channel_names')}.{key}: expected a channel name")
-            names[number] = name.strip()
-        return names
 
     # -- operations --------------------------------------------------------------------
 
