@@ -21,7 +21,6 @@ from scipy import constants, signal, special
 from scipy.integrate import solve_ivp
 
 from bench import physics
-from bench.config import load_bench
 from bench.estimator import (
     Baseline,
     Dark,
@@ -45,11 +44,6 @@ S_OFF = 1.3
 BASE = Baseline(S_OFF, 1e-7, 10_000, 0.0, -0.1)
 TAU = 0.6e-3  # s, the demo bench's lifetime
 TAU_RISE = 0.3e-3  # s
-
-
-@pytest.fixture(scope="module")
-def cfg():
-    return load_bench()
 
 
 @pytest.fixture(scope="module")

@@ -16,7 +16,6 @@ import numpy as np
 import pytest
 from scipy import constants, integrate
 
-from bench.config import load_bench
 from bench.estimator import (
     Baseline,
     Dark,
@@ -34,16 +33,6 @@ from bench.estimator.cost import estimator_cost_per_sample
 from bench.records import Block
 
 CHANNELS = ("probe", "reference", "pump_monitor")
-
-
-@pytest.fixture(scope="module")
-def cfg():
-    return load_bench()
-
-
-@pytest.fixture(scope="module")
-def params(cfg):
-    return EstimatorParams.from_config(cfg)
 
 
 # ------------------------------------------------------------------ parameters

@@ -16,9 +16,7 @@ import pytest
 from scipy import constants
 from sim_blocks import model_blocks
 
-from bench.config import load_bench
 from bench.estimator import (
-    EstimatorParams,
     capture_baseline,
     capture_dark,
     new_state,
@@ -34,31 +32,17 @@ BenchModel = pytest.importorskip("simulated_instruments.optical_setup").BenchMod
 RATE = 50e3
 
 
-@pytest.fixture(scope="module")
-def cfg():
-    return load_bench()
-
-
-@pytest.fixture(scope="module")
-def params(cfg):
-    return EstimatorParams.from_config(cfg)
-
-
-def _blocks(model, n, size=2500):
-    return model_blocks(model, n, size)
-
-
 def _bench(cfg, seed):
     model = BenchModel(cfg, seed=seed, sample_rate=RATE)
     model.set_shutter("probe", False)
-    dark = capture_dark(_blocks(model, 2000))
+    dark = capture_dark(model_blocks(model, 2000))
     model.set_shutter("probe", True)
-    return model, dark, capture_baseline(_blocks(model, 5000), dark)
+    return model, dark, capture_baseline(model_blocks(model, 5000), dark)
 
 
 def _run(params, model, dark, baseline, mode, seconds, settings):
     state = with_baseline(with_dark(new_state(params, mode, settings), dark), baseline)
-    for block in _blocks(model, int(seconds * RATE)):
+    for block in model_blocks(model, int(seconds * RATE)):
         state, _ = update(state, block)
     return report(state)[0]
 
@@ -91,7 +75,7 @@ def test_pump_sweep_finds_the_rate_equation_saturation(cfg, params):
     for current in (1.0, 1.5, 2.5, 4.0, 6.0, 9.0):
         model.set_pump(current=current)
         state = with_setting(state, pump_current=current)
-        for block in _blocks(model, int(0.1 * RATE)):
+        for block in model_blocks(model, int(0.1 * RATE)):
             state, _ = update(state, block)
         point_truth = model.truth()["beta"]
         state_points = report(state)[0].extra["points"]

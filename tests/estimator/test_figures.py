@@ -21,9 +21,7 @@ import pytest
 from scipy import constants, integrate
 from sim_blocks import model_blocks
 
-from bench.config import load_bench
 from bench.estimator import (
-    EstimatorParams,
     capture_baseline,
     capture_dark,
     figures,
@@ -40,33 +38,19 @@ BenchModel = pytest.importorskip("simulated_instruments.optical_setup").BenchMod
 RATE = 50e3
 
 
-@pytest.fixture(scope="module")
-def cfg():
-    return load_bench()
-
-
-@pytest.fixture(scope="module")
-def params(cfg):
-    return EstimatorParams.from_config(cfg)
-
-
-def _blocks(model, n, size=2500):
-    return model_blocks(model, n, size)
-
-
 @pytest.mark.parametrize("seed", [3, 8])
 def test_watch_figures_are_those_of_the_simulated_medium(cfg, params, seed):
     # the baseline holds the excitation the probe alone keeps up (about 5e-5 here): beta must
     # be the medium's absolute one, the gain that of the probe's true transmission
     model = BenchModel(cfg, seed=seed, sample_rate=RATE)
     model.set_shutter("probe", False)
-    dark = capture_dark(_blocks(model, 2000))
+    dark = capture_dark(model_blocks(model, 2000))
     model.set_shutter("probe", True)
-    baseline = capture_baseline(_blocks(model, 5000), dark)
+    baseline = capture_baseline(model_blocks(model, 5000), dark)
     model.set_pump(current=5.0, on=True)
     model.advance_to(model.t + 0.05)
     state = with_baseline(with_dark(new_state(params, "watch", {"pump_current": 5.0}), dark), baseline)
-    for block in _blocks(model, int(0.5 * RATE)):
+    for block in model_blocks(model, int(0.5 * RATE)):
         state, _ = update(state, block)
     (est,) = report(state)
     truth = model.truth()

@@ -18,21 +18,9 @@ import numpy as np
 import pytest
 from scipy import constants
 
-from bench.config import load_bench
 from bench.errors import GainbenchError
-from bench.estimator.params import EstimatorParams
 from bench.estimator.timing import TimingError, check_timing, default_period, nice_ceil, run_period
 from bench.run.pump_program import chop_frequency, default_current
-
-
-@pytest.fixture(scope="module")
-def cfg():
-    return load_bench()
-
-
-@pytest.fixture(scope="module")
-def params(cfg):
-    return EstimatorParams.from_config(cfg)
 
 
 def test_rise_rate_is_the_rate_equation_relaxation_rate_at_the_back_face(cfg, params):
