@@ -4,7 +4,8 @@ The gain physics of a pumped quasi-three-level medium is split by topic: `satura
 (photons, saturation, transparency, probe weakness), `gain` (ln R <-> inversion <-> gain and
 its units), `cross_section_relations` (McCumber, Füchtbauer-Ladenburg), `frantz_nodvik`
 (pulsed probes), `rate_equations` (the pumped manifold) and `lockin_response` (the
-response to a square-wave pump at its modulation frequency, the lock-in reading, lifetime fits); `constants` holds h, c and k_B, and
+response to a square-wave pump at its modulation frequency) with `lockin_analysis` (ln R and
+the lifetime from lock-in readings); `constants` holds h, c and k_B, and
 `arguments` the checks they share. Besides them: `fitting` (models fitted to data), `spectra`
 (cross-section spectrum files) and `beam` (beam profiles).
 
@@ -54,6 +55,13 @@ from bench.physics.gain import (
     per_m_to_per_cm,
     unpumped_transmission,
 )
+from bench.physics.lockin_analysis import (
+    LockinLifetimeFit,
+    fit_lifetime_from_lockin,
+    ln_ratio_from_lockin_ratio,
+    lockin_ratio,
+    rc_noise_bandwidth,
+)
 from bench.physics.lockin_response import (
     LifetimeFit,
     first_order_fundamental,
@@ -85,6 +93,11 @@ from bench.physics.saturation import (
 )
 
 __all__ = [
+    "LockinLifetimeFit",
+    "fit_lifetime_from_lockin",
+    "ln_ratio_from_lockin_ratio",
+    "lockin_ratio",
+    "rc_noise_bandwidth",
     "first_order_fundamental",
     "fit_lifetime_from_phase",
     "LifetimeFit",
