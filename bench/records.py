@@ -27,6 +27,13 @@ PUMP_ON = "pump_on"
 MOUNT_TEMP = "mount_temp"
 INTERLOCK = "interlock"
 WAVELENGTH = "probe_wavelength"
+#: A lock-in's readings (`bench.run.lockin_reader`): in-phase and quadrature outputs (V rms),
+#: the frequency of the reference it is locked to (Hz, 0: none) and its overload state (1/0);
+#: its auxiliary inputs give ``probe`` and ``reference`` (the photodiodes' DC levels).
+LOCKIN_X = "lockin_x"
+LOCKIN_Y = "lockin_y"
+REFERENCE_HZ = "reference_hz"
+OVERLOAD = "overload"
 
 
 @dataclass(frozen=True, eq=False)
@@ -131,6 +138,9 @@ FLAGS = (
     "not_settled",
     "no_baseline",
     "no_dark",
+    "overload",
+    "phase_mismatch",
+    "thick_sample",
 )
 
 

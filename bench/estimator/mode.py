@@ -37,7 +37,9 @@ purpose during a run), ``timing`` (the modulation rule of a modulated mode: defa
 check, `bench.estimator.timing`), ``period`` (which of the dashboard's periods it modulates
 with), ``settings`` (settings only this mode accepts), ``step_figure`` (what a sweep step
 measured as in this mode gives), ``polled`` (it takes a polled detector's one-sample blocks,
-`bench.estimator.state.POLL_TICK`) and its words for ``record --help`` and the dashboard.
+`bench.estimator.state.POLL_TICK`), ``pump_on`` (how a block tells the pump's state, when not by
+the pump monitor), ``channels`` (the block channels its ingest reads from ``Frame.extra``) and
+its words for ``record --help`` and the dashboard.
 """
 
 from __future__ import annotations
@@ -110,6 +112,11 @@ class Mode:
     #: It takes a polled stream (one-sample blocks at their own, irregular times: a meter),
     #: with batches and windows by time span; a mode that needs a sample interval does not.
     polled: bool = False
+    #: ``pump_on(block, params, settings)``: per sample, whether the pump is on (modulated, for
+    #: a lock-in); None: the pump monitor above `EstimatorParams.pump_threshold`.
+    pump_on: Callable[[Any, Any, Mapping[str, Any]], Any] | None = None
+    #: Channels the mode's ingest reads (`bench.estimator.state.Frame.extra`) besides S.
+    channels: tuple[str, ...] = ()
 
     def __post_init__(self) -> None:
         if not (isinstance(self.name, str) and self.name.isidentifier()):

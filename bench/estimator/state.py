@@ -116,6 +116,7 @@ class Frame:
     over: np.ndarray | None  # samples near full scale (None: none in this block)
     ref_sum: float = 0.0  # sum of the dark-corrected reference volts (for the dark's share of sigma)
     monitor: np.ndarray | None = None  # the pump monitor volts
+    extra: dict[str, np.ndarray] = dataclasses.field(default_factory=dict)  # the mode's `Mode.channels`
 
 
 def new_clock(params: EstimatorParams, t0: float, dt: float) -> Clock:
@@ -128,7 +129,8 @@ def make_frame(state: EstimatorState, block: Block, mode) -> tuple[Frame | None,
     state's `bench.estimator.mode.Mode`, for its settle times). ValueError naming the block when
     it lacks a channel, has no sample interval or does not follow the samples already seen."""
     p = state.params
-    for name in (PROBE, REFERENCE, PUMP_MONITOR):
+    needed = (PROBE, REFERENCE) + ((PUMP_MONITOR,) if mode.pump_on is None else ()) + tuple(mode.channels)
+    for name in needed:
         if name not in block.channels:
             raise ValueError(
                 f"block: block {block.seq} from {block.source} has no {name!r} channel "
@@ -199,14 +201,16 @@ def _frame(
     n = block.n
     vp = block.column(PROBE)
     vr = block.column(REFERENCE)
-    vm = block.column(PUMP_MONITOR)
+    vm = block.column(PUMP_MONITOR) if PUMP_MONITOR in block.channels else None
     with np.errstate(divide="ignore", invalid="ignore"):  # a blocked reference reads ~0 V: S is then inf/nan
         if state.dark is not None:
             s = (vp - state.dark.probe) / (vr - state.dark.reference)
         else:
             s = vp / vr
-    thr = p.pump_threshold(state.settings.get("pump_power"))
-    on = vm > thr
+    if mode.pump_on is None:
+        on = vm > p.pump_threshold(state.settings.get("pump_power"))
+    else:
+        on = np.asarray(mode.pump_on(block, p, state.settings), dtype=bool)
 
     pump = state.pump
     change = np.empty(n, dtype=bool)
@@ -261,5 +265,6 @@ def _frame(
         over=over,
         ref_sum=float(np.sum(ref)),
         monitor=vm,
+        extra={name: block.column(name) for name in mode.channels},
     )
     return frame, clock, new_pump

@@ -52,9 +52,10 @@ SETTINGS = ("pump_power", "pump_current", "probe_wavelength", "method")
 
 def _check_settings(settings: Mapping[str, Any] | None, mode: str) -> dict[str, Any]:
     out: dict[str, Any] = {}
+    own = tuple(k for k in mode_of(mode).settings if k not in SETTINGS)
     for key, value in (settings or {}).items():
-        if key not in SETTINGS:
-            raise ValueError(f"settings: unknown setting {key!r} (known: {', '.join(SETTINGS)})")
+        if key not in SETTINGS + own:
+            raise ValueError(f"settings: unknown setting {key!r} (known: {', '.join(SETTINGS + own)})")
         if key == "method":  # the mode each step is measured as: one with a step figure
             steps = [name for name, m in MODES.items() if m.step_figure is not None]
             if value not in steps:

@@ -52,6 +52,11 @@ FLAG_MEANINGS = {
     "not_settled": "pump-on samples within the settle time, or no settled data at all",
     "no_baseline": "a figure needs the stored baseline and there is none",
     "no_dark": "no dark was captured: zero volts assumed",
+    "overload": "the lock-in reported an overload (an output beyond its full scale) during the estimate's readings",
+    "phase_mismatch": "the lock-in's phase differs from the medium's response model (lifetime, pump rate) "
+    "or from an instrument phase offset; ln R uses the magnitude only",
+    "thick_sample": "the sample absorbs much of the pump: the lock-in's response correction takes the pump rate "
+    "as uniform along it",
 }
 
 CSS = """

@@ -8,15 +8,16 @@ The order of the rows is the order the dashboard and ``gainbench record --help``
 from __future__ import annotations
 
 from bench.estimator.mode import MODES, register_mode
-from bench.estimator.modes import chopped, decay, sweep, watch
+from bench.estimator.modes import chopped, decay, lockin, sweep, watch
 
 for _mode in (
     watch.MODE,
     chopped.MODE,
     decay.MODE,
     sweep.MODE,
+    lockin.MODE,
 ):
     if _mode.name not in MODES:
         register_mode(_mode)
 
-__all__ = ["watch", "chopped", "decay", "sweep"]
+__all__ = ["watch", "chopped", "decay", "sweep", "lockin"]
