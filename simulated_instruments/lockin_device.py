@@ -132,6 +132,10 @@ class LockInDevice:
         # AC coupling: subtract a one-pole low pass of the input (started at the first sample)
         if self._dc is None:
             self._dc = float(probe[0])
+            # the instrument has been on for long before: its auxiliary inputs' filters hold
+            # the levels already, not zero
+            self._stages[2, :] = probe[0]
+            self._stages[3, :] = reference[0]
         beta = math.exp(-1.0 / (INPUT_RATE * AC_COUPLING))
         dc, zf = lfilter([1.0 - beta], [1.0, -beta], probe, zi=[beta * self._dc])
         self._dc = float(zf[0] / beta)

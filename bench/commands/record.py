@@ -63,6 +63,14 @@ def configure(parser: argparse.ArgumentParser) -> None:
         "its lowest step; a period that leaves no settled data is refused)",
     )
     parser.add_argument(
+        "--frequencies",
+        metavar="F1,F2,...",
+        help="lockin mode: pump modulation frequencies, e.g. 20Hz,50Hz,100Hz,200Hz,500Hz; three or more "
+        "give the lifetime from the response against frequency (default: one frequency, a tenth of "
+        "the medium's corner 1/(2 pi tau)); --seconds is then the data time at each frequency, "
+        "after the lock-in's settle time",
+    )
+    parser.add_argument(
         "--logs", metavar="DIR", help="run store directory (default: the bench file's run.log_dir)"
     )
     parser.add_argument(
@@ -142,6 +150,7 @@ def run(args: argparse.Namespace) -> int:
     mode = mode_of(args.mode)
     currents = sweep_currents(cfg, args.steps) if mode.steps_pump else [current]
     period = _mode_period(args, cfg, currents[0])
+    frequencies = _lockin_frequencies(args, cfg)
     if mode.steps_pump:
         settings = dict(mode.run_settings)  # a sweep: each step chopped (`Mode.run_settings`)
     answers, operator = _flag_answers(args, cfg)
@@ -155,6 +164,7 @@ def run(args: argparse.Namespace) -> int:
         faults=tuple(args.fault),
         operator=operator or "",
         seed=args.seed,
+        lockin_frequencies=frequencies,
     )
     status = _Status(meas, quiet=args.quiet)
     with meas:
@@ -174,15 +184,22 @@ def run(args: argparse.Namespace) -> int:
             return ARMING_REFUSED
         if period is not None:
             meas.set_modulation(1.0 / period)
+        if frequencies:
+            meas.set_modulation(frequencies[0])
         meas.set_current(currents[0], who=operator)
         meas.emit(who=operator)
-        per_step = args.seconds / len(currents)
-        for k, i in enumerate(currents):
-            if k:
-                meas.set_current(i, who=operator)
-            meas.hold(per_step, should_stop=lambda: meas.guarded_pump.state == "tripped", on_tick=status.line)
-            if meas.guarded_pump.state == "tripped":
-                break
+        if frequencies:
+            _frequency_program(meas, frequencies, args.seconds, status)
+        else:
+            per_step = args.seconds / len(currents)
+            for k, i in enumerate(currents):
+                if k:
+                    meas.set_current(i, who=operator)
+                meas.hold(
+                    per_step, should_stop=lambda: meas.guarded_pump.state == "tripped", on_tick=status.line
+                )
+                if meas.guarded_pump.state == "tripped":
+                    break
         tripped = meas.guarded_pump.state == "tripped"
         acknowledged = True
         if tripped:
@@ -195,7 +212,7 @@ def run(args: argparse.Namespace) -> int:
             acknowledged = _acknowledge(meas, operator)
         else:
             meas.stop_emission(who=operator)
-            if period is not None:
+            if period is not None or frequencies:
                 meas.set_modulation(None)
         meas.hold(0.05)
         status.line(final=True)
@@ -231,6 +248,37 @@ def _mode_period(args, cfg, current: float) -> float | None:
     if chosen is not None and not (math.isfinite(chosen) and chosen > 0):
         raise ConfigError(f"--period: {args.period!r} is not a positive time")
     return run_period(cfg, args.mode, current, chosen)  # a sweep: the chopped rule (its Mode.timing)
+
+
+def _lockin_frequencies(args, cfg) -> tuple[float, ...]:
+    """The modulation frequencies of a lockin run (empty for another mode), checked first."""
+    from bench.estimator.params import EstimatorParams
+    from bench.records import LOCKIN_X
+    from bench.run.lockin_setup import parse_frequencies
+
+    if LOCKIN_X not in mode_of(args.mode).channels:
+        if args.frequencies is not None:
+            raise ConfigError(f"--frequencies: applies to lockin mode, not {args.mode}")
+        return ()
+    return parse_frequencies(args.frequencies, EstimatorParams.from_config(cfg))
+
+
+def _frequency_program(meas, frequencies, seconds: float, status) -> None:
+    """Each frequency in turn: the lock-in's settle time, then ``seconds / len(frequencies)``
+    of data (a lockin run; the pump is already emitting at the first frequency)."""
+    settle = mode_of(meas.mode).settle(meas.params, meas.settings)[0]
+    per_step = settle + seconds / len(frequencies)
+    for k, f in enumerate(frequencies):
+        if k:
+            meas.set_modulation(f)
+        if len(frequencies) > 1:
+            print(
+                f"modulation {f:g} Hz ({k + 1} of {len(frequencies)}): settle {settle:.2g} s, then data",
+                file=sys.stdout,
+            )
+        meas.hold(per_step, should_stop=lambda: meas.guarded_pump.state == "tripped", on_tick=status.line)
+        if meas.guarded_pump.state == "tripped":
+            break
 
 
 def _flag_answers(args, cfg):

@@ -253,7 +253,9 @@ class Consumer:
             self.sample_rate = 1.0 / block.dt
         if not self.traces:
             return
-        probe, ref, mon = block.column(PROBE), block.column(REFERENCE), block.column(PUMP_MONITOR)
+        probe, ref = block.column(PROBE), block.column(REFERENCE)
+        # a lock-in bench has no pump monitor: its trace stays empty (nan), not zero
+        mon = block.column(PUMP_MONITOR) if PUMP_MONITOR in block.channels else np.full(block.n, np.nan)
         dark = self.state.dark
         dp = dark.probe if dark is not None else 0.0
         dr = dark.reference if dark is not None else 0.0

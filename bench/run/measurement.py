@@ -97,6 +97,7 @@ class Measurement:
         min_block: float = MIN_BLOCK,
         seed: int | None = None,
         sim_in_process: bool = False,
+        lockin_frequencies: tuple[float, ...] = (),
     ):
         self.cfg = cfg
         self.mode = mode
@@ -111,6 +112,9 @@ class Measurement:
         self.min_block = min_block
         self.seed = seed
         self.sim_in_process = sim_in_process
+        #: A lock-in bench: the modulation frequencies the run will use (its output filter is
+        #: set for the lowest, `bench.run.lockin_setup.configure_filter`).
+        self.lockin_frequencies = tuple(float(f) for f in lockin_frequencies)
         self.sim = None
         self.instruments: dict[str, Any] = {}
         self.identities: dict[str, str] = {}
@@ -155,15 +159,30 @@ class Measurement:
 
     def _check_mode(self, mode: str) -> None:
         """A polled detector (a meter) gives one reading at a time: only a mode that takes
-        such a stream (`bench.estimator.mode.Mode.polled`) can run on it."""
+        such a stream (`bench.estimator.mode.Mode.polled`) can run on it. A lock-in's readings
+        are for the mode that reads its channels (lockin), and that mode needs a lock-in."""
         from bench.estimator.mode import MODES, mode_of
+        from bench.records import LOCKIN_X
 
         driver = self.cfg.instruments["detector"].driver if "detector" in self.cfg.instruments else ""
+        needs_lockin = LOCKIN_X in mode_of(mode).channels
+        where = f"instruments.detector.driver = {driver!r}"
+        if driver == "lockin" and not needs_lockin:
+            fits = ", ".join(name for name, m in MODES.items() if LOCKIN_X in m.channels)
+            raise MeasurementError(
+                f"{mode} mode needs the probe's signal itself; the detector of this bench is a lock-in "
+                f"amplifier ({where}), which works in {fits} mode"
+            )
+        if needs_lockin and driver != "lockin":
+            raise MeasurementError(
+                f"{mode} mode needs a lock-in amplifier as the detector; this bench has {where} "
+                "(see bench/data/demo_lockin_bench.toml)"
+            )
         if driver == "meter" and not mode_of(mode).polled:
-            fits = ", ".join(name for name, m in MODES.items() if m.polled)
+            fits = ", ".join(name for name, m in MODES.items() if m.polled and LOCKIN_X not in m.channels)
             raise MeasurementError(
                 f"{mode} mode needs a sampled detector (a digitiser); the detector of this bench "
-                f"is a polled meter (instruments.detector.driver = {driver!r}), which works in {fits} mode"
+                f"is a polled meter ({where}), which works in {fits} mode"
             )
 
     def open(self) -> None:
@@ -224,6 +243,13 @@ class Measurement:
         detector.configure()
         params = EstimatorParams.from_config(cfg)
         self.params = params
+        if cfg.instruments["detector"].driver == "lockin":
+            from bench.run.lockin_setup import configure_filter, default_frequency
+
+            freqs = self.lockin_frequencies or (default_frequency(params),)
+            self.settings.update(configure_filter(detector, freqs))
+            if self.store is not None:
+                self.store.set_meta(estimator_settings=self.settings)
         self.checks.use_params(params)
         # The guard's checks run in the reader threads (`GuardChecks.on_block`), not in the consumer.
         self.consumer = Consumer(
@@ -286,9 +312,14 @@ class Measurement:
             self._truth_thread.start()
 
     def _detector_reader(self, detector) -> Reader:
-        """The detector's reader, by its driver: a polled meter, else the digitiser's."""
-        if self.cfg.instruments["detector"].driver == "meter":
+        """The detector's reader, by its driver: a polled meter or lock-in, else the digitiser's."""
+        driver = self.cfg.instruments["detector"].driver
+        if driver == "meter":
             return MeterReader(detector, self.data_q, self.clock, self.drops, self.stop_flag)
+        if driver == "lockin":
+            from bench.run.lockin_reader import LockInReader
+
+            return LockInReader(detector, self.data_q, self.clock, self.drops, self.stop_flag, seed=self.seed)
         rate = float(detector.rate_hz)
         # A fetch returns what is waiting, up to this: enough to catch up on a backlog at once.
         fetch = self.fetch_sets or int(min(65536, max(1024, rate * self.speed * 0.25)))
@@ -461,6 +492,18 @@ class Measurement:
                 on_tick()
 
     # -- procedures -----------------------------------------------------------------------------
+    @property
+    def detector_settle(self) -> float:
+        """Seconds the detector's own readings take to follow a change of light: a lock-in's
+        output filter (`bench.estimator.modes.lockin`, which reads its levels through it), else 0."""
+        if "lockin_time_constant" not in self.settings:
+            return 0.0
+        from bench.physics import rc_settle_time
+
+        tc = float(self.settings["lockin_time_constant"])
+        order = int(self.settings.get("lockin_filter_order") or 1)
+        return float(rc_settle_time(tc, order, 1e-5))
+
     def capture_dark(self, seconds: float = 0.2, settle: float = 0.1, who: str = "gainbench") -> None:
         """Close the probe shutter, take ``seconds`` of dark, open it again."""
         shutter = self.instruments.get("shutter")
@@ -469,6 +512,7 @@ class Measurement:
                 "capture dark: no shutter is configured to block the probe; "
                 "block it by hand and use a bench file with a shutter, or skip the dark"
             )
+        settle = max(settle, self.detector_settle)
         shutter.close_shutter("probe")
         try:
             t0 = self.clock.now() + settle
@@ -484,7 +528,7 @@ class Measurement:
         assert self.guarded_pump is not None
         if self.guarded_pump.state == "emitting":
             self.guarded_pump.stop_emission(who=f"{who} (baseline needs the pump off)")
-        settle = max(self.params.settle_time, 0.03)
+        settle = max(self.params.settle_time, 0.03, self.detector_settle)
         t0 = self.clock.now() + settle
         t1 = t0 + seconds
         self.wait_data_until(t1 + 0.01)

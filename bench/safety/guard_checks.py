@@ -20,6 +20,7 @@ ANSI Z136.1 / IEC 60825-1 or local rules.
 from __future__ import annotations
 
 import logging
+import math
 import threading
 from collections.abc import Callable, Mapping
 from dataclasses import replace
@@ -133,11 +134,12 @@ class GuardChecks:
                 output_on_since=gp.output_on_since,
                 received_at=now,
             )
-        elif block.source == "detector" and self.detector_range is not None:
+        elif block.source == "detector":
             mode = mode_of(self.mode()[0])  # held at one level the whole run: steady and never stepped
             found = mon.feed_detector(
                 block,
-                self.detector_range,
+                # no range configured (a lock-in's auxiliary inputs): freshness is still judged
+                self.detector_range if self.detector_range is not None else math.inf,
                 pump_steady=mode.pump_steady(self.mode()[1]) and not mode.steps_pump,
                 received_at=now,
             )

@@ -289,7 +289,8 @@ class TripMonitor:
     ) -> list[TripCondition]:
         """Check one detector block (``probe``, ``reference``, ``pump_monitor`` in V).
 
-        ``full_scale`` is the detector range in V (one for all channels, or per channel).
+        ``full_scale`` is the detector range in V (one for all channels, or per channel;
+        ``math.inf`` where none is known: freshness and S are still judged).
         ``pump_steady=False`` says the pump is being changed or modulated on purpose (chopped
         mode, a sweep step): S is then not compared across this block.
         """
@@ -421,6 +422,7 @@ def _ranges(full_scale: float | Mapping[str, float], channels: Sequence[str]) ->
     else:
         ranges = {c: full_scale for c in channels}
     for c, fs in ranges.items():
-        if isinstance(fs, bool) or not isinstance(fs, (int, float)) or not (math.isfinite(fs) and fs > 0):
+        # math.inf: no range is known (a lock-in's auxiliary inputs), so no full-scale check
+        if isinstance(fs, bool) or not isinstance(fs, (int, float)) or not (fs > 0 and not math.isnan(fs)):
             raise ValueError(f"full_scale: expected a positive range in V for {c}, got {fs!r}")
     return {c: float(fs) for c, fs in ranges.items()}

@@ -17,6 +17,7 @@ from __future__ import annotations
 
 import math
 import time
+from collections.abc import Callable
 from dataclasses import dataclass
 
 from drivers.base import Driver, check_finite
@@ -25,6 +26,8 @@ from drivers.instruments.digitiser import SIM_TRUTH_FIELDS
 
 PHASE_UNITS = {"deg": math.pi / 180.0, "rad": 1.0}
 DEFAULT_AUX = {1: "probe_dc"}
+DEFAULT_POLL_RATE = 20.0  # Hz
+MAX_POLL_RATE = 1e3  # Hz
 
 
 @dataclass(frozen=True)
@@ -74,11 +77,27 @@ class LockIn(Driver):
     DRIVER_NAME = "lockin"
     ROLE = "detector"
     OPTIONS = frozenset(
-        {"time_constant", "sensitivity", "filter_order", "aux_channels", "phase_unit", "compound_queries"}
+        {
+            "time_constant",
+            "sensitivity",
+            "filter_order",
+            "aux_channels",
+            "phase_unit",
+            "compound_queries",
+            "poll_rate",
+        }
     )
 
     def __init__(self, session, options=None) -> None:
         super().__init__(session, options)
+        rate = self._option_quantity("poll_rate", "frequency", DEFAULT_POLL_RATE)
+        assert rate is not None
+        if not 0 < rate <= MAX_POLL_RATE:
+            raise DriverConfigError(
+                f"{self._where('poll_rate')}: {self.options['poll_rate']!r} is not a rate "
+                f"above 0 and up to {MAX_POLL_RATE:g} Hz"
+            )
+        self.poll_rate_hz: float = rate
         self.time_constant_s: float | None = self._option_quantity("time_constant", "time", None)
         self.sensitivity_v: float | None = self._option_quantity("sensitivity", "voltage", None)
         for name, value in (("time_constant", self.time_constant_s), ("sensitivity", self.sensitivity_v)):
@@ -130,6 +149,18 @@ class LockIn(Driver):
                 )
             names[number] = name.strip()
         return names
+
+    @property
+    def period_s(self) -> float:
+        """Mean seconds between the starts of two readings (`poll_rate`)."""
+        return 1.0 / self.poll_rate_hz
+
+    def aux_number(self, name: str) -> int | None:
+        """The auxiliary input named ``name`` in ``aux_channels`` (None: no such input)."""
+        for number, known in self.aux_names.items():
+            if known == name:
+                return number
+        return None
 
     # -- settings ----------------------------------------------------------------------
 
@@ -201,12 +232,13 @@ class LockIn(Driver):
             return None
         return bool(self.session.query("overload"))
 
-    def read(self) -> LockInReading:
-        """One reading: X, Y and the overload state, time-stamped at request and reply.
+    def read(self, clock: Callable[[], float] = time.monotonic) -> LockInReading:
+        """One reading: X, Y and the overload state, time-stamped with ``clock()`` at the
+        request and at the reply.
 
         With ``compound_queries`` in the profile's options, X, Y and the overload state come
         in one exchange."""
-        t0 = time.monotonic()
+        t0 = clock()
         if self.session.has("overload") and self.options.get("compound_queries"):
             values, over = self.session.query_many(("read_xy", "overload"))
             x, y = float(values[0]), float(values[1])
@@ -214,7 +246,7 @@ class LockIn(Driver):
         else:
             x, y = self.read_xy()
             overload = self.overloaded()
-        t1 = time.monotonic()
+        t1 = clock()
         return LockInReading(x, y, overload, t0, t1)
 
     def read_aux(self, n: int | str) -> float:
