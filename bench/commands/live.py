@@ -13,6 +13,7 @@ import argparse
 import sys
 
 from bench.errors import ConfigError, GainbenchError
+from bench.estimator.mode import MODES
 from bench.run.preflight import add_run_options, load_for_run
 
 NAME = "live"
@@ -26,9 +27,10 @@ def configure(parser: argparse.ArgumentParser) -> None:
     )
     parser.add_argument(
         "--mode",
-        choices=("watch", "chopped", "decay", "sweep"),
-        default="watch",
-        help="mode to start in (changed on the dashboard with key m; default watch)",
+        choices=tuple(MODES),
+        default=None,
+        help="mode to start in (changed on the dashboard with key m; default lockin on a bench with a "
+        "lock-in amplifier, watch otherwise)",
     )
     parser.add_argument(
         "--speed",
@@ -86,6 +88,10 @@ def run(args: argparse.Namespace) -> int:
         raise ConfigError("--fault, --speed and --seed apply to the simulated bench only")
     if not 0 < args.current_step < float("inf"):
         raise ConfigError(f"--current-step: {args.current_step} is not a positive current")
+    if args.mode is None:
+        from bench.run.lockin_setup import bench_default_mode
+
+        args.mode = bench_default_mode(cfg)
     current = default_current(cfg)
     settings = (
         {} if args.mode == "sweep" else {"pump_current": current, "pump_power": cfg.pump.power_at(current)}

@@ -43,8 +43,9 @@ def configure(parser: argparse.ArgumentParser) -> None:
     parser.add_argument(
         "--mode",
         choices=MODES,
-        default="watch",
-        help="; ".join(m.cli_words for m in MODES.values()) + " (default watch)",
+        default=None,
+        help="; ".join(m.cli_words for m in MODES.values())
+        + " (default lockin on a bench with a lock-in amplifier, watch otherwise)",
     )
     parser.add_argument(
         "--seconds",
@@ -130,6 +131,10 @@ def run(args: argparse.Namespace) -> int:
         from bench.run.pump_program import default_current, sweep_currents
 
     cfg = load_for_run(args)  # instruments checked, overrides lowering the eyewear OD refused
+    if args.mode is None:
+        from bench.run.lockin_setup import bench_default_mode
+
+        args.mode = bench_default_mode(cfg)
     if args.seconds <= 0 or not math.isfinite(args.seconds):
         raise ConfigError(f"--seconds: {args.seconds} is not a positive number of seconds")
     if not (args.speed > 0 and math.isfinite(args.speed)):
@@ -264,16 +269,17 @@ def _lockin_frequencies(args, cfg) -> tuple[float, ...]:
 
 
 def _frequency_program(meas, frequencies, seconds: float, status) -> None:
-    """Each frequency in turn: the lock-in's settle time, then ``seconds / len(frequencies)``
-    of data (a lockin run; the pump is already emitting at the first frequency)."""
+    """Each frequency in turn: the lock-in's settle time, then ``seconds`` of data (a lockin
+    run; the pump is already emitting at the first frequency)."""
     settle = mode_of(meas.mode).settle(meas.params, meas.settings)[0]
-    per_step = settle + seconds / len(frequencies)
+    per_step = settle + seconds
     for k, f in enumerate(frequencies):
         if k:
             meas.set_modulation(f)
         if len(frequencies) > 1:
             print(
-                f"modulation {f:g} Hz ({k + 1} of {len(frequencies)}): settle {settle:.2g} s, then data",
+                f"modulation {f:g} Hz ({k + 1} of {len(frequencies)}): settle {settle:.2g} s, "
+                f"then {seconds:g} s of data",
                 file=sys.stdout,
             )
         meas.hold(per_step, should_stop=lambda: meas.guarded_pump.state == "tripped", on_tick=status.line)

@@ -24,6 +24,7 @@ from textual.widgets import Button, Input, Label, RadioButton, RadioSet, Static
 from bench.config import BenchConfig
 from bench.errors import GainbenchError
 from bench.estimator.mode import MODES, mode_of
+from bench.records import LOCKIN_X
 from bench.run.pump_program import chop_frequency
 
 
@@ -41,10 +42,13 @@ class ModeChoice:
     decay_period: float
     sweep_steps: int = 6
     sweep_dwell: float = 2.0
+    lockin_hz: float = 25.0  # lockin mode's pump modulation, Hz
 
     def __post_init__(self) -> None:
         if self.mode not in MODES:
             raise ValueError(f"mode: {self.mode!r} is not one of {', '.join(MODES)}")
+        if not (math.isfinite(self.lockin_hz) and self.lockin_hz > 0):
+            raise ValueError(f"lockin_hz: {self.lockin_hz!r} is not a positive frequency")
         for name in ("chop_period", "decay_period", "sweep_dwell"):
             value = getattr(self, name)
             if not (math.isfinite(value) and value > 0):
@@ -55,8 +59,17 @@ class ModeChoice:
     @classmethod
     def defaults(cls, cfg: BenchConfig, mode: str = "watch") -> ModeChoice:
         """The bench's defaults: periods from the settle windows at the default current
-        (`bench.estimator.timing.default_period`, through `chop_frequency`)."""
-        return cls(mode, 1.0 / chop_frequency(cfg, "chopped"), 1.0 / chop_frequency(cfg, "decay"))
+        (`bench.estimator.timing.default_period`, through `chop_frequency`); the lock-in's
+        modulation a tenth of the medium's corner (`bench.run.lockin_setup.default_frequency`)."""
+        from bench.estimator.params import EstimatorParams
+        from bench.run.lockin_setup import default_frequency
+
+        return cls(
+            mode,
+            1.0 / chop_frequency(cfg, "chopped"),
+            1.0 / chop_frequency(cfg, "decay"),
+            lockin_hz=default_frequency(EstimatorParams.from_config(cfg)),
+        )
 
     @property
     def period(self) -> float | None:
@@ -67,12 +80,14 @@ class ModeChoice:
     @property
     def modulation_hz(self) -> float | None:
         """The pump modulation this mode needs (None: steady)."""
+        if LOCKIN_X in mode_of(self.mode).channels:
+            return self.lockin_hz
         period = self.period
         return None if period is None else 1.0 / period
 
     def describe(self) -> str:
         return mode_of(self.mode).describe_choice(
-            self.chop_period, self.decay_period, self.sweep_steps, self.sweep_dwell
+            self.chop_period, self.decay_period, self.sweep_steps, self.sweep_dwell, self.lockin_hz
         )
 
 

@@ -133,10 +133,16 @@ class Mode:
         """Whether the mode closes a step at the end of a scope (its last one when the stream ends)."""
         return self.close_step is not _no_close
 
-    def describe_choice(self, chop_period: float, decay_period: float, steps: int, dwell: float) -> str:
+    def describe_choice(
+        self, chop_period: float, decay_period: float, steps: int, dwell: float, lockin_hz: float = 0.0
+    ) -> str:
         """The dashboard's one-line description of this mode with its timing."""
         return self.describe.format(
-            chop_ms=chop_period * 1e3, decay_ms=decay_period * 1e3, steps=steps, dwell=dwell
+            chop_ms=chop_period * 1e3,
+            decay_ms=decay_period * 1e3,
+            steps=steps,
+            dwell=dwell,
+            lockin_hz=lockin_hz,
         )
 
 

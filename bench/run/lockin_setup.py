@@ -53,6 +53,17 @@ def time_constant_for(frequency: float, order: int) -> float:
     return math.sqrt(RIPPLE ** (-2.0 / order) - 1.0) / (4.0 * math.pi * frequency)
 
 
+def bench_default_mode(cfg) -> str:
+    """The mode a run starts in when none is named: lockin on a bench whose detector is a
+    lock-in amplifier (the only mode its readings serve), watch otherwise."""
+    inst = cfg.instruments.get("detector")
+    return "lockin" if inst is not None and inst.driver == "lockin" else "watch"
+
+
+#: The highest modulation frequency accepted, as a multiple of the medium's corner 1/(2 pi tau).
+HIGHEST_OVER_CORNER = 20.0
+
+
 def parse_frequencies(text: str | None, params: EstimatorParams) -> tuple[float, ...]:
     """``--frequencies`` ("20Hz,50Hz,...", or None for the default) as Hz; ConfigError naming
     the flag and the item otherwise."""
@@ -69,6 +80,14 @@ def parse_frequencies(text: str | None, params: EstimatorParams) -> tuple[float,
         if not (math.isfinite(f) and 0.1 <= f <= 1e5):
             raise ConfigError(f"--frequencies: {item!r} is not a modulation frequency of 0.1 Hz ... 100 kHz")
         out.append(float(f))
+    top = HIGHEST_OVER_CORNER / (2.0 * math.pi * params.tau)
+    for item, f in zip(text.split(","), out):
+        if f > top:
+            raise ConfigError(
+                f"--frequencies: {item.strip()!r} is above {top:.4g} Hz, {HIGHEST_OVER_CORNER:g} x the "
+                f"medium's corner 1/(2 pi tau) at tau = {params.tau * 1e3:.4g} ms: the response there is "
+                f"under {100 / HIGHEST_OVER_CORNER:.0f} % of its low-frequency size and carries no lifetime"
+            )
     if len(set(out)) != len(out):
         raise ConfigError(f"--frequencies: {text!r} names a frequency twice")
     return tuple(out)

@@ -553,12 +553,16 @@ class Measurement:
         return text
 
     def set_mode(self, mode: str, settings: Mapping[str, Any] | None = None, who: str = "gainbench") -> None:
+        from bench.estimator.mode import mode_of
+
         self._check_mode(mode)
+        settings = dict(settings or {})
+        for key in mode_of(mode).settings:  # read from the instrument at open (the lock-in's filter)
+            if key not in settings and key in self.settings:
+                settings[key] = self.settings[key]
         self.mode = mode
-        self.settings = dict(settings or {})
-        self.control_q.put(
-            Control("mode", self.clock.now(), {"mode": mode, "settings": dict(settings or {})}, who)
-        )
+        self.settings = settings
+        self.control_q.put(Control("mode", self.clock.now(), {"mode": mode, "settings": dict(settings)}, who))
 
     def set_current(self, current: float, who: str = "gainbench") -> None:
         """Set the pump current through the guard (which refuses values above its limit)."""

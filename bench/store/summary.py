@@ -203,6 +203,56 @@ def sweep_fit(final: Estimate) -> dict[str, Any]:
     return out
 
 
+def lockin_steps(final: Estimate) -> list[dict[str, Any]]:
+    """One entry per modulation frequency of a lock-in run: the frequency, the mean X, Y (V
+    rms) and DC level (V), the phase and the model's, the ratio (X + iY) / DC with the sigma of
+    each component, ln R with its noise sigma, and the readings' time span. No per-step truth:
+    the medium's CW state is the run's (``truth``), and its state during a step is modulated."""
+    out = []
+    for pt in final.extra.get("points", []) or []:
+        step: dict[str, Any] = {
+            k: pt.get(k)
+            for k in (
+                "frequency_hz",
+                "x_v",
+                "y_v",
+                "dc_v",
+                "phase_rad",
+                "phase_sigma_rad",
+                "model_phase_rad",
+                "n_readings",
+                "n_eff",
+                "overloads",
+            )
+        }
+        step["ratio"] = {"re": pt.get("ratio_re"), "im": pt.get("ratio_im"), "sigma": pt.get("ratio_sigma")}
+        step["ln_ratio"] = {
+            "value": pt["ln_ratio"],
+            "sigma": math.hypot(pt["ln_ratio_sigma"], pt.get("ln_ratio_sys", 0.0)),
+            "sigma_noise": pt["ln_ratio_sigma"],
+            "sigma_systematic": pt.get("ln_ratio_sys", 0.0),
+        }
+        span = _step_span(pt)
+        if span is not None:
+            step["t_start"], step["t_end"] = span
+        out.append(step)
+    return out
+
+
+def lockin_fit(final: Estimate) -> dict[str, Any]:
+    """The lifetime fit of a lock-in frequency series (SI), or {} without one."""
+    fit = (final.extra.get("fits") or {}).get("lifetime")
+    if not fit:
+        return {}
+    return {
+        "tau_s": {"value": fit["tau"], "sigma": fit["tau_sigma"]},
+        "pump_rate_per_s": {"value": fit["pump_rate"], "sigma": fit["pump_rate_sigma"]},
+        "ln_ratio": {"value": fit["ln_ratio_on"], "sigma": fit["ln_ratio_on_sigma"]},
+        "chi2": fit["chi2"],
+        "dof": fit["dof"],
+    }
+
+
 def trips(events: list[Event]) -> list[dict[str, Any]]:
     """Each trip with its reason, latency, and the acknowledgement that cleared it."""
     out: list[dict[str, Any]] = []
@@ -256,6 +306,9 @@ def summary(reader: RunReader, cfg: BenchConfig, analysis_id: int | None = None)
         points = final.extra.get("points") or []
         # the top-level figures are those of the last step: its truth is that step's
         span = _step_span(points[-1]) if points else None
+    if final is not None and final.mode == "lockin" and final.extra.get("points"):
+        out["steps"] = lockin_steps(final)
+        out["fit"] = lockin_fit(final)
     truth = truth_over(reader, cfg, final, span) if simulated else None
     if simulated and final is not None and final.mode == "sweep" and span is None:
         # recorded before points had spans: the truth at the pump power of the final figures' step

@@ -29,7 +29,9 @@ Several frequencies (``record --mode lockin --frequencies ...``): every change o
 frequency closes a point (frequency, mean X, Y, DC, ratio and its sigma, ln R) and starts a new
 cumulative scope. With three points or more the lifetime is fitted to the ratios against
 frequency (`bench.physics.fit_lifetime_from_lockin`: tau, ln R and the pump rate free), given as
-``tau_s``; the points are in ``extra["points"]``.
+``tau_s``, and the cumulative figures (ln R, beta, gain) are then the fit's ln R, with no
+response-model systematic since tau and the pump rate are fitted; the points are in
+``extra["points"]``.
 
 References
 ----------
@@ -400,8 +402,14 @@ def estimate(state: EstimatorState, core: LockinCore, scope: str, t: float, coun
         extra["points"] = tuple(MappingProxyType(pt) for pt in points)
         fit = _fit(points, p)
         if fit is not None:
+            # a frequency series: ln R is the fit's, in which tau and the pump rate are measured,
+            # not assumed (no response-model systematic); the last step's own figures stay in extra
+            values = figures(p, fit["ln_ratio_on"], fit["ln_ratio_on_sigma"], wl)
             values["tau_s"] = quantity(fit["tau"], fit["tau_sigma"])
+            extra.update(pump_induced(p, values, wl))
             extra["fits"] = MappingProxyType({"lifetime": MappingProxyType(fit)})
+            flags.discard("low_snr")
+            flags |= snr_flags(values, p, sum(int(pt["n_eff"]) for pt in points))
     return Estimate(
         t=t,
         mode=state.mode,
@@ -425,7 +433,7 @@ MODE = Mode(
     pump_steady=lambda settings: False,
     words="lockin: modulated pump, lock-in detection",
     cli_words="lockin: pump square-wave modulated, probe read by a lock-in (a lock-in bench)",
-    describe="lockin, pump modulated, lock-in detection",
+    describe="lockin, pump modulated at {lockin_hz:g} Hz, lock-in detection",
     settings=("lockin_time_constant", "lockin_filter_order"),
     polled=True,
     pump_on=_pump_on,
