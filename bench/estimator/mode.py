@@ -48,7 +48,23 @@ from collections.abc import Callable, Mapping
 from dataclasses import dataclass, field
 from typing import Any, NamedTuple
 
-__all__ = ["Mode", "Timing", "Skipped", "MODES", "register_mode", "unregister_mode", "mode_of", "modulated"]
+__all__ = [
+    "EMISSION_SETTINGS",
+    "Mode",
+    "Timing",
+    "Skipped",
+    "MODES",
+    "register_mode",
+    "unregister_mode",
+    "mode_of",
+    "modulated",
+]
+
+
+#: Settings that tell a mode reading the pump's state from settings (``pump_on``) when the
+#: guard last switched the pump on and off (run clock, s). They move no step and start no new
+#: scope: the pump's edges settle as edges do.
+EMISSION_SETTINGS = ("emission_start", "emission_stop")
 
 
 class Skipped(NamedTuple):

@@ -38,7 +38,7 @@ from typing import Any
 import numpy as np
 
 from bench.estimator.capture import Baseline, Dark
-from bench.estimator.mode import MODES, Skipped, mode_of
+from bench.estimator.mode import EMISSION_SETTINGS, MODES, Skipped, mode_of
 from bench.estimator.params import EstimatorParams
 from bench.estimator.state import Counts, EstimatorState, Frame, make_frame
 from bench.records import PROBE, PUMP_SETPOINT, WAVELENGTH, Block, Estimate
@@ -140,6 +140,8 @@ def with_setting(state: EstimatorState, *, t: float | None = None, **settings: A
         merged["pump_power"] = state.params.pump_power_at(new["pump_current"])
     if merged == dict(state.settings):
         return state
+    if set(new) <= set(EMISSION_SETTINGS):  # the pump's edges settle as edges do, no new scope
+        return dataclasses.replace(state, settings=MappingProxyType(merged))
     st = _restart(mode_of(state.mode).close_step(state), settings=MappingProxyType(merged))
     return dataclasses.replace(
         st, pump=dataclasses.replace(st.pump, step_time=None if t is None else float(t))

@@ -36,9 +36,11 @@ from typing import Any
 import numpy as np
 
 import bench.estimator as est
+from bench.estimator.mode import EMISSION_SETTINGS
 from bench.records import PROBE, PUMP_MONITOR, REFERENCE, Block, Estimate, Event
 from bench.run.history import EstimateHistory, EstimateView, TraceHistory, TraceView
 from bench.run.readers import CommStatus
+from bench.safety.guard import EMITTING
 
 log = logging.getLogger(__name__)
 
@@ -165,6 +167,11 @@ class Consumer:
         self.sample_rate: float | None = None
         self.extra: dict[str, Any] = {}
         self.last_estimates: list[Estimate] = []
+        #: When the guard last switched the pump on and off (`EMISSION_SETTINGS`), for a mode
+        #: that reads the pump's state from them (lockin: its reference runs while the pump is off).
+        self._emission: dict[str, float] = {
+            k: float(v) for k in EMISSION_SETTINGS if (v := (settings or {}).get(k)) is not None
+        }
         #: (kind, ok, text) of each dark/baseline/mode/setting control, in order applied.
         self.procedure_results: list[tuple[str, bool, str]] = []
 
@@ -183,8 +190,27 @@ class Consumer:
                 self._truth = dict(item.values)
         elif isinstance(item, Event):
             self.record_event(item)
+            self._follow_emission(item)
         else:
             raise TypeError(f"item: cannot process {type(item).__name__}")
+
+    def _takes_emission(self, mode: str) -> bool:
+        return set(EMISSION_SETTINGS) <= set(est.mode_of(mode).settings)
+
+    def _follow_emission(self, event: Event) -> None:
+        """A guard transition into or out of emitting becomes an emission setting at its time.
+
+        Stored as a setting control like any other, so replay applies it at the same place.
+        """
+        if event.kind != "guard" or not isinstance(event.data, Mapping):
+            return
+        before, after = event.data.get("from"), event.data.get("to")
+        if (before == EMITTING) == (after == EMITTING):
+            return
+        key = "emission_start" if after == EMITTING else "emission_stop"
+        self._emission[key] = float(event.t)
+        if self._takes_emission(self.state.mode):
+            self.apply(Control("setting", float(event.t), {key: float(event.t)}, event.who))
 
     def store_only(self, item: object) -> None:
         """Like `process`, but a block is only stored (and its index checked), not analysed.
@@ -420,6 +446,9 @@ class Consumer:
                 return
         elif control.kind == "mode":
             mode = str(data["mode"])
+            if self._takes_emission(mode) and self._emission:  # the pump's state goes on with it
+                given = dict(data.get("settings") or {})
+                data = {**data, "settings": {**self._emission, **given}}
             keep_dark, keep_base = self.state.dark, self.state.baseline
             self.state = est.new_state(self.params, mode, data.get("settings"))
             self.state = est.with_baseline(est.with_dark(self.state, keep_dark), keep_base)

@@ -248,6 +248,9 @@ class Measurement:
 
             freqs = self.lockin_frequencies or (default_frequency(params),)
             self.settings.update(configure_filter(detector, freqs))
+            # the guard starts safe: the pump is known off until it emits (the lock-in's
+            # reference runs whenever the modulation does, so it cannot tell)
+            self.settings.setdefault("emission_stop", 0.0)
             if self.store is not None:
                 self.store.set_meta(estimator_settings=self.settings)
         self.checks.use_params(params)
@@ -553,11 +556,13 @@ class Measurement:
         return text
 
     def set_mode(self, mode: str, settings: Mapping[str, Any] | None = None, who: str = "gainbench") -> None:
-        from bench.estimator.mode import mode_of
+        from bench.estimator.mode import EMISSION_SETTINGS, mode_of
 
         self._check_mode(mode)
         settings = dict(settings or {})
         for key in mode_of(mode).settings:  # read from the instrument at open (the lock-in's filter)
+            if key in EMISSION_SETTINGS:  # the consumer follows the guard's (see Consumer._follow_emission)
+                continue
             if key not in settings and key in self.settings:
                 settings[key] = self.settings[key]
         self.mode = mode

@@ -499,3 +499,65 @@ async def test_compact_layout_at_80x24(meas):
         await press(pilot, "v")
         await wait_for(pilot, lambda: app.screen_main.query_one("#signals").display, "the other two plots")
         save(app, "live_compact_80x24.svg")
+
+
+@pilot_test
+async def test_lockin_bench_counts_only_the_readings_taken_while_the_pump_emits(tmp_path, capsys):
+    """On the lock-in bench the modulation (and so the lock-in's reference) runs from the
+    moment the mode is chosen, before any emission and after a stop. Readings with the pump
+    off must not count as pumped: the estimate waits for emission, and the final ln R, after a
+    stop and more readings, still matches the medium's own (`summary --json` truth, from the
+    simulated medium's populations) within 4 sigma_noise."""
+    import json
+
+    from bench.cli import main
+
+    bench = Path(__file__).resolve().parents[2] / "bench" / "data" / "demo_lockin_bench.toml"
+    cfg = load_bench(bench, overrides=BENCH_OVERRIDES)
+    current = default_current(cfg)
+    meas = Measurement(
+        cfg,
+        mode="lockin",
+        settings={"pump_current": current, "pump_power": cfg.pump.power_at(current)},
+        log_dir=tmp_path,
+        speed=1.0,
+        seed=SEED,
+        operator="tester",
+    )
+    with meas:
+        app = dashboard(meas)
+        async with app.run_test(size=SIZE) as pilot:
+            await started(pilot)
+            await wait_for(pilot, lambda: "lockin" in screen_text(app), "lockin mode on screen")
+            await wait_for(pilot, lambda: "25 Hz" in screen_text(app), "the 25 Hz modulation on screen")
+            await pilot.pause(3.0)  # modulation running, pump off
+            est = meas.snapshot(False).estimate
+            assert est is None or "ln_ratio" not in est.values, est
+            await press(pilot, "d")
+            await wait_for(pilot, lambda: app.busy is None and meas.snapshot(False).has_dark, "the dark")
+            await press(pilot, "b")
+            await wait_for(
+                pilot, lambda: app.busy is None and meas.snapshot(False).has_baseline, "the baseline"
+            )
+            screen = await arm(pilot)
+            await wait_for(pilot, lambda: screen.stage == "done", "the verdict")
+            assert screen.result is not None and screen.result.passed, screen.result
+            await closed_checklist(pilot)
+            await press(pilot, "e")
+            await wait_for(pilot, lambda: meas.guarded_pump.state == "emitting", "emission")
+            await wait_for(
+                pilot,
+                lambda: (e := meas.snapshot(False).estimate) is not None and "ln_ratio" in e.values,
+                "an estimate of ln R",
+                timeout=30,
+            )
+            await pilot.pause(4.0)
+            await press(pilot, "s")
+            await wait_for(pilot, lambda: meas.guarded_pump.state == "armed", "emission stopped")
+            await pilot.pause(3.0)  # modulation still running, pump off
+        meas.close()
+    capsys.readouterr()
+    assert main(["summary", meas.run_id, "--logs", str(tmp_path), "--json"]) == 0
+    s = json.loads(capsys.readouterr().out)
+    est, truth = s["estimates"]["ln_ratio"], s["truth"]["ln_ratio"]["value"]
+    assert abs(est["value"] - truth) < 4 * est["sigma_noise"], (est, truth)

@@ -65,7 +65,7 @@ from bench.estimator.figures import (
     wavelength_of,
     with_ln_ratio_systematic,
 )
-from bench.estimator.mode import Mode
+from bench.estimator.mode import EMISSION_SETTINGS, Mode
 from bench.estimator.params import EstimatorParams
 from bench.estimator.state import Clock, Counts, EstimatorState, Frame
 from bench.records import LOCKIN_X, LOCKIN_Y, OVERLOAD, PROBE, REFERENCE_HZ, Estimate
@@ -183,8 +183,25 @@ def _settle(params: EstimatorParams, settings: Mapping[str, Any]) -> tuple[float
 
 
 def _pump_on(block, params: EstimatorParams, settings: Mapping[str, Any]) -> np.ndarray:
-    """The pump counts as on (modulated) while the lock-in is locked to a reference."""
-    return block.column(REFERENCE_HZ) > 0
+    """The pump counts as on (modulated) while it emits and the lock-in is locked to a reference.
+
+    The lock-in's reference comes from the modulation source, which runs whether or not the
+    pump emits, so the reference alone cannot tell. ``emission_start`` and ``emission_stop``
+    (run clock, s: the guard's last switch on and off, see `bench.run.consumer`) give the
+    emitting interval ``[start, stop)``, open-ended while stop is before start. With neither
+    known (an imported or older run) the reference alone decides.
+    """
+    locked = block.column(REFERENCE_HZ) > 0
+    start, stop = settings.get("emission_start"), settings.get("emission_stop")
+    if start is None and stop is None:
+        return locked
+    if start is None:
+        return np.zeros_like(locked)
+    t = block.times()
+    emitting = t >= start
+    if stop is not None and stop > start:
+        emitting &= t < stop
+    return locked & emitting
 
 
 def response_rates(params: EstimatorParams, pump_power: float | None, tau: float | None = None):
@@ -434,7 +451,7 @@ MODE = Mode(
     words="lockin: modulated pump, lock-in detection",
     cli_words="lockin: pump square-wave modulated, probe read by a lock-in (a lock-in bench)",
     describe="lockin, pump modulated at {lockin_hz:g} Hz, lock-in detection",
-    settings=("lockin_time_constant", "lockin_filter_order"),
+    settings=("lockin_time_constant", "lockin_filter_order", *EMISSION_SETTINGS),
     polled=True,
     pump_on=_pump_on,
     channels=(LOCKIN_X, LOCKIN_Y, REFERENCE_HZ, OVERLOAD, PROBE),
