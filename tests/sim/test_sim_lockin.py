@@ -169,3 +169,15 @@ def test_no_reference_without_modulation(cfg, bench):
     assert lock.read_aux(2) == pytest.approx(
         cfg.simulation.reference_signal + cfg.simulation.dark_reference, rel=0.01
     )
+
+
+def test_gainbench_instruments_identifies_the_lockin(capsys):
+    from pathlib import Path
+
+    from bench.cli import main
+
+    bench = Path(__file__).resolve().parents[2] / "bench" / "data" / "demo_lockin_bench.toml"
+    assert main(["instruments", "--config", str(bench), "--no-scan"]) == 0
+    out = capsys.readouterr().out
+    assert "lockin via" in out and "QL-7" in out and "QP-40" in out, out
+    assert "not reached" not in out, out
