@@ -121,3 +121,28 @@ def test_meter_replies_lost_longer_than_stale_after_trip_the_guard(tmp_path, cap
     stale = [t for t in s["trips"] if t["condition"] == "stale.detector"]
     assert stale, s["trips"]
     assert "no fresh detector reading" in stale[0]["reason"]
+
+
+def test_an_interlock_fault_trips_the_guard_within_a_pump_poll_of_the_fault(tmp_path, capsys):
+    """The interlock is read from the pump driver, polled every 20 ms beside the meter's 20
+    readings a second; the guard must see the fault at the next pump poll and have the off
+    command done within 100 ms of that reading (this project's bound, common practice for a
+    software layer, no source; the hardware interlock itself acts at once and is not replaced).
+    The fault is injected at 3 s of the simulator's clock; the run clock's offset from it comes
+    from the truth rows, which carry both clocks."""
+    import statistics
+
+    run_id = record(tmp_path, "--seconds", "6", "--fault", "interlock@3s+1s")
+    s = summary(tmp_path, run_id, capsys)
+    trips = [t for t in s["trips"] if t["condition"] == "interlock_open"]
+    assert trips, s["trips"]
+    trip = trips[0]
+    assert 0 <= trip["latency_s"] <= 0.100, trip
+    with RunReader(tmp_path / f"{run_id}.gbrun") as r:
+        offset = statistics.median(row["t"] - row["sim_t"] for row in r.truth())
+    seen_after_fault = trip["seen_at"] - (3.0 + offset)
+    # one pump poll (20 ms), the pump's reply and the truth clock's own reading error (~10 ms)
+    assert -0.015 <= seen_after_fault <= 0.060, (seen_after_fault, trip)
+    print(
+        f"interlock fault seen {seen_after_fault * 1e3:.1f} ms after it, off {trip['latency_s'] * 1e3:.1f} ms later"
+    )
