@@ -81,10 +81,36 @@ def run(args: argparse.Namespace) -> int:
     return 0
 
 
+def _print_lockin_steps(out: dict) -> None:
+    """The modulation frequencies of a lock-in run (one line each) and the lifetime fit."""
+    steps = out["steps"]
+    print(f"  modulation frequencies: {len(steps)}")
+    for st in steps:
+        q = st["ln_ratio"]
+        print(
+            f"    {st['frequency_hz']:7.4g} Hz  X {st['x_v']:+.4e} V  Y {st['y_v']:+.4e} V  "
+            f"phase {st['phase_rad']:+.5f} rad (model {st['model_phase_rad']:+.5f})  "
+            f"ln R {q['value']:.6f} ± {q['sigma']:.2g}"
+        )
+    fit = out.get("fit") or {}
+    if fit.get("tau_s"):
+        tau = fit["tau_s"]
+        scaled = ""
+        if fit["dof"] > 0 and fit["chi2"] > fit["dof"]:
+            scaled = f" (sigmas scaled by sqrt(chi-square / dof) = {math.sqrt(fit['chi2'] / fit['dof']):.2g})"
+        print(
+            f"  lifetime fit: tau {tau['value'] * 1e3:.5g} ± {tau['sigma'] * 1e3:.2g} ms, "
+            f"chi-square {fit['chi2']:.3g} for {fit['dof']} degrees of freedom{scaled}"
+        )
+
+
 def _print_sweep(out: dict) -> None:
     """The steps of a sweep (one line each) and its fitted figures."""
     steps = out.get("steps")
     if steps is None:
+        return
+    if out.get("mode") == "lockin":
+        _print_lockin_steps(out)
         return
     print(f"  sweep: {len(steps)} steps")
     for k, st in enumerate(steps, 1):

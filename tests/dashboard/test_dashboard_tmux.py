@@ -70,3 +70,35 @@ def test_live_in_a_terminal_arm_and_quit(tmux, tmp_path):
         events = r.events()
     assert any(e.kind == "checklist" and e.data.get("passed") is True for e in events)
     assert any(e.kind == "guard" and e.data.get("to") == "armed" and e.who == "smoke" for e in events)
+
+
+def test_live_on_the_lockin_bench_at_80x24_opens_in_lockin_mode(tmp_path):
+    """`gainbench live --config bench/data/demo_lockin_bench.toml`, as the README gives it, in
+    an 80 x 24 terminal: the lock-in bench's own mode at its default frequency (a tenth of the
+    medium's corner (1/tau + W_s)/(2 pi), with tau = 0.6 ms a little over 26.5 Hz, rounded down
+    to 25 Hz), no estimate while the pump is off, and a clean quit."""
+    tmux = Tmux(80, 24)
+    try:
+        logs = tmp_path / "logs"
+        done = tmp_path / "exit-status"
+        config = ROOT / "bench" / "data" / "demo_lockin_bench.toml"
+        command = (
+            f"cd {shlex.quote(str(ROOT))} && env -u COLUMNS -u LINES {shlex.quote(sys.executable)} -m bench live "
+            f"--config {shlex.quote(str(config))} --logs {shlex.quote(str(logs))} --operator smoke; "
+            f"echo $? > {shlex.quote(str(done))}; sleep 60"
+        )
+        tmux.start(command)
+        screen = tmux.wait_for("lockin, pump modulated at 25 Hz", timeout=90)
+        assert "mode lockin" in screen, screen
+        time.sleep(2.0)
+        assert "no estimate yet" in tmux.screen()
+        tmux.keys("q")
+        tmux.wait_for("Close the run and quit?")
+        tmux.keys("y")
+        deadline = time.monotonic() + 60
+        while not done.exists() or not done.read_text().strip():
+            assert time.monotonic() < deadline, tmux.screen()
+            time.sleep(0.2)
+        assert done.read_text().strip() == "0"
+    finally:
+        tmux.kill()
