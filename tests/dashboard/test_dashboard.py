@@ -183,9 +183,10 @@ async def arm(pilot, od_pump: str = "5", od_probe: str = "2"):
     )
     await type_text(pilot, od_pump)
     await press(pilot, "enter")
+    # a refused OD ends the questions: wait for either outcome (the key may not be handled yet)
+    await wait_for(pilot, lambda: screen.stage != "asking" or screen.step == 2, "the answer to be taken")
     if screen.stage != "asking":
         return screen
-    await wait_for(pilot, lambda: screen.step == 2, "the second eyewear question")
     await type_text(pilot, od_probe)
     await press(pilot, "enter")
     for k in (3, 4, 5):
