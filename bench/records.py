@@ -141,6 +141,7 @@ FLAGS = (
     "overload",
     "phase_mismatch",
     "thick_sample",
+    "background_high",
 )
 
 

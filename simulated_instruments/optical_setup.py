@@ -216,6 +216,12 @@ class BenchModel:
         ln_t_ref = (se0 + sa0) * length * n2_off_ref - sa0 * n_total * length
         # ln(T / T_ref) = (sigma_es + sigma_as) L <N2> + _ln_t_offset
         self._ln_t_offset = -self._sigma_as * n_total * length - ln_t_ref
+        # The medium's own fluorescence reaching the probe detector, proportional to <N2>: a
+        # power at full inversion, turned into volts with the probe detector's responsivity
+        # (probe_signal volts for the probe power the unpumped sample transmits).
+        fluo_w = float(getattr(self.cfg.simulation, "fluorescence_on_probe", 0.0) or 0.0)
+        responsivity = self.cfg.simulation.probe_signal / (self.cfg.probe.power * math.exp(ln_t_ref))
+        self._fluo_v_per_n2 = fluo_w * responsivity / n_total
 
     def _drive(self) -> Drive:
         return Drive(
@@ -457,6 +463,9 @@ class BenchModel:
             ln_rel = n2 * self._ln_ratio_per_n2
             ln_rel += self._ln_t_offset
         stray = self._stray(times)
+        if self._fluo_v_per_n2:
+            fluo = np.broadcast_to(np.asarray(n2, dtype=float) * self._fluo_v_per_n2, times.shape)
+            stray = fluo if stray is None else stray + fluo
         volts, clipped = self._detectors.volts(
             times, ln_rel, _flat(probe_open), _flat(pump_w), stray, self.full_scale
         )

@@ -85,6 +85,7 @@ class SimulationSetup(Protocol):
     ambient_temperature: float  # K
     mount_heating: float  # K/A
     thermal_time_constant: float  # s
+    fluorescence_on_probe: float  # W of the medium's fluorescence on the probe detector at full inversion
 
 
 class BenchSetup(Protocol):

@@ -137,8 +137,14 @@ def test_overrides_replace_values_before_validation(demo_text):
     assert cfg.sample.length == pytest.approx(5.1e-3)
     with pytest.raises(ConfigError, match="sample.length"):
         load_bench_text(demo_text, "bench.toml", overrides={"sample.length": "5.1 kg"})
-    with pytest.raises(ConfigError, match="has no key sample.colour"):
+    with pytest.raises(ConfigError, match=r"--set sample.colour .*unknown key"):
         load_bench_text(demo_text, "bench.toml", overrides={"sample.colour": "red"})
+    # a known key the file leaves at its default can be given too, typed as it reads
+    assert "fluorescence_on_probe" not in demo_text
+    cfg = load_bench_text(demo_text, "bench.toml", overrides={"simulation.fluorescence_on_probe": "20 uW"})
+    assert cfg.simulation.fluorescence_on_probe == pytest.approx(20e-6)  # 1 uW = 1e-6 W (SI prefix)
+    with pytest.raises(ConfigError, match=r"simulation.fluorescence_on_probe.*not a power"):
+        load_bench_text(demo_text, "bench.toml", overrides={"simulation.fluorescence_on_probe": "abc"})
     with pytest.raises(ConfigError, match="expected KEY=VALUE"):
         parse_overrides(["sample.length"])
 

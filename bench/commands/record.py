@@ -115,6 +115,13 @@ def configure(parser: argparse.ArgumentParser) -> None:
     )
     add_run_options(parser)  # --accept-lower-od
     parser.add_argument("--no-dark", action="store_true", help="skip the dark capture")
+    parser.add_argument(
+        "--no-background",
+        action="store_true",
+        help="watch mode: skip the background capture (probe shutter closed, pump on, once the pump "
+        "is on: the sample's fluorescence and scattered pump on the probe detector above its dark, "
+        "subtracted after; skipped with --no-dark too)",
+    )
     parser.add_argument("--seed", type=int, help="simulated bench only: random seed")
     parser.add_argument("--quiet", action="store_true", help="no status line")
 
@@ -193,6 +200,9 @@ def run(args: argparse.Namespace) -> int:
             meas.set_modulation(frequencies[0])
         meas.set_current(currents[0], who=operator)
         meas.emit(who=operator)
+        if _takes_background(mode, meas) and not (args.no_background or args.no_dark):
+            print("capturing background (pump on, probe shutter closed) ...", file=out)
+            print(f"  {meas.capture_background(who=operator)}", file=out)
         if frequencies:
             _frequency_program(meas, frequencies, args.seconds, status)
         else:
@@ -230,6 +240,18 @@ def run(args: argparse.Namespace) -> int:
         )
         return TRIP_NOT_ACKNOWLEDGED
     return 0
+
+
+def _takes_background(mode, meas) -> bool:
+    """A steady-pump mode on a bench with a probe shutter: the pump-induced background is
+    measured once the pump is on (modulated and stepped modes do not hold the pump steady)."""
+    return (
+        mode.timing is None
+        and not mode.steps_pump
+        and mode.pump_on is None
+        and "shutter" in meas.instruments
+        and meas.guarded_pump.state == "emitting"
+    )
 
 
 def _mode_period(args, cfg, current: float) -> float | None:

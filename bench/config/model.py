@@ -121,6 +121,7 @@ class SimulationConfig:
     ambient_temperature: float  # K
     mount_heating: float  # K/A at steady state
     thermal_time_constant: float  # s
+    fluorescence_on_probe: float = 0.0  # W on the probe detector at full inversion (proportional to N2)
 
 
 @dataclass(frozen=True)

@@ -362,4 +362,5 @@ def _simulation(r: BenchFileReader) -> SimulationConfig:
         ambient_temperature=r.positive(f"{s}.ambient_temperature", "temperature", "22 degC"),
         mount_heating=r.positive(f"{s}.mount_heating", "kelvin_per_amp", "0.8 K/A", allow_zero=True),
         thermal_time_constant=r.positive(f"{s}.thermal_time_constant", "time", "20 s"),
+        fluorescence_on_probe=r.positive(f"{s}.fluorescence_on_probe", "power", "0 W", allow_zero=True),
     )

@@ -25,8 +25,10 @@ def apply_overrides(raw: dict, overrides: Mapping[str, str], source: str) -> dic
                 raise ConfigError(f"--set {key}: {source} has no table [{'.'.join(parts[:-1])}]")
             node = nxt
         old = node.get(parts[-1])
-        if old is None:
-            raise ConfigError(f"--set {key}: {source} has no key {key} to override")
+        if old is None:  # a key the file leaves at its default: typed as the text reads
+            # (an unknown key is still refused, by name, when the tree is read)
+            node[parts[-1]] = _typed(value)
+            continue
         if isinstance(old, bool):
             if value.lower() not in ("true", "false"):
                 raise ConfigError(f"--set {key}={value}: expected true or false")
@@ -46,6 +48,18 @@ def apply_overrides(raw: dict, overrides: Mapping[str, str], source: str) -> dic
         else:
             raise ConfigError(f"--set {key}: only single values can be overridden, not tables or lists")
     return raw
+
+
+def _typed(value: str) -> Any:
+    """``true``/``false``, a whole number, a number, else the text itself (a quantity with a unit)."""
+    if value.lower() in ("true", "false"):
+        return value.lower() == "true"
+    for kind in (int, float):
+        try:
+            return kind(value)
+        except ValueError:
+            pass
+    return value
 
 
 class BenchFileReader:

@@ -46,7 +46,14 @@ KEYS = (
         "baseline",
         "capture the baseline: pump off, wait for the medium to relax, then average probe/reference",
     ),
-    ("m", "mode", "mode", "choose the mode (watch, chopped, decay, sweep) and its timing"),
+    (
+        "g",
+        "background",
+        "",
+        "capture the pump-induced background (pump on, watch mode): the probe shutter closes for a moment "
+        "and the probe detector's fluorescence and scattered pump level is subtracted from then on",
+    ),
+    ("m", "mode", "mode", "choose the mode (watch, chopped, decay, sweep, lockin) and its timing"),
     ("a", "arm", "arm", "the arming checklist, one question at a time (arms the guard if it passes)"),
     ("e", "emit", "EMIT", "switch the pump output ON (armed only; in sweep mode runs the current steps)"),
     ("s", "stop", "pump off", "switch the pump output OFF (stays armed)"),

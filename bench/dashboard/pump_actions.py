@@ -83,6 +83,17 @@ class BenchActions:
 
         self._run_procedure("baseline", baseline)
 
+    def action_background(self) -> None:
+        if self._start("background", "capturing the background (pump on, probe shutter closed)…"):
+            self._background_worker()
+
+    @work(thread=True, group="procedure")
+    def _background_worker(self) -> None:
+        def background() -> str:
+            return self.meas.capture_background(who=self.who)
+
+        self._run_procedure("background", background)
+
     def action_mode(self) -> None:
         if self.not_ready():
             return

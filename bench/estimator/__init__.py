@@ -3,9 +3,10 @@
 State in, state out, no I/O. One module per job:
 
 * `bench.estimator.stream`: `new_state`, `update`, `report`, `with_dark`, `with_baseline`,
-  `with_setting` (emission windows, gaps, determinism);
+  `with_background`, `with_setting` (emission windows, gaps, determinism);
 * `bench.estimator.state`: the state record and the per-block frame (signals, settling);
-* `bench.estimator.capture`: `Dark`, `Baseline`, `capture_dark`, `capture_baseline`;
+* `bench.estimator.capture`: `Dark`, `Baseline`, `Background`, `capture_dark`, `capture_baseline`,
+  `capture_background`;
 * `bench.estimator.figures`: `figures`, `probe_terms`, `pump_induced` (the uncertainty model);
 * `bench.estimator.mode`: the `Mode` record and the table `MODES`; `bench.estimator.modes`: one
   module per mode (watch, chopped, decay, sweep), each with its own description;
@@ -29,7 +30,8 @@ than ``baseline_drift_k`` sigma), ``low_snr`` (``|ln R| < snr_min sigma_noise``,
 ``min_batches`` batches / cycles / decays behind the noise figure), ``not_settled`` (pump-on
 samples inside the settle time in the window, or no settled data at all), ``no_baseline``
 (a figure needs the stored baseline and there is none; the estimate then has no values),
-``no_dark`` (no dark captured: zero volts assumed).
+``no_dark`` (no dark captured: zero volts assumed), ``background_high`` (the pump-induced
+background subtracted from the probe is above ``background_flag_fraction`` of the probe level).
 
 References
 ----------
@@ -44,7 +46,14 @@ References
 from __future__ import annotations
 
 from bench.estimator import modes as _modes  # noqa: F401 - registers the built-in modes
-from bench.estimator.capture import Baseline, Dark, capture_baseline, capture_dark
+from bench.estimator.capture import (
+    Background,
+    Baseline,
+    Dark,
+    capture_background,
+    capture_baseline,
+    capture_dark,
+)
 from bench.estimator.figures import figures, probe_terms, pulsed_small_signal_ln_ratio, pump_induced
 from bench.estimator.mode import MODES, Mode, Skipped, Timing, mode_of, register_mode, unregister_mode
 from bench.estimator.params import EstimatorParams
@@ -54,6 +63,7 @@ from bench.estimator.stream import (
     new_state,
     report,
     update,
+    with_background,
     with_baseline,
     with_dark,
     with_setting,
@@ -70,13 +80,16 @@ __all__ = [
     "unregister_mode",
     "Dark",
     "Baseline",
+    "Background",
     "EstimatorParams",
     "EstimatorState",
     "capture_dark",
     "capture_baseline",
+    "capture_background",
     "new_state",
     "with_dark",
     "with_baseline",
+    "with_background",
     "with_setting",
     "update",
     "report",

@@ -1,8 +1,11 @@
-"""Dark and baseline: the two procedures before a measurement, and their records.
+"""Dark, baseline and background: the procedures around a measurement, and their records.
 
 `capture_dark` takes the detector readings with the probe blocked, `capture_baseline` the
-pump-off normalised transmission ``S_off = (V_probe - dark_p) / (V_ref - dark_r)``. Both give
-standard errors from the scatter of contiguous batch means (Flyvbjerg and Petersen). No I/O.
+pump-off normalised transmission ``S_off = (V_probe - dark_p) / (V_ref - dark_r)``, and
+`capture_background` the probe detector's reading with the probe blocked and the pump on:
+the sample's own fluorescence and scattered pump light, which rise with the pump and which the
+dark (pump off) does not hold. All give standard errors from the scatter of contiguous batch
+means (Flyvbjerg and Petersen). No I/O.
 """
 
 from __future__ import annotations
@@ -15,7 +18,7 @@ import numpy as np
 
 from bench.records import PROBE, PUMP_MONITOR, REFERENCE, Block
 
-__all__ = ["Dark", "Baseline", "capture_dark", "capture_baseline"]
+__all__ = ["Dark", "Baseline", "Background", "capture_dark", "capture_baseline", "capture_background"]
 
 
 @dataclass(frozen=True)
@@ -46,6 +49,23 @@ class Baseline:
     n_samples: int
     t: float
     t_start: float
+    #: Mean dark-corrected reference (V) over the baseline: the probe level is ``value`` times it.
+    reference_v: float = math.nan
+
+
+@dataclass(frozen=True)
+class Background:
+    """The probe detector's pump-induced background (V above its dark), with its standard error.
+
+    Measured with the probe blocked and the pump on; ``pump_monitor_v`` is the pump monitor's
+    mean over it (NaN without a monitor), ``t`` the run-clock time of the last sample used.
+    """
+
+    probe: float
+    probe_sigma: float
+    pump_monitor_v: float
+    n_samples: int
+    t: float
 
 
 def _columns(blocks: Iterable[Block], names: tuple[str, ...], what: str):
@@ -140,4 +160,49 @@ def capture_baseline(
     m, sm = _mean_and_error(s, batches)
     if not m > 0:
         raise ValueError("blocks: the probe is at or below its dark level; no baseline can be taken")
-    return Baseline(m, sm, int(s.size), t_last, t_first)
+    ref = den if pump_threshold_v is None else den[cols[PUMP_MONITOR] <= pump_threshold_v]
+    return Baseline(m, sm, int(s.size), t_last, t_first, float(np.mean(ref)))
+
+
+def capture_background(
+    blocks: Iterable[Block],
+    dark: Dark | None,
+    *,
+    batches: int = 20,
+    pump_threshold_v: float | None = None,
+) -> Background:
+    """The probe detector's background with the probe blocked and the pump on, above the dark.
+
+    With ``pump_threshold_v`` (and a ``pump_monitor`` channel) only samples whose monitor is
+    above it count, and the monitor's mean is kept so that the background can be scaled with
+    the pump; the dark's own error is not in the sigma (the estimate counts it apart).
+
+    References
+    ----------
+    .. [1] H. Flyvbjerg and H. G. Petersen, J. Chem. Phys. 91, 461 (1989).
+    """
+    if not (isinstance(batches, int) and batches >= 2):
+        raise ValueError(f"batches: must be a whole number of at least 2, got {batches!r}")
+    if dark is None:
+        raise ValueError(
+            "dark: the background is the pump-induced part of the blocked probe's level, above "
+            "its dark; capture a dark first"
+        )
+    blocks = list(blocks)
+    with_monitor = bool(blocks) and all(PUMP_MONITOR in b.channels for b in blocks if b.n)
+    names = (PROBE,) + ((PUMP_MONITOR,) if with_monitor else ())
+    cols, _, t_last = _columns(blocks, names, "background")
+    vp = cols[PROBE] - dark.probe
+    monitor = math.nan
+    if with_monitor:
+        pm = cols[PUMP_MONITOR]
+        if pump_threshold_v is not None:
+            keep = pm > pump_threshold_v
+            if not np.any(keep):
+                raise ValueError(
+                    "blocks: the pump monitor shows the pump off; the background needs the pump on"
+                )
+            vp, pm = vp[keep], pm[keep]
+        monitor = float(np.mean(pm))
+    b, sb = _mean_and_error(vp, batches)
+    return Background(b, sb, monitor, int(vp.size), t_last)

@@ -283,6 +283,27 @@ def dark_noise(dark: Dark | None, ref_level: float, s_off: float, ln_ratio: floa
     return abs(dark.probe_sigma * (1.0 / s_off - 1.0 / s_on) / ref_level)
 
 
+#: Above this fraction of the probe level the subtracted background raises ``background_high``.
+BACKGROUND_FLAG_FRACTION = 0.01
+
+
+def background_share(state: EstimatorState, s_on: float) -> tuple[float, float]:
+    """(relative sigma of ``S_on`` from the background's own error, background / probe level).
+
+    The background was subtracted from every pump-on probe sample, so an error ``d`` in it
+    moves ``S_on`` by ``d / V_ref``: relative ``d / (S_on V_ref)``; one measurement, so it does
+    not average down with the run. (0, 0) without a background or a reference level."""
+    bg, base = state.background, state.baseline
+    if (
+        bg is None
+        or base is None
+        or not (math.isfinite(base.reference_v) and base.reference_v > 0 and s_on > 0)
+    ):
+        return 0.0, 0.0
+    level = s_on * base.reference_v
+    return bg.probe_sigma / level, bg.probe / level
+
+
 def with_ln_ratio_systematic(values: dict[str, Quantity], sys: float) -> dict[str, Quantity]:
     """``values`` (from `figures`) with a systematic part ``sys`` of ln R propagated into every
     figure through its noise sensitivity to ln R (linear, GUM sec. 5.1), in quadrature."""

@@ -29,7 +29,7 @@ from typing import Any
 
 import numpy as np
 
-from bench.estimator.capture import Baseline, Dark
+from bench.estimator.capture import Background, Baseline, Dark
 from bench.estimator.params import EstimatorParams
 from bench.records import PROBE, PUMP_MONITOR, REFERENCE, Block
 
@@ -95,6 +95,7 @@ class EstimatorState:
     settings: Mapping[str, Any]
     dark: Dark | None = None
     baseline: Baseline | None = None
+    background: Background | None = None
     clock: Clock | None = None
     pump: Pump = Pump()
     core: Any = None
@@ -193,6 +194,17 @@ def _polled_position(p: EstimatorParams, clock: Clock | None, block: Block) -> t
     return dataclasses.replace(clock, next_index=i0 + 1, next_request=nxt), i0, gap
 
 
+def background_volts(bg: Background, on: np.ndarray, vm: np.ndarray | None) -> np.ndarray:
+    """The pump-induced background on each pump-on sample (V, 0 with the pump off): the level
+    measured, scaled with the pump monitor where both it and the measurement's monitor level
+    are known (first order: a fluorescence that saturates with the pump is exact only at the
+    pump power it was measured at)."""
+    level = np.where(on, bg.probe, 0.0)
+    if vm is not None and math.isfinite(bg.pump_monitor_v) and bg.pump_monitor_v > 0:
+        level = level * (vm / bg.pump_monitor_v)
+    return level
+
+
 def _frame(
     state: EstimatorState, block: Block, mode, clock: Clock, i0: int, first: bool, gap: bool
 ) -> tuple[Frame, Clock, Pump]:
@@ -202,15 +214,17 @@ def _frame(
     vp = block.column(PROBE)
     vr = block.column(REFERENCE)
     vm = block.column(PUMP_MONITOR) if PUMP_MONITOR in block.channels else None
+    if mode.pump_on is None:
+        on = vm > p.pump_threshold(state.settings.get("pump_power"))
+    else:
+        on = np.asarray(mode.pump_on(block, p, state.settings), dtype=bool)
+    if state.background is not None:
+        vp = vp - background_volts(state.background, on, vm)
     with np.errstate(divide="ignore", invalid="ignore"):  # a blocked reference reads ~0 V: S is then inf/nan
         if state.dark is not None:
             s = (vp - state.dark.probe) / (vr - state.dark.reference)
         else:
             s = vp / vr
-    if mode.pump_on is None:
-        on = vm > p.pump_threshold(state.settings.get("pump_power"))
-    else:
-        on = np.asarray(mode.pump_on(block, p, state.settings), dtype=bool)
 
     pump = state.pump
     change = np.empty(n, dtype=bool)

@@ -37,7 +37,7 @@ from typing import Any
 
 import numpy as np
 
-from bench.estimator.capture import Baseline, Dark
+from bench.estimator.capture import Background, Baseline, Dark
 from bench.estimator.mode import EMISSION_SETTINGS, MODES, Skipped, mode_of
 from bench.estimator.params import EstimatorParams
 from bench.estimator.state import Counts, EstimatorState, Frame, make_frame
@@ -115,6 +115,25 @@ def with_baseline(state: EstimatorState, baseline: Baseline | None) -> Estimator
     if baseline is not None and not isinstance(baseline, Baseline):
         raise ValueError(f"baseline: expected Baseline, got {type(baseline).__name__}")
     return dataclasses.replace(state, baseline=baseline)
+
+
+def with_background(
+    state: EstimatorState, background: Background | None, *, t_resume: float | None = None
+) -> EstimatorState:
+    """Subtract ``background`` from the probe on pump-on samples from now on. The accumulators
+    restart (S means something else now), as for a new dark.
+
+    ``t_resume`` (run clock, s) is when the probe was unblocked after the measurement: samples
+    count again ``step_settle_time`` after it, so none taken with the probe blocked (S
+    meaningless) reaches an estimate however the samples are cut into blocks."""
+    if background is not None and not isinstance(background, Background):
+        raise ValueError(f"background: expected Background, got {type(background).__name__}")
+    if t_resume is not None and not (isinstance(t_resume, (int, float)) and math.isfinite(t_resume)):
+        raise ValueError(f"t_resume: must be a finite time in s or None, got {t_resume!r}")
+    st = _restart(mode_of(state.mode).close_step(state), settle=t_resume is not None, background=background)
+    if t_resume is None:
+        return st
+    return dataclasses.replace(st, pump=dataclasses.replace(st.pump, step_time=float(t_resume)))
 
 
 def with_setting(state: EstimatorState, *, t: float | None = None, **settings: Any) -> EstimatorState:

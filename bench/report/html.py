@@ -57,6 +57,8 @@ FLAG_MEANINGS = {
     "or from an instrument phase offset; ln R uses the magnitude only",
     "thick_sample": "the sample absorbs much of the pump: the lock-in's response correction takes the pump rate "
     "as uniform along it",
+    "background_high": "the pump-induced background (fluorescence, scattered pump) subtracted from the probe is "
+    "above 1 % of the probe level: the result leans on that subtraction",
 }
 
 CSS = """

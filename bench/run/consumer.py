@@ -52,15 +52,16 @@ LEVELS_SPAN = 1e-3
 #: ... and at least this many blocks (on an accelerated bench one block spans many seconds).
 RECENT_MIN_BLOCKS = 8
 
-CONTROL_KINDS = ("dark", "baseline", "mode", "setting")
+CONTROL_KINDS = ("dark", "baseline", "background", "mode", "setting")
 
 
 @dataclass(frozen=True)
 class Control:
     """An instruction applied between blocks.
 
-    ``dark`` and ``baseline`` carry ``t_start``/``t_end`` (run clock): the detector samples in
-    that window become the dark or the baseline; a ``dark`` may instead carry the levels
+    ``dark``, ``baseline`` and ``background`` carry ``t_start``/``t_end`` (run clock): the
+    detector samples in that window become the dark, the baseline or the pump-induced
+    background (probe blocked, pump on); a ``dark`` may instead carry the levels
     measured apart, ``probe_v`` and ``reference_v`` (V). ``mode`` carries ``mode`` and ``settings``;
     ``setting`` carries the settings that changed (``pump_power``, ``pump_current``,
     ``probe_wavelength``).
@@ -413,7 +414,7 @@ class Consumer:
             )
             self.state = est.with_dark(self.state, dark)
             text = f"dark given: probe {dark.probe * 1e3:.4g} mV, reference {dark.reference * 1e3:.4g} mV"
-        elif control.kind in ("dark", "baseline"):
+        elif control.kind in ("dark", "baseline", "background"):
             t0, t1 = float(data["t_start"]), float(data["t_end"])
             blocks = [_slice(b, t0, t1) for b in self._recent if b.t_end >= t0 and b.t0 <= t1]
             blocks = [b for b in blocks if b is not None and b.n > 0]
@@ -431,7 +432,8 @@ class Consumer:
                 )
                 return
             try:
-                text = self._capture(control.kind, blocks)
+                resume = data.get("t_resume")
+                text = self._capture(control.kind, blocks, None if resume is None else float(resume))
             except ValueError as exc:  # the data cannot give a dark or baseline: say so, go on
                 self.procedure_results.append((control.kind, False, str(exc)))
                 self.record_event(
@@ -449,9 +451,11 @@ class Consumer:
             if self._takes_emission(mode) and self._emission:  # the pump's state goes on with it
                 given = dict(data.get("settings") or {})
                 data = {**data, "settings": {**self._emission, **given}}
-            keep_dark, keep_base = self.state.dark, self.state.baseline
+            keep_dark, keep_base, keep_bg = self.state.dark, self.state.baseline, self.state.background
             self.state = est.new_state(self.params, mode, data.get("settings"))
             self.state = est.with_baseline(est.with_dark(self.state, keep_dark), keep_base)
+            if keep_bg is not None:
+                self.state = est.with_background(self.state, keep_bg)
             text = f"mode {mode}"
         elif control.kind == "setting":
             self.state = est.with_setting(self.state, t=control.t, **data)
@@ -462,19 +466,25 @@ class Consumer:
         self.record_event(
             Event(
                 control.t,
-                "procedure" if control.kind in ("dark", "baseline") else "setting",
+                "procedure" if control.kind in ("dark", "baseline", "background") else "setting",
                 text,
                 control.who,
                 data={**data, "control": control.kind, "ok": True, "before_seq": before_seq},
             )
         )
 
-    def _capture(self, kind: str, blocks: list[Block]) -> str:
-        """Capture a dark or a baseline from ``blocks``; the event text. ValueError if impossible."""
+    def _capture(self, kind: str, blocks: list[Block], resume: float | None = None) -> str:
+        """Capture a dark, a baseline or a background from ``blocks``; the event text. ValueError if impossible."""
         if kind == "dark":
             dark = est.capture_dark(blocks)
             self.state = est.with_dark(self.state, dark)
             return f"dark captured: probe {dark.probe * 1e3:.3f} mV, reference {dark.reference * 1e3:.3f} mV"
+        if kind == "background":
+            bg = est.capture_background(
+                blocks, self.state.dark, pump_threshold_v=self.params.pump_threshold_v
+            )
+            self.state = est.with_background(self.state, bg, t_resume=resume)
+            return f"background captured: probe {bg.probe * 1e3:.4g} ± {bg.probe_sigma * 1e3:.2g} mV above its dark"
         base = est.capture_baseline(blocks, self.state.dark, pump_threshold_v=self.params.pump_threshold_v)
         self.state = est.with_baseline(self.state, base)
         return f"baseline captured: S_off = {base.value:.6g} +- {base.sigma:.2g}"

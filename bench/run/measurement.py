@@ -537,6 +537,33 @@ class Measurement:
         self.wait_data_until(t1 + 0.01)
         self._apply_and_wait(Control("baseline", self.clock.now(), {"t_start": t0, "t_end": t1}, who))
 
+    def capture_background(self, seconds: float = 0.3, who: str = "gainbench") -> str:
+        """Pump on (emitting, at the run's current), probe shutter closed: ``seconds`` of the
+        probe detector's pump-induced background (the sample's fluorescence, scattered pump),
+        then the shutter opened again. Estimates restart from the reopening, after the settle
+        time. Returns the consumer's text; MeasurementError if it cannot be taken."""
+        assert self.guarded_pump is not None
+        shutter = self.instruments.get("shutter")
+        if shutter is None:
+            raise MeasurementError(
+                "capture background: no shutter is configured to block the probe; "
+                "use a bench file with a shutter, or skip the background"
+            )
+        if self.guarded_pump.state != "emitting":
+            raise MeasurementError("capture background: the pump must be on (emitting) at the run's current")
+        settle = max(self.params.step_settle_time, self.params.settle_time, 0.03, self.detector_settle)
+        shutter.close_shutter("probe")
+        try:
+            t0 = self.clock.now() + settle
+            t1 = t0 + seconds
+            self.wait_data_until(t1 + 0.01)
+        finally:
+            shutter.open_shutter("probe")
+        resume = self.clock.now()
+        return self._apply_and_wait(
+            Control("background", resume, {"t_start": t0, "t_end": t1, "t_resume": resume}, who)
+        )
+
     def _apply_and_wait(self, control: Control, timeout: float = 10.0) -> str:
         """Hand a capture to the consumer and wait for its outcome; MeasurementError if it failed."""
         assert self.consumer is not None

@@ -52,6 +52,7 @@ METHODS = frozenset(
         "snapshot",
         "capture_dark",
         "capture_baseline",
+        "capture_background",
         "set_modulation",
         "set_mode",
         "set_current",
@@ -457,6 +458,9 @@ class RemoteMeasurement:
 
     def capture_baseline(self, *args: Any, **kwargs: Any) -> None:
         self._request("capture_baseline", *args, **kwargs)
+
+    def capture_background(self, *args: Any, **kwargs: Any) -> str:
+        return self._request("capture_background", *args, **kwargs)
 
     def set_modulation(self, hz: float | None, who: str = "gainbench") -> None:
         self._request("set_modulation", hz, who=who)

@@ -232,6 +232,8 @@ async def test_dark_and_baseline(meas):
         await wait_for(pilot, lambda: "baseline ✓ yes" in screen_text(app), "the baseline on screen")
         assert "dark ✓ yes" in screen_text(app)
         await wait_for(pilot, lambda: "baseline captured" in screen_text(app), "the action line")
+        await press(pilot, "g")  # the background needs the pump on: refused, saying why
+        await wait_for(pilot, lambda: "pump must be on" in screen_text(app), "the background refused")
     new = procedures(meas)[before:]
     assert any(t.startswith("dark captured") for t in new) and any(
         t.startswith("baseline captured") for t in new
@@ -300,6 +302,15 @@ async def test_arm_emit_change_current_and_stop(meas):
         )
         await wait_for(
             pilot, lambda: app.last_snapshot.estimates.t.size > 3, "a few estimates for the trends"
+        )
+        await press(pilot, "g")  # the pump-induced background, with the pump on
+        await wait_for(pilot, lambda: "background captured" in screen_text(app), "the background", timeout=30)
+        assert any(t.startswith("background captured") for t in procedures(meas))
+        await wait_for(
+            pilot,
+            lambda: (e := meas.snapshot(False).estimate) is not None and "beta" in e.values,
+            "an estimate of beta after the background",
+            timeout=30,
         )
         save(app, "live_emitting_120x40.svg")
         # one step up from 7.2 A is accepted; two more would pass the guard's 9 A limit

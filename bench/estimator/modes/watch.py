@@ -25,7 +25,15 @@ from typing import Any, NamedTuple
 
 import numpy as np
 
-from bench.estimator.figures import common_flags, figures, pump_induced, snr_flags, wavelength_of
+from bench.estimator.figures import (
+    BACKGROUND_FLAG_FRACTION,
+    background_share,
+    common_flags,
+    figures,
+    pump_induced,
+    snr_flags,
+    wavelength_of,
+)
 from bench.estimator.mode import Mode
 from bench.estimator.params import EstimatorParams
 from bench.estimator.state import Clock, Counts, EstimatorState, Frame
@@ -121,8 +129,14 @@ def estimate(state: EstimatorState, core: WatchCore, scope: str, t: float, count
     if stats.k >= 2 and state.baseline is not None and s_on > 0:
         b = state.baseline
         lnr = math.log(s_on / b.value)
-        sn = math.hypot(e_on / s_on, b.sigma / b.value)
+        bg_sigma, bg_fraction = background_share(state, s_on)
+        sn = math.hypot(e_on / s_on, b.sigma / b.value, bg_sigma)
         extra["s_off"] = b.value
+        if state.background is not None:
+            extra["background_v"] = state.background.probe
+            extra["background_fraction"] = bg_fraction
+            if bg_fraction > BACKGROUND_FLAG_FRACTION:
+                flags.add("background_high")
         values = figures(state.params, lnr, sn, wl)
         extra.update(pump_induced(state.params, values, wl))
         flags |= snr_flags(values, state.params, stats.k)
