@@ -25,6 +25,9 @@ PUMP_CURRENT = "pump_current"
 PUMP_SETPOINT = "pump_setpoint"
 PUMP_ON = "pump_on"
 MOUNT_TEMP = "mount_temp"
+#: The sample (or its mount) temperature, K, where an instrument reads it (the pump driver's
+#: optional ``sample_temperature``).
+SAMPLE_TEMP = "sample_temp"
 INTERLOCK = "interlock"
 WAVELENGTH = "probe_wavelength"
 #: A lock-in's readings (`bench.run.lockin_reader`): in-phase and quadrature outputs (V rms),
@@ -142,6 +145,8 @@ FLAGS = (
     "phase_mismatch",
     "thick_sample",
     "background_high",
+    "temperature_drift",
+    "temperature_unknown",
 )
 
 

@@ -128,6 +128,8 @@ PUMP: dict[str, Operation] = {
     "mount_temperature": _query(("float",), kind="temperature"),
     "set_mount_temperature": _op(False, ("value",), kind="temperature"),
     "mount_temperature_setpoint": _query(("float",), kind="temperature"),
+    # a second temperature input: the sample or its mount (gainbench corrects for its heating)
+    "sample_temperature": _query(("float",), kind="temperature"),
     "set_modulation_frequency": _op(False, ("value",), kind="frequency"),
     "modulation_frequency": _query(("float",), kind="frequency"),
     "modulation_on": _op(),

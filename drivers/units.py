@@ -33,6 +33,8 @@ SI_UNITS: dict[str, str] = {
     "slope": "W/A",
     "volts_per_watt": "V/W",
     "kelvin_per_amp": "K/A",
+    "kelvin_per_watt": "K/W",
+    "per_kelvin": "1/K",
     "dimensionless": "dimensionless",
 }
 
@@ -53,6 +55,8 @@ KIND_WORDS = {
     "slope": "a slope efficiency (power per current)",
     "volts_per_watt": "a responsivity (volts per watt)",
     "kelvin_per_amp": "a heating coefficient (kelvin per ampere)",
+    "kelvin_per_watt": "a heating coefficient (kelvin per watt)",
+    "per_kelvin": "a temperature coefficient (relative change per kelvin, e.g. 1 %/K)",
     "dimensionless": "a plain number",
 }
 
@@ -175,5 +179,7 @@ def _example_unit(kind: str) -> str:
         "slope": "W/A",
         "volts_per_watt": "V/W",
         "kelvin_per_amp": "K/A",
+        "kelvin_per_watt": "K/W",
+        "per_kelvin": "%/K",
         "dimensionless": "(none)",
     }[kind]

@@ -42,6 +42,7 @@ from simulated_instruments.faults import MODEL_KINDS, Fault
 from simulated_instruments.lineshape import probe_cross_sections, tuning_range
 from simulated_instruments.medium import GainMedium
 from simulated_instruments.medium_timeline import MediumTimeline
+from simulated_instruments.sample_heating import READING_NOISE_K, SampleHeating
 from simulated_instruments.setup_config import BenchSetup, SimulatorSetupError
 
 DEFAULT_SAMPLE_RATE = 100e3  # Hz
@@ -158,6 +159,17 @@ class BenchModel:
             sim.slices,
         )
         self.pump = DiodeDriverModel(cfg.pump, sim)
+        self.heating = SampleHeating(
+            sim.ambient_temperature,
+            float(getattr(sim, "sample_heating", 0.0) or 0.0),
+            float(getattr(sim, "sample_thermal_time_constant", 5.0) or 5.0),
+            -math.expm1(-s.sigma.pump_absorption * s.n_total * s.length),
+        )
+        self._per_kelvin = (
+            float(getattr(s, "probe_absorption_per_kelvin", 0.0) or 0.0),
+            float(getattr(s, "probe_emission_per_kelvin", 0.0) or 0.0),
+        )
+        self._temperature_rng = np.random.default_rng(np.random.SeedSequence(self.seed).spawn(3)[2])
         self._gates = {1: Gate(), 2: Gate()}
         self._flux_per_watt = 1.0 / (
             _top_hat_area(cfg.pump.beam_diameter) * _photon_energy(cfg.pump.wavelength)
@@ -214,6 +226,7 @@ class BenchModel:
         sa0, se0, up0, k0 = self._probe_terms(self.cfg.probe.wavelength)
         n2_off_ref = up0 * n_total / (k0 + 1.0 / tau)
         ln_t_ref = (se0 + sa0) * length * n2_off_ref - sa0 * n_total * length
+        self._ln_t_ref = ln_t_ref
         # ln(T / T_ref) = (sigma_es + sigma_as) L <N2> + _ln_t_offset
         self._ln_t_offset = -self._sigma_as * n_total * length - ln_t_ref
         # The medium's own fluorescence reaching the probe detector, proportional to <N2>: a
@@ -457,7 +470,10 @@ class BenchModel:
         t_end = self._acq_t0 + (i0 + n) / rate
         n2, pump_w, probe_open = self._advance(t_end, times, 1.0 / rate)
         self._next_index = i0 + n
-        if n and n2[0] == n2[-1] and np.all(n2 == n2[0]):
+        if self.heating.enabled:
+            self.heating.advance(t_end, float(np.mean(pump_w)) if np.ndim(pump_w) else float(pump_w))
+            ln_rel = self._heated_ln_rel(n2)
+        elif n and n2[0] == n2[-1] and np.all(n2 == n2[0]):
             ln_rel = float(n2[0]) * self._ln_ratio_per_n2 + self._ln_t_offset  # steady: one number
         else:
             ln_rel = n2 * self._ln_ratio_per_n2
@@ -488,6 +504,22 @@ class BenchModel:
         due = self.samples_due(t)
         self._advance(t)
         self._next_index += due
+
+    def _heated_ln_rel(self, n2: np.ndarray) -> np.ndarray:
+        """ln(T / T_ref) of the probe with the cross-sections at the sample's temperature now
+        (`SampleHeating`): ``(sigma_e + sigma_a)(T) L <N2> - sigma_a(T) N L - ln T_ref``."""
+        ka, ke = self._per_kelvin
+        dt = self.heating.excess()
+        sa = self._sigma_as * (1.0 + ka * dt)
+        se = self._sigma_es * (1.0 + ke * dt)
+        s = self.cfg.sample
+        return np.asarray(n2, dtype=float) * ((se + sa) * s.length) - (
+            sa * s.n_total * s.length + self._ln_t_ref
+        )
+
+    def sample_temperature(self) -> float:
+        """One reading of the sample's temperature now (K), with the sensor's noise."""
+        return self.heating.temperature + float(self._temperature_rng.normal(0.0, READING_NOISE_K))
 
     def _stray(self, times: np.ndarray) -> np.ndarray | None:
         if not self._saturation:

@@ -34,6 +34,7 @@ class PumpDriverDevice:
                 Command("MEASure:CURRent", query=self._measured_current),
                 Command("MEASure:POWer", query=self._power),
                 Command("MEASure:TEMPerature", query=self._temperature),
+                Command("MEASure:TEMPerature:SAMPle", query=self._sample_temperature),
                 Command("OUTPut:INTLock", query=self._interlock),
                 Command("OUTPut[:STATe]", set=self._set_output, query=self._output),
                 Command("[SOURce]:MODulation:FREQuency", set=self._set_mod_freq, query=self._mod_freq),
@@ -70,6 +71,10 @@ class PumpDriverDevice:
     def _temperature(self, params: list[str]) -> str:
         expect(params, 0)
         return fmt(round(self.core.model.mount_temperature() - KELVIN, 3))
+
+    def _sample_temperature(self, params: list[str]) -> str:
+        expect(params, 0)
+        return fmt(round(self.core.model.sample_temperature() - KELVIN, 4))
 
     def _interlock(self, params: list[str]) -> str:
         expect(params, 0)

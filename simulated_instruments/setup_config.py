@@ -37,6 +37,8 @@ class SampleSetup(Protocol):
     n_total: float  # m^-3
     upper_state_lifetime: float  # s
     sigma: CrossSectionsSetup
+    probe_absorption_per_kelvin: float  # relative change of the probe's sigma_a per K
+    probe_emission_per_kelvin: float  # relative change of the probe's sigma_e per K
 
 
 class ProbeSetup(Protocol):
@@ -86,6 +88,8 @@ class SimulationSetup(Protocol):
     mount_heating: float  # K/A
     thermal_time_constant: float  # s
     fluorescence_on_probe: float  # W of the medium's fluorescence on the probe detector at full inversion
+    sample_heating: float  # K per W of absorbed pump at steady state (0: no heating)
+    sample_thermal_time_constant: float  # s
 
 
 class BenchSetup(Protocol):

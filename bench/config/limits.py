@@ -50,3 +50,8 @@ COMM_FAILURES_MAX = 10
 MOUNT_TEMPERATURE_RANGE = (263.15, 333.15)
 CURRENT_TOLERANCE_MAX_FRACTION = 0.1
 TRANSMISSION_JUMP_MAX = 0.9
+
+#: The largest relative temperature coefficient of a cross-section accepted: 20 %/K. Rare-earth
+#: cross-sections at a given wavelength change by about 1 %/K at most on a line's wing (a fact
+#: of the trade, no source); more is a typing error (a percent read as a fraction).
+TEMPERATURE_COEFFICIENT_MAX = 0.2

@@ -29,6 +29,7 @@ class SampleUncertainty:
     n_total: float  # relative
     cross_sections: float  # relative, applied to each cross-section
     upper_state_lifetime: float  # relative
+    temperature_dependence: float = 0.0  # relative, of each temperature coefficient
 
 
 @dataclass(frozen=True)
@@ -44,6 +45,10 @@ class SampleConfig:
     uncertainty: SampleUncertainty
     spectrum_file: Path | None = None
     zero_line: float | None = None  # m, wavelength of the zero-phonon (McCumber) energy
+    #: Relative change per kelvin of the probe's cross-sections about ``temperature`` (1/K):
+    #: sigma(T) = sigma (1 + k (T - temperature)). Zero: no correction for heating.
+    probe_absorption_per_kelvin: float = 0.0
+    probe_emission_per_kelvin: float = 0.0
 
 
 @dataclass(frozen=True)
@@ -122,6 +127,8 @@ class SimulationConfig:
     mount_heating: float  # K/A at steady state
     thermal_time_constant: float  # s
     fluorescence_on_probe: float = 0.0  # W on the probe detector at full inversion (proportional to N2)
+    sample_heating: float = 0.0  # K per W of absorbed pump, at steady state (0: the sample does not heat)
+    sample_thermal_time_constant: float = 5.0  # s
 
 
 @dataclass(frozen=True)

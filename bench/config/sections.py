@@ -23,6 +23,7 @@ from bench.config.limits import (
     PUMP_CURRENT_MAX,
     SLOPE_EFFICIENCY_MAX,
     STALE_AFTER_MAX,
+    TEMPERATURE_COEFFICIENT_MAX,
     TRANSMISSION_JUMP_MAX,
 )
 from bench.config.model import (
@@ -165,7 +166,18 @@ def _sample(r: BenchFileReader, base_dir: Path) -> SampleConfig:
         n_total=r.relative("sample.uncertainty.n_total", 0.0),
         cross_sections=r.relative("sample.uncertainty.cross_sections", 0.0),
         upper_state_lifetime=r.relative("sample.uncertainty.upper_state_lifetime", 0.0),
+        temperature_dependence=r.relative("sample.uncertainty.temperature_dependence", 0.0),
     )
+    r.table("sample.temperature_dependence", required=False)
+    per_k = {}
+    for name in ("probe_absorption", "probe_emission"):
+        key = f"sample.temperature_dependence.{name}"
+        per_k[name] = r.quantity(key, "per_kelvin", "0 %/K")
+        if abs(per_k[name]) > TEMPERATURE_COEFFICIENT_MAX:
+            raise r.fail(
+                key,
+                f"is above {TEMPERATURE_COEFFICIENT_MAX * 100:g} %/K in size, more than any cross-section changes",
+            )
     if unc.length >= length:
         raise r.fail("sample.uncertainty.length", "is not smaller than the sample length")
     return SampleConfig(
@@ -180,6 +192,8 @@ def _sample(r: BenchFileReader, base_dir: Path) -> SampleConfig:
         uncertainty=unc,
         spectrum_file=spectrum_file,
         zero_line=zero_line,
+        probe_absorption_per_kelvin=per_k["probe_absorption"],
+        probe_emission_per_kelvin=per_k["probe_emission"],
     )
 
 
@@ -363,4 +377,6 @@ def _simulation(r: BenchFileReader) -> SimulationConfig:
         mount_heating=r.positive(f"{s}.mount_heating", "kelvin_per_amp", "0.8 K/A", allow_zero=True),
         thermal_time_constant=r.positive(f"{s}.thermal_time_constant", "time", "20 s"),
         fluorescence_on_probe=r.positive(f"{s}.fluorescence_on_probe", "power", "0 W", allow_zero=True),
+        sample_heating=r.positive(f"{s}.sample_heating", "kelvin_per_watt", "0 K/W", allow_zero=True),
+        sample_thermal_time_constant=r.positive(f"{s}.sample_thermal_time_constant", "time", "5 s"),
     )

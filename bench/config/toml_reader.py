@@ -19,10 +19,14 @@ def apply_overrides(raw: dict, overrides: Mapping[str, str], source: str) -> dic
     for key, value in overrides.items():
         parts = key.split(".")
         node = raw
-        for part in parts[:-1]:
+        for k, part in enumerate(parts[:-1]):
             nxt = node.get(part)
+            if nxt is None:  # a table the file leaves out (an unknown one is refused when read)
+                nxt = node[part] = {}
             if not isinstance(nxt, dict):
-                raise ConfigError(f"--set {key}: {source} has no table [{'.'.join(parts[:-1])}]")
+                raise ConfigError(
+                    f"--set {key}: in {source}, {'.'.join(parts[: k + 1])} is a value, not a table"
+                )
             node = nxt
         old = node.get(parts[-1])
         if old is None:  # a key the file leaves at its default: typed as the text reads

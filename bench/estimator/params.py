@@ -198,6 +198,11 @@ class EstimatorParams:
     spectrum: CrossSectionSpectrum | None = field(default=None, compare=False)
     zero_line_energy: float | None = None
     temperature: float = 295.0
+    sigma_a_per_kelvin: float = (
+        0.0  # relative change of sigma_a at the probe per K (`bench.estimator.heating`)
+    )
+    sigma_e_per_kelvin: float = 0.0
+    u_temperature_dependence: float = 0.0  # relative standard uncertainty of both
 
     def __post_init__(self) -> None:
         positive = (
@@ -363,6 +368,9 @@ class EstimatorParams:
             spectrum=spectrum,
             zero_line_energy=physics.photon_energy(s.zero_line).item() if s.zero_line is not None else None,
             temperature=s.temperature,
+            sigma_a_per_kelvin=s.probe_absorption_per_kelvin,
+            sigma_e_per_kelvin=s.probe_emission_per_kelvin,
+            u_temperature_dependence=s.uncertainty.temperature_dependence,
             settle_time=None,
             step_settle_time=None,
         )

@@ -30,6 +30,7 @@ from typing import Any
 import numpy as np
 
 from bench.estimator.capture import Background, Baseline, Dark
+from bench.estimator.heating import Temperatures
 from bench.estimator.params import EstimatorParams
 from bench.records import PROBE, PUMP_MONITOR, REFERENCE, Block
 
@@ -102,6 +103,7 @@ class EstimatorState:
     window_id: int = 0
     win_counts: Counts = Counts()
     cum_counts: Counts = Counts()
+    temperatures: Temperatures = Temperatures()
 
 
 @dataclass(eq=False)

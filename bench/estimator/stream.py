@@ -37,11 +37,12 @@ from typing import Any
 
 import numpy as np
 
+from bench.estimator import heating
 from bench.estimator.capture import Background, Baseline, Dark
 from bench.estimator.mode import EMISSION_SETTINGS, MODES, Skipped, mode_of
 from bench.estimator.params import EstimatorParams
 from bench.estimator.state import Counts, EstimatorState, Frame, make_frame
-from bench.records import PROBE, PUMP_SETPOINT, WAVELENGTH, Block, Estimate
+from bench.records import PROBE, PUMP_SETPOINT, SAMPLE_TEMP, WAVELENGTH, Block, Estimate
 
 __all__ = ["SETTINGS", "new_state", "with_dark", "with_baseline", "with_setting", "update", "report"]
 
@@ -100,7 +101,14 @@ def _restart(state: EstimatorState, *, settle: bool = True, **changes: Any) -> E
     pump = dataclasses.replace(st.pump, step_pending=True) if settle else st.pump
     m = mode_of(st.mode)
     core = m.restart(st) if m.restart is not None else m.new_core(st.params, st.settings, st.clock)
-    return dataclasses.replace(st, pump=pump, core=core, win_counts=Counts(), cum_counts=Counts())
+    return dataclasses.replace(
+        st,
+        pump=pump,
+        core=core,
+        win_counts=Counts(),
+        cum_counts=Counts(),
+        temperatures=heating.restart_scope(st.temperatures),
+    )
 
 
 def with_dark(state: EstimatorState, dark: Dark | None) -> EstimatorState:
@@ -114,7 +122,10 @@ def with_baseline(state: EstimatorState, baseline: Baseline | None) -> Estimator
     """Use ``baseline`` for estimates from now on (watch estimates use it when emitted)."""
     if baseline is not None and not isinstance(baseline, Baseline):
         raise ValueError(f"baseline: expected Baseline, got {type(baseline).__name__}")
-    return dataclasses.replace(state, baseline=baseline)
+    temps = state.temperatures
+    if baseline is not None:
+        temps = heating.at_baseline(temps, baseline.t_start, baseline.t)
+    return dataclasses.replace(state, baseline=baseline, temperatures=temps)
 
 
 def with_background(
@@ -286,6 +297,8 @@ def update(state: EstimatorState, block: Block) -> tuple[EstimatorState, list[Es
 def _setting_block(state: EstimatorState, block: Block) -> EstimatorState:
     if block.n == 0:
         return state
+    if SAMPLE_TEMP in block.channels:
+        state = dataclasses.replace(state, temperatures=heating.take_readings(state.temperatures, block))
     if PUMP_SETPOINT in block.channels:
         current = float(block.column(PUMP_SETPOINT)[-1])
         if state.settings.get("pump_current") != current:

@@ -3,7 +3,7 @@
 The gain physics of a pumped quasi-three-level medium is split by topic: `saturation`
 (photons, saturation, transparency, probe weakness), `gain` (ln R <-> inversion <-> gain and
 its units), `cross_section_relations` (McCumber, Füchtbauer-Ladenburg), `frantz_nodvik`
-(pulsed probes), `rate_equations` (the pumped manifold) and `lockin_response` (the
+(pulsed probes), `heating` (ln R of a sample the pump warms, back at its baseline's temperature), `rate_equations` (the pumped manifold) and `lockin_response` (the
 response to a square-wave pump at its modulation frequency) with `lockin_analysis` (ln R and
 the lifetime from lock-in readings); `constants` holds h, c and k_B, and
 `arguments` the checks they share. Besides them: `fitting` (models fitted to data), `spectra`
@@ -55,6 +55,7 @@ from bench.physics.gain import (
     per_m_to_per_cm,
     unpumped_transmission,
 )
+from bench.physics.heating import ln_ratio_at_baseline_temperature
 from bench.physics.lockin_analysis import (
     LockinLifetimeFit,
     fit_lifetime_from_lockin,
@@ -113,6 +114,7 @@ __all__ = [
     "K_B",
     "beta_of_pump",
     "excited_density_from_ln_ratio",
+    "ln_ratio_at_baseline_temperature",
     "frantz_nodvik_correction",
     "frantz_nodvik_output",
     "frantz_nodvik_small_signal_gain",

@@ -59,6 +59,10 @@ FLAG_MEANINGS = {
     "as uniform along it",
     "background_high": "the pump-induced background (fluorescence, scattered pump) subtracted from the probe is "
     "above 1 % of the probe level: the result leans on that subtraction",
+    "temperature_drift": "the sample's temperature moved by more than 1 K within the estimate: the correction to "
+    "the baseline's temperature uses its mean",
+    "temperature_unknown": "the bench file gives the cross-sections' temperature dependence but no reading of the "
+    "sample's temperature (at the baseline or during the estimate) was there to correct with",
 }
 
 CSS = """

@@ -37,7 +37,7 @@ import numpy as np
 
 import bench.estimator as est
 from bench.estimator.mode import EMISSION_SETTINGS
-from bench.records import PROBE, PUMP_MONITOR, REFERENCE, Block, Estimate, Event
+from bench.records import PROBE, PUMP_MONITOR, REFERENCE, SAMPLE_TEMP, Block, Estimate, Event
 from bench.run.history import EstimateHistory, EstimateView, TraceHistory, TraceView
 from bench.run.readers import CommStatus
 from bench.safety.guard import EMITTING
@@ -333,6 +333,19 @@ class Consumer:
             self._pump = {c: float(v) for c, v in zip(block.channels, row)}
             if self.traces:
                 self.pump_trace.add_block(block)
+        if SAMPLE_TEMP in block.channels:  # the sample's temperature, for the heating correction
+            temps = block.column(SAMPLE_TEMP)
+            if np.isfinite(temps).any():
+                only = Block(
+                    block.source,
+                    block.seq,
+                    block.t0,
+                    block.dt,
+                    block.first_index,
+                    (SAMPLE_TEMP,),
+                    temps[:, None],
+                )
+                self.state, _ = est.update(self.state, only)
 
     def _comm(self, status: CommStatus) -> None:
         if not status.ok or status.detail != "recovered":

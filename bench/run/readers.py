@@ -25,6 +25,7 @@ from bench.records import (
     PUMP_CURRENT,
     PUMP_ON,
     PUMP_SETPOINT,
+    SAMPLE_TEMP,
     Block,
 )
 from bench.safety.pump_port import PumpAccess
@@ -32,6 +33,7 @@ from bench.safety.pump_port import PumpAccess
 log = logging.getLogger(__name__)
 
 PUMP_CHANNELS = (PUMP_CURRENT, PUMP_SETPOINT, PUMP_ON, MOUNT_TEMP, INTERLOCK)
+SAMPLE_TEMP_PERIOD = 0.2
 
 
 @dataclass(frozen=True)
@@ -330,6 +332,12 @@ class PumpReader(Reader):
         self.period = float(period)
         self.access = access or PumpAccess()
         self._next = time.monotonic()
+        #: The sample temperature, where the driver reads one: a slow quantity, asked at most
+        #: every `SAMPLE_TEMP_PERIOD` s so that the safety readings keep their pace (NaN between).
+        self.channels = PUMP_CHANNELS + (
+            (SAMPLE_TEMP,) if getattr(pump, "reads_sample_temperature", False) else ()
+        )
+        self._next_temperature = 0.0
 
     def read_once(self) -> Block | None:
         now = time.monotonic()
@@ -352,7 +360,13 @@ class PumpReader(Reader):
             (1.0 if values[c] else 0.0) if isinstance(values[c], bool) else float(values[c])
             for c in PUMP_CHANNELS
         ]
-        block = Block(self.source, self.seq, t, 0.0, -1, PUMP_CHANNELS, np.array([row], dtype=np.float64))
+        if len(self.channels) > len(PUMP_CHANNELS):
+            temperature = math.nan
+            if time.monotonic() >= self._next_temperature:
+                self._next_temperature = time.monotonic() + SAMPLE_TEMP_PERIOD
+                temperature = float(self.pump.sample_temperature())
+            row.append(temperature)
+        block = Block(self.source, self.seq, t, 0.0, -1, self.channels, np.array([row], dtype=np.float64))
         self.seq += 1
         return block
 

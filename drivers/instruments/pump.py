@@ -31,6 +31,15 @@ class PumpDriver(Driver):
             values = [self.session.query(op) for op in self.STATUS_OPS]
         return dict(zip(self.STATUS_OPS, values))
 
+    @property
+    def reads_sample_temperature(self) -> bool:
+        """Whether the profile has the optional ``sample_temperature`` (a second temperature input)."""
+        return self.session.has("sample_temperature")
+
+    def sample_temperature(self) -> float:
+        """The sample's (or its mount's) temperature on the second input, K."""
+        return float(self.session.query("sample_temperature"))
+
     def set_current(self, current_a: float) -> None:
         """Set the current setpoint (A)."""
         self.session.write("set_current", value=check_finite("current_a", current_a, minimum=0.0))

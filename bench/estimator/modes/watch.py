@@ -30,10 +30,13 @@ from bench.estimator.figures import (
     background_share,
     common_flags,
     figures,
+    probe_terms,
     pump_induced,
     snr_flags,
     wavelength_of,
+    with_ln_ratio_systematic,
 )
+from bench.estimator.heating import corrected_ln_ratio
 from bench.estimator.mode import Mode
 from bench.estimator.params import EstimatorParams
 from bench.estimator.state import Clock, Counts, EstimatorState, Frame
@@ -131,13 +134,21 @@ def estimate(state: EstimatorState, core: WatchCore, scope: str, t: float, count
         lnr = math.log(s_on / b.value)
         bg_sigma, bg_fraction = background_share(state, s_on)
         sn = math.hypot(e_on / s_on, b.sigma / b.value, bg_sigma)
+        # a sample the pump warms: ln R back at the baseline's temperature (`bench.estimator.heating`)
+        n2_off = probe_terms(state.params, wl)[2] * state.params.n_total
+        lnr, t_noise, t_sys, t_extra, t_flags = corrected_ln_ratio(
+            state.params, state.temperatures, lnr, n2_off
+        )
+        sn = math.hypot(sn, t_noise)
+        extra.update(t_extra)
+        flags |= t_flags
         extra["s_off"] = b.value
         if state.background is not None:
             extra["background_v"] = state.background.probe
             extra["background_fraction"] = bg_fraction
             if bg_fraction > BACKGROUND_FLAG_FRACTION:
                 flags.add("background_high")
-        values = figures(state.params, lnr, sn, wl)
+        values = with_ln_ratio_systematic(figures(state.params, lnr, sn, wl), t_sys)
         extra.update(pump_induced(state.params, values, wl))
         flags |= snr_flags(values, state.params, stats.k)
     elif stats.k == 1:
