@@ -150,6 +150,14 @@ PUMP: dict[str, Operation] = {
     "modulation_frequency": _query(("float",), kind="frequency"),
     "modulation_on": _op(),
     "modulation_off": _op(),
+    # pulsed output: width and period of the pulses, pulsing on and off (with the output on)
+    "set_pulse_width": _op(False, ("value",), kind="time"),
+    "pulse_width": _query(("float",), kind="time"),
+    "set_pulse_period": _op(False, ("value",), kind="time"),
+    "pulse_period": _query(("float",), kind="time"),
+    "pulse_on": _op(),
+    "pulse_off": _op(),
+    "pulse_state": _query(_BOOL_REPLIES),
     "power": _query(("float",), kind="power"),
 }
 
