@@ -123,6 +123,16 @@ class ReplyError(InstrumentError):
     """A reply arrived but is not what the profile says it should be (garbled, wrong count, ...)."""
 
 
+class TruncatedBlock(InstrumentTimeout, ReplyError):
+    """A definite-length block stopped before the length its header declares, until the deadline.
+
+    Both a timeout and a reply error: the session treats it as a timeout (it reconnects, so
+    late bytes of the cut block cannot be read as the next reply, and resends a command that
+    is safe to repeat), and a caller that catches `ReplyError` sees a reply that is not what
+    was expected, never a short array.
+    """
+
+
 class ConnectionLost(InstrumentError):
     """The connection to the instrument dropped, was refused, or the port went away."""
 

@@ -26,8 +26,8 @@ A profile lets a user adapt gainbench to the instrument on their bench without c
     [options]                  # defaults for the driver's options (the bench file overrides)
 
 Reply formats: ``float``, ``int``, ``bool`` (1/0/ON/OFF), ``text``, ``idn``, ``csv_floats``,
-``block_f32le`` (and ``block_f32be``, ``block_f64le``), ``block_i16le`` / ``block_i16be``
-(with ``scale``, volts per count), ``ok`` (a literal ``token``, default ``"OK"``) and an enum
+``block_f32le`` (and ``block_f32be``, ``block_f64le``), ``block_i8``, ``block_i16le`` /
+``block_i16be`` (with ``scale``, volts per count), ``ok`` (a literal ``token``, default ``"OK"``) and an enum
 mapping written as a table (``reply = { OPEN = true, SHUT = false }``). ``unit`` states the
 instrument's unit; the driver converts to SI. Every mistake is a `ProfileError` naming the
 file, the key and what was expected. Profiles are named (built-in, in ``drivers/profiles/``)
@@ -63,6 +63,7 @@ REPLY_FORMATS: dict[str, str] = {
     "block_f32le": "definite-length block of little-endian float32",
     "block_f32be": "definite-length block of big-endian float32",
     "block_f64le": "definite-length block of little-endian float64",
+    "block_i8": "definite-length block of int8 counts (times scale)",
     "block_i16le": "definite-length block of little-endian int16 counts (times scale)",
     "block_i16be": "definite-length block of big-endian int16 counts (times scale)",
     "ok": "a literal acknowledgement token",
@@ -74,9 +75,13 @@ BLOCK_DTYPES: dict[str, str] = {
     "block_f32le": "<f4",
     "block_f32be": ">f4",
     "block_f64le": "<f8",
+    "block_i8": "i1",
     "block_i16le": "<i2",
     "block_i16be": ">i2",
 }
+
+#: The block formats of integer counts (they take a ``scale``).
+INTEGER_BLOCKS = frozenset({"block_i8", "block_i16le", "block_i16be"})
 
 _COMMAND_KEYS = {
     "send",
@@ -573,9 +578,12 @@ def _command(op: str, entry: Any, spec: Operation, errors: ErrorPolicy, path: st
         factor, offset = _unit_conversion(unit, spec.kind, path, f"{key}.unit")
     scale = entry.get("scale", 1.0)
     if "scale" in entry:
-        if reply not in ("block_i16le", "block_i16be"):
+        if reply not in INTEGER_BLOCKS:
             raise ProfileError(
-                path, f"{key}.scale", "only int16 block replies take a scale (volts per count)"
+                path,
+                f"{key}.scale",
+                f"only integer block replies ({', '.join(sorted(INTEGER_BLOCKS))}) take a scale "
+                "(volts per count)",
             )
         if (
             isinstance(scale, bool)

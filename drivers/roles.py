@@ -60,8 +60,8 @@ COMMON: dict[str, Operation] = {
 }
 
 #: The detector role's operations: those of every detector driver (a digitiser read from its
-#: ring buffer, a polled meter). Which of them a profile must define depends on the driver
-#: that uses it: see `DRIVER_NEEDS`.
+#: ring buffer, a polled meter here; a lock-in's in `LOCKIN`, a scope's in `SCOPE`). Which of
+#: them a profile must define depends on the driver that uses it: see `DRIVER_NEEDS`.
 DETECTOR: dict[str, Operation] = {
     # digitiser (ring buffer of sample sets)
     "set_rate": _op(False, ("value",), kind="frequency"),
@@ -115,6 +115,24 @@ LOCKIN: dict[str, Operation] = {
     "sim_fault": _op(False, ("spec",), idempotent=False),
 }
 
+#: A triggered oscilloscope (driver ``scope``, role ``detector``): an acquisition armed on the
+#: pump's trigger, one trigger (``single``) or the mean of several (``set_averages``), waited
+#: for (``complete``: a status query, or ``*OPC?`` on an instrument that answers it once the
+#: acquisition is done), then read channel by channel as integer codes with their scaling.
+#: Part of the detector role's operations (``set_averages`` and ``averages`` are the meter's).
+SCOPE: dict[str, Operation] = {
+    # arming again would throw away a capture that may already have triggered
+    "arm": _op(False, idempotent=False),
+    "single": _op(False),
+    "complete": _query(_BOOL_REPLIES),
+    # codes of channel {n}; reading the record again gives the same codes
+    "fetch_waveform": _query(("block_i8", "block_i16le", "block_i16be"), placeholders=("n",)),
+    # x_increment (s), x_origin (s), y_scale (V per code), y_offset (V) of channel {n}: one
+    # reply holds two kinds of quantity, so it takes no profile unit (SI values)
+    "waveform_scaling": _query(("csv_floats",), placeholders=("n",)),
+    "record_length": _query(("int",), placeholders=("n",)),
+}
+
 PUMP: dict[str, Operation] = {
     "set_current": _op(True, ("value",), kind="current"),
     "current_setpoint": _query(("float",), required=True, kind="current"),
@@ -134,6 +152,14 @@ PUMP: dict[str, Operation] = {
     "modulation_frequency": _query(("float",), kind="frequency"),
     "modulation_on": _op(),
     "modulation_off": _op(),
+    # pulsed output: width and period of the pulses, pulsing on and off (with the output on)
+    "set_pulse_width": _op(False, ("value",), kind="time"),
+    "pulse_width": _query(("float",), kind="time"),
+    "set_pulse_period": _op(False, ("value",), kind="time"),
+    "pulse_period": _query(("float",), kind="time"),
+    "pulse_on": _op(),
+    "pulse_off": _op(),
+    "pulse_state": _query(_BOOL_REPLIES),
     "power": _query(("float",), kind="power"),
 }
 
@@ -155,7 +181,7 @@ WAVELENGTH: dict[str, Operation] = {
 ROLES: dict[str, dict[str, Operation]] = {
     role: {**COMMON, **ops}
     for role, ops in {
-        "detector": {**DETECTOR, **LOCKIN},
+        "detector": {**DETECTOR, **LOCKIN, **SCOPE},
         "pump": PUMP,
         "shutter": SHUTTER,
         "wavelength": WAVELENGTH,
@@ -189,10 +215,11 @@ DRIVER_NEEDS: dict[str, DriverNeeds] = {
     "digitiser": DriverNeeds(all_of=("set_rate", "set_channels", "start", "stop", "position", "fetch")),
     "meter": DriverNeeds(one_of=(("read_all", "read_channel"),)),
     "lockin": DriverNeeds(all_of=("read_xy",)),
+    "scope": DriverNeeds(all_of=("arm", "complete", "fetch_waveform", "waveform_scaling")),
 }
 
 #: Role -> the drivers of ``DRIVER_NEEDS`` that serve it.
-ROLE_DRIVERS: dict[str, tuple[str, ...]] = {"detector": ("digitiser", "meter", "lockin")}
+ROLE_DRIVERS: dict[str, tuple[str, ...]] = {"detector": ("digitiser", "meter", "lockin", "scope")}
 
 
 def missing_operations(role: str, defined, driver: str | None = None) -> tuple[str, list[str]]:

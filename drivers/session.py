@@ -26,6 +26,7 @@ from drivers.errors import (
     InstrumentReportedError,
     InstrumentTimeout,
     ReplyError,
+    TruncatedBlock,
     translate_transport_error,
 )
 from drivers.ieee488 import NEED_DATA, BlockParser, ErrorEntry, parse_error_reply
@@ -266,7 +267,18 @@ class Session:
             payload = parser.next()
             if payload is not NEED_DATA:
                 return payload  # type: ignore[return-value]
-            parser.feed(self.transport.read_exact(parser.bytes_needed(), deadline))
+            try:
+                data = self.transport.read_exact(parser.bytes_needed(), deadline)
+            except InstrumentTimeout as exc:
+                declared = parser.declared_length
+                if declared is None:  # not even the header arrived: a plain timeout
+                    raise
+                raise TruncatedBlock(
+                    f"definite-length block cut short: its header declares {declared} data bytes "
+                    f"and then {parser.terminator!r} (IEEE 488.2 8.7.9), but {exc.detail}",
+                    reply=exc.reply,
+                ) from exc
+            parser.feed(data)
 
     def _drain(self, deadline: Deadline, query: str) -> list[ErrorEntry]:
         """Pop error-queue entries until it reports code 0."""

@@ -14,6 +14,9 @@ Pure state with explicit times (simulated seconds); no I/O. Behaviour (see also 
   T(t) = T_target + (T(t0) - T_target) exp(-(t - t0) / tau_th).
 * Above `TRIP_TEMPERATURE` (45 °C) the driver switches its output off (error 202) and refuses
   to switch on. An injected TEC failure holds the mount at `FAULT_TEMPERATURE` (46 °C).
+* Pulse settings (width, period, on/off) are kept and checked (width below the period, not
+  together with modulation, -221 otherwise), but they are state only for now: the current,
+  the optical power and the mount's heating are those of an unpulsed output.
 """
 
 from __future__ import annotations
@@ -24,6 +27,7 @@ from simulated_instruments.device_errors import (
     INTERLOCK_OPEN,
     OUT_OF_RANGE,
     OVER_TEMPERATURE,
+    SETTINGS_CONFLICT,
     DeviceError,
 )
 from simulated_instruments.drive import Envelope, SquareWave
@@ -36,6 +40,10 @@ LIMIT_RANGE = (0.0, 40.0)  # A
 MODULATION_RANGE = (0.1, 10e3)  # Hz
 SETPOINT_RANGE = (273.15 + 10.0, 273.15 + 40.0)  # K, mount temperature setpoint
 POWER_ON_MODULATION = 1e3  # Hz
+PULSE_WIDTH_RANGE = (1e-6, 1.0)  # s
+PULSE_PERIOD_RANGE = (10e-6, 10.0)  # s
+POWER_ON_PULSE_WIDTH = 1e-3  # s
+POWER_ON_PULSE_PERIOD = 10e-3  # s
 
 
 class DiodeDriverModel:
@@ -62,10 +70,14 @@ class DiodeDriverModel:
         self.mod_on = False
         self.mod_frequency = POWER_ON_MODULATION
         self.mod_ref = t
+        self.pulse_on = False
+        self.pulse_width = POWER_ON_PULSE_WIDTH
+        self.pulse_period = POWER_ON_PULSE_PERIOD
         self.envelope = Envelope.constant(0.0, t)
 
     def reset(self, t: float) -> None:
-        """*RST: output off, setpoint 0 A, limit at the diode's rating, modulation off."""
+        """*RST: output off, setpoint 0 A, limit at the diode's rating, modulation and pulsing
+        off, pulse settings at their power-on values."""
         self.advance_thermal(t)
         self._power_on(t)
         self.temp_setpoint = self.ambient
@@ -126,6 +138,8 @@ class DiodeDriverModel:
         return errors
 
     def set_modulation(self, t: float, on: bool) -> None:
+        if on and self.pulse_on:
+            raise DeviceError(SETTINGS_CONFLICT, "on: modulation refused while pulsing")
         self.advance_thermal(t)
         if on and not self.mod_on:
             self.mod_ref = t
@@ -138,6 +152,32 @@ class DiodeDriverModel:
         self.advance_thermal(t)
         self.mod_frequency = float(hz)
         self.mod_ref = t
+
+    # -- pulse settings (state only: see the module docstring) ------------------------------
+    def set_pulse_width(self, t: float, seconds: float) -> None:
+        lo, hi = PULSE_WIDTH_RANGE
+        if not (math.isfinite(seconds) and lo <= seconds <= hi):
+            raise DeviceError(OUT_OF_RANGE, f"width: {seconds!r} s is not within {lo:g} ... {hi:g} s")
+        if seconds >= self.pulse_period:
+            raise DeviceError(
+                SETTINGS_CONFLICT, f"width: {seconds!r} s is not below the period {self.pulse_period:g} s"
+            )
+        self.pulse_width = float(seconds)
+
+    def set_pulse_period(self, t: float, seconds: float) -> None:
+        lo, hi = PULSE_PERIOD_RANGE
+        if not (math.isfinite(seconds) and lo <= seconds <= hi):
+            raise DeviceError(OUT_OF_RANGE, f"period: {seconds!r} s is not within {lo:g} ... {hi:g} s")
+        if seconds <= self.pulse_width:
+            raise DeviceError(
+                SETTINGS_CONFLICT, f"period: {seconds!r} s is not above the width {self.pulse_width:g} s"
+            )
+        self.pulse_period = float(seconds)
+
+    def set_pulsing(self, t: float, on: bool) -> None:
+        if on and self.mod_on:
+            raise DeviceError(SETTINGS_CONFLICT, "on: pulsing refused while modulating")
+        self.pulse_on = bool(on)
 
     @property
     def modulation(self) -> SquareWave | None:

@@ -290,6 +290,16 @@ class BenchModel:
         self.pump.set_modulation(self.t, bool(on))
         self._changed()
 
+    # Pulse settings are state only (the drive does not change, so nothing is recomputed).
+    def set_pulse_width(self, seconds: float) -> None:
+        self.pump.set_pulse_width(self.t, float(seconds))
+
+    def set_pulse_period(self, seconds: float) -> None:
+        self.pump.set_pulse_period(self.t, float(seconds))
+
+    def set_pulsing(self, on: bool) -> None:
+        self.pump.set_pulsing(self.t, bool(on))
+
     def set_mount_setpoint(self, kelvin: float) -> None:
         self.pump.set_temperature_setpoint(self.t, float(kelvin))
 

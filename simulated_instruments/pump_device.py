@@ -40,6 +40,9 @@ class PumpDriverDevice:
                 Command("[SOURce]:MODulation:FREQuency", set=self._set_mod_freq, query=self._mod_freq),
                 Command("[SOURce]:MODulation[:STATe]", set=self._set_mod, query=self._mod),
                 Command("[SOURce]:TEMPerature", set=self._set_temp, query=self._temp_setpoint),
+                Command("[SOURce]:PULSe:WIDTh", set=self._set_pulse_width, query=self._pulse_width),
+                Command("[SOURce]:PULSe:PERiod", set=self._set_pulse_period, query=self._pulse_period),
+                Command("[SOURce]:PULSe[:STATe]", set=self._set_pulse, query=self._pulse),
             ]
         )
 
@@ -107,3 +110,24 @@ class PumpDriverDevice:
     def _temp_setpoint(self, params: list[str]) -> str:
         expect(params, 0)
         return fmt(round(self.core.model.pump.temp_setpoint - KELVIN, 6))
+
+    def _set_pulse_width(self, params: list[str]) -> None:
+        self.core.model.set_pulse_width(number(expect(params, 1)[0]))
+
+    def _pulse_width(self, params: list[str]) -> str:
+        expect(params, 0)
+        return fmt(self.core.model.pump.pulse_width)
+
+    def _set_pulse_period(self, params: list[str]) -> None:
+        self.core.model.set_pulse_period(number(expect(params, 1)[0]))
+
+    def _pulse_period(self, params: list[str]) -> str:
+        expect(params, 0)
+        return fmt(self.core.model.pump.pulse_period)
+
+    def _set_pulse(self, params: list[str]) -> None:
+        self.core.model.set_pulsing(boolean(expect(params, 1)[0]))
+
+    def _pulse(self, params: list[str]) -> str:
+        expect(params, 0)
+        return fmt_bool(self.core.model.pump.pulse_on)

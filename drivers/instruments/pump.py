@@ -10,6 +10,7 @@ from __future__ import annotations
 from typing import Any
 
 from drivers.base import Driver, check_finite
+from drivers.errors import ProfileError
 
 
 class PumpDriver(Driver):
@@ -100,6 +101,79 @@ class PumpDriver(Driver):
     def modulation_frequency(self) -> float:
         """Modulation frequency (Hz)."""
         return float(self.session.query("modulation_frequency"))
+
+    # -- pulsed output (optional operations: refused, before anything is sent, when the
+    # -- profile lacks them)
+
+    def set_pulse_width(self, width_s: float) -> None:
+        """Set the width of the output's pulses (s)."""
+        width = check_finite("width_s", width_s, positive=True)
+        self._need_pulse_ops("set_pulse_width")
+        self.session.write("set_pulse_width", value=width)
+
+    def set_pulse_period(self, period_s: float) -> None:
+        """Set the period of the output's pulses (s)."""
+        period = check_finite("period_s", period_s, positive=True)
+        self._need_pulse_ops("set_pulse_period")
+        self.session.write("set_pulse_period", value=period)
+
+    def pulse(self, on: bool) -> None:
+        """Switch pulsing on or off. With the output on, pulsing off leaves it emitting
+        continuously: switch the output off first when that is not wanted."""
+        if not isinstance(on, bool):
+            raise ValueError(f"on: expected True or False, got {on!r}")
+        op = "pulse_on" if on else "pulse_off"
+        self._need_pulse_ops(op)
+        self.session.write(op)
+
+    def set_pulsing(self, width_s: float, period_s: float) -> None:
+        """Pulse the output with pulses ``width_s`` long every ``period_s`` (s), then switch
+        pulsing on.
+
+        Instruments commonly refuse a width that is not below the period at every step, so the
+        two are sent in an order that never leaves them so: the width first if it is below
+        the present period (read with ``pulse_period`` when the profile can), else the period
+        first.
+        """
+        width = check_finite("width_s", width_s, positive=True)
+        period = check_finite("period_s", period_s, positive=True)
+        if not width < period:
+            raise ValueError(f"width_s: {width_s!r} s is not below period_s {period_s!r} s")
+        self._need_pulse_ops("set_pulse_width", "set_pulse_period", "pulse_on")
+        present = float(self.session.query("pulse_period")) if self.session.has("pulse_period") else None
+        if present is None or width < present:
+            self.session.write("set_pulse_width", value=width)
+            self.session.write("set_pulse_period", value=period)
+        else:
+            self.session.write("set_pulse_period", value=period)
+            self.session.write("set_pulse_width", value=width)
+        self.session.write("pulse_on")
+
+    def pulse_width(self) -> float:
+        """The width of the output's pulses (s)."""
+        self._need_pulse_ops("pulse_width")
+        return float(self.session.query("pulse_width"))
+
+    def pulse_period(self) -> float:
+        """The period of the output's pulses (s)."""
+        self._need_pulse_ops("pulse_period")
+        return float(self.session.query("pulse_period"))
+
+    def pulsing(self) -> bool:
+        """Whether pulsing is on."""
+        self._need_pulse_ops("pulse_state")
+        return bool(self.session.query("pulse_state"))
+
+    def _need_pulse_ops(self, *ops: str) -> None:
+        missing = [op for op in ops if not self.session.has(op)]
+        if missing:
+            raise ProfileError(
+                self.session.profile.path,
+                f"commands.{missing[0]}",
+                f"profile {self.profile_name} cannot pulse the pump: it lacks "
+                f"{', '.join('commands.' + op for op in missing)}; add them to [commands] "
+                "(see drivers/roles.py, role pump)",
+            )
 
     def power(self) -> float:
         """Optical output power from the driver's calibration (W)."""

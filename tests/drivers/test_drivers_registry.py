@@ -33,6 +33,7 @@ def test_builtin_drivers_are_registered_with_their_roles():
         "lockin": "detector",
         "meter": "detector",
         "pump-driver": "pump",
+        "scope": "detector",
         "shutter": "shutter",
         "wavelength-source": "wavelength",
     }
