@@ -187,6 +187,12 @@ class Measurement:
 
     def open(self) -> None:
         cfg = self.cfg
+        if cfg.instruments["detector"].driver == "scope":
+            raise MeasurementError(
+                f"{cfg.source}: instruments.detector: driver scope can identify and read a triggered "
+                "oscilloscope (gainbench instruments), but no measurement records with one yet (the "
+                "pulsed mode is to come); use a digitiser, meter or lock-in for a run"
+            )
         self._check_mode(self.mode)
         # Threads waiting on an instrument's reply get the interpreter back within 0.5 ms
         # instead of the default 5 ms: the guard's exchanges with the pump are several
