@@ -521,6 +521,12 @@ class Measurement:
                 "capture dark: no shutter is configured to block the probe; "
                 "block it by hand and use a bench file with a shutter, or skip the dark"
             )
+        if self.guarded_pump is not None and self.guarded_pump.state == "emitting":
+            raise MeasurementError(
+                "capture dark: the pump is on; the dark is taken with the pump off (with it on, the "
+                "blocked probe detector also sees the sample's fluorescence and scattered pump: that "
+                "is the background, captured apart). Switch the pump off first"
+            )
         settle = max(settle, self.detector_settle)
         shutter.close_shutter("probe")
         try:

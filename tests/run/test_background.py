@@ -95,10 +95,20 @@ def test_no_fluorescence_gives_a_background_within_noise_of_zero(tmp_path):
     assert abs(level) <= 4 * sigma, line
 
 
-def test_background_needs_the_pump_on_and_a_shutter(tmp_path):
+def test_background_needs_the_pump_on_and_the_dark_the_pump_off(tmp_path):
     from bench.config import load_bench
     from bench.run.measurement import Measurement, MeasurementError
+    from bench.safety.checklist_answers import answers_from_flags
 
-    with Measurement(load_bench(), log_dir=tmp_path) as m:
+    cfg = load_bench(overrides={"guard.stale_after": "2 s"})
+    with Measurement(cfg, log_dir=tmp_path) as m:
         with pytest.raises(MeasurementError, match="pump must be on"):
             m.capture_background()
+        m.capture_dark()
+        m.capture_baseline()
+        assert m.arm(answers_from_flags("tester", {940e-9: 5, 1030e-9: 2}, True), "tester").passed
+        m.emit("tester")
+        with pytest.raises(MeasurementError, match="the pump is on; the dark is taken with the pump off"):
+            m.capture_dark()
+        assert "background captured" in m.capture_background()
+        m.stop_emission()
