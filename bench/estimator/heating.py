@@ -44,11 +44,19 @@ HISTORY_S = 30.0
 
 @dataclass(frozen=True, eq=False)
 class Temperatures:
-    """The sample temperature readings the estimator holds (K; times on the run clock, s)."""
+    """The sample temperature readings the estimator holds (K; times on the run clock, s).
 
-    times: np.ndarray = dataclasses.field(default_factory=lambda: np.empty(0))
+    A reading counts towards the scope's statistics once the detector data have passed its
+    time (`advance_to`), whatever order the readings and the detector blocks arrive in: a live
+    run and its replay (which feeds blocks in time order) then count the same readings.
+    """
+
+    times: np.ndarray = dataclasses.field(default_factory=lambda: np.empty(0))  # the last HISTORY_S
     values: np.ndarray = dataclasses.field(default_factory=lambda: np.empty(0))
-    n: int = 0  # since the scope began
+    pending_t: np.ndarray = dataclasses.field(default_factory=lambda: np.empty(0))  # not yet counted
+    pending_v: np.ndarray = dataclasses.field(default_factory=lambda: np.empty(0))
+    scope_from: float = -math.inf  # readings before this belong to an earlier scope
+    n: int = 0  # counted since the scope began
     total: float = 0.0
     successive_sq: float = 0.0  # sum of squared differences of successive readings
     last: float = math.nan
@@ -69,7 +77,7 @@ class Temperatures:
 
 
 def take_readings(temps: Temperatures, block: Block) -> Temperatures:
-    """``temps`` with the sample temperatures of ``block`` (if it has any) added."""
+    """``temps`` with the sample temperatures of ``block`` (if it has any) waiting to count."""
     if SAMPLE_TEMP not in block.channels or block.n == 0:
         return temps
     v = block.column(SAMPLE_TEMP)
@@ -80,12 +88,31 @@ def take_readings(temps: Temperatures, block: Block) -> Temperatures:
     v, t = v[ok], t[ok]
     times = np.concatenate((temps.times, t))
     values = np.concatenate((temps.values, v))
-    keep = times >= times[-1] - HISTORY_S
-    chain = v if math.isnan(temps.last) else np.concatenate(([temps.last], v))
+    keep = times >= times.max() - HISTORY_S
     return dataclasses.replace(
         temps,
         times=times[keep],
         values=values[keep],
+        pending_t=np.concatenate((temps.pending_t, t)),
+        pending_v=np.concatenate((temps.pending_v, v)),
+    )
+
+
+def advance_to(temps: Temperatures, t: float) -> Temperatures:
+    """Count the waiting readings up to time ``t`` (the detector data have reached it)."""
+    if temps.pending_t.size == 0 or temps.pending_t.min() > t:
+        return temps
+    due = temps.pending_t <= t
+    order = np.argsort(temps.pending_t[due], kind="stable")
+    dt, dv = temps.pending_t[due][order], temps.pending_v[due][order]
+    v = dv[dt >= temps.scope_from]
+    rest = dict(pending_t=temps.pending_t[~due], pending_v=temps.pending_v[~due])
+    if v.size == 0:
+        return dataclasses.replace(temps, **rest)
+    chain = v if math.isnan(temps.last) else np.concatenate(([temps.last], v))
+    return dataclasses.replace(
+        temps,
+        **rest,
         n=temps.n + int(v.size),
         total=temps.total + float(np.sum(v)),
         successive_sq=temps.successive_sq + float(np.sum(np.diff(chain) ** 2)),
@@ -95,10 +122,11 @@ def take_readings(temps: Temperatures, block: Block) -> Temperatures:
     )
 
 
-def restart_scope(temps: Temperatures) -> Temperatures:
-    """A new cumulative scope: the readings kept, the scope's statistics cleared."""
+def restart_scope(temps: Temperatures, t_from: float = -math.inf) -> Temperatures:
+    """A new cumulative scope from run-clock time ``t_from``: the statistics cleared, readings
+    before ``t_from`` no longer counted."""
     return dataclasses.replace(
-        temps, n=0, total=0.0, successive_sq=0.0, last=math.nan, lo=math.inf, hi=-math.inf
+        temps, scope_from=t_from, n=0, total=0.0, successive_sq=0.0, last=math.nan, lo=math.inf, hi=-math.inf
     )
 
 
@@ -118,11 +146,15 @@ def at_baseline(temps: Temperatures, t_start: float, t_end: float) -> Temperatur
     return dataclasses.replace(temps, baseline=value)
 
 
-def corrected_ln_ratio(params, temps: Temperatures, ln_ratio: float, n2_off: float):
+def corrected_ln_ratio(
+    params, temps: Temperatures, ln_ratio: float, n2_off: float, *, both_warm: bool = False
+):
     """(ln R0, its noise sigma from the temperature, its systematic sigma, extra, flags).
 
     ``ln R0`` is ``ln_ratio`` at the baseline's temperature; without coefficients it is
-    ``ln_ratio`` itself with zero sigmas and no flags.
+    ``ln_ratio`` itself with zero sigmas and no flags. ``both_warm``: the pump-off reference
+    of ``ln_ratio`` was taken at the same (warm) temperature as its pump-on part (a modulated
+    mode; `bench.physics.ln_ratio_of_a_warm_modulated_sample`), not at the baseline.
     """
     ka, ke = params.sigma_a_per_kelvin, params.sigma_e_per_kelvin
     if ka == 0 and ke == 0:
@@ -132,6 +164,12 @@ def corrected_ln_ratio(params, temps: Temperatures, ln_ratio: float, n2_off: flo
     dt = temps.mean - temps.baseline
 
     def at(d: float, ka_: float = ka, ke_: float = ke) -> float:
+        if both_warm:
+            return float(
+                physics.ln_ratio_of_a_warm_modulated_sample(
+                    ln_ratio, d, params.sigma_e, params.sigma_a, ke_, ka_
+                )
+            )
         return float(
             physics.ln_ratio_at_baseline_temperature(
                 ln_ratio, d, params.sigma_e, params.sigma_a, params.n_total, params.length, n2_off, ke_, ka_

@@ -107,8 +107,14 @@ def _restart(state: EstimatorState, *, settle: bool = True, **changes: Any) -> E
         core=core,
         win_counts=Counts(),
         cum_counts=Counts(),
-        temperatures=heating.restart_scope(st.temperatures),
+        temperatures=heating.restart_scope(st.temperatures, _next_sample_time(st)),
     )
+
+
+def _next_sample_time(state: EstimatorState) -> float:
+    """Run-clock time of the next detector sample (-inf before the first)."""
+    c = state.clock
+    return -math.inf if c is None else c.origin + c.next_index * c.dt
 
 
 def with_dark(state: EstimatorState, dark: Dark | None) -> EstimatorState:
@@ -238,6 +244,8 @@ def update(state: EstimatorState, block: Block) -> tuple[EstimatorState, list[Es
             f"{state.mode} mode needs sampled data; polled detectors work in "
             f"{', '.join(name for name, m in MODES.items() if m.polled)} mode"
         )
+    if state.temperatures.pending_t.size:  # readings the data have now passed count
+        state = dataclasses.replace(state, temperatures=heating.advance_to(state.temperatures, block.t0))
     frame, clock, pump = make_frame(state, block, mode)
     if frame is None:
         return state, []

@@ -55,7 +55,7 @@ from bench.physics.gain import (
     per_m_to_per_cm,
     unpumped_transmission,
 )
-from bench.physics.heating import ln_ratio_at_baseline_temperature
+from bench.physics.heating import ln_ratio_at_baseline_temperature, ln_ratio_of_a_warm_modulated_sample
 from bench.physics.lockin_analysis import (
     LockinLifetimeFit,
     fit_lifetime_from_lockin,
@@ -115,6 +115,7 @@ __all__ = [
     "beta_of_pump",
     "excited_density_from_ln_ratio",
     "ln_ratio_at_baseline_temperature",
+    "ln_ratio_of_a_warm_modulated_sample",
     "frantz_nodvik_correction",
     "frantz_nodvik_output",
     "frantz_nodvik_small_signal_gain",

@@ -76,3 +76,28 @@ def ln_ratio_at_baseline_temperature(
         raise ValueError("delta_t: the cross-sections would not be positive that far from the baseline")
     n2 = (lnr + (sa1 - sa) * n * length + (se + sa) * length * n2_off) / ((se1 + sa1) * length)
     return as_result((se + sa) * length * (n2 - n2_off))
+
+
+def ln_ratio_of_a_warm_modulated_sample(
+    ln_ratio, delta_t, sigma_e, sigma_a, sigma_e_per_kelvin, sigma_a_per_kelvin
+):
+    """ln R0 of a sample whose pump-on and pump-off states are both ``delta_t`` (K) warmer than
+    its baseline: a pump modulated much faster than the sample's thermal time, as in chopped or
+    lock-in detection, heats the sample to its mean power in both half-periods.
+
+    Both states then share the warm cross-sections, the ``sigma_a N L`` terms cancel and
+    ``ln R = (sigma_e1 + sigma_a1) L (N2 - N2_off)`` (Beer-Lambert for two manifolds, Svelto,
+    *Principles of Lasers*, 5th ed., sec. 2.4); at the baseline's cross-sections the same
+    inversion gives ``ln R0 = ln R (sigma_e + sigma_a) / (sigma_e1 + sigma_a1)``. The probe's
+    own share of ``N2_off`` is taken as unchanged by the temperature (second order for a weak
+    probe).
+    """
+    lnr = check_real(ln_ratio, "ln_ratio")
+    dt = check_real(delta_t, "delta_t")
+    se, sa, total = check_cross_sections(sigma_e, sigma_a)
+    ke = check_real(sigma_e_per_kelvin, "sigma_e_per_kelvin")
+    ka = check_real(sigma_a_per_kelvin, "sigma_a_per_kelvin")
+    warm = se * (1.0 + ke * dt) + sa * (1.0 + ka * dt)
+    if np.any(warm <= 0):
+        raise ValueError("delta_t: the cross-sections would not be positive that far from the baseline")
+    return as_result(lnr * total / warm)

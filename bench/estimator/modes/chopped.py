@@ -40,6 +40,7 @@ from bench.estimator.figures import (
     wavelength_of,
     with_ln_ratio_systematic,
 )
+from bench.estimator.heating import corrected_ln_ratio
 from bench.estimator.mode import Mode, Skipped, Timing
 from bench.estimator.params import EstimatorParams
 from bench.estimator.state import Clock, Counts, EstimatorState, Frame
@@ -325,7 +326,14 @@ def estimate(state: EstimatorState, core: ChoppedCore, scope: str, t: float, cou
             ref = core.ref_sum / core.ref_n if core.ref_n else math.nan
             s_off = core.cum_off.mean() if core.cum_off.k else math.nan
             sn = math.hypot(sn, dark_noise(state.dark, ref, s_off, lnr))
-            values = figures(p, lnr, sn, wl)
+            # a sample the (modulated) pump warms in both half-periods (`bench.estimator.heating`)
+            lnr, t_noise, t_sys, t_extra, t_flags = corrected_ln_ratio(
+                p, state.temperatures, lnr, 0.0, both_warm=True
+            )
+            sn = math.hypot(sn, t_noise)
+            extra.update(t_extra)
+            flags |= t_flags
+            values = with_ln_ratio_systematic(figures(p, lnr, sn, wl), t_sys)
             # the residual-decay correction of the off levels: the edge lies somewhere in its
             # sample interval (uniform) and tau is known to u_tau
             corr = abs((core.win_corr if scope == "window" else core.cum_corr) / stats.k)

@@ -40,3 +40,16 @@ def test_no_heating_or_no_dependence_changes_nothing(dt, ke, ka):
 def test_a_temperature_that_would_make_the_cross_sections_negative_is_refused():
     with pytest.raises(ValueError, match="delta_t"):
         ln_ratio_at_baseline_temperature(0.5, -500.0, SE, SA, N, L, 0.0, 0.01, 0.01)
+
+
+def test_a_warm_modulated_sample_the_worked_example():
+    # both half-periods 20 K warm: ln R = (sigma_e + sigma_a1) L N2 = 2.344e-24 * 6e25 * 5e-3 = 0.7032
+    # (the sigma_a N L terms cancel, by hand); at the baseline's cross-sections 0.696
+    from bench.physics import ln_ratio_of_a_warm_modulated_sample
+
+    assert ln_ratio_of_a_warm_modulated_sample(0.7032, 20.0, SE, SA, 0.0, 0.01) == pytest.approx(
+        0.696, abs=1e-12
+    )
+    assert ln_ratio_of_a_warm_modulated_sample(0.7032, 0.0, SE, SA, 0.0, 0.01) == pytest.approx(
+        0.7032, rel=1e-12
+    )
