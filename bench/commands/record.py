@@ -118,7 +118,7 @@ def configure(parser: argparse.ArgumentParser) -> None:
     parser.add_argument(
         "--no-background",
         action="store_true",
-        help="watch mode: skip the background capture (probe shutter closed, pump on, once the pump "
+        help="watch and chopped modes: skip the background capture (probe shutter closed, pump on, once the pump "
         "is on: the sample's fluorescence and scattered pump on the probe detector above its dark, "
         "subtracted after; skipped with --no-dark too)",
     )
@@ -242,11 +242,16 @@ def run(args: argparse.Namespace) -> int:
     return 0
 
 
+#: The modes whose pump-on samples the background is subtracted from correctly: a steady pump,
+#: or one chopped slowly against the medium (its settled pump-on samples see the steady level).
+BACKGROUND_MODES = ("watch", "chopped")
+
+
 def _takes_background(mode, meas) -> bool:
-    """A steady-pump mode on a bench with a probe shutter: the pump-induced background is
-    measured once the pump is on (modulated and stepped modes do not hold the pump steady)."""
+    """A mode of `BACKGROUND_MODES` on a bench with a probe shutter: the pump-induced
+    background is measured once the pump is on."""
     return (
-        mode.timing is None
+        mode.name in BACKGROUND_MODES
         and not mode.steps_pump
         and mode.pump_on is None
         and "shutter" in meas.instruments

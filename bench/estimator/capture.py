@@ -170,12 +170,15 @@ def capture_background(
     *,
     batches: int = 20,
     pump_threshold_v: float | None = None,
+    settle_s: float = 0.0,
 ) -> Background:
     """The probe detector's background with the probe blocked and the pump on, above the dark.
 
     With ``pump_threshold_v`` (and a ``pump_monitor`` channel) only samples whose monitor is
     above it count, and the monitor's mean is kept so that the background can be scaled with
-    the pump; the dark's own error is not in the sigma (the estimate counts it apart).
+    the pump; with ``settle_s`` also only those at least that long after the pump last came on
+    (a modulated pump: the fluorescence rises with the medium, and the estimate uses settled
+    pump-on samples). The dark's own error is not in the sigma (the estimate counts it apart).
 
     References
     ----------
@@ -198,6 +201,17 @@ def capture_background(
         pm = cols[PUMP_MONITOR]
         if pump_threshold_v is not None:
             keep = pm > pump_threshold_v
+            if settle_s > 0 and keep.any():
+                times = np.concatenate([b.times() for b in blocks if b.n])
+                rising = np.flatnonzero(keep[1:] & ~keep[:-1]) + 1
+                since = np.full(times.size, np.inf)
+                if rising.size:
+                    last = np.maximum.accumulate(
+                        np.where(np.isin(np.arange(times.size), rising), np.arange(times.size), -1)
+                    )
+                    has = last >= 0
+                    since[has] = times[has] - times[last[has]]
+                keep &= since >= settle_s * (1.0 - 1e-9)  # times are sums of floats
             if not np.any(keep):
                 raise ValueError(
                     "blocks: the pump monitor shows the pump off; the background needs the pump on"

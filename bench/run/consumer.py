@@ -493,9 +493,9 @@ class Consumer:
             self.state = est.with_dark(self.state, dark)
             return f"dark captured: probe {dark.probe * 1e3:.3f} mV, reference {dark.reference * 1e3:.3f} mV"
         if kind == "background":
-            bg = est.capture_background(
-                blocks, self.state.dark, pump_threshold_v=self.params.pump_threshold_v
-            )
+            settle = self.params.settle_time if est.mode_of(self.state.mode).timing is not None else 0.0
+            threshold = self.params.pump_threshold(self.state.settings.get("pump_power"))
+            bg = est.capture_background(blocks, self.state.dark, pump_threshold_v=threshold, settle_s=settle)
             self.state = est.with_background(self.state, bg, t_resume=resume)
             return f"background captured: probe {bg.probe * 1e3:.4g} ± {bg.probe_sigma * 1e3:.2g} mV above its dark"
         base = est.capture_baseline(blocks, self.state.dark, pump_threshold_v=self.params.pump_threshold_v)

@@ -73,3 +73,24 @@ def test_with_background_takes_only_a_background():
         est.with_background(state, 0.005)
     with pytest.raises(ValueError, match="t_resume"):
         est.with_background(state, est.Background(0.005, 1e-5, 0.7, 100, 0.0), t_resume=float("nan"))
+
+
+def test_with_a_settle_time_only_samples_settled_after_the_pump_came_on_count():
+    # a square-wave pump: 100 samples on, 100 off; the probe's background rises over the first
+    # 30 samples of each on-half (a ramp), then holds 5 mV. With a settle of 40 samples' time
+    # only the flat part counts: its mean is 5 mV exactly (numpy on the flat samples).
+    n = 2000
+    k = np.arange(n)
+    on = (k // 100) % 2 == 1
+    into = k % 100
+    level = np.where(on, 0.005 * np.minimum(1.0, into / 30.0), 0.0)
+    probe = 0.003 + level
+    monitor = np.where(on, 0.7, 0.0)
+    dark = est.Dark(0.003, 1e-5, 0.002, 1e-5, 1000, 0.0)
+    bl = blocks(probe, np.full(n, 0.002), monitor, size=250)
+    bg = est.capture_background(bl, dark, pump_threshold_v=0.35, settle_s=40 * DT)
+    flat = on & (into >= 40)
+    assert bg.n_samples == int(np.count_nonzero(flat))
+    assert bg.probe == pytest.approx(0.005, abs=1e-12)
+    without = est.capture_background(bl, dark, pump_threshold_v=0.35)
+    assert without.probe == pytest.approx(float(np.mean(level[on])), abs=1e-12)  # the ramps pull it down
