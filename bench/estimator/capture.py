@@ -206,9 +206,9 @@ def capture_background(
                 rising = np.flatnonzero(keep[1:] & ~keep[:-1]) + 1
                 since = np.full(times.size, np.inf)
                 if rising.size:
-                    last = np.maximum.accumulate(
-                        np.where(np.isin(np.arange(times.size), rising), np.arange(times.size), -1)
-                    )
+                    marks = np.full(times.size, -1)
+                    marks[rising] = rising
+                    last = np.maximum.accumulate(marks)  # index of the latest rising edge
                     has = last >= 0
                     since[has] = times[has] - times[last[has]]
                 keep &= since >= settle_s * (1.0 - 1e-9)  # times are sums of floats
