@@ -231,6 +231,8 @@ def run(args: argparse.Namespace) -> int:
                     break
         tripped = meas.guarded_pump.state == "tripped"
         acknowledged = True
+        if tripped and shots is not None:
+            meas.stop_pulses(who=operator)  # the guard switched the output off; no pulses either
         if tripped:
             snap = meas.snapshot(with_history=False)
             print(f"\nguard TRIPPED: {snap.trip_reason}", file=out)
@@ -243,6 +245,8 @@ def run(args: argparse.Namespace) -> int:
             meas.stop_emission(who=operator)
             if period is not None or frequencies:
                 meas.set_modulation(None)
+            if shots is not None:
+                meas.stop_pulses(who=operator)
         meas.hold(0.05)
         status.line(final=True)
     print(f"\n{meas.run_id}", file=out)

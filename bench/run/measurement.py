@@ -357,18 +357,29 @@ class Measurement:
             )
         )
 
-    def _stop_pulse_train(self) -> None:
+    def stop_pulses(self, who: str = "gainbench") -> None:
+        """Switch the pump driver's pulsing off (the output is the guard's: switch it off
+        first, or let the guard trip). Nothing to do on a bench that does not pulse."""
         if not getattr(self, "_pulsing", False):
             return
         self._pulsing = False
         pump = self.instruments.get("pump")
         if pump is None:
             return
-        try:
-            with stop_signals.shielded():
-                pump.pulse(False)
-        except Exception:  # the output is off already; closing must go on
-            log.exception("pump pulsing off")
+        for attempt in (1, 2):
+            # a first refusal may be an error the driver queued before (the interlock's 201,
+            # read with this command's error query): the queue is drained, so ask once more
+            try:
+                with stop_signals.shielded():
+                    pump.pulse(False)
+                break
+            except Exception:  # the output is off already; closing must go on
+                if attempt == 2:
+                    log.exception("pump pulsing off")
+                    return
+        self.control_q.put(
+            Event(self.clock.now(), "setting", "pump pulsing off", who, data={"pulsing": False})
+        )
 
     def _detector_reader(self, detector) -> Reader:
         """The detector's reader, by its driver: a polled meter or lock-in, a triggered scope,
@@ -415,7 +426,7 @@ class Measurement:
                 self.guarded_pump.shutdown(reason=reason)
             except Exception:  # the guard logs loudly itself; closing must go on
                 log.exception("pump shutdown")
-        self._stop_pulse_train()  # after the output is off
+        self.stop_pulses()  # after the output is off
         stop_readers(
             self.readers,
             self.stop_flag,

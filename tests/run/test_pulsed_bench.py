@@ -162,3 +162,19 @@ def test_a_scope_bench_without_pulse_settings_is_refused_before_anything_opens(t
     code = main(["record", "--config", str(bench), "--mode", "watch", "--logs", str(logs), "--quiet", *ARM])
     err = capsys.readouterr().err
     assert code == 2 and "triggered scope" in err, err
+
+
+def test_the_guard_trips_on_an_interlock_fault_during_a_pulsed_run(tmp_path, capsys):
+    # the interlock opens while the pump pulses (dark and baseline take about 1 s of the run
+    # clock; 300 shots of 10 ms periods keep it emitting for several seconds after)
+    run_id, out = record(tmp_path, "--shots", "300", "--fault", "interlock@2.5s+0.5s")
+    assert "guard TRIPPED" in out and "trip acknowledged" in out, out
+    s = summary(tmp_path, run_id, capsys)
+    trip = s["trips"][0]
+    assert "interlock" in trip["reason"] or trip["condition"] == "current_not_following", trip
+    assert trip["latency_s"] is not None and trip["latency_s"] <= 0.1
+    with RunReader(tmp_path / f"{run_id}.gbrun") as r:
+        events = r.events()
+    t_trip = next(e.t for e in events if e.kind == "trip")
+    # pulsing goes off once the guard has tripped (the output is off already)
+    assert any(e.kind == "setting" and e.text == "pump pulsing off" and e.t >= t_trip for e in events)
