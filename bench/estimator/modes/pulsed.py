@@ -39,8 +39,8 @@ the length average over the probed volume.
 
 Transmission before the pulse ``transmission_before`` (mean S_before, its sigma the scatter)
 and the number of shots are reported too. Shots whose pump monitor shows no pulse (before the
-guard emits) are skipped as warm-up; a shot within ``step_settle_time`` of a setting change is
-skipped.
+guard emits) are skipped as warm-up, and so is a shot within ``step_settle_time`` of the guard's switching
+the pump on (``emission_start``: the driver's current still ramps) or of a setting change.
 
 References
 ----------
@@ -64,7 +64,7 @@ from typing import Any, NamedTuple
 import numpy as np
 
 from bench.estimator.figures import common_flags, figures, quantity, snr_flags, wavelength_of
-from bench.estimator.mode import Mode, Skipped
+from bench.estimator.mode import EMISSION_SETTINGS, Mode, Skipped
 from bench.estimator.modes.decay import _lifetime_from_decay
 from bench.estimator.params import EstimatorParams
 from bench.estimator.state import Clock, Counts, EstimatorState, Frame
@@ -153,6 +153,10 @@ def ingest(state: EstimatorState, core: PulsedCore, f: Frame, clock: Clock) -> t
         return core, [Skipped(end, "skip")]
     if not (f.on[during].mean() > 0.5) or f.on[before].any():
         return core, [Skipped(end, "warmup")]  # no pump pulse in this shot (not emitting yet)
+    t_trigger = clock.time(f.i0) - float(tt[0])
+    start = state.settings.get("emission_start")
+    if start is not None and t_trigger < start + state.params.step_settle_time:
+        return core, [Skipped(end, "warmup")]  # the pump's current still ramping up
     s_before = float(np.mean(f.s[before]))
     with np.errstate(divide="ignore", invalid="ignore"):
         lnr = np.log(f.s / s_before)
@@ -167,7 +171,6 @@ def ingest(state: EstimatorState, core: PulsedCore, f: Frame, clock: Clock) -> t
     except ValueError:
         return core, [Skipped(end, "skip")]
     peak, decay_time = (float(v) for v in fit.values)
-    t_trigger = clock.time(f.i0) - float(tt[0])
     return core, [Shot(end, t_trigger, s_before, peak, decay_time, lnr, tt)]
 
 
@@ -276,7 +279,7 @@ MODE = Mode(
     # shots are cut by the trigger, not by pump edges: no sample is left out after an edge
     settle=lambda params, settings: (0.0, 0.0),
     pump_steady=lambda settings: False,
-    settings=("pulse_width", "pulse_period"),
+    settings=("pulse_width", "pulse_period", *EMISSION_SETTINGS),
     channels=(TRIGGER_TIME,),
     words="pulsed: gain transient of each pump pulse on a triggered scope (peak beta, decay, stored energy)",
     cli_words="pulsed: pump pulses read shot by shot on a triggered scope (needs a scope bench; --shots)",
