@@ -241,8 +241,8 @@ class ScopeDevice:
         self._disarm()
 
     def _length(self, params: list[str]) -> str:
-        n = self._channel(params) if params else 1
-        del n  # every channel has the same length
+        if params:  # a channel may be named: every channel has the same length
+            self._channel(params)
         return str(self.length if self._codes is None else self._codes.shape[0])
 
     def _set_pre(self, params: list[str]) -> None:

@@ -62,7 +62,7 @@ class ScopeReader(Reader):
             log.info("scope clock not read (%s); truth times from the run start", exc)
 
     def read_once(self) -> Block | None:
-        from drivers.errors import InstrumentTimeout
+        from drivers.errors import InstrumentTimeout, ReplyError
 
         shot = self.shots
         self.shots += 1  # counted before the exchange: a missed shot leaves a gap
@@ -82,8 +82,6 @@ class ScopeReader(Reader):
                 or abs(w.dx - first.dx) > 1e-9 * first.dx
                 or abs(w.x0 - first.x0) > 1e-9 * first.dx
             ):
-                from drivers.errors import ReplyError
-
                 raise ReplyError(
                     f"shot {shot}: channel {w.name} has {w.n} samples from {w.x0:g} s every {w.dx:g} s, "
                     f"channel {first.name} {first.n} from {first.x0:g} s every {first.dx:g} s: "

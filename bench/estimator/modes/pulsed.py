@@ -195,6 +195,10 @@ def _thinned(x: np.ndarray, k: int) -> list[float]:
     return [float(v) for v in x[::step]]
 
 
+def _clock_ok(state: EstimatorState) -> bool:
+    return state.clock is not None and state.clock.dt > 0
+
+
 def estimate(state: EstimatorState, core: PulsedCore, scope: str, t: float, counts: Counts) -> Estimate:
     p = state.params
     sums = core.window if scope == "window" else core.cumulative
@@ -202,7 +206,7 @@ def estimate(state: EstimatorState, core: PulsedCore, scope: str, t: float, coun
     width = _width(state.settings)
     values: dict[str, Quantity] = {}
     extra: dict[str, Any] = {"shots": sums.n, "skipped": counts.skipped}
-    if sums.n >= 2 and width is not None and sums.lnr_sum is not None and clock_ok(state):
+    if sums.n >= 2 and width is not None and sums.lnr_sum is not None and _clock_ok(state):
         n = sums.n
         mean = sums.lnr_sum / n
         var = np.maximum(sums.lnr_sq / n - mean**2, 0.0) * n / (n - 1)
@@ -258,10 +262,6 @@ def estimate(state: EstimatorState, core: PulsedCore, scope: str, t: float, coun
         n_samples=0 if sums.lnr_sum is None else sums.n * int(sums.lnr_sum.size),
         extra=MappingProxyType(extra),
     )
-
-
-def clock_ok(state: EstimatorState) -> bool:
-    return state.clock is not None and state.clock.dt > 0
 
 
 def new_core(params: EstimatorParams, settings: Mapping[str, Any], clock: Clock | None) -> PulsedCore:
