@@ -37,6 +37,8 @@ LOCKIN_X = "lockin_x"
 LOCKIN_Y = "lockin_y"
 REFERENCE_HZ = "reference_hz"
 OVERLOAD = "overload"
+#: A triggered scope's shots (`bench.run.scope_reader`): each sample's time from the trigger, s.
+TRIGGER_TIME = "trigger_time"
 
 
 @dataclass(frozen=True, eq=False)

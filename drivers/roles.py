@@ -131,6 +131,8 @@ SCOPE: dict[str, Operation] = {
     # reply holds two kinds of quantity, so it takes no profile unit (SI values)
     "waveform_scaling": _query(("csv_floats",), placeholders=("n",)),
     "record_length": _query(("int",), placeholders=("n",)),
+    # simulated bench only: the latest pump pulse as the simulated medium knows it
+    "sim_pulse_truth": _query(("csv_floats",)),
 }
 
 PUMP: dict[str, Operation] = {

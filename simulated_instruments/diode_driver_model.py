@@ -14,9 +14,13 @@ Pure state with explicit times (simulated seconds); no I/O. Behaviour (see also 
   T(t) = T_target + (T(t0) - T_target) exp(-(t - t0) / tau_th).
 * Above `TRIP_TEMPERATURE` (45 °C) the driver switches its output off (error 202) and refuses
   to switch on. An injected TEC failure holds the mount at `FAULT_TEMPERATURE` (46 °C).
-* Pulse settings (width, period, on/off) are kept and checked (width below the period, not
-  together with modulation, -221 otherwise), but they are state only for now: the current,
-  the optical power and the mount's heating are those of an unpulsed output.
+* Pulsing (width, period, on/off; width below the period, not together with modulation, -221
+  otherwise): the output is a rectangular pulse train between the (ramped) current and zero,
+  high for the width at the start of each period, its phase counted from the moment pulsing
+  is switched on (or its width or period changed while pulsing). The driver's trigger output
+  marks each pulse's rising edge while pulsing is on (whether or not the output is on). The
+  current read back is the ramped level, as while modulating; the mount heats with the mean
+  current (width / period of it).
 """
 
 from __future__ import annotations
@@ -73,6 +77,7 @@ class DiodeDriverModel:
         self.pulse_on = False
         self.pulse_width = POWER_ON_PULSE_WIDTH
         self.pulse_period = POWER_ON_PULSE_PERIOD
+        self.pulse_ref = t
         self.envelope = Envelope.constant(0.0, t)
 
     def reset(self, t: float) -> None:
@@ -153,7 +158,7 @@ class DiodeDriverModel:
         self.mod_frequency = float(hz)
         self.mod_ref = t
 
-    # -- pulse settings (state only: see the module docstring) ------------------------------
+    # -- pulsing -----------------------------------------------------------------------------
     def set_pulse_width(self, t: float, seconds: float) -> None:
         lo, hi = PULSE_WIDTH_RANGE
         if not (math.isfinite(seconds) and lo <= seconds <= hi):
@@ -162,7 +167,9 @@ class DiodeDriverModel:
             raise DeviceError(
                 SETTINGS_CONFLICT, f"width: {seconds!r} s is not below the period {self.pulse_period:g} s"
             )
+        self.advance_thermal(t)
         self.pulse_width = float(seconds)
+        self.pulse_ref = t
 
     def set_pulse_period(self, t: float, seconds: float) -> None:
         lo, hi = PULSE_PERIOD_RANGE
@@ -172,16 +179,33 @@ class DiodeDriverModel:
             raise DeviceError(
                 SETTINGS_CONFLICT, f"period: {seconds!r} s is not above the width {self.pulse_width:g} s"
             )
+        self.advance_thermal(t)
         self.pulse_period = float(seconds)
+        self.pulse_ref = t
 
     def set_pulsing(self, t: float, on: bool) -> None:
         if on and self.mod_on:
             raise DeviceError(SETTINGS_CONFLICT, "on: pulsing refused while modulating")
+        self.advance_thermal(t)
+        if on and not self.pulse_on:
+            self.pulse_ref = t
         self.pulse_on = bool(on)
 
     @property
     def modulation(self) -> SquareWave | None:
         return SquareWave(self.mod_frequency, self.mod_ref) if self.mod_on else None
+
+    @property
+    def pulse_train(self) -> SquareWave | None:
+        """The pulse train while pulsing (a `SquareWave` of duty width / period), else None."""
+        if not self.pulse_on:
+            return None
+        return SquareWave(1.0 / self.pulse_period, self.pulse_ref, duty=self.pulse_width / self.pulse_period)
+
+    @property
+    def waveform(self) -> SquareWave | None:
+        """What shapes the output in time: the modulation, the pulse train, or None (CW)."""
+        return self.modulation if self.mod_on else self.pulse_train
 
     def current(self, t: float) -> float:
         """The diode current the driver reads back (A): the ramped level, also while modulating."""
@@ -192,11 +216,16 @@ class DiodeDriverModel:
         return self.slope * max(0.0, self.current(t) - self.threshold)
 
     def mean_current(self, ta: float, tb: float) -> float:
-        """Time-averaged current over [ta, tb] (modulation counts half), the thermal input."""
+        """Time-averaged current over [ta, tb] (modulation counts half, pulsing its duty cycle),
+        the thermal input."""
         if not self.output:
             return 0.0
         mean = self.envelope.mean(ta, tb)
-        return 0.5 * mean if self.mod_on else mean
+        if self.mod_on:
+            return 0.5 * mean
+        if self.pulse_on:
+            return mean * self.pulse_width / self.pulse_period
+        return mean
 
     # -- mount temperature ------------------------------------------------------------------
     def _target(self, ta: float, tb: float) -> float:

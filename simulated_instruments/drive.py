@@ -11,7 +11,9 @@ probe's rate terms. It answers two kinds of question, both pure functions of tim
   sample time, vectorised.
 
 Square waves are high (modulation: current at the setpoint; chopper: shutter open) during the
-first half of each period, counted from their reference time.
+first half of each period, counted from their reference time. A pump pulse train is the same
+wave with another duty cycle (`SquareWave.duty`): high for the pulse width at the start of
+each period, so the medium sees rectangular pump pulses.
 """
 
 from __future__ import annotations
@@ -26,31 +28,70 @@ from simulated_instruments.medium import Inputs
 
 @dataclass(frozen=True)
 class SquareWave:
-    """50 % duty square wave, high during [t_ref + m/f, t_ref + (m + 1/2)/f)."""
+    """Rectangular wave, high during [t_ref + m/f, t_ref + (m + duty)/f).
+
+    ``duty`` 0.5 (the default) is the modulation's square wave, computed as it always was
+    (by half-periods); another duty cycle is a pump pulse train (pulse width = duty / f).
+    """
 
     frequency: float  # Hz
     t_ref: float  # s, a rising edge
+    duty: float = 0.5  # fraction of each period that is high, 0 < duty < 1
+
+    def __post_init__(self) -> None:
+        if not 0.0 < self.duty < 1.0:
+            raise ValueError(f"duty: expected a fraction of the period between 0 and 1, got {self.duty!r}")
 
     @property
     def period(self) -> float:
         return 1.0 / self.frequency
 
+    @property
+    def width(self) -> float:
+        """Seconds high in each period."""
+        return self.duty / self.frequency
+
     def is_high(self, times: np.ndarray) -> np.ndarray:
-        halves = np.floor((times - self.t_ref) * (2.0 * self.frequency))
-        return np.remainder(halves, 2.0) == 0.0
+        if self.duty == 0.5:
+            halves = np.floor((times - self.t_ref) * (2.0 * self.frequency))
+            return np.remainder(halves, 2.0) == 0.0
+        phase = (np.asarray(times, dtype=float) - self.t_ref) * self.frequency
+        return (phase - np.floor(phase)) < self.duty
 
     def high_at(self, t: float) -> bool:
-        return math.floor((t - self.t_ref) * 2.0 * self.frequency) % 2 == 0
+        if self.duty == 0.5:
+            return math.floor((t - self.t_ref) * 2.0 * self.frequency) % 2 == 0
+        phase = (t - self.t_ref) * self.frequency
+        return phase - math.floor(phase) < self.duty
 
     def next_edge(self, t: float) -> float:
         """The first edge strictly after ``t`` (edges closer than 1e-9 half-period count as at t)."""
-        half = 0.5 / self.frequency
-        m = math.floor((t - self.t_ref) / half)
-        edge = self.t_ref + (m + 1) * half
-        while edge <= t + 1e-9 * half:
-            m += 1
+        if self.duty == 0.5:
+            half = 0.5 / self.frequency
+            m = math.floor((t - self.t_ref) / half)
             edge = self.t_ref + (m + 1) * half
-        return edge
+            while edge <= t + 1e-9 * half:
+                m += 1
+                edge = self.t_ref + (m + 1) * half
+            return edge
+        period = self.period
+        tol = 1e-9 * 0.5 * period
+        m = math.floor((t - self.t_ref) / period)
+        while True:
+            for edge in (self.t_ref + m * period, self.t_ref + m * period + self.width):
+                if edge > t + tol:
+                    return edge
+            m += 1
+
+    def last_edge(self, t: float) -> float:
+        """The latest edge at or before ``t``."""
+        if self.duty == 0.5:
+            half = 0.5 / self.frequency
+            return self.t_ref + math.floor((t - self.t_ref) / half) * half
+        period = self.period
+        start = self.t_ref + math.floor((t - self.t_ref) / period) * period
+        fall = start + self.width
+        return fall if fall <= t else start
 
 
 @dataclass(frozen=True)
@@ -185,8 +226,7 @@ class Drive:
             return 0.0
         start = max(since, self.envelope.t1 if self.envelope.i0 != self.envelope.i1 else since)
         for wave in self._waves(t):
-            half = 0.5 / wave.frequency
-            start = max(start, wave.t_ref + math.floor((t - wave.t_ref) / half) * half)
+            start = max(start, wave.last_edge(t))
         return max(0.0, t - start)
 
     # -- inputs for the medium -----------------------------------------------------------------

@@ -31,6 +31,7 @@ from simulated_instruments.lockin_device import LockInDevice
 from simulated_instruments.meter_device import Meter
 from simulated_instruments.optical_setup import BenchModel
 from simulated_instruments.pump_device import PumpDriverDevice
+from simulated_instruments.scope_device import ScopeDevice
 from simulated_instruments.server import HOST, InstrumentServer, ReplyFaults
 from simulated_instruments.setup_config import BenchSetup, SimulatorSetupError
 from simulated_instruments.shared_state import BenchCore
@@ -83,7 +84,7 @@ class SimulatedBench:
         for f in parsed:
             self._check_role(f)
         #: The detector device by the bench file's driver (a digitiser unless it names another).
-        detector_devices = {"meter": Meter, "lockin": LockInDevice}
+        detector_devices = {"meter": Meter, "lockin": LockInDevice, "scope": ScopeDevice}
         detector = detector_devices.get(getattr(cfg.instruments.get("detector"), "driver", ""), Digitiser)
         devices = {
             "detector": lambda: detector(self.core, inject=self.inject),

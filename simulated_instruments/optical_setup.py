@@ -75,6 +75,20 @@ TRUTH_FIELDS = (
     "inputs_steady_s",
 )
 
+#: The fields of `BenchModel.pulse_truth`, in the order of the scope's ``SIM:TRUTh:PULSe?``.
+PULSE_TRUTH_FIELDS = (
+    "pulse_t",
+    "n2_before",
+    "n2_peak",
+    "beta_peak",
+    "ln_ratio_peak",
+    "pulse_pump_w",
+    "tau",
+    "pulses",
+)
+#: Pump pulses whose truth is kept.
+PULSES_KEPT = 256
+
 
 @dataclass(frozen=True)
 class TruthBlock:
@@ -185,6 +199,8 @@ class BenchModel:
             self.medium, self._drive(), model_step=sim.model_step, n2=np.full(sim.slices, self._n2_off)
         )
         self._events: list[tuple[float, int, str]] = []
+        self._pulses: list[tuple[float, float, float, float]] = []  # `pulse_truth`
+        self._pulse_count = 0
         self._event_seq = 0
         self._saturation: list[tuple[float, float]] = []
         self._device_errors: list[tuple[str, int]] = []
@@ -239,7 +255,7 @@ class BenchModel:
     def _drive(self) -> Drive:
         return Drive(
             envelope=self.pump.envelope,
-            modulation=self.pump.modulation,
+            modulation=self.pump.waveform,
             pump_gate=self._gates[2],
             probe_gate=self._gates[1],
             slope=self.pump.slope,
@@ -290,15 +306,18 @@ class BenchModel:
         self.pump.set_modulation(self.t, bool(on))
         self._changed()
 
-    # Pulse settings are state only (the drive does not change, so nothing is recomputed).
+    # Pulsing shapes the pump in time (`DiodeDriverModel.pulse_train`): the drive changes.
     def set_pulse_width(self, seconds: float) -> None:
         self.pump.set_pulse_width(self.t, float(seconds))
+        self._changed()
 
     def set_pulse_period(self, seconds: float) -> None:
         self.pump.set_pulse_period(self.t, float(seconds))
+        self._changed()
 
     def set_pulsing(self, on: bool) -> None:
         self.pump.set_pulsing(self.t, bool(on))
+        self._changed()
 
     def set_mount_setpoint(self, kelvin: float) -> None:
         self.pump.set_temperature_setpoint(self.t, float(kelvin))
@@ -478,7 +497,20 @@ class BenchModel:
         times /= rate
         times += self._acq_t0
         t_end = self._acq_t0 + (i0 + n) / rate
-        n2, pump_w, probe_open = self._advance(t_end, times, 1.0 / rate)
+        edges = self._pulse_edges(float(times[0]) if n else self.t, t_end)
+        if edges is None:
+            n2, pump_w, probe_open = self._advance(t_end, times, 1.0 / rate)
+        else:
+            # the medium at the pulses' edges too (the pulse truth), split off afterwards
+            merged = np.concatenate((times, edges.ravel()))
+            order = np.argsort(merged, kind="stable")
+            n2_all, pw_all, po_all = self._advance(t_end, merged[order], None)
+            back = np.empty_like(order)
+            back[order] = np.arange(order.size)
+            n2, pump_w, probe_open = n2_all[back[:n]], pw_all[back[:n]], po_all[back[:n]]
+            self._record_pulses(
+                edges, n2_all[back[n:]].reshape(edges.shape), pw_all[back[n:]].reshape(edges.shape)
+            )
         self._next_index = i0 + n
         if self.heating.enabled:
             self.heating.advance(t_end, float(np.mean(pump_w)) if np.ndim(pump_w) else float(pump_w))
@@ -500,6 +532,55 @@ class BenchModel:
         if want_truth:
             truth = TruthBlock(times, n2, (n2 - self._n2_off) * self._ln_ratio_per_n2, pump_w)
         return volts, i0, truth
+
+    def _pulse_edges(self, ta: float, tb: float) -> np.ndarray | None:
+        """(rising, middle, falling) times of the pump pulses whose falling edge is in [ta, tb),
+        shape (k, 3), or None when not pulsing (or none falls there)."""
+        wave = self.pump.pulse_train
+        if wave is None or not tb > ta:
+            return None
+        period, width = wave.period, wave.width
+        m0 = math.ceil((ta - width - wave.t_ref) / period - 1e-12)
+        m1 = math.ceil((tb - width - wave.t_ref) / period - 1e-12)
+        if m1 <= m0:
+            return None
+        rise = wave.t_ref + period * np.arange(m0, m1, dtype=float)
+        rise = rise[rise >= ta]  # a pulse that rose before this block: its start was not seen here
+        if rise.size == 0:
+            return None
+        # the middle just before the fall, where the pump is surely on
+        return np.stack((rise, rise + 0.5 * width, rise + width * (1.0 - 1e-9)), axis=1)
+
+    def _record_pulses(self, edges: np.ndarray, n2: np.ndarray, pump_w: np.ndarray) -> None:
+        self._pulse_count += edges.shape[0]
+        for k in range(edges.shape[0]):
+            self._pulses.append((float(edges[k, 2]), float(n2[k, 0]), float(n2[k, 2]), float(pump_w[k, 1])))
+        del self._pulses[:-PULSES_KEPT]
+
+    def pulse_truth(self) -> dict[str, float]:
+        """The latest pump pulse's true figures (`PULSE_TRUTH_FIELDS`), as the medium knows them.
+
+        ``pulse_t``: model time of its falling edge (the end of the pulse, where a rectangular
+        pump pulse leaves the most excitation), ``n2_before`` and ``n2_peak``: length-averaged
+        <N2> at its rising and falling edges (m^-3), ``beta_peak`` = n2_peak / N_total,
+        ``ln_ratio_peak``: (sigma_es + sigma_as) L (n2_peak - n2_before), ``pulse_pump_w``: pump
+        power on the sample during it, ``tau``: the medium's lifetime, ``pulses``: pulses seen.
+        All NaN (pulses 0) before the first one.
+        """
+        out = dict.fromkeys(PULSE_TRUTH_FIELDS, math.nan)
+        out["tau"] = self.cfg.sample.upper_state_lifetime
+        out["pulses"] = float(self._pulse_count)
+        if self._pulses:
+            t, before, peak, power = self._pulses[-1]
+            out.update(
+                pulse_t=t,
+                n2_before=before,
+                n2_peak=peak,
+                beta_peak=peak / self.cfg.sample.n_total,
+                ln_ratio_peak=(peak - before) * self._ln_ratio_per_n2,
+                pulse_pump_w=power,
+            )
+        return out
 
     def skip(self, n_sets: int) -> None:
         """Let ``n_sets`` sample sets go by without producing them."""

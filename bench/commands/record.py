@@ -22,6 +22,10 @@ from bench.units import parse_quantity
 NAME = "record"
 HELP = "acquire, estimate and log a run (headless; dark, baseline, arming checklist, pump program)"
 
+#: Shots of a pulsed run when ``--shots`` is not given, and the most accepted.
+DEFAULT_SHOTS = 50
+MAX_SHOTS = 100_000
+
 #: Exit statuses of `gainbench record` besides 0 (done) and 2 (bad input).
 ARMING_REFUSED = 3
 TRIP_NOT_ACKNOWLEDGED = 4
@@ -70,6 +74,13 @@ def configure(parser: argparse.ArgumentParser) -> None:
         "give the lifetime from the response against frequency (default: one frequency, a tenth of "
         "the medium's corner 1/(2 pi tau)); --seconds is then the data time at each frequency, "
         "after the lock-in's settle time",
+    )
+    parser.add_argument(
+        "--shots",
+        metavar="N",
+        help=f"pulsed mode: pump pulses to record once the pump emits (default {DEFAULT_SHOTS}; "
+        "each is one triggered acquisition of the scope; the run ends when N shots are analysed, "
+        "and --seconds is then only the longest it may take beyond their pulse period)",
     )
     parser.add_argument(
         "--logs", metavar="DIR", help="run store directory (default: the bench file's run.log_dir)"
@@ -163,6 +174,7 @@ def run(args: argparse.Namespace) -> int:
     currents = sweep_currents(cfg, args.steps) if mode.steps_pump else [current]
     period = _mode_period(args, cfg, currents[0])
     frequencies = _lockin_frequencies(args, cfg)
+    shots = _shots(args)
     if mode.steps_pump:
         settings = dict(mode.run_settings)  # a sweep: each step chopped (`Mode.run_settings`)
     answers, operator = _flag_answers(args, cfg)
@@ -205,6 +217,8 @@ def run(args: argparse.Namespace) -> int:
             print(f"  {meas.capture_background(who=operator)}", file=out)
         if frequencies:
             _frequency_program(meas, frequencies, args.seconds, status)
+        elif shots is not None:
+            _shot_program(meas, cfg, shots, args.seconds, status)
         else:
             per_step = args.seconds / len(currents)
             for k, i in enumerate(currents):
@@ -217,6 +231,8 @@ def run(args: argparse.Namespace) -> int:
                     break
         tripped = meas.guarded_pump.state == "tripped"
         acknowledged = True
+        if tripped and shots is not None:
+            meas.stop_pulses(who=operator)  # the guard switched the output off; no pulses either
         if tripped:
             snap = meas.snapshot(with_history=False)
             print(f"\nguard TRIPPED: {snap.trip_reason}", file=out)
@@ -229,6 +245,8 @@ def run(args: argparse.Namespace) -> int:
             meas.stop_emission(who=operator)
             if period is not None or frequencies:
                 meas.set_modulation(None)
+            if shots is not None:
+                meas.stop_pulses(who=operator)
         meas.hold(0.05)
         status.line(final=True)
     print(f"\n{meas.run_id}", file=out)
@@ -254,6 +272,7 @@ def _takes_background(mode, meas) -> bool:
         mode.name in BACKGROUND_MODES
         and not mode.steps_pump
         and mode.pump_on is None
+        and mode.pump_steady(meas.settings)
         and "shutter" in meas.instruments
         and meas.guarded_pump.state == "emitting"
     )
@@ -293,6 +312,55 @@ def _lockin_frequencies(args, cfg) -> tuple[float, ...]:
             raise ConfigError(f"--frequencies: applies to lockin mode, not {args.mode}")
         return ()
     return parse_frequencies(args.frequencies, EstimatorParams.from_config(cfg))
+
+
+def _shots(args) -> int | None:
+    """The shots of a pulsed run (None for another mode), checked before anything opens."""
+    from bench.records import TRIGGER_TIME
+
+    if TRIGGER_TIME not in mode_of(args.mode).channels:
+        if args.shots is not None:
+            takers = [name for name, m in MODES.items() if TRIGGER_TIME in m.channels]
+            raise ConfigError(f"--shots: applies to {' and '.join(takers)} mode, not {args.mode}")
+        return None
+    if args.shots is None:
+        return DEFAULT_SHOTS
+    text = str(args.shots).strip()
+    try:
+        n = int(text)
+    except ValueError:
+        raise ConfigError(
+            f"--shots: {args.shots!r} is not a whole number of pump pulses (expected 2 ... {MAX_SHOTS}, e.g. 50)"
+        ) from None
+    if not 2 <= n <= MAX_SHOTS:
+        raise ConfigError(
+            f"--shots: {n} is outside 2 ... {MAX_SHOTS} (the shot-to-shot scatter needs two shots at least)"
+        )
+    return n
+
+
+def _shot_program(meas, cfg, shots: int, seconds: float, status) -> None:
+    """Emit until the estimator has analysed ``shots`` pumped shots (a pulsed run), or the
+    guard trips; MeasurementError if they do not come within ``seconds`` plus 20 pulse periods
+    per shot (a scope that never triggers, a pump that does not pulse)."""
+    from bench.run.errors import MeasurementError
+
+    limit = seconds + 20.0 * shots * float(cfg.pump.pulse_period)
+    end = meas.clock.now() + limit
+
+    def done() -> bool:
+        if meas.guarded_pump.state == "tripped":
+            return True
+        est = meas.snapshot(with_history=False).estimate
+        return est is not None and int(est.extra.get("shots", 0)) >= shots
+
+    while not done():
+        if meas.clock.now() > end:
+            raise MeasurementError(
+                f"--shots {shots}: fewer analysed within {limit:.3g} s of the run clock; is the scope "
+                "triggered by the pump's pulses? (gainbench summary lists the run's gap events)"
+            )
+        meas.hold(0.05, should_stop=done, on_tick=status.line)
 
 
 def _frequency_program(meas, frequencies, seconds: float, status) -> None:

@@ -20,6 +20,9 @@ LABELS = {
     "n2_per_m3": ("<N2>", 1e-6, "cm^-3"),
     "beta": ("excited fraction beta", 1.0, ""),
     "tau_s": ("lifetime tau", 1e3, "ms"),
+    # pulsed runs (`bench.store.summary.PULSED_ESTIMATES`)
+    "stored_energy_j_per_m3": ("stored energy density", 1e-6, "J/cm^3"),
+    "transmission_before": ("transmission before pulse", 1.0, ""),
 }
 
 

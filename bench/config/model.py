@@ -69,6 +69,10 @@ class PumpConfig:
     threshold_current: float  # A
     slope_efficiency: float  # W/A
     beam_diameter: float  # m, 1/e² diameter at the sample
+    #: Pulsed pumping (pulsed mode): each pulse's width and the period of the pulses, s; both
+    #: or neither (None: the bench file gives no pulse setting).
+    pulse_width: float | None = None
+    pulse_period: float | None = None
 
     def power_at(self, current: float) -> float:
         """Optical pump power (W) from the linear current-to-power calibration."""

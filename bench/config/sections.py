@@ -263,6 +263,11 @@ def _probe(r: BenchFileReader) -> ProbeConfig:
     )
 
 
+#: Pump pulse widths and periods a bench file may give, s.
+PULSE_WIDTH_RANGE = (1e-6, 1.0)
+PULSE_PERIOD_RANGE = (10e-6, 10.0)
+
+
 def _pump(r: BenchFileReader) -> PumpConfig:
     r.table("pump")
     pump = PumpConfig(
@@ -272,7 +277,19 @@ def _pump(r: BenchFileReader) -> PumpConfig:
         threshold_current=r.positive("pump.threshold_current", "current", "0 A", allow_zero=True),
         slope_efficiency=r.bounded("pump.slope_efficiency", "slope", 0.0, SLOPE_EFFICIENCY_MAX, "W/A"),
         beam_diameter=r.bounded("pump.beam_diameter", "length", *BEAM_DIAMETER_RANGE, "m"),
+        pulse_width=r.bounded("pump.pulse_width", "time", *PULSE_WIDTH_RANGE, "s", None),
+        pulse_period=r.bounded("pump.pulse_period", "time", *PULSE_PERIOD_RANGE, "s", None),
     )
+    if (pump.pulse_width is None) != (pump.pulse_period is None):
+        missing = "pump.pulse_period" if pump.pulse_period is None else "pump.pulse_width"
+        raise r.fail(
+            missing, "is needed too: pulsed pumping takes both pump.pulse_width and pump.pulse_period"
+        )
+    if pump.pulse_width is not None and not pump.pulse_width < pump.pulse_period:
+        raise r.fail(
+            "pump.pulse_width",
+            f"{pump.pulse_width:g} s is not below pump.pulse_period ({pump.pulse_period:g} s)",
+        )
     if pump.max_current > pump.diode_current_rating:
         raise r.fail(
             "pump.max_current",

@@ -55,9 +55,11 @@ def time_constant_for(frequency: float, order: int) -> float:
 
 def bench_default_mode(cfg) -> str:
     """The mode a run starts in when none is named: lockin on a bench whose detector is a
-    lock-in amplifier (the only mode its readings serve), watch otherwise."""
+    lock-in amplifier, pulsed on one whose detector is a triggered scope (the only modes their
+    readings serve), watch otherwise."""
     inst = cfg.instruments.get("detector")
-    return "lockin" if inst is not None and inst.driver == "lockin" else "watch"
+    driver = inst.driver if inst is not None else ""
+    return {"lockin": "lockin", "scope": "pulsed"}.get(driver, "watch")
 
 
 #: The highest modulation frequency accepted, as a multiple of the medium's corner 1/(2 pi tau).

@@ -178,6 +178,25 @@ class Measurement:
                 f"{mode} mode needs a lock-in amplifier as the detector; this bench has {where} "
                 "(see bench/data/demo_lockin_bench.toml)"
             )
+        from bench.run.scope_reader import TRIGGER_TIME
+
+        needs_scope = TRIGGER_TIME in mode_of(mode).channels
+        if driver == "scope" and not needs_scope:
+            fits = ", ".join(name for name, m in MODES.items() if TRIGGER_TIME in m.channels)
+            raise MeasurementError(
+                f"{mode} mode needs a continuous record of the probe; the detector of this bench is a "
+                f"triggered scope ({where}), which works in {fits} mode"
+            )
+        if needs_scope and driver != "scope":
+            raise MeasurementError(
+                f"{mode} mode needs a triggered scope as the detector; this bench has {where} "
+                "(see bench/data/demo_pulsed_bench.toml)"
+            )
+        if needs_scope and (self.cfg.pump.pulse_width is None or self.cfg.pump.pulse_period is None):
+            raise MeasurementError(
+                f"{self.cfg.source}: pump.pulse_width and pump.pulse_period: {mode} mode pulses the pump, "
+                'so the bench file must give both, e.g. pulse_width = "0.5 ms", pulse_period = "10 ms"'
+            )
         if driver == "meter" and not mode_of(mode).polled:
             fits = ", ".join(name for name, m in MODES.items() if m.polled and LOCKIN_X not in m.channels)
             raise MeasurementError(
@@ -187,12 +206,6 @@ class Measurement:
 
     def open(self) -> None:
         cfg = self.cfg
-        if cfg.instruments["detector"].driver == "scope":
-            raise MeasurementError(
-                f"{cfg.source}: instruments.detector: driver scope can identify and read a triggered "
-                "oscilloscope (gainbench instruments), but no measurement records with one yet (the "
-                "pulsed mode is to come); use a digitiser, meter or lock-in for a run"
-            )
         self._check_mode(self.mode)
         # Threads waiting on an instrument's reply get the interpreter back within 0.5 ms
         # instead of the default 5 ms: the guard's exchanges with the pump are several
@@ -259,6 +272,8 @@ class Measurement:
             self.settings.setdefault("emission_stop", 0.0)
             if self.store is not None:
                 self.store.set_meta(estimator_settings=self.settings)
+        if cfg.instruments["detector"].driver == "scope":
+            self._start_pulse_train(pump)
         self.checks.use_params(params)
         # The guard's checks run in the reader threads (`GuardChecks.on_block`), not in the consumer.
         self.consumer = Consumer(
@@ -320,9 +335,60 @@ class Measurement:
             )
             self._truth_thread.start()
 
+    def _start_pulse_train(self, pump) -> None:
+        """A scope bench: the pump driver's pulse train (the scope's trigger) set and switched
+        on while the output is off, so that the scope records shots for the dark and the
+        baseline too. Light leaves the diode only while the guard has the output on (the guard
+        alone commands it); `close` switches pulsing off again after the output."""
+        width, period = self.cfg.pump.pulse_width, self.cfg.pump.pulse_period
+        with stop_signals.shielded():  # never a pump exchange cut in half (see GuardedPump._run)
+            pump.set_pulsing(width, period)
+        self._pulsing = True
+        self.settings.update(pulse_width=float(width), pulse_period=float(period))
+        if self.store is not None:
+            self.store.set_meta(estimator_settings=self.settings)
+        self.control_q.put(
+            Event(
+                self.clock.now(),
+                "setting",
+                f"pump pulses {width * 1e3:g} ms every {period * 1e3:g} ms (output off until emitting)",
+                "gainbench",
+                data={"pulse_width_s": width, "pulse_period_s": period},
+            )
+        )
+
+    def stop_pulses(self, who: str = "gainbench") -> None:
+        """Switch the pump driver's pulsing off (the output is the guard's: switch it off
+        first, or let the guard trip). Nothing to do on a bench that does not pulse."""
+        if not getattr(self, "_pulsing", False):
+            return
+        self._pulsing = False
+        pump = self.instruments.get("pump")
+        if pump is None:
+            return
+        for attempt in (1, 2):
+            # a first refusal may be an error the driver queued before (the interlock's 201,
+            # read with this command's error query): the queue is drained, so ask once more
+            try:
+                with stop_signals.shielded():
+                    pump.pulse(False)
+                break
+            except Exception:  # the output is off already; closing must go on
+                if attempt == 2:
+                    log.exception("pump pulsing off")
+                    return
+        self.control_q.put(
+            Event(self.clock.now(), "setting", "pump pulsing off", who, data={"pulsing": False})
+        )
+
     def _detector_reader(self, detector) -> Reader:
-        """The detector's reader, by its driver: a polled meter or lock-in, else the digitiser's."""
+        """The detector's reader, by its driver: a polled meter or lock-in, a triggered scope,
+        else the digitiser's."""
         driver = self.cfg.instruments["detector"].driver
+        if driver == "scope":
+            from bench.run.scope_reader import ScopeReader
+
+            return ScopeReader(detector, self.data_q, self.clock, self.drops, self.stop_flag)
         if driver == "meter":
             return MeterReader(detector, self.data_q, self.clock, self.drops, self.stop_flag)
         if driver == "lockin":
@@ -360,6 +426,7 @@ class Measurement:
                 self.guarded_pump.shutdown(reason=reason)
             except Exception:  # the guard logs loudly itself; closing must go on
                 log.exception("pump shutdown")
+        self.stop_pulses()  # after the output is off
         stop_readers(
             self.readers,
             self.stop_flag,

@@ -253,6 +253,42 @@ def lockin_fit(final: Estimate) -> dict[str, Any]:
     }
 
 
+#: What a pulsed run's summary adds to `SUMMARY_ESTIMATES`.
+PULSED_ESTIMATES = ("decay_time_s", "stored_energy_j_per_m3", "transmission_before")
+
+
+def pulsed_truth(rows: list[dict[str, Any]], cfg: BenchConfig) -> tuple[dict[str, float], str] | None:
+    """The simulated medium's own figures at the peak of its pump pulses (the truth rows'
+    pulse fields, `simulated_instruments` ``SIM:TRUTH:PULSE?``): the median over the rows of
+    pulses at the run's pulse power (at least half the largest: not one from the pump's
+    ramp), so that each figure is that of a steady pulse. ``n2_per_m3``, ``beta``,
+    ``ln_ratio`` at the pulse's end, ``tau_s`` the medium's lifetime, the gain figures from the
+    peak <N2> by Beer-Lambert, ``stored_energy_j_per_m3`` = h c / lambda_zl x <N2> with
+    ``sample.zero_line`` (when given)."""
+    good = [r for r in rows if math.isfinite(r.get("n2_peak", math.nan)) and r.get("pulses", 0) > 0]
+    if not good:
+        return None
+    top = max(r.get("pulse_pump_w", 0.0) for r in good)
+    pick = [r for r in good if r.get("pulse_pump_w", 0.0) >= 0.5 * top] if top > 0 else good
+    med = {
+        k: float(np.median([r[k] for r in pick])) for k in ("n2_peak", "beta_peak", "ln_ratio_peak", "tau")
+    }
+    s = cfg.sample
+    se, sa = s.sigma.probe_emission, s.sigma.probe_absorption
+    g = float(physics.gain_coefficient(med["n2_peak"], s.n_total, se, sa))
+    out = {
+        "ln_ratio": med["ln_ratio_peak"],
+        "gain_db": float(physics.ln_gain_to_db(g * s.length)),
+        "gain_coefficient_per_cm": float(physics.per_m_to_per_cm(g)),
+        "n2_per_m3": med["n2_peak"],
+        "beta": med["beta_peak"],
+        "tau_s": med["tau"],
+    }
+    if s.zero_line is not None:
+        out["stored_energy_j_per_m3"] = float(physics.photon_energy(s.zero_line)) * med["n2_peak"]
+    return out, "medium: its own populations at the end of its pump pulses (median over the pulses polled)"
+
+
 def trips(events: list[Event]) -> list[dict[str, Any]]:
     """Each trip with its reason, latency, and the acknowledgement that cleared it."""
     out: list[dict[str, Any]] = []
@@ -282,7 +318,7 @@ def summary(reader: RunReader, cfg: BenchConfig, analysis_id: int | None = None)
     final = final_estimate(reader, analysis_id)
     estimates = {}
     if final is not None:
-        for k in SUMMARY_ESTIMATES:
+        for k in SUMMARY_ESTIMATES + (PULSED_ESTIMATES if final.mode == "pulsed" else ()):
             q = final.values.get(k)
             if q is not None:
                 estimates[k] = _q(q)
@@ -309,7 +345,11 @@ def summary(reader: RunReader, cfg: BenchConfig, analysis_id: int | None = None)
     if final is not None and final.mode == "lockin" and final.extra.get("points"):
         out["steps"] = lockin_steps(final)
         out["fit"] = lockin_fit(final)
+    if final is not None and final.mode == "pulsed":
+        out["shots"] = int(final.extra.get("shots", 0))
     truth = truth_over(reader, cfg, final, span) if simulated else None
+    if simulated and final is not None and final.mode == "pulsed":
+        truth = pulsed_truth(reader.truth(), cfg)
     if simulated and final is not None and final.mode == "sweep" and span is None:
         # recorded before points had spans: the truth at the pump power of the final figures' step
         power = (final.extra.get("step") or {}).get("pump_power_w")

@@ -35,7 +35,7 @@ import numpy as np
 
 from drivers.base import Driver
 from drivers.errors import DriverConfigError, InstrumentTimeout, ProfileError, ReplyError
-from drivers.instruments.digitiser import DEFAULT_CHANNEL_NAMES
+from drivers.instruments.digitiser import DEFAULT_CHANNEL_NAMES, SIM_TRUTH_FIELDS
 
 #: Seconds an acquisition may take, from arming to complete, unless the options say otherwise.
 DEFAULT_COMPLETION_TIMEOUT = 10.0
@@ -43,6 +43,18 @@ DEFAULT_COMPLETION_TIMEOUT = 10.0
 COMPLETE_POLL_S = 0.01
 #: The most triggers averaged into one acquisition that `Scope.set_averages` sends.
 MAX_AVERAGES = 1 << 20
+#: The fields of the simulated scope's ``sim_pulse_truth`` reply, in reply order (the simulated
+#: bench's latest pump pulse: see simulated_instruments/COMMANDS.md).
+SIM_PULSE_FIELDS = (
+    "pulse_t",
+    "n2_before",
+    "n2_peak",
+    "beta_peak",
+    "ln_ratio_peak",
+    "pulse_pump_w",
+    "tau",
+    "pulses",
+)
 #: The fields of a ``waveform_scaling`` reply, in reply order.
 SCALING_FIELDS = ("x_increment", "x_origin", "y_scale", "y_offset")
 
@@ -369,6 +381,29 @@ class Scope(Driver):
         self.arm()
         t_complete = self.wait_complete(clock=clock)
         return Acquisition(t_arm, t_complete, self.averages, self.fetch())
+
+    # -- clock and simulator ------------------------------------------------------------
+
+    def clock(self) -> float:
+        """Seconds since the instrument's acquisition started (``clock``)."""
+        return float(self.session.query("clock"))
+
+    def sim_truth(self) -> dict[str, float]:
+        """The simulated bench's true state (simulator-only ``SIM:TRUTH?``), by field name,
+        with its latest pump pulse's (``sim_pulse_truth``) when the profile asks for it."""
+        out = {}
+        for op, fields in (("sim_truth", SIM_TRUTH_FIELDS), ("sim_pulse_truth", SIM_PULSE_FIELDS)):
+            if op == "sim_pulse_truth" and not self.session.has(op):
+                continue
+            values = np.asarray(self.session.query(op), dtype=np.float64)
+            if values.size != len(fields):
+                raise ReplyError(
+                    f"expected {len(fields)} truth values ({', '.join(fields)}), got {values.size}",
+                    role=self.role,
+                    resource=self.resource,
+                )
+            out.update({name: float(v) for name, v in zip(fields, values)})
+        return out
 
     # -- helpers -----------------------------------------------------------------------
 

@@ -110,3 +110,18 @@ def test_decay_default(tmp_path, seed):
     assert_near_truth(s, "tau_s")
     assert_near_truth(s, "ln_ratio")
     assert_near_truth(s, "beta")
+
+
+PULSED_BENCH = str(Path(__file__).resolve().parents[2] / "bench" / "data" / "demo_pulsed_bench.toml")
+
+
+@pytest.mark.parametrize("seed", SEEDS)
+def test_pulsed_default(tmp_path, seed):
+    """Pump pulses on the scope bench, 50 shots: the peak's beta and ln R against the medium's
+    populations at the end of its pulses, the decay time against its lifetime."""
+    s = record_and_summarise(tmp_path, "pulsed", seed, "--config", PULSED_BENCH, "--shots", "50")
+    assert_estimate_exists(s)
+    assert s["shots"] >= 50
+    assert_near_truth(s, "beta")
+    assert_near_truth(s, "ln_ratio")
+    assert_near_truth(s, "tau_s")
