@@ -272,7 +272,6 @@ def _takes_background(mode, meas) -> bool:
         mode.name in BACKGROUND_MODES
         and not mode.steps_pump
         and mode.pump_on is None
-        and mode.pump_steady(meas.settings)
         and "shutter" in meas.instruments
         and meas.guarded_pump.state == "emitting"
     )
