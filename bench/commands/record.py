@@ -72,6 +72,13 @@ def configure(parser: argparse.ArgumentParser) -> None:
         "after the lock-in's settle time",
     )
     parser.add_argument(
+        "--wavelengths",
+        metavar="START:STOP:STEP",
+        help="spectrum mode: probe wavelengths, e.g. 1010nm:1050nm:2nm or 1020nm,1030nm,1040nm "
+        "(default: the bench wavelength -/+ 20 nm in 4 nm steps); the run also measures at the bench "
+        "wavelength first and last; --seconds is then the time at each wavelength",
+    )
+    parser.add_argument(
         "--logs", metavar="DIR", help="run store directory (default: the bench file's run.log_dir)"
     )
     parser.add_argument(
@@ -163,6 +170,9 @@ def run(args: argparse.Namespace) -> int:
     currents = sweep_currents(cfg, args.steps) if mode.steps_pump else [current]
     period = _mode_period(args, cfg, currents[0])
     frequencies = _lockin_frequencies(args, cfg)
+    wavelengths = _spectrum_wavelengths(args, cfg)
+    if wavelengths:
+        settings["probe_wavelength"] = cfg.probe.wavelength
     if mode.steps_pump:
         settings = dict(mode.run_settings)  # a sweep: each step chopped (`Mode.run_settings`)
     answers, operator = _flag_answers(args, cfg)
@@ -183,6 +193,9 @@ def run(args: argparse.Namespace) -> int:
         print(
             f"gainbench: run {meas.run_id} on {cfg.name}{'  [SIMULATED]' if cfg.simulated else ''}", file=out
         )
+        if wavelengths:
+            _check_tuning(meas, wavelengths, args.wavelengths)
+            meas.set_wavelength(cfg.probe.wavelength)
         if "shutter" in meas.instruments and not args.no_dark:
             print("capturing dark (probe shutter closed) ...", file=out)
             meas.capture_dark()
@@ -205,6 +218,8 @@ def run(args: argparse.Namespace) -> int:
             print(f"  {meas.capture_background(who=operator)}", file=out)
         if frequencies:
             _frequency_program(meas, frequencies, args.seconds, status)
+        elif wavelengths:
+            _wavelength_program(meas, cfg, wavelengths, args.seconds, status, operator)
         else:
             per_step = args.seconds / len(currents)
             for k, i in enumerate(currents):
@@ -288,6 +303,45 @@ def _lockin_frequencies(args, cfg) -> tuple[float, ...]:
             raise ConfigError(f"--frequencies: applies to lockin mode, not {args.mode}")
         return ()
     return parse_frequencies(args.frequencies, EstimatorParams.from_config(cfg))
+
+
+def _spectrum_wavelengths(args, cfg) -> tuple[float, ...]:
+    """The probe wavelengths of a spectrum run (empty for another mode), syntax checked first."""
+    from bench.run.wavelength_program import parse_wavelengths
+
+    if not mode_of(args.mode).steps_wavelength:
+        if args.wavelengths is not None:
+            takers = [name for name, m in MODES.items() if m.steps_wavelength]
+            raise ConfigError(f"--wavelengths: applies to {' and '.join(takers)} mode, not {args.mode}")
+        return ()
+    if "wavelength" not in cfg.instruments:
+        raise ConfigError(
+            f"--mode {args.mode}: {cfg.source} has no tunable probe ([instruments.wavelength], e.g. "
+            'driver = "wavelength-source", profile = "generic-wavelength")'
+        )
+    return parse_wavelengths(args.wavelengths, cfg.probe.wavelength)
+
+
+def _check_tuning(meas, wavelengths, text) -> None:
+    """ConfigError (before the pump is armed) for a wavelength the source cannot reach."""
+    from bench.run.wavelength_program import check_in_range
+
+    check_in_range(wavelengths, meas.tuning_range(), text)
+
+
+def _wavelength_program(meas, cfg, wavelengths, seconds: float, status, operator: str) -> None:
+    """The bench wavelength, each wavelength in turn, the bench wavelength again: at each the
+    step settle time, then ``seconds`` of chopped data (the pump is already emitting)."""
+    from bench.run.wavelength_program import visiting_order
+
+    order = visiting_order(wavelengths, cfg.probe.wavelength)
+    per_step = meas.params.step_settle_time + seconds
+    for k, lam in enumerate(order):
+        if k:
+            meas.set_wavelength(lam, who=operator)
+        meas.hold(per_step, should_stop=lambda: meas.guarded_pump.state == "tripped", on_tick=status.line)
+        if meas.guarded_pump.state == "tripped":
+            break
 
 
 def _frequency_program(meas, frequencies, seconds: float, status) -> None:

@@ -178,6 +178,11 @@ class Measurement:
                 f"{mode} mode needs a lock-in amplifier as the detector; this bench has {where} "
                 "(see bench/data/demo_lockin_bench.toml)"
             )
+        if mode_of(mode).steps_wavelength and "wavelength" not in self.cfg.instruments:
+            raise MeasurementError(
+                f"{mode} mode tunes the probe: the bench file needs an instrument of role wavelength "
+                '([instruments.wavelength], e.g. driver = "wavelength-source", profile = "generic-wavelength")'
+            )
         if driver == "meter" and not mode_of(mode).polled:
             fits = ", ".join(name for name, m in MODES.items() if m.polled and LOCKIN_X not in m.channels)
             raise MeasurementError(
@@ -612,6 +617,18 @@ class Measurement:
                 "setting", self.clock.now(), {"pump_current": float(current), "pump_power": float(power)}, who
             )
         )
+
+    def set_wavelength(self, wavelength: float, who: str = "gainbench", settle_timeout: float = 5.0) -> None:
+        """Tune the probe (instrument of role ``wavelength``), wait until it has settled, and
+        announce the new wavelength to the estimator (a new step from the settle time on)."""
+        source = self.instruments["wavelength"]
+        source.set_wavelength(wavelength)
+        source.wait_settled(settle_timeout)
+        self.control_q.put(Control("setting", self.clock.now(), {"probe_wavelength": float(wavelength)}, who))
+
+    def tuning_range(self) -> tuple[float, float]:
+        """(shortest, longest) wavelength of the tunable probe, m."""
+        return self.instruments["wavelength"].tuning_range()
 
     def set_modulation(self, hz: float | None, who: str = "gainbench") -> None:
         pump = self.instruments["pump"]
