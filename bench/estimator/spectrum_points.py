@@ -68,11 +68,49 @@ def _interp(anchors: list[Mapping[str, Any]], t: float, key: str, sig: str) -> t
     return (1 - w) * a[key] + w * b[key], (1 - w) ** 2 * a[sig] ** 2 + w**2 * b[sig] ** 2
 
 
-def _held(params: EstimatorParams, wavelength: float, sa: float, se: float) -> float:
+def _flux(params: EstimatorParams, wavelength: float) -> float:
     if params.probe_kind != "cw" or not params.probe_peak > 0:
         return 0.0
-    flux = float(physics.photon_flux(params.probe_mean, wavelength))
+    return float(physics.photon_flux(params.probe_mean, wavelength))
+
+
+def _held(params: EstimatorParams, wavelength: float, sa: float, se: float) -> float:
+    flux = _flux(params, wavelength)
+    if flux == 0.0:
+        return 0.0
     return float(physics.probe_held_fraction(flux, max(se, 0.0), max(sa, 0.0), params.tau))
+
+
+def pumped_fraction(
+    params: EstimatorParams,
+    beta0: float,
+    lam0: float,
+    xs0: tuple[float, float],
+    lam: float,
+    xs: tuple[float, float],
+) -> float:
+    """The pumped excited fraction at probe wavelength ``lam`` given ``beta0`` at ``lam0``.
+
+    The probe's own rates shift the pumped steady state: with the pump's up and total rates
+    ``f W`` and ``W`` (``f = sigma_ap / (sigma_ap + sigma_ep)``) and the probe's ``S_a = sigma_a
+    Phi`` and ``S = (sigma_a + sigma_e) Phi``, ``beta = (f W + S_a) / (W + S + 1/tau)`` (two-level
+    rate equations, Svelto ch. 7); ``W`` follows from ``beta0``, then beta at ``lam``. The pump
+    is taken as uniform along the sample (a first-order correction, some 1e-4 of beta here).
+    """
+    f = params.pump_fraction_max
+    phi0, phi = _flux(params, lam0), _flux(params, lam)
+    if f is None or (phi0 == 0.0 and phi == 0.0):
+        return beta0
+    sa0, se0 = xs0
+    sa, se = xs
+    s_a0, s0 = sa0 * phi0, (sa0 + se0) * phi0
+    k = 1.0 / params.tau
+    if not f - beta0 > 0:
+        return beta0
+    w = (beta0 * (s0 + k) - s_a0) / (f - beta0)
+    if not w > 0:
+        return beta0
+    return (f * w + max(sa, 0.0) * phi) / (w + max(sa + se, 0.0) * phi + k)
 
 
 def _q(value: float, noise: float, sys: float) -> dict[str, float]:
@@ -107,6 +145,7 @@ def spectrum_entries(params: EstimatorParams, points: Sequence[Mapping[str, Any]
         beta_p = lnr0 / ((sa0 + se0) * nl)  # pump-induced, above the probe-held part
         beta_on = beta_p + b_off0
         lnr, var_r = float(pt["ln_ratio"]), float(pt["ln_ratio_sigma"]) ** 2
+        b_on = beta_on
         if anchor:
             sa, se, noise_a, noise_sum, d_ln = sa0, se0, 0.0, 0.0, 0.0
         else:
@@ -115,12 +154,13 @@ def spectrum_entries(params: EstimatorParams, points: Sequence[Mapping[str, Any]
                 gain_spectrum.absorption_from_transmission(pt["ln_s_off"] - ln_empty, p.n_total, p.length, rf)
             )
             sa, se = bl, se0
-            for _ in range(3):  # fixed point: the probe-held part at this step's own cross-sections
+            for _ in range(3):  # fixed point: the probe's own rates at this step's cross-sections
                 b_off = _held(p, lam, sa, se)
                 sa = bl + (sa + se) * b_off
-                if not beta_on - b_off > 0:
+                b_on = pumped_fraction(p, beta_on, p.probe_wavelength, (sa0, se0), lam, (sa, se))
+                if not b_on - b_off > 0:
                     break
-                s_sum = lnr / (nl * (beta_on - b_off))
+                s_sum = lnr / (nl * (b_on - b_off))
                 se = s_sum - sa
             noise_a = math.sqrt(pt["ln_s_off_sigma"] ** 2 + var_s0) / nl
             s_sum = sa + se
@@ -135,7 +175,7 @@ def spectrum_entries(params: EstimatorParams, points: Sequence[Mapping[str, Any]
         sys_e = math.hypot(sys_sum, sys_a)
         noise_beta = beta_on * math.sqrt(var_r0) / abs(lnr0) if lnr0 else math.inf
         sys_beta = beta_p * math.hypot(u_sum, rel_nl)
-        beta = beta_on
+        beta = b_on  # the pumped excited fraction at this wavelength
         sigma_g = float(gain_spectrum.gain_cross_section(se, sa, min(max(beta, 0.0), 1.0)))
         # d sigma_g = beta d sigma_e - (1 - beta) d sigma_a with d sigma_e = d sigma_sum - d sigma_a
         noise_g = math.hypot(beta * noise_sum, noise_a)

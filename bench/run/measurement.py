@@ -98,6 +98,7 @@ class Measurement:
         seed: int | None = None,
         sim_in_process: bool = False,
         lockin_frequencies: tuple[float, ...] = (),
+        probe_wavelengths: tuple[float, ...] = (),
     ):
         self.cfg = cfg
         self.mode = mode
@@ -115,6 +116,7 @@ class Measurement:
         #: A lock-in bench: the modulation frequencies the run will use (its output filter is
         #: set for the lowest, `bench.run.lockin_setup.configure_filter`).
         self.lockin_frequencies = tuple(float(f) for f in lockin_frequencies)
+        self.probe_wavelengths = tuple(float(w) for w in probe_wavelengths)
         self.sim = None
         self.instruments: dict[str, Any] = {}
         self.identities: dict[str, str] = {}
@@ -212,6 +214,10 @@ class Measurement:
             resources = simulated_resources(resources, self.sim)
         # filled as they open: what opened before a failure is closed by `close`
         open_instruments(cfg, resources, self.instruments, self.identities, on_event=self.control_q.put)
+        if self.probe_wavelengths:  # a scan the source cannot reach: refused before a run file exists
+            from bench.run.wavelength_program import check_in_range
+
+            check_in_range(self.probe_wavelengths, self.tuning_range(), None)
         pump = self.instruments["pump"]
         shutter = self.instruments.get("shutter")
         self.clock = RunClock(self.speed)  # the run's time zero: instruments open, nothing read yet
@@ -619,12 +625,21 @@ class Measurement:
         )
 
     def set_wavelength(self, wavelength: float, who: str = "gainbench", settle_timeout: float = 5.0) -> None:
-        """Tune the probe (instrument of role ``wavelength``), wait until it has settled, and
-        announce the new wavelength to the estimator (a new step from the settle time on)."""
+        """Tune the probe (instrument of role ``wavelength``) and wait until it has settled.
+
+        The estimator is told first, at the time of the command, so that no sample taken at the
+        new wavelength counts in the step before; the new step's samples count from its
+        ``step_settle_time`` on (the simulated QW-1 changes the light at the command; a source
+        that drifts in for longer than that is not yet waited for by the estimator).
+        """
         source = self.instruments["wavelength"]
+        self.control_q.put(Control("setting", self.clock.now(), {"probe_wavelength": float(wavelength)}, who))
         source.set_wavelength(wavelength)
         source.wait_settled(settle_timeout)
-        self.control_q.put(Control("setting", self.clock.now(), {"probe_wavelength": float(wavelength)}, who))
+
+    def probe_wavelength(self) -> float:
+        """The tunable probe's wavelength now, m."""
+        return self.instruments["wavelength"].wavelength()
 
     def tuning_range(self) -> tuple[float, float]:
         """(shortest, longest) wavelength of the tunable probe, m."""

@@ -63,7 +63,7 @@ def check_in_range(wavelengths: tuple[float, ...], tuning: tuple[float, float], 
         if not lo - 1e-15 <= lam <= hi + 1e-15:
             raise ConfigError(
                 f"--wavelengths: {lam * 1e9:.6g} nm is outside the tunable source's range "
-                f"{lo * 1e9:.6g} ... {hi * 1e9:.6g} nm (from {text or 'the default'!r})"
+                f"{lo * 1e9:.6g} ... {hi * 1e9:.6g} nm" + (f" (from {text!r})" if text else "")
             )
 
 
