@@ -81,6 +81,34 @@ def _held(params: EstimatorParams, wavelength: float, sa: float, se: float) -> f
     return float(physics.probe_held_fraction(flux, max(se, 0.0), max(sa, 0.0), params.tau))
 
 
+#: Slices of the sample for the pump's absorption along it, and the grid of front-face pump
+#: rates (1/s) searched for the one that gives the anchors' excited fraction.
+SLICES = 48
+_RATE_GRID = np.logspace(-2.0, 8.0, 501)
+
+
+def _mean_beta(w0: np.ndarray, f: float, absorbance: float, s_a: float, s: float, k: float) -> np.ndarray:
+    """Length-averaged steady excited fraction for front-face pump rates ``w0`` (array).
+
+    Slice by slice (`SLICES`), ``beta = (f W + S_a) / (W + S + 1/tau)`` and the pump's flux falls
+    by ``exp(-(A / n)(1 - beta / f))`` (Beer-Lambert with the absorption the excited ions no longer
+    give and the emission they add: ``sigma_ap N1 - sigma_ep N2 = sigma_ap N (1 - beta / f)``),
+    evaluated at the slice's middle (one midpoint step). Svelto, ch. 2 and 7.
+    """
+    flux = np.ones_like(w0)
+    total = np.zeros_like(w0)
+    a = absorbance / SLICES
+    for _ in range(SLICES):
+        w = w0 * flux
+        b = (f * w + s_a) / (w + s + k)
+        mid = flux * np.exp(-0.5 * a * (1.0 - b / f))
+        w = w0 * mid
+        b = (f * w + s_a) / (w + s + k)
+        total += b
+        flux = flux * np.exp(-a * (1.0 - b / f))
+    return total / SLICES
+
+
 def pumped_fraction(
     params: EstimatorParams,
     beta0: float,
@@ -94,23 +122,34 @@ def pumped_fraction(
     The probe's own rates shift the pumped steady state: with the pump's up and total rates
     ``f W`` and ``W`` (``f = sigma_ap / (sigma_ap + sigma_ep)``) and the probe's ``S_a = sigma_a
     Phi`` and ``S = (sigma_a + sigma_e) Phi``, ``beta = (f W + S_a) / (W + S + 1/tau)`` (two-level
-    rate equations, Svelto ch. 7); ``W`` follows from ``beta0``, then beta at ``lam``. The pump
-    is taken as uniform along the sample (a first-order correction, some 1e-4 of beta here).
+    rate equations, Svelto ch. 7). The pump rate falls along the sample (`_mean_beta`, with the
+    configured unbleached pump absorbance; uniform without one); the front-face rate that gives
+    ``beta0`` at ``lam0`` then gives beta at ``lam`` (a correction of some 1e-4 of beta here).
     """
     f = params.pump_fraction_max
     phi0, phi = _flux(params, lam0), _flux(params, lam)
-    if f is None or (phi0 == 0.0 and phi == 0.0):
+    if f is None or (phi0 == 0.0 and phi == 0.0) or not f - beta0 > 0:
         return beta0
     sa0, se0 = xs0
-    sa, se = xs
+    sa, se = max(xs[0], 0.0), max(xs[1], 0.0)
     s_a0, s0 = sa0 * phi0, (sa0 + se0) * phi0
+    s_a, s = sa * phi, (sa + se) * phi
     k = 1.0 / params.tau
-    if not f - beta0 > 0:
+    absorbance = params.pump_absorbance or 0.0
+    betas = _mean_beta(_RATE_GRID, f, absorbance, s_a0, s0, k)
+    if not betas[0] < beta0 < betas[-1]:
         return beta0
-    w = (beta0 * (s0 + k) - s_a0) / (f - beta0)
-    if not w > 0:
-        return beta0
-    return (f * w + max(sa, 0.0) * phi) / (w + max(sa + se, 0.0) * phi + k)
+    log_w = float(np.interp(beta0, betas, np.log(_RATE_GRID)))
+    # refine: one secant step on the exact profile around the interpolated rate
+    w = np.array([math.exp(log_w) * 0.999, math.exp(log_w) * 1.001])
+    bb = _mean_beta(w, f, absorbance, s_a0, s0, k)
+    if bb[1] != bb[0]:
+        w_star = w[0] + (beta0 - bb[0]) * (w[1] - w[0]) / (bb[1] - bb[0])
+    else:
+        w_star = math.exp(log_w)
+    b_ref = float(_mean_beta(np.array([w_star]), f, absorbance, s_a0, s0, k)[0])
+    b_lam = float(_mean_beta(np.array([w_star]), f, absorbance, s_a, s, k)[0])
+    return beta0 + (b_lam - b_ref)  # the shift at the same pump, on the measured beta0
 
 
 def _q(value: float, noise: float, sys: float) -> dict[str, float]:
