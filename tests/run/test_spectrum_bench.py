@@ -78,11 +78,19 @@ def test_sigma_a_and_sigma_e_within_4_sigma_noise_of_the_truth_at_each_wavelengt
             est, true = e[key], truth[key]["value"]
             assert est["sigma_noise"] > 0, (key, e)
             assert abs(est["value"] - true) < 4 * est["sigma_noise"], (key, e["wavelength_m"], est, true)
+        beta = e["beta"]  # the pumped excited fraction at this wavelength, against the medium's
+        assert abs(beta["value"] - truth["beta"]["value"]) < 4 * beta["sigma_noise"], (
+            e["wavelength_m"],
+            beta,
+            truth,
+        )
         # a measurement, not a shrug: sigma_e known to better than 5 % of itself
         assert e["sigma_e_m2"]["sigma_noise"] < 0.05 * e["sigma_e_m2"]["value"], e
     # the McCumber check ran against the bench file's zero line, and warned about the wings
     mc = s["spectrum_mccumber"]
     assert mc["far_from_zero_line_m"] and "amplifies" in mc["warning"]
+    # the simulated sample obeys McCumber at the bench file's zero line (lineshape.py): consistent
+    assert len(mc["z"]) == 10 and mc["max_abs_z"] < 4
     assert "mccumber_far_from_zero_line" in s["flags"]
 
 
@@ -106,12 +114,23 @@ def test_exported_spectrum_is_read_back_by_check(scan, capsys, tmp_path):
     assert cfg.sample.sigma.probe_emission == pytest.approx(first.probe_emission, rel=1e-6)
     assert cfg.sample.sigma.pump_absorption == pytest.approx(first.pump_absorption, rel=1e-6)
     # a measured row as written: read with numpy, independently of bench.physics.spectra
-    rows = np.loadtxt(out, delimiter=",", comments="#", skiprows=0, dtype=str)
-    table = np.array([[float(x) for x in r] for r in rows[1:]])  # past the header line
+    lines = [ln for ln in out.read_text(encoding="utf-8").splitlines() if ln and not ln.startswith("#")]
+    assert lines[0] == "wavelength [nm],sigma_a [cm^2],sigma_e [cm^2]"
+    table = np.array([[float(x) for x in ln.split(",")] for ln in lines[1:]])
     e = next(e for e in s["spectrum"] if abs(e["wavelength_m"]["value"] - 1018e-9) < 1e-13)
     row = table[np.argmin(abs(table[:, 0] - 1018))]
     assert row[1] * 1e-4 == pytest.approx(max(e["sigma_a_m2"]["value"], 0), rel=1e-5)
     assert row[2] * 1e-4 == pytest.approx(e["sigma_e_m2"]["value"], rel=1e-5)
+
+
+def test_report_draws_the_cross_section_spectra(scan, tmp_path):
+    logs, run_id = scan
+    out = tmp_path / "report"
+    with redirect_stdout(io.StringIO()):
+        assert main(["report", run_id, "--logs", str(logs), "--out", str(out)]) == 0
+    png = out / "fig-cross-sections-a1.png"
+    assert png.is_file() and png.stat().st_size > 10_000
+    assert "Cross-section spectra" in (out / "report.html").read_text(encoding="utf-8")
 
 
 def test_replay_reproduces_the_stored_estimates(scan, capsys):
