@@ -169,6 +169,10 @@ class SimulatedBench:
             elif f.kind in ("garble", "slow"):
                 end = None if f.duration is None else start + f.duration
                 self._reply_faults[f.role].add(f.kind, start, end)
+            elif f.kind == "error" and start <= now:
+                # due now: queued before the injecting command returns, so that the very next
+                # command to the instrument meets it (through the scheduler thread it could come late)
+                self.core.errors[f.role].push(DEVICE_FAULT)
             else:
                 self._later(start, f.kind, f.role)
 

@@ -39,7 +39,7 @@ from simulated_instruments.device_errors import ILLEGAL_VALUE, INPUT_OVER_RANGE,
 from simulated_instruments.diode_driver_model import RAMP_TIME, DiodeDriverModel
 from simulated_instruments.drive import Drive, Gate, SquareWave
 from simulated_instruments.faults import MODEL_KINDS, Fault
-from simulated_instruments.lineshape import probe_cross_sections, tuning_range
+from simulated_instruments.lineshape import DEFAULT_TEMPERATURE, probe_cross_sections, tuning_range
 from simulated_instruments.medium import GainMedium
 from simulated_instruments.medium_timeline import MediumTimeline
 from simulated_instruments.sample_heating import READING_NOISE_K, SampleHeating
@@ -73,6 +73,9 @@ TRUTH_FIELDS = (
     "gain_per_m",
     "n2_probe_only",
     "inputs_steady_s",
+    "probe_wavelength",
+    "sigma_a",
+    "sigma_e",
 )
 
 #: The fields of `BenchModel.pulse_truth`, in the order of the scope's ``SIM:TRUTh:PULSe?``.
@@ -221,7 +224,11 @@ class BenchModel:
         cfg = self.cfg
         sig = cfg.sample.sigma
         sa, se = probe_cross_sections(
-            wavelength, cfg.probe.wavelength, sig.probe_absorption, sig.probe_emission
+            wavelength,
+            cfg.probe.wavelength,
+            sig.probe_absorption,
+            sig.probe_emission,
+            float(getattr(cfg.sample, "temperature", DEFAULT_TEMPERATURE)),
         )
         flux = cfg.probe.power / (_top_hat_area(cfg.probe.beam_diameter) * _photon_energy(wavelength))
         return sa, se, sa * flux, (sa + se) * flux
@@ -752,6 +759,8 @@ class BenchModel:
         how long the medium's inputs (pump power on the sample, probe) have been constant, s
         (since the last setting change, modulation or chopper edge, or the end of a ramp), so
         that a reader can tell a settled state from one caught during a transient.
+        ``probe_wavelength`` (m) and the probe's ``sigma_a``, ``sigma_e`` there (m², `lineshape`;
+        at a heated sample's base temperature).
         """
         slices = self._timeline.state()
         n2 = float(np.mean(slices))
@@ -775,6 +784,9 @@ class BenchModel:
             "gain_per_m": ln_on / s.length,
             "n2_probe_only": self._n2_off,
             "inputs_steady_s": self._timeline.drive.steady_for(self.t, self._drive_since),
+            "probe_wavelength": self._wavelength,
+            "sigma_a": self._sigma_as,
+            "sigma_e": self._sigma_es,
         }
 
     @property

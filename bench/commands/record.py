@@ -83,6 +83,13 @@ def configure(parser: argparse.ArgumentParser) -> None:
         "and --seconds is then only the longest it may take beyond their pulse period)",
     )
     parser.add_argument(
+        "--wavelengths",
+        metavar="START:STOP:STEP",
+        help="spectrum mode: probe wavelengths, e.g. 1010nm:1050nm:2nm or 1020nm,1030nm,1040nm "
+        "(default: the bench wavelength -/+ 20 nm in 4 nm steps); the run also measures at the bench "
+        "wavelength first and last; --seconds is then the time at each wavelength",
+    )
+    parser.add_argument(
         "--logs", metavar="DIR", help="run store directory (default: the bench file's run.log_dir)"
     )
     parser.add_argument(
@@ -175,6 +182,9 @@ def run(args: argparse.Namespace) -> int:
     period = _mode_period(args, cfg, currents[0])
     frequencies = _lockin_frequencies(args, cfg)
     shots = _shots(args)
+    wavelengths = _spectrum_wavelengths(args, cfg)
+    if wavelengths:
+        settings["probe_wavelength"] = cfg.probe.wavelength
     if mode.steps_pump:
         settings = dict(mode.run_settings)  # a sweep: each step chopped (`Mode.run_settings`)
     answers, operator = _flag_answers(args, cfg)
@@ -189,12 +199,15 @@ def run(args: argparse.Namespace) -> int:
         operator=operator or "",
         seed=args.seed,
         lockin_frequencies=frequencies,
+        probe_wavelengths=wavelengths,
     )
     status = _Status(meas, quiet=args.quiet)
     with meas:
         print(
             f"gainbench: run {meas.run_id} on {cfg.name}{'  [SIMULATED]' if cfg.simulated else ''}", file=out
         )
+        if wavelengths and abs(meas.probe_wavelength() - cfg.probe.wavelength) > 1e-6 * cfg.probe.wavelength:
+            meas.set_wavelength(cfg.probe.wavelength)  # the scan starts at the bench wavelength
         if "shutter" in meas.instruments and not args.no_dark:
             print("capturing dark (probe shutter closed) ...", file=out)
             meas.capture_dark()
@@ -219,6 +232,8 @@ def run(args: argparse.Namespace) -> int:
             _frequency_program(meas, frequencies, args.seconds, status)
         elif shots is not None:
             _shot_program(meas, cfg, shots, args.seconds, status)
+        elif wavelengths:
+            _wavelength_program(meas, cfg, wavelengths, args.seconds, status, operator)
         else:
             per_step = args.seconds / len(currents)
             for k, i in enumerate(currents):
@@ -360,6 +375,38 @@ def _shot_program(meas, cfg, shots: int, seconds: float, status) -> None:
                 "triggered by the pump's pulses? (gainbench summary lists the run's gap events)"
             )
         meas.hold(0.05, should_stop=done, on_tick=status.line)
+
+
+def _spectrum_wavelengths(args, cfg) -> tuple[float, ...]:
+    """The probe wavelengths of a spectrum run (empty for another mode), syntax checked first."""
+    from bench.run.wavelength_program import parse_wavelengths
+
+    if not mode_of(args.mode).steps_wavelength:
+        if args.wavelengths is not None:
+            takers = [name for name, m in MODES.items() if m.steps_wavelength]
+            raise ConfigError(f"--wavelengths: applies to {' and '.join(takers)} mode, not {args.mode}")
+        return ()
+    if "wavelength" not in cfg.instruments:
+        raise ConfigError(
+            f"--mode {args.mode}: {cfg.source} has no tunable probe ([instruments.wavelength], e.g. "
+            'driver = "wavelength-source", profile = "generic-wavelength")'
+        )
+    return parse_wavelengths(args.wavelengths, cfg.probe.wavelength)
+
+
+def _wavelength_program(meas, cfg, wavelengths, seconds: float, status, operator: str) -> None:
+    """The bench wavelength, each wavelength in turn, the bench wavelength again: at each the
+    step settle time, then ``seconds`` of chopped data (the pump is already emitting)."""
+    from bench.run.wavelength_program import visiting_order
+
+    order = visiting_order(wavelengths, cfg.probe.wavelength)
+    per_step = meas.params.step_settle_time + seconds
+    for k, lam in enumerate(order):
+        if k:
+            meas.set_wavelength(lam, who=operator)
+        meas.hold(per_step, should_stop=lambda: meas.guarded_pump.state == "tripped", on_tick=status.line)
+        if meas.guarded_pump.state == "tripped":
+            break
 
 
 def _frequency_program(meas, frequencies, seconds: float, status) -> None:

@@ -118,6 +118,9 @@ class Mode:
     timing: Timing | None = None
     period: str | None = None
     steps_pump: bool = False
+    #: It tunes the probe during a run (``gainbench record --wavelengths``; needs an instrument
+    #: of role ``wavelength``).
+    steps_wavelength: bool = False
     settings: tuple[str, ...] = ()
     #: The settings a run of this mode starts with when it steps the pump itself (a sweep's
     #: ``method``); a steady or modulated mode starts with the pump current and power instead.

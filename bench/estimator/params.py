@@ -203,6 +203,9 @@ class EstimatorParams:
     )
     sigma_e_per_kelvin: float = 0.0
     u_temperature_dependence: float = 0.0  # relative standard uncertainty of both
+    refractive_index: float = 1.5  # of the sample, for the Fresnel loss of its faces
+    #: sigma_ap / (sigma_ap + sigma_ep): the largest excited fraction the pump alone reaches
+    pump_fraction_max: float | None = None
 
     def __post_init__(self) -> None:
         positive = (
@@ -368,6 +371,8 @@ class EstimatorParams:
             spectrum=spectrum,
             zero_line_energy=physics.photon_energy(s.zero_line).item() if s.zero_line is not None else None,
             temperature=s.temperature,
+            refractive_index=s.refractive_index,
+            pump_fraction_max=s.sigma.pump_absorption / (s.sigma.pump_absorption + s.sigma.pump_emission),
             sigma_a_per_kelvin=s.probe_absorption_per_kelvin,
             sigma_e_per_kelvin=s.probe_emission_per_kelvin,
             u_temperature_dependence=s.uncertainty.temperature_dependence,

@@ -2,7 +2,7 @@
 
 The gain physics of a pumped quasi-three-level medium is split by topic: `saturation`
 (photons, saturation, transparency, probe weakness), `gain` (ln R <-> inversion <-> gain and
-its units), `cross_section_relations` (McCumber, Füchtbauer-Ladenburg), `frantz_nodvik`
+its units), `gain_spectrum` (cross-sections from a probe-wavelength scan, McCumber reciprocity), `cross_section_relations` (McCumber, Füchtbauer-Ladenburg), `frantz_nodvik`
 (pulsed probes), `heating` (ln R of a sample the pump warms, back at its baseline's temperature), `rate_equations` (the pumped manifold) and `lockin_response` (the
 response to a square-wave pump at its modulation frequency) with `lockin_analysis` (ln R and
 the lifetime from lock-in readings); `constants` holds h, c and k_B, and
@@ -54,6 +54,13 @@ from bench.physics.gain import (
     per_m_to_db_per_cm,
     per_m_to_per_cm,
     unpumped_transmission,
+)
+from bench.physics.gain_spectrum import (
+    absorption_from_transmission,
+    emission_from_ln_ratio,
+    empty_beam_ln_level,
+    gain_cross_section,
+    mccumber_reciprocity,
 )
 from bench.physics.heating import ln_ratio_at_baseline_temperature, ln_ratio_of_a_warm_modulated_sample
 from bench.physics.lockin_analysis import (
@@ -120,6 +127,11 @@ __all__ = [
     "frantz_nodvik_output",
     "frantz_nodvik_small_signal_gain",
     "fresnel_reflectance",
+    "absorption_from_transmission",
+    "emission_from_ln_ratio",
+    "empty_beam_ln_level",
+    "gain_cross_section",
+    "mccumber_reciprocity",
     "fuchtbauer_ladenburg",
     "full_inversion_gain",
     "gaussian_peak",

@@ -23,6 +23,7 @@ from typing import Any
 
 from bench.errors import GainbenchError
 from bench.report import html as report_html
+from bench.report.cross_section_figure import cross_section_figure
 from bench.report.data import (
     ALL,
     LIVE,
@@ -273,10 +274,20 @@ def draw_figures(reader: RunReader, data: ReportData, out: Path, *, buckets: int
         )
         save(
             f"spectrum-a{a.id}",
-            lambda final=final: spectrum_figure(final, title=rid) if final is not None else None,
+            lambda final=final: (
+                spectrum_figure(final, title=rid) if final is not None and final.mode == "sweep" else None
+            ),
             f"Gain spectrum{name}",
             "Pump-induced gain change ln R / L at each probe wavelength (±1σ noise) with the fitted Voigt "
             "line (in optical frequency).",
+        )
+        save(
+            f"cross-sections-a{a.id}",
+            lambda final=final: cross_section_figure(final, title=rid),
+            f"Cross-section spectra{name}",
+            "Absorption and emission cross-sections at each probe wavelength of a spectrum run (bands: "
+            "±2σ, noise and systematic); lower panel: the gain cross-section β σe − (1 − β) σa for a "
+            "family of excited fractions β, and at the measured β.",
         )
 
     t_end = float(data.duration_s or 0.0)

@@ -98,6 +98,7 @@ class Measurement:
         seed: int | None = None,
         sim_in_process: bool = False,
         lockin_frequencies: tuple[float, ...] = (),
+        probe_wavelengths: tuple[float, ...] = (),
     ):
         self.cfg = cfg
         self.mode = mode
@@ -115,6 +116,7 @@ class Measurement:
         #: A lock-in bench: the modulation frequencies the run will use (its output filter is
         #: set for the lowest, `bench.run.lockin_setup.configure_filter`).
         self.lockin_frequencies = tuple(float(f) for f in lockin_frequencies)
+        self.probe_wavelengths = tuple(float(w) for w in probe_wavelengths)
         self.sim = None
         self.instruments: dict[str, Any] = {}
         self.identities: dict[str, str] = {}
@@ -197,6 +199,11 @@ class Measurement:
                 f"{self.cfg.source}: pump.pulse_width and pump.pulse_period: {mode} mode pulses the pump, "
                 'so the bench file must give both, e.g. pulse_width = "0.5 ms", pulse_period = "10 ms"'
             )
+        if mode_of(mode).steps_wavelength and "wavelength" not in self.cfg.instruments:
+            raise MeasurementError(
+                f"{mode} mode tunes the probe: the bench file needs an instrument of role wavelength "
+                '([instruments.wavelength], e.g. driver = "wavelength-source", profile = "generic-wavelength")'
+            )
         if driver == "meter" and not mode_of(mode).polled:
             fits = ", ".join(name for name, m in MODES.items() if m.polled and LOCKIN_X not in m.channels)
             raise MeasurementError(
@@ -220,6 +227,10 @@ class Measurement:
             resources = simulated_resources(resources, self.sim)
         # filled as they open: what opened before a failure is closed by `close`
         open_instruments(cfg, resources, self.instruments, self.identities, on_event=self.control_q.put)
+        if self.probe_wavelengths:  # a scan the source cannot reach: refused before a run file exists
+            from bench.run.wavelength_program import check_in_range
+
+            check_in_range(self.probe_wavelengths, self.tuning_range(), None)
         pump = self.instruments["pump"]
         shutter = self.instruments.get("shutter")
         self.clock = RunClock(self.speed)  # the run's time zero: instruments open, nothing read yet
@@ -685,6 +696,27 @@ class Measurement:
                 "setting", self.clock.now(), {"pump_current": float(current), "pump_power": float(power)}, who
             )
         )
+
+    def set_wavelength(self, wavelength: float, who: str = "gainbench", settle_timeout: float = 5.0) -> None:
+        """Tune the probe (instrument of role ``wavelength``) and wait until it has settled.
+
+        The estimator is told first, at the time of the command, so that no sample taken at the
+        new wavelength counts in the step before; the new step's samples count from its
+        ``step_settle_time`` on (the simulated QW-1 changes the light at the command; a source
+        that drifts in for longer than that is not yet waited for by the estimator).
+        """
+        source = self.instruments["wavelength"]
+        self.control_q.put(Control("setting", self.clock.now(), {"probe_wavelength": float(wavelength)}, who))
+        source.set_wavelength(wavelength)
+        source.wait_settled(settle_timeout)
+
+    def probe_wavelength(self) -> float:
+        """The tunable probe's wavelength now, m."""
+        return self.instruments["wavelength"].wavelength()
+
+    def tuning_range(self) -> tuple[float, float]:
+        """(shortest, longest) wavelength of the tunable probe, m."""
+        return self.instruments["wavelength"].tuning_range()
 
     def set_modulation(self, hz: float | None, who: str = "gainbench") -> None:
         pump = self.instruments["pump"]

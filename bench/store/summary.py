@@ -139,6 +139,11 @@ def truth_over(
     return truth_figures(pick, cfg)
 
 
+def truth_over_rows(rows: list[dict[str, Any]], cfg: BenchConfig) -> tuple[dict[str, float], str] | None:
+    """`truth_figures` of the pumped, settled rows among ``rows``."""
+    return truth_figures(_pumped_rows(rows, -math.inf, math.inf, _settle_rule(cfg)), cfg)
+
+
 def _q(q: Quantity) -> dict[str, float]:
     return {
         "value": q.value,
@@ -347,6 +352,14 @@ def summary(reader: RunReader, cfg: BenchConfig, analysis_id: int | None = None)
         out["fit"] = lockin_fit(final)
     if final is not None and final.mode == "pulsed":
         out["shots"] = int(final.extra.get("shots", 0))
+    if final is not None and final.mode == "spectrum":
+        from bench.store.spectrum_summary import spectrum_fits, spectrum_list
+
+        out["spectrum"] = spectrum_list(final, reader if simulated else None, cfg, truth_over_rows)
+        fits = spectrum_fits(final)
+        for key in ("mccumber", "error"):
+            if key in fits:
+                out[f"spectrum_{key}"] = fits[key]
     truth = truth_over(reader, cfg, final, span) if simulated else None
     if simulated and final is not None and final.mode == "pulsed":
         truth = pulsed_truth(reader.truth(), cfg)

@@ -33,6 +33,9 @@ SIM_TRUTH_FIELDS = (
     "gain_per_m",
     "n2_probe_only",
     "inputs_steady_s",
+    "probe_wavelength",
+    "sigma_a",
+    "sigma_e",
 )
 
 DATA_FORMATS = ("binary", "ascii")

@@ -293,9 +293,9 @@ def test_text_and_int_and_csv(tmp_path):
     prof = load_profile("generic-digitiser")
     errors = prof.errors
     assert codec.decode_line(prof.command("position"), b"123456", errors) == 123456
-    truth = codec.decode_line(prof.command("sim_truth"), b"1,2,3,4,5,6,7,8,9,10,11,12,13", errors)
-    np.testing.assert_array_equal(truth, np.arange(1, 14))
-    with pytest.raises(ReplyError, match="expected 13 numbers"):
+    truth = codec.decode_line(prof.command("sim_truth"), b"1,2,3,4,5,6,7,8,9,10,11,12,13,14,15,16", errors)
+    np.testing.assert_array_equal(truth, np.arange(1, 17))
+    with pytest.raises(ReplyError, match="expected 16 numbers"):
         codec.decode_line(prof.command("sim_truth"), b"1,2,3", errors)
     text = MINIMAL_PUMP.replace('reply = "idn"', 'reply = "text"')
     cmd = load_profile(write(tmp_path, text)).command("identify")

@@ -163,7 +163,7 @@ def test_run_period_follows_the_current(cfg):
         ("chopped", "0 ms", "--period: '0 ms' is not a positive time"),
         ("chopped", "fast", "--period"),
         ("chopped", "3 A", "--period"),
-        ("watch", "50 ms", "--period: applies to chopped, decay and sweep modes"),
+        ("watch", "50 ms", "--period: applies to chopped, decay, sweep and spectrum modes"),
         ("decay", "4 ms", "decay mode: a pump period of 4 ms"),
     ],
 )

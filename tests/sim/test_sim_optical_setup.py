@@ -281,6 +281,9 @@ def test_truth_fields():
         "gain_per_m",
         "n2_probe_only",
         "inputs_steady_s",
+        "probe_wavelength",
+        "sigma_a",
+        "sigma_e",
     }
     assert tr["t"] == pytest.approx(0.1)
     assert tr["beta"] == pytest.approx(tr["n2_avg"] / s.n_total)

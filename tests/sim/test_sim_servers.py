@@ -155,7 +155,7 @@ def test_ascii_fetch_and_truth(sim, rm):
         values = [float(v) for v in det.query("FETC:DATA? 10").split(",")]
         assert len(values) == 30
         truth = det.query("SIM:TRUTH?").split(",")
-        assert len(truth) == 13  # COMMANDS.md: SIM:TRUTH? has 13 fields
+        assert len(truth) == 16  # COMMANDS.md: SIM:TRUTH? has 16 fields
         assert float(truth[6]) == pytest.approx(CFG.sample.n_total, rel=1e-9)
         assert float(truth[7]) == pytest.approx(CFG.sample.length, rel=1e-9)
     finally:

@@ -8,7 +8,7 @@ The order of the rows is the order the dashboard and ``gainbench record --help``
 from __future__ import annotations
 
 from bench.estimator.mode import MODES, register_mode
-from bench.estimator.modes import chopped, decay, lockin, pulsed, sweep, watch
+from bench.estimator.modes import chopped, decay, lockin, pulsed, spectrum, sweep, watch
 
 for _mode in (
     watch.MODE,
@@ -17,8 +17,9 @@ for _mode in (
     sweep.MODE,
     lockin.MODE,
     pulsed.MODE,
+    spectrum.MODE,
 ):
     if _mode.name not in MODES:
         register_mode(_mode)
 
-__all__ = ["watch", "chopped", "decay", "sweep", "lockin", "pulsed"]
+__all__ = ["watch", "chopped", "decay", "sweep", "lockin", "pulsed", "spectrum"]
