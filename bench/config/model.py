@@ -45,8 +45,8 @@ class SampleConfig:
     uncertainty: SampleUncertainty
     spectrum_file: Path | None = None
     zero_line: float | None = None  # m, wavelength of the zero-phonon (McCumber) energy
-    #: Relative change per kelvin of the probe's cross-sections about ``temperature`` (1/K):
-    #: sigma(T) = sigma (1 + k (T - temperature)). Zero: no correction for heating.
+    #: Relative change per kelvin of the probe's cross-sections (1/K), which hold at the
+    #: baseline's temperature: sigma(T) = sigma (1 + k (T - T_baseline)). Zero: no correction.
     probe_absorption_per_kelvin: float = 0.0
     probe_emission_per_kelvin: float = 0.0
 
