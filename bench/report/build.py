@@ -40,6 +40,7 @@ from bench.report.estimate_figures import (
     truth_series,
 )
 from bench.report.figure_style import save_png
+from bench.report.pulse_figure import pulse_figure
 from bench.report.signal_data import signal_trace
 from bench.report.signal_figure import signals_figure
 from bench.report.timeline_figure import timeline_figure
@@ -288,6 +289,15 @@ def draw_figures(reader: RunReader, data: ReportData, out: Path, *, buckets: int
             "Absorption and emission cross-sections at each probe wavelength of a spectrum run (bands: "
             "±2σ, noise and systematic); lower panel: the gain cross-section β σe − (1 − β) σa for a "
             "family of excited fractions β, and at the measured β.",
+        )
+
+        save(
+            f"pulses-a{a.id}",
+            lambda final=final: pulse_figure(final, title=rid),
+            f"Pulsed shots{name}",
+            "The mean gain transient ln R(t) after the trigger over the shots (band: ±2σ of the mean, "
+            "from the shot-to-shot scatter), the pump pulse shaded; lower panel: each shot's peak ln R "
+            "(circles, left axis) and decay time (triangles, right axis) on the run's time axis.",
         )
 
     t_end = float(data.duration_s or 0.0)

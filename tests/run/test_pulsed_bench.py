@@ -92,6 +92,22 @@ def test_the_run_stores_one_block_per_shot_with_its_trigger_times(pulsed_run):
     assert all(b > a for a, b in zip(starts, starts[1:]))
 
 
+def test_the_report_draws_the_shots(pulsed_run, tmp_path, capsys):
+    """`gainbench report` on a pulsed run: the shots' figure beside the others, named on the page.
+    The mean transient it draws must peak at the pump pulse's end (0.5 ms after the trigger on
+    the demo bench: the population rises while the pump is on and decays after; rate equations,
+    common practice, no source)."""
+    logs, run_id = pulsed_run
+    out = tmp_path / "report"
+    assert main(["report", run_id, "--logs", str(logs), "--out", str(out)]) == 0
+    assert (out / "fig-pulses-a1.png").stat().st_size > 10_000
+    assert "Pulsed shots" in (out / "report.html").read_text(encoding="utf-8")
+    with RunReader(logs / f"{run_id}.gbrun") as r:
+        tr = r.final_estimate().extra["transient"]
+    k = max(range(len(tr["ln_ratio"])), key=lambda i: tr["ln_ratio"][i])
+    assert tr["t_s"][k] == pytest.approx(0.5e-3, abs=0.05e-3)
+
+
 def test_pulsed_replay_reproduces_the_stored_estimates(pulsed_run, capsys):
     logs, run_id = pulsed_run
     capsys.readouterr()
