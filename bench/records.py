@@ -149,6 +149,7 @@ FLAGS = (
     "background_high",
     "temperature_drift",
     "temperature_unknown",
+    "heating_ripple",
 )
 
 

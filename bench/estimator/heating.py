@@ -184,6 +184,10 @@ def corrected_ln_ratio(
     u = params.u_temperature_dependence
     sys = math.hypot(at(dt, ka * (1 + u), ke) - value, at(dt, ka, ke * (1 + u)) - value) if u > 0 else 0.0
     flags = {"temperature_drift"} if temps.hi - temps.lo > DRIFT_FLAG_K else set()
+    if both_warm and abs(dt) > DRIFT_FLAG_K:
+        # the halves are taken as equally warm; a sample whose thermal time is not far longer
+        # than the period is warmer in the pump-on half (not corrected, not in sigma)
+        flags.add("heating_ripple")
     extra = {
         "sample_temperature_k": temps.mean,
         "baseline_temperature_k": temps.baseline,

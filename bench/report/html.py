@@ -61,6 +61,9 @@ FLAG_MEANINGS = {
     "above 1 % of the probe level: the result leans on that subtraction",
     "temperature_drift": "the sample's temperature moved by more than 1 K within the estimate: the correction to "
     "the baseline's temperature uses its mean",
+    "heating_ripple": "a modulated pump heated the sample by more than 1 K: the correction takes the pump-on and "
+    "pump-off half-periods as equally warm, but a sample whose thermal time is not far longer than the period is "
+    "warmer in the pump-on half, which reads as less inversion (not corrected, not in sigma)",
     "temperature_unknown": "the bench file gives the cross-sections' temperature dependence but no reading of the "
     "sample's temperature (at the baseline or during the estimate) was there to correct with",
 }

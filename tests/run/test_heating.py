@@ -104,9 +104,13 @@ def test_replay_reproduces_the_stored_estimates(heated, capsys):
 
 
 def test_chopped_mode_corrects_the_warm_sample_in_both_half_periods(tmp_path, capsys):
-    """Chopped at 50 ms, far faster than the sample's 0.3 s: the pump-off half-periods are as
-    warm as the pump-on ones, so the correction is the cross-sections' ratio, not the baseline's
-    absorption (`bench.physics.ln_ratio_of_a_warm_modulated_sample`)."""
+    """Chopped at 50 ms against the sample's 0.3 s: the pump-off half-periods are nearly as warm
+    as the pump-on ones, so the correction is the cross-sections' ratio, not the baseline's
+    absorption (`bench.physics.ln_ratio_of_a_warm_modulated_sample`). Nearly: a first-order
+    thermal model driven by a square wave swings by A tanh(T/4tau) peak to peak (A the full-power
+    rise, T the period; common practice, no source), here about 0.9 K, so the pump-on halves are
+    some 0.45 K warmer than the pump-off ones. The correction leaves that out and says so
+    (``heating_ripple``); the test checks that it removes most of the error, and the flag."""
     buf = io.StringIO()
     with redirect_stdout(buf):
         code = main(["record", "--mode", "chopped", "--quiet", "--logs", str(tmp_path), *ARM, *HEATING])
@@ -114,7 +118,7 @@ def test_chopped_mode_corrects_the_warm_sample_in_both_half_periods(tmp_path, ca
     run_id = buf.getvalue().strip().splitlines()[-1]
     s = summary(tmp_path, run_id, capsys)
     est, truth = s["estimates"]["beta"], s["truth"]["beta"]["value"]
-    assert abs(est["value"] - truth) <= 4 * est["sigma_noise"], (est, truth)
+    assert "heating_ripple" in s["flags"], s["flags"]
     capsys.readouterr()
     code = main(
         [
@@ -132,3 +136,5 @@ def test_chopped_mode_corrects_the_warm_sample_in_both_half_periods(tmp_path, ca
     beta = json.loads(capsys.readouterr().out)["estimates"]["beta"]
     # warm cross-sections are larger: uncorrected, the same inversion reads high
     assert (beta["value"] - truth) > 20 * beta["sigma_noise"], (beta, truth)
+    # the ripple's share (about 0.45 K of sigma_a at 1 %/K, some 1.5e-4 in beta) is what is left
+    assert abs(est["value"] - truth) < 0.2 * abs(beta["value"] - truth), (est, beta, truth)
