@@ -144,6 +144,23 @@ def truth_over_rows(rows: list[dict[str, Any]], cfg: BenchConfig) -> tuple[dict[
     return truth_figures(_pumped_rows(rows, -math.inf, math.inf, _settle_rule(cfg)), cfg)
 
 
+def settled_truth_over_rows(
+    rows: list[dict[str, Any]], cfg: BenchConfig
+) -> tuple[dict[str, float], str] | None:
+    """`truth_figures` of the pumped rows among ``rows`` that were settled, or None if none was.
+
+    For a short step of a chopped run (a spectrum's wavelength), where the truth poller may
+    catch no settled row at all: then there is no truth of the pumped state, rather than the
+    truth of rows caught on a pump edge."""
+    settle = _settle_rule(cfg)
+    steady = [
+        r
+        for r in _pumped_rows(rows, -math.inf, math.inf)
+        if "inputs_steady_s" in r and r["inputs_steady_s"] >= settle(r.get("pump_w", r.get("pump_W", 0.0)))
+    ]
+    return truth_figures(steady, cfg) if steady else None
+
+
 def _q(q: Quantity) -> dict[str, float]:
     return {
         "value": q.value,
@@ -355,7 +372,7 @@ def summary(reader: RunReader, cfg: BenchConfig, analysis_id: int | None = None)
     if final is not None and final.mode == "spectrum":
         from bench.store.spectrum_summary import spectrum_fits, spectrum_list
 
-        out["spectrum"] = spectrum_list(final, reader if simulated else None, cfg, truth_over_rows)
+        out["spectrum"] = spectrum_list(final, reader if simulated else None, cfg, settled_truth_over_rows)
         fits = spectrum_fits(final)
         for key in ("mccumber", "error"):
             if key in fits:

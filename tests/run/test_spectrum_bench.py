@@ -71,6 +71,7 @@ def test_sigma_a_and_sigma_e_within_4_sigma_noise_of_the_truth_at_each_wavelengt
     # the default scan, less 1030 nm: the bench wavelength is an anchor (the bench file's values)
     expected = [x * 1e-9 for x in range(1010, 1051, 4) if x != 1030]
     assert lam == pytest.approx(expected, abs=1e-13)
+    with_beta = 0
     for e in entries:
         truth = e["truth"]
         assert truth is not None, e
@@ -79,13 +80,18 @@ def test_sigma_a_and_sigma_e_within_4_sigma_noise_of_the_truth_at_each_wavelengt
             assert est["sigma_noise"] > 0, (key, e)
             assert abs(est["value"] - true) < 4 * est["sigma_noise"], (key, e["wavelength_m"], est, true)
         beta = e["beta"]  # the pumped excited fraction at this wavelength, against the medium's
-        assert abs(beta["value"] - truth["beta"]["value"]) < 4 * beta["sigma_noise"], (
-            e["wavelength_m"],
-            beta,
-            truth,
-        )
+        # (its truth only from truth rows the poller caught settled in a pump-on half: a short
+        # step may have none, and rows caught on a pump edge are not the pumped state)
+        if "beta" in truth:
+            with_beta += 1
+            assert abs(beta["value"] - truth["beta"]["value"]) < 4 * beta["sigma_noise"], (
+                e["wavelength_m"],
+                beta,
+                truth,
+            )
         # a measurement, not a shrug: sigma_e known to better than 5 % of itself
         assert e["sigma_e_m2"]["sigma_noise"] < 0.05 * e["sigma_e_m2"]["value"], e
+    assert with_beta >= len(entries) // 2, f"only {with_beta} of {len(entries)} steps have a settled truth"
     # the McCumber check ran against the bench file's zero line, and warned about the wings
     mc = s["spectrum_mccumber"]
     assert mc["far_from_zero_line_m"] and "amplifies" in mc["warning"]
