@@ -88,8 +88,8 @@ def test_live_on_the_lockin_bench_at_80x24_opens_in_lockin_mode(tmp_path):
             f"echo $? > {shlex.quote(str(done))}; sleep 60"
         )
         tmux.start(command)
-        tmux.wait_for("lockin, pump modulated at 25 Hz", timeout=90)
-        tmux.wait_for("mode lockin")  # the run panel, once the run file is open
+        tmux.wait_for("mode lockin", timeout=90)  # the run panel, once the run file is open
+        tmux.wait_for("estimate (lockin")  # (the status line's mode message may be overwritten)
         time.sleep(2.0)
         assert "no estimate yet" in tmux.screen()
         tmux.keys("q")
@@ -100,5 +100,9 @@ def test_live_on_the_lockin_bench_at_80x24_opens_in_lockin_mode(tmp_path):
             assert time.monotonic() < deadline, tmux.screen()
             time.sleep(0.2)
         assert done.read_text().strip() == "0"
+        (run,) = logs.glob("*.gbrun")
+        with RunReader(run) as r:
+            texts = [e.text for e in r.events()]
+        assert "pump modulation 25 Hz" in texts, texts
     finally:
         tmux.kill()
