@@ -23,7 +23,7 @@ import numpy as np
 
 from bench.errors import ConfigError
 from bench.records import LOCKIN_X, LOCKIN_Y, OVERLOAD, PROBE, REFERENCE, REFERENCE_HZ, Block
-from bench.run.readers import READ_SPREAD, Reader
+from bench.run.readers import READ_SPREAD, Reader, instrument_clock_zero
 
 log = logging.getLogger(__name__)
 
@@ -71,14 +71,9 @@ class LockInReader(Reader):
     def start_acquisition(self) -> None:
         """Find where the lock-in's clock's zero lies on the run clock (for the simulator's truth
         rows), as the meter's reader does; without a clock query, the run's start."""
-        self.t_start = self.clock.now()
-        try:
-            t1 = self.clock.now()
-            counted = self.lockin.clock()
-            t2 = self.clock.now()
-            self.t_start = 0.5 * (t1 + t2) - counted
-        except Exception as exc:  # no clock query in this profile
-            log.info("lock-in clock not read (%s); truth times from the run start", exc)
+        self.t_start = instrument_clock_zero(
+            self.clock, self.lockin, "lock-in", "truth times from the run start"
+        )
         self._next = time.monotonic()
 
     def read_once(self) -> Block | None:

@@ -82,6 +82,22 @@ class DropCounter:
             return dict(self._counts), dict(self._samples)
 
 
+def instrument_clock_zero(clock: RunClock, instrument, what: str, otherwise: str) -> float:
+    """Run-clock time at which ``instrument``'s own clock read zero: the midpoint of one clock
+    exchange minus its reading, so a slow reply costs half its round trip in accuracy, not all
+    of it. Without a clock query the run clock's time now, logged with ``otherwise`` (what the
+    times are then counted from)."""
+    fallback = clock.now()
+    try:
+        t1 = clock.now()
+        counted = instrument.clock()  # simulated or real seconds since start = run-clock seconds
+        t2 = clock.now()
+    except Exception as exc:  # no clock query in this profile
+        log.info("%s clock not read (%s); %s", what, exc, otherwise)
+        return fallback
+    return 0.5 * (t1 + t2) - counted
+
+
 class Reader(threading.Thread):
     """Base reader: calls `read_once` until stopped, putting what it returns on the queue."""
 
@@ -201,14 +217,9 @@ class DetectorReader(Reader):
         start command returned is used.
         """
         self.digitiser.start()
-        self.t_start = self.clock.now()
-        try:
-            t1 = self.clock.now()
-            acquired = self.digitiser.clock()  # simulated or real seconds since start = run-clock seconds
-            t2 = self.clock.now()
-            self.t_start = 0.5 * (t1 + t2) - acquired
-        except Exception as exc:  # no clock query in this profile: keep the start time
-            log.info("digitiser clock not read (%s); sample times from the start command", exc)
+        self.t_start = instrument_clock_zero(
+            self.clock, self.digitiser, "digitiser", "sample times from the start command"
+        )
         self.next_index = 0
 
     def read_once(self) -> Block | None:
@@ -283,14 +294,9 @@ class MeterReader(Reader):
     def start_acquisition(self) -> None:
         """Find where the meter's clock's zero lies on the run clock (for the simulator's truth
         rows), as the digitiser reader does; without a clock query, the run's start."""
-        self.t_start = self.clock.now()
-        try:
-            t1 = self.clock.now()
-            counted = self.meter.clock()
-            t2 = self.clock.now()
-            self.t_start = 0.5 * (t1 + t2) - counted
-        except Exception as exc:  # no clock query in this profile
-            log.info("meter clock not read (%s); truth times from the run start", exc)
+        self.t_start = instrument_clock_zero(
+            self.clock, self.meter, "meter", "truth times from the run start"
+        )
         self._next = time.monotonic()
 
     def read_once(self) -> Block | None:

@@ -27,7 +27,7 @@ import math
 import numpy as np
 
 from bench.records import TRIGGER_TIME, Block
-from bench.run.readers import CommStatus, Reader
+from bench.run.readers import CommStatus, Reader, instrument_clock_zero
 
 log = logging.getLogger(__name__)
 
@@ -52,14 +52,9 @@ class ScopeReader(Reader):
     def start_acquisition(self) -> None:
         """Find where the scope's clock's zero lies on the run clock (for the simulator's truth
         rows), as the other readers do; without a clock query, the run's start."""
-        self.t_start = self.clock.now()
-        try:
-            t1 = self.clock.now()
-            counted = self.scope.clock()
-            t2 = self.clock.now()
-            self.t_start = 0.5 * (t1 + t2) - counted
-        except Exception as exc:  # no clock query in this profile
-            log.info("scope clock not read (%s); truth times from the run start", exc)
+        self.t_start = instrument_clock_zero(
+            self.clock, self.scope, "scope", "truth times from the run start"
+        )
 
     def read_once(self) -> Block | None:
         from drivers.errors import InstrumentTimeout, ReplyError
