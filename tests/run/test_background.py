@@ -12,13 +12,11 @@ the step exists for. The replay is checked against the stored live estimates.
 
 from __future__ import annotations
 
-import io
-import json
-from contextlib import redirect_stdout
 from pathlib import Path
 
 import pytest
-from cli_flags import ARM
+from cli_runs import record_run
+from cli_runs import summary_json as summary
 
 from bench.cli import main
 from bench.store import RunReader
@@ -27,18 +25,7 @@ FLUORESCENCE = ["--set", "simulation.fluorescence_on_probe=20uW"]
 
 
 def record(logs: Path, *extra: str) -> tuple[str, str]:
-    buf = io.StringIO()
-    with redirect_stdout(buf):
-        code = main(["record", "--quiet", "--logs", str(logs), *ARM, *extra])
-    out = buf.getvalue()
-    assert code == 0, out
-    return out.strip().splitlines()[-1], out
-
-
-def summary(logs: Path, run_id: str, capsys) -> dict:
-    capsys.readouterr()
-    assert main(["summary", run_id, "--logs", str(logs), "--json"]) == 0
-    return json.loads(capsys.readouterr().out)
+    return record_run(logs, *extra)
 
 
 def z_scores(s: dict) -> dict[str, float]:

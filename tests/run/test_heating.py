@@ -15,10 +15,10 @@ from __future__ import annotations
 import io
 import json
 from contextlib import redirect_stdout
-from pathlib import Path
 
 import pytest
 from cli_flags import ARM
+from cli_runs import summary_json as summary
 
 from bench.cli import main
 from bench.store import RunReader
@@ -41,12 +41,6 @@ def heated(tmp_path_factory):
         code = main(["record", "--quiet", "--logs", str(logs), *ARM, *HEATING])
     assert code == 0, buf.getvalue()
     return logs, buf.getvalue().strip().splitlines()[-1]
-
-
-def summary(logs: Path, run_id: str, capsys, *extra: str) -> dict:
-    capsys.readouterr()
-    assert main(["summary", run_id, "--logs", str(logs), "--json", *extra]) == 0
-    return json.loads(capsys.readouterr().out)
 
 
 def test_the_run_records_the_sample_temperature_rising(heated):

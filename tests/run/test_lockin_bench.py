@@ -10,14 +10,14 @@ The replay is checked against the stored live estimates ("identical" in replay's
 
 from __future__ import annotations
 
-import io
 import json
 import math
-from contextlib import redirect_stdout
 from pathlib import Path
 
 import pytest
 from cli_flags import ARM
+from cli_runs import record_run
+from cli_runs import summary_json as summary
 
 from bench.cli import main
 from bench.store import RunReader
@@ -28,18 +28,7 @@ METER_BENCH = str(DATA / "demo_meter_bench.toml")
 
 
 def record(logs: Path, *extra: str) -> tuple[str, str]:
-    buf = io.StringIO()
-    with redirect_stdout(buf):
-        code = main(["record", "--config", LOCKIN_BENCH, "--quiet", "--logs", str(logs), *ARM, *extra])
-    out = buf.getvalue()
-    assert code == 0, out
-    return out.strip().splitlines()[-1], out
-
-
-def summary(logs: Path, run_id: str, capsys) -> dict:
-    capsys.readouterr()
-    assert main(["summary", run_id, "--logs", str(logs), "--json"]) == 0
-    return json.loads(capsys.readouterr().out)
+    return record_run(logs, "--config", LOCKIN_BENCH, *extra)
 
 
 @pytest.fixture(scope="module")

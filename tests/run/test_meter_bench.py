@@ -9,13 +9,13 @@ the estimates): on a simulated sample with no parameter error the estimate lies 
 
 from __future__ import annotations
 
-import io
 import json
-from contextlib import redirect_stdout
 from pathlib import Path
 
 import pytest
 from cli_flags import ARM
+from cli_runs import record_run
+from cli_runs import summary_json as summary
 
 from bench.cli import main
 from bench.store import RunReader
@@ -24,18 +24,7 @@ METER_BENCH = str(Path(__file__).resolve().parents[2] / "bench" / "data" / "demo
 
 
 def record(logs: Path, *extra: str) -> str:
-    buf = io.StringIO()
-    with redirect_stdout(buf):
-        code = main(["record", "--config", METER_BENCH, "--quiet", "--logs", str(logs), *ARM, *extra])
-    out = buf.getvalue()
-    assert code == 0, out
-    return out.strip().splitlines()[-1]
-
-
-def summary(logs: Path, run_id: str, capsys) -> dict:
-    capsys.readouterr()
-    assert main(["summary", run_id, "--logs", str(logs), "--json"]) == 0
-    return json.loads(capsys.readouterr().out)
+    return record_run(logs, "--config", METER_BENCH, *extra)[0]
 
 
 @pytest.fixture(scope="module")

@@ -12,7 +12,6 @@ them. The replay is checked against the stored live estimates ("identical" in re
 from __future__ import annotations
 
 import io
-import json
 import re
 from contextlib import redirect_stdout
 from pathlib import Path
@@ -20,6 +19,8 @@ from pathlib import Path
 import numpy as np
 import pytest
 from cli_flags import ARM
+from cli_runs import record_run
+from cli_runs import summary_json as summary
 
 from bench.cli import main
 from bench.config import load_bench
@@ -29,31 +30,7 @@ SPECTRUM_BENCH = str(DATA / "demo_spectrum_bench.toml")
 
 
 def record(logs: Path, *extra: str) -> str:
-    buf = io.StringIO()
-    with redirect_stdout(buf):
-        code = main(
-            [
-                "record",
-                "--config",
-                SPECTRUM_BENCH,
-                "--mode",
-                "spectrum",
-                "--quiet",
-                "--logs",
-                str(logs),
-                *ARM,
-                *extra,
-            ]
-        )
-    out = buf.getvalue()
-    assert code == 0, out
-    return out.strip().splitlines()[-1]
-
-
-def summary(logs: Path, run_id: str, capsys) -> dict:
-    capsys.readouterr()
-    assert main(["summary", run_id, "--logs", str(logs), "--json"]) == 0
-    return json.loads(capsys.readouterr().out)
+    return record_run(logs, "--config", SPECTRUM_BENCH, "--mode", "spectrum", *extra)[0]
 
 
 @pytest.fixture(scope="module")
